@@ -1,0 +1,1 @@
+"""SCPI text, dialects, pyvisa sessions, instrument roles and the simulated bench."""

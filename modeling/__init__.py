@@ -1,0 +1,1 @@
+"""Junction physics, small-signal model, fitters and model cards: pure numpy/scipy."""

@@ -1,0 +1,214 @@
+"""DC model of a junction diode: thermal voltage, I(V) and V(I).
+
+Model (see PHYSICS.md §2): junction current
+
+    Ij(Vd) = IS*(exp(Vd/a) - 1) + Vd/RSH - IBV*exp(-(Vd + BV)/a),   a = N*Vt
+
+with terminal voltage V = Vd + I*RS. The breakdown term follows the simulator
+convention that the reverse current is IBV at Vd = -BV (Nagel, SPICE2, 1975).
+
+Away from breakdown the current is the exact explicit Lambert-W solution (Banwell &
+Jayakumar, Electron. Lett. 36(4), 2000; with shunt, Ortiz-Conde et al., Solid-State
+Electron. 44, 2000), with W(exp(x)) evaluated as the Wright omega function so nothing
+overflows. Each one-exponential branch has the explicit form; where both the forward and
+the breakdown exponential matter, the two explicit solutions bracket the exact one and a
+few safeguarded Newton steps finish the job. Everything is vectorized.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import constants
+from scipy.special import wrightomega
+
+from .params import DEFAULT_TEMPERATURE_K, DiodeParams
+
+#: Largest exponent used before clipping (exp(700) ~ 1e304 is still finite).
+_EXP_CAP = 700.0
+
+
+def thermal_voltage(temperature_K: float = DEFAULT_TEMPERATURE_K) -> float:
+    """kT/q in volts, from scipy.constants (CODATA, exact since the 2019 SI)."""
+    if not temperature_K > 0:
+        raise ValueError(f"temperature must be > 0 K, got {temperature_K!r}")
+    return constants.k * temperature_K / constants.e
+
+
+def _exp(x):
+    return np.exp(np.minimum(x, _EXP_CAP))
+
+
+def _breakdown_log_k(p: DiodeParams, a: float) -> float:
+    """ln K of the breakdown term -K*exp(-Vd/a) (K = IBV*exp(-BV/a)); -inf without.
+
+    Kept as a logarithm: K itself underflows for BV above ~18 V.
+    """
+    if not math.isfinite(p.BV):
+        return -math.inf
+    return math.log(p.IBV) - p.BV / a
+
+
+def _k_exp(log_k: float, x):
+    """K*exp(x) computed as exp(ln K + x), finite for any K and x."""
+    if log_k == -math.inf:
+        return np.zeros_like(np.asarray(x, dtype=float))
+    return _exp(log_k + x)
+
+
+def _explicit_current(v, A, g, log_k, s, rs, a):
+    """Solve I = A + g*Vd + s*K*exp(s*Vd/a), Vd = v - I*rs, for I (exactly).
+
+    One-exponential branch: s = +1 forward (K = IS), s = -1 breakdown; K given as ln K.
+    """
+    base = (A + g * v) / (1.0 + g * rs)
+    if log_k == -math.inf:
+        return base
+    if rs == 0.0:
+        return A + g * v + s * _k_exp(log_k, s * v / a)
+    x = log_k + math.log(rs / (a * (1.0 + g * rs))) + s * (v - rs * base) / a
+    w = np.real(wrightomega(x))
+    return base + s * (a / rs) * w
+
+
+def _explicit_vd(i, A, g, log_k, s, a):
+    """Solve I = A + g*Vd + s*K*exp(s*Vd/a) for Vd (exactly), one-exponential branch."""
+    if log_k == -math.inf:
+        return (i - A) / g
+    if g == 0.0:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return s * a * (np.log(s * (i - A)) - log_k)
+    x = log_k - math.log(g * a) + s * (i - A) / (g * a)
+    w = np.real(wrightomega(x))
+    return (i - A) / g - s * a * w
+
+
+def junction_current(vd, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K):
+    """Current through the junction and shunt [A] at junction voltage vd [V]."""
+    a = params.N * thermal_voltage(temperature_K)
+    vd = np.asarray(vd, dtype=float)
+    g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
+    log_k = _breakdown_log_k(params, a)
+    return params.IS * np.expm1(np.minimum(vd / a, _EXP_CAP)) + g * vd - _k_exp(log_k, -vd / a)
+
+
+def junction_conductance(vd, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K):
+    """dIj/dVd [S] of the junction alone (no shunt): IS*exp(Vd/a)/a + breakdown slope."""
+    a = params.N * thermal_voltage(temperature_K)
+    vd = np.asarray(vd, dtype=float)
+    log_k = _breakdown_log_k(params, a)
+    return (params.IS * _exp(vd / a) + _k_exp(log_k, -vd / a)) / a
+
+
+def current(v, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K):
+    """Terminal current [A] at terminal voltage v [V] (array or scalar)."""
+    a = params.N * thermal_voltage(temperature_K)
+    v_arr = np.asarray(v, dtype=float)
+    g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
+    rs = params.RS
+    i_fwd = _explicit_current(v_arr, -params.IS, g, math.log(params.IS), +1, rs, a)
+    log_k = _breakdown_log_k(params, a)
+    if log_k == -math.inf:
+        return i_fwd if v_arr.ndim else float(i_fwd)
+    i_bd = _explicit_current(v_arr, -params.IS, g, log_k, -1, rs, a)
+
+    def residual(i, v_):
+        return i - junction_current(v_ - i * rs, params, temperature_K)
+
+    # The exact I lies in [i_bd, i_fwd]: each explicit branch leaves out one exponential.
+    # Keep the better one; refine only where neither is exact (near a low breakdown knee).
+    r_fwd, r_bd = residual(i_fwd, v_arr), residual(i_bd, v_arr)
+    use_bd = np.abs(r_bd) < np.abs(r_fwd)
+    i = np.where(use_bd, i_bd, i_fwd)
+    r = np.where(use_bd, r_bd, r_fwd)
+    need = np.abs(r) > 1e-13 * np.maximum(np.abs(i), params.IS)
+    if np.any(need):
+        i = np.array(i, dtype=float, copy=True)
+        i[need] = _newton(
+            lambda x, k=need: residual(x, v_arr[k]),
+            lambda x, k=need: 1.0 + rs * (g + junction_conductance(v_arr[k] - x * rs,
+                                                                   params, temperature_K)),
+            *_widened(np.minimum(i_bd, i_fwd)[need], np.maximum(i_bd, i_fwd)[need], 0.0),
+            i[need],
+        )
+    return i if v_arr.ndim else float(i)
+
+
+def _widened(lo, hi, scale: float):
+    """The bracket [lo, hi] opened by a little more than the rounding of its ends.
+
+    The explicit branches can lose digits to cancellation (a large shunt with deep
+    breakdown), so their ends may sit a few ulps on the wrong side of the root.
+    """
+    pad = 1e-9 * (np.abs(lo) + np.abs(hi)) + 1e-9 * scale
+    return lo - pad, hi + pad
+
+
+def _newton(f, df, lo, hi, x, iterations: int = 100):
+    """Safeguarded Newton for an increasing f on the bracket [lo, hi] (vectorized)."""
+    lo, hi, x = lo.copy(), hi.copy(), x.copy()
+    for _ in range(iterations):
+        r = f(x)
+        lo = np.where(r < 0, x, lo)
+        hi = np.where(r > 0, x, hi)
+        step = x - r / df(x)
+        outside = ~((step >= lo) & (step <= hi))
+        new = np.where(r == 0, x, np.where(outside, 0.5 * (lo + hi), step))
+        done = np.abs(new - x) <= 4e-16 * np.abs(new) + 1e-300
+        x = new
+        if np.all(done):
+            break
+    return x
+
+
+def junction_voltage(
+    i_junction, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K
+):
+    """Junction voltage Vd [V] at which junction + shunt carry i_junction [A].
+
+    Currents at or below -IS are reachable only through a shunt or breakdown; without
+    either the result is -inf there.
+    """
+    a = params.N * thermal_voltage(temperature_K)
+    i = np.asarray(i_junction, dtype=float)
+    g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
+    log_k = _breakdown_log_k(params, a)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        vd_fwd = _explicit_vd(i, -params.IS, g, math.log(params.IS), +1, a)
+        vd_fwd = np.where(np.isnan(vd_fwd), -np.inf, vd_fwd)
+        if log_k == -math.inf:
+            return vd_fwd if i.ndim else float(vd_fwd)
+        vd_bd = _explicit_vd(i, -params.IS, g, log_k, -1, a)
+    # The exact Vd lies in [vd_fwd, vd_bd] (each branch leaves out one exponential); the
+    # breakdown branch has no solution where the current is above -IS.
+    vd_bd = np.where(np.isnan(vd_bd), np.inf, vd_bd)
+    hi = np.minimum(vd_bd, np.where(i < 0, 0.0, np.inf))
+    lo = np.where(np.isfinite(vd_fwd), vd_fwd, hi - 60 * a)
+
+    def residual(x, k):
+        return junction_current(x, params, temperature_K) - i[k]
+
+    candidates = np.stack([np.where(np.isfinite(lo), lo, 0.0), np.where(np.isfinite(hi), hi, 0.0)])
+    everywhere = np.ones(i.shape, dtype=bool)
+    res = np.abs(np.stack([residual(c, everywhere) for c in candidates]))
+    pick = np.argmin(res, axis=0)
+    vd = np.where(pick == 0, candidates[0], candidates[1])
+    r = np.min(res, axis=0)
+    need = (r > 1e-13 * np.maximum(np.abs(i), params.IS)) & np.isfinite(hi)
+    if np.any(need):
+        vd = np.array(vd, dtype=float, copy=True)
+        vd[need] = _newton(
+            lambda x, k=need: residual(x, k),
+            lambda x: g + junction_conductance(x, params, temperature_K),
+            *_widened(lo[need], hi[need], a),
+            vd[need],
+        )
+    return vd if i.ndim else float(vd)
+
+
+def voltage(i, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K):
+    """Terminal voltage [V] at which the device carries current i [A]."""
+    i_arr = np.asarray(i, dtype=float)
+    v = junction_voltage(i_arr, params, temperature_K) + i_arr * params.RS
+    return v if i_arr.ndim else float(v)

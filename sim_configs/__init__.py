@@ -1,0 +1,1 @@
+"""Data: pyvisa-sim YAML files and simulated-device files for the simulated bench."""

@@ -1,0 +1,1 @@
+"""Plan files, safety limits, the runner, the run folder and its events."""

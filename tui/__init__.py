@@ -1,0 +1,1 @@
+"""What a person sees: the command line, the Textual app, headless progress, reports."""

@@ -1,0 +1,113 @@
+"""The `pnbench` command line: one entry point, one subcommand per module.
+
+Each subcommand lives in its own module `pnbench.tui.cmd_<name>` exposing
+
+    HELP: str                        -- one line for the command list
+    def add_arguments(parser): ...   -- its options
+    def run(args) -> int: ...        -- does the work, returns an exit code
+
+Modules keep heavy imports inside `run` so `pnbench --help` stays quick. This file is
+the one place where errors become exit codes and messages.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+import traceback
+from importlib import metadata
+
+from pnbench.modeling.errors import PnbenchError
+
+#: Subcommands in the order `--help` lists them.
+COMMANDS = (
+    "demo",
+    "run",
+    "resume",
+    "check",
+    "fit",
+    "qpoint",
+    "sim",
+    "probe",
+    "ui",
+    "watch",
+    "report",
+)
+
+
+def version() -> str:
+    try:
+        return metadata.version("pnbench")
+    except metadata.PackageNotFoundError:  # running from a source tree without install
+        return "0+unknown"
+
+
+def _available_commands() -> dict[str, object]:
+    found = {}
+    for name in COMMANDS:
+        try:
+            found[name] = importlib.import_module(f"pnbench.tui.cmd_{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name != f"pnbench.tui.cmd_{name}":
+                raise
+    return found
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="pnbench",
+        description=(
+            "Characterize diodes at the bench: drive a source-measure unit and an LCR "
+            "meter over SCPI, fit the junction model while the sweep runs, and write a "
+            "model card and a report. Use --simulate DUT.toml to rehearse on the "
+            "built-in simulated bench."
+        ),
+        epilog=(
+            "Exit codes: 0 done, 1 internal error, 2 bad input, 3 instrument or "
+            "connection error, 4 stopped by a safety limit or the operator."
+        ),
+    )
+    parser.add_argument("--version", action="version", version=f"pnbench {version()}")
+    parser.add_argument(
+        "--debug", action="store_true", help="show a traceback with every error"
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, module in _available_commands().items():
+        p = sub.add_parser(name, help=module.HELP, description=module.HELP)
+        p.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+        module.add_arguments(p)
+        p.set_defaults(_module=module)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return 2
+    debug = bool(getattr(args, "debug", False))
+    try:
+        code = args._module.run(args)
+    except PnbenchError as exc:
+        if debug or exc.exit_code == 1:
+            traceback.print_exc()
+        print(f"pnbench {args.command}: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print(f"pnbench {args.command}: stopped by the operator (Ctrl-C)", file=sys.stderr)
+        return 4
+    except Exception:  # noqa: BLE001 - the last line of defence, reported as internal
+        traceback.print_exc()
+        print(
+            f"pnbench {args.command}: internal error (a bug in pnbench; please report "
+            "it with the traceback above)",
+            file=sys.stderr,
+        )
+        return 1
+    return int(code or 0)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
