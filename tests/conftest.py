@@ -4,8 +4,14 @@ from __future__ import annotations
 
 import os
 import shutil
+import sys
+from pathlib import Path
 
 import pytest
+
+# Helper modules shared by tests (reference-simulator runners, data makers) live beside
+# this file; make them importable from every test folder.
+sys.path.insert(0, str(Path(__file__).parent))
 
 
 def _ngspice_required() -> bool:
