@@ -1,0 +1,71 @@
+"""Quantities with SI prefixes ("100u", "2.5 mA", "1MHz") for options and displays.
+
+One helper over quantiphy, so every command reads and prints numbers the same way:
+
+    parse_quantity("2.5mA", "A")   -> 0.0025
+    parse_quantity("-5", "V")      -> -5.0
+    parse_quantity("300 K", "K")   -> 300.0      (the unit is removed before the prefix is read)
+    format_quantity(0.0013, "A")   -> "1.3 mA"
+
+Prefixes are the SI ones as quantiphy reads them (case matters: ``m`` milli, ``M`` mega,
+``u`` or ``µ`` micro). A unit written after the number must be the expected one.
+"""
+
+from __future__ import annotations
+
+import math
+
+from quantiphy import InvalidNumber, Quantity
+
+from pnbench.modeling.errors import BadInput
+
+#: Other spellings accepted for a unit.
+_ALIASES = {"ohm": ("ohm", "Ohm", "Ω", "ohms"), "S": ("S",), "Hz": ("Hz",)}
+
+
+def _strip_unit(text: str, unit: str) -> tuple[str, bool]:
+    for spelling in _ALIASES.get(unit, (unit,)) if unit else ():
+        if text.endswith(spelling) and len(text) > len(spelling):
+            return text[: -len(spelling)].rstrip(), True
+    return text, False
+
+
+def parse_quantity(text: str | float, unit: str, *, what: str = "value",
+                   allow_infinite: bool = False) -> float:
+    """The value in SI units of ``text`` (a number, optionally SI-prefixed, optionally
+    followed by ``unit``). Raises BadInput naming ``what`` on anything else."""
+    if isinstance(text, (int, float)):
+        value = float(text)
+    else:
+        raw = str(text).strip()
+        if not raw:
+            raise BadInput(f"{what}: empty; expected a number such as 1.5, 2m or 2.5m{unit}")
+        body, _ = _strip_unit(raw, unit)
+        try:
+            q = Quantity(body)
+        except InvalidNumber:
+            raise BadInput(
+                f"{what}: cannot read {raw!r} as a quantity in {unit or 'plain numbers'}; "
+                f"expected a number with an optional SI prefix (f p n u m k M G T) "
+                f"and unit, such as 1.5, 2m or 2.5m{unit}"
+            ) from None
+        if q.units:
+            expected = repr(unit) if unit else "no unit"
+            raise BadInput(
+                f"{what}: {raw!r} has unit {q.units!r}, expected {expected} "
+                f"(example: 2.5m{unit})"
+            )
+        value = float(q)
+    if math.isnan(value) or (math.isinf(value) and not allow_infinite):
+        raise BadInput(f"{what}: {text!r} is not a finite number")
+    return value
+
+
+def format_quantity(value: float, unit: str, prec: int = 4) -> str:
+    """``value`` with an SI prefix and ``unit``, ``prec`` digits after the first:
+    format_quantity(1.5e-12, "F") -> "1.5 pF"; infinities print as "inf"."""
+    if math.isnan(value):
+        return f"nan {unit}".strip()
+    if math.isinf(value):
+        return f"{'-' if value < 0 else ''}inf {unit}".strip()
+    return Quantity(value, unit).render(prec=prec)
