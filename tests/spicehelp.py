@@ -1,0 +1,190 @@
+"""ngspice (batch mode) as a reference simulator for tests and reference data.
+
+Use with the ``ngspice`` fixture of tests/conftest.py (the path of the executable)::
+
+    from spicehelp import ac_admittance, dc_sweep, reference_params
+
+    def test_something(ngspice):
+        p = DiodeParams(IS=1e-14, N=1.0, RS=2.0)
+        v, i = dc_sweep(ngspice, p, np.linspace(0, 0.9, 50))       # i: anode -> cathode
+        expected = junction.current(v, reference_params(p), 300.15)  # GMIN folded in
+        y = ac_admittance(ngspice, p, [-2.0, 0.6], [1e3, 1e6])       # complex [bias, freq]
+
+What the runner does and what a comparison must account for:
+
+* Every bias point is its own copy of the circuit (a DC source and one diode) inside one
+  netlist, solved by one ``.op`` (DC) or by one ``ac lin 1 f f`` per frequency (AC), so
+  any list of voltages works in one ngspice run (~20 ms). Results come back through
+  ``write`` in ASCII raw format (16 significant digits).
+* Tight options by default: reltol 1e-9, abstol 1e-18 A, vntol 1e-12 V, chgtol 1e-20 C.
+* ngspice adds GMIN (``gmin`` here, 1e-12 S as in ngspice by default) across every
+  junction: a shunt inside RS. ``reference_params(p, gmin)`` gives the DiodeParams whose
+  RSH includes it; compare the project's model with that.
+* Temperature: ``.temp temperature_C`` and ``.options tnom=tnom_C`` (both 27 °C, i.e.
+  300.15 K, by default). DiodeParams and ModelSet inputs get ``TNOM=tnom_C`` on the card
+  (a ModelSet keeps its own temperature) so parameters mean the same in both models.
+* RSH is not a card parameter. For DiodeParams or ModelSet input with a finite RSH, the
+  netlist places a resistor RSH across the junction and RS as a separate resistor (the
+  card then has RS=0), which is the project's equivalent circuit. A card given as text
+  is used verbatim (no RSH allowed there).
+* Current sign: conventional diode current, anode to cathode (positive when forward).
+  Admittance: of the whole two-terminal device (RS included), Y = I/V for the AC source.
+* ngspice's own diode model differs from the exact Shockley form in two places a test
+  must keep away from: below -3*N*Vt (no breakdown region) it uses a cubic reverse
+  approximation, and its breakdown branch replaces, not adds to, the saturation current.
+  Both change currents by about IS, so compare where the current is well above IS.
+"""
+
+from __future__ import annotations
+
+import math
+import subprocess
+import tempfile
+from collections.abc import Sequence
+from pathlib import Path
+
+import numpy as np
+
+from pnbench.modeling.modelset import ModelSet
+from pnbench.modeling.params import DiodeParams
+
+#: Options that make ngspice's answers accurate far beyond the comparisons' tolerances.
+TIGHT_OPTIONS = {"reltol": 1e-9, "abstol": 1e-18, "vntol": 1e-12, "chgtol": 1e-20}
+
+#: ngspice's GMIN default [S].
+NGSPICE_GMIN = 1e-12
+
+_ZERO_C_K = 273.15
+_MODEL_NAME = "DREF"
+
+
+def reference_params(params: DiodeParams, gmin: float = NGSPICE_GMIN) -> DiodeParams:
+    """``params`` with GMIN folded into the shunt, as ngspice simulates them."""
+    g_sh = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
+    g = g_sh + gmin
+    return params if g == 0 else params.with_values(RSH=1.0 / g)
+
+
+def _model_lines(model, tnom_C: float) -> tuple[str, str, float, float]:
+    """(card text, model name, external RS, RSH) for the netlist."""
+    if isinstance(model, str):
+        parsed = ModelSet.from_card_text(model)
+        if "RSH" in parsed.values:
+            raise ValueError("a card given as text may not carry RSH; pass DiodeParams")
+        return model, parsed.extras["model_name"], 0.0, math.inf
+    if isinstance(model, ModelSet):
+        params, t_k = model.to_params(), model.temperature_K
+    elif isinstance(model, DiodeParams):
+        params, t_k = model, tnom_C + _ZERO_C_K
+    else:
+        raise TypeError(f"model must be card text, DiodeParams or ModelSet, not {type(model)}")
+    rs_ext, rsh = 0.0, params.RSH
+    if math.isfinite(rsh) and params.RS > 0:
+        rs_ext, params = params.RS, params.with_values(RS=0.0)
+    card = ModelSet.from_params(params, temperature_K=t_k).card_text(_MODEL_NAME)
+    return card, _MODEL_NAME, rs_ext, rsh
+
+
+def _netlist(model, voltages, temperature_C, tnom_C, gmin, options, ac: bool,
+             control: list[str]) -> str:
+    card, name, rs_ext, rsh = _model_lines(model, tnom_C)
+    lines = ["* pnbench reference netlist", card.rstrip()]
+    for k, v in enumerate(voltages):
+        lines.append(f"V{k} a{k} 0 DC {float(v)!r}" + (" AC 1" if ac else ""))
+        junction_node = f"a{k}"
+        if rs_ext > 0:
+            junction_node = f"j{k}"
+            lines.append(f"RS{k} a{k} j{k} {float(rs_ext)!r}")
+        lines.append(f"D{k} {junction_node} 0 {name}")
+        if math.isfinite(rsh):
+            lines.append(f"RSH{k} {junction_node} 0 {float(rsh)!r}")
+    opts = {**TIGHT_OPTIONS, "gmin": gmin, "tnom": tnom_C, **(options or {})}
+    lines.append(".options " + " ".join(f"{k}={float(v)!r}" for k, v in opts.items()))
+    lines.append(f".temp {float(temperature_C)!r}")
+    lines += [".control", "set filetype=ascii", *control, "quit", ".endc", ".end"]
+    return "\n".join(lines) + "\n"
+
+
+def _run(ngspice: str, netlist: str, outputs: list[str]) -> list[dict[str, np.ndarray]]:
+    with tempfile.TemporaryDirectory(prefix="pnbench-spice-") as tmp:
+        folder = Path(tmp)
+        (folder / "ref.cir").write_text(netlist)
+        proc = subprocess.run([ngspice, "-b", "ref.cir"], cwd=folder, capture_output=True,
+                              text=True, timeout=120)
+        missing = [name for name in outputs if not (folder / name).exists()]
+        if proc.returncode != 0 or missing:
+            raise RuntimeError(
+                f"ngspice failed (exit {proc.returncode}, missing {missing}):\n"
+                f"{proc.stdout[-3000:]}\n{proc.stderr[-3000:]}\n--- netlist ---\n{netlist}"
+            )
+        return [parse_ascii_raw((folder / name).read_text()) for name in outputs]
+
+
+def parse_ascii_raw(text: str) -> dict[str, np.ndarray]:
+    """Vectors of an ngspice ASCII raw file (first plot), by lower-case name."""
+    lines = text.splitlines()
+    header: dict[str, str] = {}
+    k = 0
+    while k < len(lines) and not lines[k].startswith("Variables:"):
+        key, _, value = lines[k].partition(":")
+        header[key.strip()] = value.strip()
+        k += 1
+    n_vars, n_points = int(header["No. Variables"]), int(header["No. Points"])
+    complex_data = "complex" in header.get("Flags", "")
+    names = [lines[k + 1 + j].split()[1].lower() for j in range(n_vars)]
+    k += 1 + n_vars
+    if not lines[k].startswith("Values:"):
+        raise ValueError(f"raw file: expected 'Values:' at line {k + 1}, found {lines[k]!r}")
+    tokens = [t for line in lines[k + 1:] for t in line.split()]
+    data = np.zeros((n_points, n_vars), dtype=complex if complex_data else float)
+    pos = 0
+    for p in range(n_points):
+        if int(tokens[pos]) != p:
+            raise ValueError(f"raw file: point index {tokens[pos]} where {p} was expected")
+        pos += 1
+        for j in range(n_vars):
+            if complex_data:
+                re_, im_ = tokens[pos].split(",")
+                data[p, j] = complex(float(re_), float(im_))
+            else:
+                data[p, j] = float(tokens[pos])
+            pos += 1
+    return {name: data[:, j] for j, name in enumerate(names)}
+
+
+def dc_sweep(ngspice: str, model, voltages: Sequence[float], temperature_C: float = 27.0,
+             *, tnom_C: float = 27.0, gmin: float = NGSPICE_GMIN,
+             options: dict[str, float] | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Terminal voltages [V] and diode currents [A] (anode to cathode) from ngspice.
+
+    ``model`` is card text, DiodeParams or a ModelSet; ``options`` override or add
+    ``.options`` entries (e.g. {"gmin": 1e-15}; prefer the ``gmin`` argument).
+    """
+    v = np.asarray(voltages, dtype=float).ravel()
+    netlist = _netlist(model, v, temperature_C, tnom_C, gmin, options, False,
+                       ["op", "write op.raw"])
+    (vectors,) = _run(ngspice, netlist, ["op.raw"])
+    i = np.array([-vectors[f"i(v{k})"][0] for k in range(v.size)])
+    return v, i
+
+
+def ac_admittance(ngspice: str, model, bias_voltages: Sequence[float],
+                  frequencies: Sequence[float], temperature_C: float = 27.0, *,
+                  tnom_C: float = 27.0, gmin: float = NGSPICE_GMIN,
+                  options: dict[str, float] | None = None) -> np.ndarray:
+    """Small-signal admittance [S] of the whole device (RS included), shape [bias, freq].
+
+    Real part: conductance; imaginary part / (2*pi*f): parallel capacitance.
+    """
+    v = np.asarray(bias_voltages, dtype=float).ravel()
+    f = np.asarray(frequencies, dtype=float).ravel()
+    control = []
+    for k, freq in enumerate(f):
+        control += [f"ac lin 1 {float(freq)!r} {float(freq)!r}", f"write ac{k}.raw"]
+    netlist = _netlist(model, v, temperature_C, tnom_C, gmin, options, True, control)
+    plots = _run(ngspice, netlist, [f"ac{k}.raw" for k in range(f.size)])
+    y = np.empty((v.size, f.size), dtype=complex)
+    for kf, vectors in enumerate(plots):
+        for kv in range(v.size):
+            y[kv, kf] = -vectors[f"i(v{kv})"][0]
+    return y
