@@ -1,0 +1,317 @@
+"""Instrument dialects: the command vocabulary of each role, read from a TOML file.
+
+A dialect file has a ``[dialect]`` table (name, format, separator, terminations and the
+words for on/off), a ``[common]`` table (IEEE 488.2 commands and the error-queue query)
+and one table per role it serves (``[smu]``, ``[lcr]``; a file may leave a role out).
+Every key of a table that is present must be given; an empty string means "this
+instrument has no such command" where that is allowed. Loading checks every key, its type,
+its placeholders and whether it is a query, and names the file and key of any fault.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass, fields
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+from pnbench.drivers import scpi
+from pnbench.modeling.errors import DialectError
+
+#: The two-element forms an LCR meter may report, and what they mean.
+LCR_FORMS = {
+    "CPGP": "parallel capacitance Cp [F], parallel conductance Gp [S]",
+    "CPRP": "parallel capacitance Cp [F], parallel resistance Rp [ohm]",
+    "CPD": "parallel capacitance Cp [F], dissipation factor D",
+    "CSRS": "series capacitance Cs [F], series resistance Rs [ohm]",
+    "CSD": "series capacitance Cs [F], dissipation factor D",
+    "GB": "conductance G [S], susceptance B [S]",
+    "RX": "resistance R [ohm], reactance X [ohm]",
+}
+SMU_FIELDS = ("voltage", "current", "compliance", "skip")
+LCR_FIELDS = ("primary", "secondary", "skip")
+
+
+@dataclass(frozen=True)
+class CommonCommands:
+    identify: str
+    reset: str
+    clear_status: str
+    operation_complete: str
+    next_error: str
+
+
+@dataclass(frozen=True)
+class SmuCommands:
+    source_voltage_mode: str
+    source_current_mode: str
+    set_voltage: str
+    set_current: str
+    current_limit: str
+    voltage_limit: str
+    current_range: str
+    current_autorange: str
+    voltage_range: str
+    voltage_autorange: str
+    integration_nplc: str
+    remote_sense: str
+    output: str
+    output_query: str
+    read: str
+    read_fields: tuple[str, ...]
+    tripped_sourcing_voltage: str
+    tripped_sourcing_current: str
+
+
+@dataclass(frozen=True)
+class LcrCommands:
+    frequency: str
+    ac_level: str
+    bias_level: str
+    bias_state: str
+    bias_state_query: str
+    model: str
+    form: str
+    read: str
+    read_fields: tuple[str, ...]
+    open_correction: str
+    short_correction: str
+
+
+@dataclass(frozen=True)
+class Dialect:
+    """A validated dialect. `source` names the file it came from."""
+
+    name: str
+    format: int
+    separator: str
+    read_termination: str
+    write_termination: str
+    on: str
+    off: str
+    common: CommonCommands
+    smu: SmuCommands | None
+    lcr: LcrCommands | None
+    source: str
+
+    def fill(self, template: str, **kwargs: Any) -> str:
+        """`scpi.fill` with this dialect's on/off words."""
+        return scpi.fill(template, on=self.on, off=self.off, **kwargs)
+
+    def join(self, commands: list[str]) -> str:
+        """One program message from several units, with this dialect's separator."""
+        return scpi.join(commands, self.separator)
+
+    def require(self, role: str) -> SmuCommands | LcrCommands:
+        """The commands of `role` ("smu" or "lcr"); DialectError if the file has none."""
+        table = getattr(self, role, None)
+        if table is None:
+            raise DialectError(
+                f"dialect {self.source} has no [{role}] table, so it cannot drive that "
+                f"instrument; add the table (see the default dialect for its keys)"
+            )
+        return table
+
+
+# --- what each key may hold ----------------------------------------------------------
+# kind: "setting" (no '?', no placeholder), "query" (has '?'), "value"/"state"/"form"
+# (a setting with that placeholder); a trailing "?" on the kind means "may be empty".
+_COMMON_KINDS = {
+    "identify": "query",
+    "reset": "setting",
+    "clear_status": "setting",
+    "operation_complete": "query",
+    "next_error": "query",
+}
+_SMU_KINDS = {
+    "source_voltage_mode": "setting?",
+    "source_current_mode": "setting?",
+    "set_voltage": "value",
+    "set_current": "value",
+    "current_limit": "value",
+    "voltage_limit": "value",
+    "current_range": "value?",
+    "current_autorange": "state?",
+    "voltage_range": "value?",
+    "voltage_autorange": "state?",
+    "integration_nplc": "value?",
+    "remote_sense": "state?",
+    "output": "state",
+    "output_query": "query",
+    "read": "query",
+    "read_fields": "fields",
+    "tripped_sourcing_voltage": "query?",
+    "tripped_sourcing_current": "query?",
+}
+_LCR_KINDS = {
+    "frequency": "value",
+    "ac_level": "value",
+    "bias_level": "value",
+    "bias_state": "state",
+    "bias_state_query": "query?",
+    "model": "form?",
+    "form": "form_name",
+    "read": "query",
+    "read_fields": "fields",
+    "open_correction": "setting?",
+    "short_correction": "setting?",
+}
+_DIALECT_KEYS = ("name", "format", "separator", "read_termination", "write_termination",
+                 "on", "off")
+
+
+def _fault(source: str, where: str, what: str) -> DialectError:
+    return DialectError(f"dialect {source}: {where}: {what}")
+
+
+def _check_keys(table: dict, expected: tuple[str, ...] | dict, source: str, name: str) -> None:
+    missing = [k for k in expected if k not in table]
+    unknown = [k for k in table if k not in expected]
+    if missing:
+        raise _fault(source, f"[{name}]", f"missing key {missing[0]!r} "
+                     f"(every key of the table must be given; keys: {', '.join(expected)})")
+    if unknown:
+        raise _fault(source, f"[{name}]", f"unknown key {unknown[0]!r} "
+                     f"(accepted keys: {', '.join(expected)})")
+
+
+def _check_command(value: Any, kind: str, source: str, where: str) -> str:
+    optional = kind.endswith("?")
+    kind = kind.rstrip("?")
+    if not isinstance(value, str):
+        raise _fault(source, where, f"expected a string, found {value!r}")
+    text = value.strip()
+    if not text:
+        if optional:
+            return ""
+        raise _fault(source, where, "must not be empty (this command is required)")
+    if kind == "query":
+        if "?" not in text:
+            raise _fault(source, where, f"{text!r} must be a query (contain '?')")
+        sample: dict[str, Any] = {}
+    else:
+        if text.rstrip().endswith("?"):
+            raise _fault(source, where, f"{text!r} must be a setting, not a query")
+        sample = {"setting": {}, "value": {"value": 1.0}, "state": {"state": True},
+                  "form": {"form": "CPGP"}}[kind]
+    try:
+        if kind == "form" and "{form}" not in text:
+            sample = {}  # the instrument's own word for the form, written in full
+        scpi.fill(text, **sample)
+    except ValueError as exc:
+        raise _fault(source, where, f"{exc}") from None
+    return text
+
+
+def _check_fields(value: Any, allowed: tuple[str, ...], needed: tuple[str, ...],
+                  source: str, where: str) -> tuple[str, ...]:
+    if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
+        raise _fault(source, where, f"expected a list of names, found {value!r}")
+    for v in value:
+        if v not in allowed:
+            raise _fault(source, where, f"unknown field {v!r} (accepted: {', '.join(allowed)})")
+    for n in needed:
+        if value.count(n) != 1:
+            raise _fault(source, where, f"must name {n!r} exactly once, found {value!r}")
+    if value.count("compliance") > 1:
+        raise _fault(source, where, "'compliance' may appear at most once")
+    return tuple(value)
+
+
+def _build(cls: type, table: dict, kinds: dict, source: str, name: str) -> Any:
+    _check_keys(table, kinds, source, name)
+    values = {}
+    for key, kind in kinds.items():
+        where = f"[{name}] {key}"
+        if kind == "fields":
+            allowed = SMU_FIELDS if name == "smu" else LCR_FIELDS
+            needed = ("voltage", "current") if name == "smu" else ("primary", "secondary")
+            values[key] = _check_fields(table[key], allowed, needed, source, where)
+        elif kind == "form_name":
+            form = table[key]
+            if not isinstance(form, str) or form.upper() not in LCR_FORMS:
+                raise _fault(source, where, f"unknown form {form!r} (accepted: "
+                             + "; ".join(f"{k} = {v}" for k, v in LCR_FORMS.items()) + ")")
+            values[key] = form.upper()
+        else:
+            values[key] = _check_command(table[key], kind, source, where)
+    assert {f.name for f in fields(cls)} == set(values)
+    return cls(**values)
+
+
+def parse_dialect(data: dict, source: str) -> Dialect:
+    """A Dialect from the parsed TOML document `data`; `source` names it in errors."""
+    tables = ("dialect", "common", "smu", "lcr")
+    for key in data:
+        if key not in tables:
+            raise _fault(source, "top level", f"unknown table [{key}] "
+                         f"(accepted: {', '.join('[' + t + ']' for t in tables)})")
+    for key in ("dialect", "common"):
+        if not isinstance(data.get(key), dict):
+            raise _fault(source, "top level", f"missing table [{key}]")
+    head = data["dialect"]
+    _check_keys(head, _DIALECT_KEYS, source, "dialect")
+    if head["format"] != 1:
+        raise _fault(source, "[dialect] format",
+                     f"found {head['format']!r}; this pnbench reads format 1")
+    for key in ("name", "separator", "on", "off"):
+        if not isinstance(head[key], str) or not head[key].strip():
+            raise _fault(source, f"[dialect] {key}", f"expected a non-empty string, "
+                         f"found {head[key]!r}")
+    for key in ("read_termination", "write_termination"):
+        if not isinstance(head[key], str):
+            raise _fault(source, f"[dialect] {key}", f"expected a string such as \"\\n\", "
+                         f"found {head[key]!r}")
+    if head["on"].strip().upper() == head["off"].strip().upper():
+        raise _fault(source, "[dialect] on/off", "the words for on and off must differ")
+    roles = {}
+    for role, cls, kinds in (("smu", SmuCommands, _SMU_KINDS), ("lcr", LcrCommands, _LCR_KINDS)):
+        if role in data:
+            if not isinstance(data[role], dict):
+                raise _fault(source, f"[{role}]", "expected a table")
+            roles[role] = _build(cls, data[role], kinds, source, role)
+    if not roles:
+        raise _fault(source, "top level", "no [smu] or [lcr] table: the dialect drives nothing")
+    return Dialect(
+        name=head["name"].strip(),
+        format=1,
+        separator=head["separator"].strip(),
+        read_termination=head["read_termination"],
+        write_termination=head["write_termination"],
+        on=head["on"].strip(),
+        off=head["off"].strip(),
+        common=_build(CommonCommands, data["common"], _COMMON_KINDS, source, "common"),
+        smu=roles.get("smu"),
+        lcr=roles.get("lcr"),
+        source=source,
+    )
+
+
+def parse_dialect_text(text: str, source: str = "<text>") -> Dialect:
+    """A Dialect from TOML text; a syntax error names the line."""
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise DialectError(f"dialect {source}: not valid TOML: {exc}") from None
+    return parse_dialect(data, source)
+
+
+def default_dialect_text() -> str:
+    """The text of the built-in default dialect (package data of pnbench.drivers)."""
+    return (resources.files("pnbench.drivers") / "dialects" / "default.toml").read_text(
+        encoding="utf-8")
+
+
+def load_dialect(path: str | Path | None = None) -> Dialect:
+    """Load and validate a dialect file; None loads the built-in default dialect."""
+    if path is None:
+        return parse_dialect_text(default_dialect_text(), "default.toml (built in)")
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise DialectError(f"dialect {path}: no such file") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise DialectError(f"dialect {path}: cannot be read: {exc}") from None
+    return parse_dialect_text(text, str(path))
