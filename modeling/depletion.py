@@ -1,0 +1,228 @@
+"""Depletion capacitance and doping: Mott-Schottky line, doping profile, built-in voltage.
+
+One-sided abrupt junction or Schottky barrier of area A, permittivity eps (PHYSICS.md §5,
+after Sze & Ng, *Physics of Semiconductor Devices*, 3rd ed., 2007, ch. 2-3):
+
+    C/A     = sqrt(q*eps*N / (2*(Vbi - V - kT/q)))
+    1/C**2  = 2*(Vbi - V - kT/q) / (q*eps*N*A**2)         # straight line in V
+    N(W)    = -2 / (q*eps*A**2 * d(1/C**2)/dV),  W = eps*A/C
+
+The line's intercept with the V axis is Vbi - kT/q. For a p+n step junction
+Vbi = (kT/q)*ln(Na*Nd/ni**2). Inputs and outputs are SI: doping per m^3, area m^2.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import constants
+
+from .errors import BadInput
+from .junction import thermal_voltage
+from .materials import TABLE_TEMPERATURE_K, Material, material
+
+_Q = constants.e
+
+
+@dataclass(frozen=True)
+class MottSchottkyResult:
+    """The straight line 1/C**2 = intercept + slope*V and what it says about the junction."""
+
+    doping_per_m3: float
+    doping_sigma_per_m3: float
+    built_in_voltage_V: float
+    built_in_sigma_V: float
+    intercept_voltage_V: float      # where 1/C**2 reaches 0 (= Vbi - kT/q)
+    slope_per_F2V: float
+    intercept_per_F2: float
+    n_points: int
+    relative_rms_residual: float    # rms of (fit - data)/data in 1/C**2
+    area_m2: float
+    material: str
+    temperature_K: float
+
+    @property
+    def doping_per_cm3(self) -> float:
+        return self.doping_per_m3 * 1e-6
+
+
+@dataclass(frozen=True)
+class DopingProfile:
+    """Doping against depletion depth from C-V data (arrays sorted by voltage)."""
+
+    voltage_V: np.ndarray
+    depth_m: np.ndarray
+    doping_per_m3: np.ndarray
+    window: int
+    area_m2: float
+    material: str
+
+
+def _clean_cv(voltage_V, capacitance_F, min_points: int) -> tuple[np.ndarray, np.ndarray]:
+    v = np.asarray(voltage_V, dtype=float).ravel()
+    c = np.asarray(capacitance_F, dtype=float).ravel()
+    if v.shape != c.shape:
+        raise BadInput(f"C-V data: {v.size} voltages but {c.size} capacitances")
+    if not (np.all(np.isfinite(v)) and np.all(np.isfinite(c))):
+        raise BadInput("C-V data: voltages and capacitances must be finite numbers")
+    if np.any(c <= 0):
+        raise BadInput(f"C-V data: capacitance must be > 0 F; found {c[c <= 0][0]!r} "
+                       f"at {v[c <= 0][0]!r} V")
+    if np.unique(v).size < min_points:
+        raise BadInput(f"C-V data: need at least {min_points} distinct bias voltages, "
+                       f"found {np.unique(v).size}")
+    order = np.argsort(v, kind="stable")
+    return v[order], c[order]
+
+
+def _check_area(area_m2: float) -> float:
+    if not (isinstance(area_m2, (int, float)) and math.isfinite(area_m2) and area_m2 > 0):
+        raise BadInput(f"device area must be a number > 0 m^2, got {area_m2!r}")
+    return float(area_m2)
+
+
+def mott_schottky(voltage_V, capacitance_F, area_m2: float,
+                  semiconductor: str | Material = "Si",
+                  temperature_K: float = TABLE_TEMPERATURE_K) -> MottSchottkyResult:
+    """Fit 1/C**2 against V with a straight line (ordinary least squares).
+
+    Give only points of the depletion region (reverse and low forward bias, where the
+    diffusion capacitance is negligible). Sigmas come from the scatter about the line.
+    """
+    area = _check_area(area_m2)
+    mat = material(semiconductor)
+    v, c = _clean_cv(voltage_V, capacitance_F, 3)
+    y = 1.0 / c**2
+    scale = float(np.mean(y))
+    coef, cov = _line_fit(v, y / scale)
+    slope_s, intercept_s = float(coef[0]), float(coef[1])
+    slope, intercept = slope_s * scale, intercept_s * scale
+    if not slope < 0:
+        raise BadInput(f"C-V data: 1/C^2 does not fall with voltage (slope {slope:.3g} "
+                       f"1/(F^2 V)); these points are not a depletion capacitance")
+    eps = mat.permittivity_F_per_m
+    doping = float(-2.0 / (_Q * eps * area**2 * slope))
+    slope, intercept = float(slope), float(intercept)
+    v0 = -intercept / slope
+    s_slope = math.sqrt(cov[0, 0]) * scale
+    # Var(v0) from the covariance of (slope, intercept): v0 = -b/a.
+    grad = np.array([intercept_s / slope_s**2, -1.0 / slope_s])
+    s_v0 = math.sqrt(max(float(grad @ cov @ grad), 0.0))
+    fit = intercept + slope * v
+    return MottSchottkyResult(
+        doping_per_m3=doping,
+        doping_sigma_per_m3=abs(doping) * s_slope / abs(slope),
+        built_in_voltage_V=v0 + thermal_voltage(temperature_K),
+        built_in_sigma_V=s_v0,
+        intercept_voltage_V=v0,
+        slope_per_F2V=slope,
+        intercept_per_F2=intercept,
+        n_points=int(v.size),
+        relative_rms_residual=float(np.sqrt(np.mean(((fit - y) / y) ** 2))),
+        area_m2=area,
+        material=mat.name,
+        temperature_K=float(temperature_K),
+    )
+
+
+def _line_fit(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Least-squares (slope, intercept) and their covariance from the residual scatter."""
+    design = np.column_stack([x, np.ones_like(x)])
+    coef, *_ = np.linalg.lstsq(design, y, rcond=None)
+    dof = max(x.size - 2, 1)
+    s2 = float(np.sum((design @ coef - y) ** 2)) / dof
+    cov = s2 * np.linalg.inv(design.T @ design)
+    return coef, cov
+
+
+def doping_profile(voltage_V, capacitance_F, area_m2: float,
+                   semiconductor: str | Material = "Si", window: int = 5) -> DopingProfile:
+    """N(W) from C-V data, d(1/C**2)/dV from local straight-line fits.
+
+    Each point's slope is the least-squares slope of 1/C**2 against V over the
+    ``window`` nearest points in voltage (centred where possible), which tolerates noise
+    and uneven voltage steps better than a two-point difference. A wider window
+    smooths more and resolves less depth.
+    """
+    area = _check_area(area_m2)
+    mat = material(semiconductor)
+    if not (isinstance(window, int) and window >= 2):
+        raise BadInput(f"doping profile window must be an integer >= 2, got {window!r}")
+    v, c = _clean_cv(voltage_V, capacitance_F, window)
+    y = 1.0 / c**2
+    slopes = local_slopes(v, y, window)
+    eps = mat.permittivity_F_per_m
+    with np.errstate(divide="ignore"):
+        doping = -2.0 / (_Q * eps * area**2 * slopes)
+    return DopingProfile(voltage_V=v, depth_m=eps * area / c, doping_per_m3=doping,
+                         window=window, area_m2=area, material=mat.name)
+
+
+def local_slopes(x: np.ndarray, y: np.ndarray, window: int) -> np.ndarray:
+    """dy/dx at each x: slope of the least-squares line through ``window`` neighbours.
+
+    x must be sorted. The window is centred on each point and shifted inwards at the ends.
+    """
+    n = x.size
+    window = min(window, n)
+    start = np.clip(np.arange(n) - window // 2, 0, n - window)
+    idx = start[:, None] + np.arange(window)[None, :]
+    xs, ys = x[idx], y[idx]
+    xm, ym = xs.mean(axis=1, keepdims=True), ys.mean(axis=1, keepdims=True)
+    sxx = np.sum((xs - xm) ** 2, axis=1)
+    sxy = np.sum((xs - xm) * (ys - ym), axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return sxy / sxx
+
+
+def step_junction_built_in_voltage(acceptor_per_m3: float, donor_per_m3: float,
+                                   semiconductor: str | Material = "Si",
+                                   temperature_K: float = TABLE_TEMPERATURE_K,
+                                   intrinsic_density_per_m3: float | None = None) -> float:
+    """Vbi = (kT/q)*ln(Na*Nd/ni**2) [V] of a step junction (non-degenerate doping).
+
+    ni comes from the materials table, which holds 300 K values; at another temperature
+    give ``intrinsic_density_per_m3``.
+    """
+    mat = material(semiconductor)
+    if intrinsic_density_per_m3 is None:
+        if abs(temperature_K - TABLE_TEMPERATURE_K) > 0.5:
+            raise BadInput(f"the table's ni is for {TABLE_TEMPERATURE_K:g} K; at "
+                           f"{temperature_K:g} K give intrinsic_density_per_m3")
+        intrinsic_density_per_m3 = mat.intrinsic_density_per_m3.value
+    for label, value in (("acceptor", acceptor_per_m3), ("donor", donor_per_m3),
+                         ("intrinsic", intrinsic_density_per_m3)):
+        if not (math.isfinite(value) and value > 0):
+            raise BadInput(f"{label} density must be > 0 per m^3, got {value!r}")
+    ni = intrinsic_density_per_m3
+    return thermal_voltage(temperature_K) * math.log(acceptor_per_m3 * donor_per_m3 / ni**2)
+
+
+def abrupt_capacitance(voltage_V, doping_per_m3: float, built_in_voltage_V: float,
+                       area_m2: float, semiconductor: str | Material = "Si",
+                       temperature_K: float = TABLE_TEMPERATURE_K):
+    """C [F] of a one-sided abrupt junction (the §5 formula); nan where V >= Vbi - kT/q."""
+    mat = material(semiconductor)
+    v = np.asarray(voltage_V, dtype=float)
+    span = built_in_voltage_V - v - thermal_voltage(temperature_K)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        c = area_m2 * np.sqrt(_Q * mat.permittivity_F_per_m * doping_per_m3 / (2.0 * span))
+    c = np.where(span > 0, c, np.nan)
+    return c if c.ndim else float(c)
+
+
+def abrupt_card_values(doping_per_m3: float, built_in_voltage_V: float, area_m2: float,
+                       semiconductor: str | Material = "Si",
+                       temperature_K: float = TABLE_TEMPERATURE_K) -> dict[str, float]:
+    """CJO, VJ, M of the model card that reproduces `abrupt_capacitance` exactly.
+
+    CJO*(1 - V/VJ)**-0.5 equals the §5 formula with VJ = Vbi - kT/q.
+    """
+    vj = built_in_voltage_V - thermal_voltage(temperature_K)
+    if not vj > 0:
+        raise BadInput(f"built-in voltage {built_in_voltage_V!r} V is not above kT/q")
+    cjo = float(abrupt_capacitance(0.0, doping_per_m3, built_in_voltage_V, area_m2,
+                                   semiconductor, temperature_K))
+    return {"CJO": cjo, "VJ": vj, "M": 0.5}
