@@ -1,0 +1,253 @@
+"""Plan files: what a run does, read from TOML, validated, typed. No instrument is touched.
+
+`load_plan(path)` returns a `Plan` or raises `PlanError` listing every problem with its
+line and key. The key table is in DEVELOPERS.md ("Plan files"); an annotated example
+ships as `sim_configs/plans/example_full.toml`. Step tables are read by `planstep`.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from pnbench.modeling.errors import PlanError
+from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V, Limits
+from pnbench.sweeps.planread import Problems, TableReader
+from pnbench.sweeps.planstep import Step, read_step
+from pnbench.sweeps.tomllines import key_lines
+
+PLAN_FORMAT = 1
+ROLES = ("smu", "lcr")
+#: Rating keys an instrument table may carry (the instrument's own maxima), per role.
+RATINGS = {
+    "smu": {"max_voltage": "V", "max_current": "A"},
+    "lcr": {"max_bias": "V", "max_ac_level": "V", "min_frequency": "Hz",
+            "max_frequency": "Hz"},
+}
+
+
+@dataclass(frozen=True)
+class Device:
+    name: str
+    area_m2: float | None = None
+    material: str | None = None
+    temperature_K: float = 300.15
+    notes: str = ""
+
+    def to_json_dict(self) -> dict:
+        return {"name": self.name, "area_m2": self.area_m2, "material": self.material,
+                "temperature_K": self.temperature_K, "notes": self.notes}
+
+
+@dataclass(frozen=True)
+class Instrument:
+    """Where one role's instrument is and how to talk to it."""
+
+    role: str
+    resource: str
+    backend: str = "@py"
+    dialect: str | None = None  # path of a dialect file; None = the built-in default
+    timeout_ms: int = 2000
+    ratings: dict = field(default_factory=dict)  # rating key -> SI value
+
+    def to_json_dict(self) -> dict:
+        return {"resource": self.resource, "backend": self.backend,
+                "dialect": self.dialect, "timeout_ms": self.timeout_ms,
+                "ratings": dict(self.ratings)}
+
+
+@dataclass(frozen=True)
+class Plan:
+    path: str
+    text: str
+    title: str
+    device: Device
+    limits: Limits
+    instruments: dict  # role -> Instrument
+    steps: tuple[Step, ...]
+    line_frequency_Hz: float = 50.0
+    warnings: tuple[str, ...] = ()
+
+    def step(self, name: str) -> Step:
+        for s in self.steps:
+            if s.name == name:
+                return s
+        raise KeyError(name)
+
+    @property
+    def roles_needed(self) -> set[str]:
+        return {s.instrument for s in self.steps}
+
+    @property
+    def total_points(self) -> int:
+        return sum(s.planned for s in self.steps)
+
+
+def load_plan(path: str | Path) -> Plan:
+    """Read and validate a plan file; PlanError names every problem's line and key."""
+    path = Path(path)
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        raise PlanError(f"plan {path}: cannot read it ({exc.strerror or exc})") from None
+    return parse_plan(data, str(path), base_dir=path.parent)
+
+
+def parse_plan(data: bytes | str, filename: str = "<plan>",
+               base_dir: Path | None = None) -> Plan:
+    """Validate plan text (bytes are decoded as UTF-8)."""
+    if isinstance(data, bytes):
+        try:
+            text = data.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise PlanError(f"plan {filename}: not UTF-8 text (byte {exc.start} cannot be "
+                            "decoded); a plan is a TOML text file") from None
+    else:
+        text = data
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise PlanError(f"plan {filename}: not valid TOML: {exc}") from None
+    problems = Problems(filename, key_lines(text))
+    plan = _read(doc, text, filename, base_dir or Path("."), problems)
+    if problems.items:
+        count = len(problems.items)
+        head = f"plan {filename}: {count} problem{'s' if count > 1 else ''}"
+        raise PlanError(head + ":\n  " + "\n  ".join(problems.items))
+    assert plan is not None
+    return plan
+
+
+def _read(doc: dict, text: str, filename: str, base_dir: Path, problems: Problems):
+    top = TableReader(doc, (), problems)
+    meta = TableReader(top.raw("plan") or {}, ("plan",), problems)
+    fmt = meta.integer("format", PLAN_FORMAT, low=1, high=99)
+    if fmt != PLAN_FORMAT:
+        meta.problem("format", f"format {fmt} is not known; this pnbench reads format "
+                     f"{PLAN_FORMAT}")
+    title = meta.text("title", "") or ""
+    meta.text("description", "")
+    line_hz = meta.quantity("line_frequency", "Hz", 50.0)
+    if line_hz not in (50.0, 60.0):
+        meta.problem("line_frequency", f"{line_hz:g} Hz: accepted 50 Hz or 60 Hz")
+        line_hz = 50.0
+    meta.finish()
+
+    device = _read_device(TableReader(top.raw("device", True, "a [device] table") or {},
+                                      ("device",), problems))
+    instruments = _read_instruments(top.raw("instruments"), base_dir, problems)
+    limits = _read_limits(TableReader(top.raw("limits", True, "a [limits] table") or {},
+                                      ("limits",), problems), instruments)
+    steps_raw = top.raw("steps", True, "at least one [[steps]] table")
+    top.finish()
+
+    steps: list[Step] = []
+    warnings: list[str] = []
+    if steps_raw is not None:
+        if not isinstance(steps_raw, list) or not steps_raw:
+            problems.add(("steps",), "expected one or more [[steps]] tables")
+        else:
+            names: set[str] = set()
+            for k, raw in enumerate(steps_raw):
+                step = read_step(TableReader(raw, ("steps", k), problems), limits,
+                                 instruments, warnings)
+                if step is None:
+                    continue
+                if step.name in names:
+                    problems.add(("steps", k, "name"), f"the name {step.name!r} is used by "
+                                 "an earlier step; each step needs its own name")
+                names.add(step.name)
+                steps.append(step)
+    if problems.items or limits is None or device is None:
+        return None
+    return Plan(path=filename, text=text, title=title, device=device, limits=limits,
+                instruments=instruments, steps=tuple(steps), line_frequency_Hz=line_hz,
+                warnings=tuple(warnings))
+
+
+def _read_device(t: TableReader) -> Device | None:
+    name = t.text("name", required=True)
+    area = t.area("area")
+    material = t.text("material")
+    temperature = t.temperature("temperature", 300.15)
+    notes = t.text("notes", "") or ""
+    t.finish()
+    if not name:
+        if name is not None:
+            t.problem("name", "must not be empty")
+        return None
+    return Device(name=name, area_m2=area, material=material, temperature_K=temperature,
+                  notes=notes)
+
+
+def _read_instruments(raw: object, base_dir: Path, problems: Problems) -> dict:
+    if raw is None:
+        return {}
+    table = TableReader(raw, ("instruments",), problems)
+    found: dict[str, Instrument] = {}
+    for label in list(table.table):
+        table.known.add(label)
+        t = TableReader(table.table[label], ("instruments", label), problems)
+        role = t.choice("role", ROLES, label if label in ROLES else None, required=True)
+        resource = t.text("resource", required=True)
+        backend = t.text("backend", "@py") or "@py"
+        dialect = t.text("dialect")
+        if dialect is not None and dialect != "default":
+            candidate = Path(dialect)
+            candidate = candidate if candidate.is_absolute() else base_dir / candidate
+            if not candidate.is_file():
+                t.problem("dialect", f"no dialect file at {candidate}; give a path to a "
+                          "dialect TOML file (relative to the plan) or \"default\"")
+            dialect = str(candidate)
+        else:
+            dialect = None
+        timeout_s = t.quantity("timeout", "s", 2.0, positive=True)
+        ratings = {}
+        for key, unit in RATINGS.get(role or "", {}).items():
+            value = t.quantity(key, unit, positive=True)
+            if value is not None:
+                ratings[key] = value
+        t.finish()
+        if role is None or resource is None:
+            continue
+        if role in found:
+            t.problem("role", f"a second {role!r} instrument; a plan has one per role")
+            continue
+        found[role] = Instrument(role=role, resource=resource, backend=backend,
+                                 dialect=dialect, timeout_ms=int(round(timeout_s * 1000)),
+                                 ratings=ratings)
+    return found
+
+
+def _read_limits(t: TableReader, instruments: dict) -> Limits | None:
+    v_max = t.quantity("max_voltage", "V", required=True, nonnegative=True)
+    v_rev = t.quantity("max_reverse_voltage", "V", 0.0, nonnegative=True)
+    i_max = t.quantity("max_current", "A", required=True, positive=True)
+    p_max = t.quantity("max_power", "W", required=True, positive=True)
+    ack = t.quantity("acknowledge_hazardous_voltage", "V", positive=True)
+    t.finish()
+    highest = max(v_max or 0.0, abs(v_rev or 0.0))
+    if highest > HAZARDOUS_VOLTAGE_V and (ack is None or ack < highest):
+        key = "max_voltage" if (v_max or 0.0) >= abs(v_rev or 0.0) else "max_reverse_voltage"
+        found = "is missing" if ack is None else f"covers only {ack:g} V"
+        t.problem(key, f"{highest:g} V is above the {HAZARDOUS_VOLTAGE_V:g} V DC "
+                  "hazardous-voltage threshold (IEC 61010-1, older editions; from memory) "
+                  f"and the acknowledgment {found}. When the fixture is enclosed and "
+                  "interlocked, add  acknowledge_hazardous_voltage = "
+                  f"\"{highest:g} V\"  to [limits]")
+    if v_max is None or v_rev is None or i_max is None or p_max is None:
+        return None
+    smu = instruments.get("smu")
+    if smu is not None:
+        rated_v = smu.ratings.get("max_voltage")
+        rated_i = smu.ratings.get("max_current")
+        for key, value in (("max_voltage", v_max), ("max_reverse_voltage", abs(v_rev))):
+            if rated_v is not None and value > rated_v:
+                t.problem(key, f"{value:g} V is beyond the SMU's rating of {rated_v:g} V "
+                          "(instruments max_voltage)")
+        if rated_i is not None and i_max > rated_i:
+            t.problem("max_current", f"{i_max:g} A is beyond the SMU's rating of "
+                      f"{rated_i:g} A (instruments max_current)")
+    return Limits(max_voltage_V=v_max, max_reverse_voltage_V=abs(v_rev), max_current_A=i_max,
+                  max_power_W=p_max, hazardous_ack_V=ack)
