@@ -19,9 +19,15 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import constants
 
+__all__ = [
+    "DopingProfile", "MottSchottkyLine", "MottSchottkyResult", "abrupt_capacitance",
+    "abrupt_card_values", "doping_from_slope", "doping_profile", "local_slopes",
+    "mott_schottky", "mott_schottky_line", "permittivity", "step_junction_built_in_voltage",
+]
+
 from .errors import BadInput
 from .junction import thermal_voltage
-from .materials import TABLE_TEMPERATURE_K, Material, material
+from .materials import TABLE_TEMPERATURE_K, Material, material, permittivity
 
 _Q = constants.e
 
@@ -49,8 +55,26 @@ class MottSchottkyResult:
 
 
 @dataclass(frozen=True)
+class MottSchottkyLine:
+    """1/C**2 = intercept + slope*V; needs neither area nor material."""
+
+    slope: float                    # 1/(F^2 V)
+    intercept: float                # 1/F^2
+    intercept_V: float              # where 1/C**2 reaches 0 (= Vbi - kT/q)
+    vbi_V: float                    # intercept_V + kT/q
+    slope_sigma: float
+    intercept_V_sigma: float
+    n_points: int
+    relative_rms_residual: float    # rms of (fit - data)/data in 1/C**2
+    temperature_K: float
+
+
+@dataclass(frozen=True)
 class DopingProfile:
-    """Doping against depletion depth from C-V data (arrays sorted by voltage)."""
+    """Doping against depletion depth from C-V data (arrays sorted by voltage).
+
+    Unpacks as ``depth_m, doping_per_m3 = profile``.
+    """
 
     voltage_V: np.ndarray
     depth_m: np.ndarray
@@ -58,6 +82,9 @@ class DopingProfile:
     window: int
     area_m2: float
     material: str
+
+    def __iter__(self):
+        return iter((self.depth_m, self.doping_per_m3))
 
 
 def _clean_cv(voltage_V, capacitance_F, min_points: int) -> tuple[np.ndarray, np.ndarray]:
@@ -83,16 +110,14 @@ def _check_area(area_m2: float) -> float:
     return float(area_m2)
 
 
-def mott_schottky(voltage_V, capacitance_F, area_m2: float,
-                  semiconductor: str | Material = "Si",
-                  temperature_K: float = TABLE_TEMPERATURE_K) -> MottSchottkyResult:
+def mott_schottky_line(voltage_V, capacitance_F,
+                       temperature_K: float = TABLE_TEMPERATURE_K) -> MottSchottkyLine:
     """Fit 1/C**2 against V with a straight line (ordinary least squares).
 
     Give only points of the depletion region (reverse and low forward bias, where the
     diffusion capacitance is negligible). Sigmas come from the scatter about the line.
+    BadInput if 1/C**2 does not fall with V (not a depletion capacitance).
     """
-    area = _check_area(area_m2)
-    mat = material(semiconductor)
     v, c = _clean_cv(voltage_V, capacitance_F, 3)
     y = 1.0 / c**2
     scale = float(np.mean(y))
@@ -102,29 +127,62 @@ def mott_schottky(voltage_V, capacitance_F, area_m2: float,
     if not slope < 0:
         raise BadInput(f"C-V data: 1/C^2 does not fall with voltage (slope {slope:.3g} "
                        f"1/(F^2 V)); these points are not a depletion capacitance")
-    eps = mat.permittivity_F_per_m
-    doping = float(-2.0 / (_Q * eps * area**2 * slope))
-    slope, intercept = float(slope), float(intercept)
     v0 = -intercept / slope
-    s_slope = math.sqrt(cov[0, 0]) * scale
     # Var(v0) from the covariance of (slope, intercept): v0 = -b/a.
     grad = np.array([intercept_s / slope_s**2, -1.0 / slope_s])
-    s_v0 = math.sqrt(max(float(grad @ cov @ grad), 0.0))
     fit = intercept + slope * v
-    return MottSchottkyResult(
-        doping_per_m3=doping,
-        doping_sigma_per_m3=abs(doping) * s_slope / abs(slope),
-        built_in_voltage_V=v0 + thermal_voltage(temperature_K),
-        built_in_sigma_V=s_v0,
-        intercept_voltage_V=v0,
-        slope_per_F2V=slope,
-        intercept_per_F2=intercept,
+    return MottSchottkyLine(
+        slope=slope,
+        intercept=intercept,
+        intercept_V=v0,
+        vbi_V=v0 + thermal_voltage(temperature_K),
+        slope_sigma=math.sqrt(max(float(cov[0, 0]), 0.0)) * scale,
+        intercept_V_sigma=math.sqrt(max(float(grad @ cov @ grad), 0.0)),
         n_points=int(v.size),
         relative_rms_residual=float(np.sqrt(np.mean(((fit - y) / y) ** 2))),
-        area_m2=area,
-        material=mat.name,
         temperature_K=float(temperature_K),
     )
+
+
+def doping_from_slope(slope: float, area_m2: float, permittivity_F_per_m: float) -> float:
+    """N = -2/(q*eps*A**2*slope) [per m^3] from a Mott-Schottky slope [1/(F^2 V)]."""
+    return float(-2.0 / (_Q * permittivity_F_per_m * _check_area(area_m2) ** 2 * slope))
+
+
+def mott_schottky(voltage_V, capacitance_F, area_m2: float,
+                  semiconductor: str | Material | float = "Si",
+                  temperature_K: float = TABLE_TEMPERATURE_K) -> MottSchottkyResult:
+    """The Mott-Schottky line with doping and built-in voltage for an area and material.
+
+    ``semiconductor`` is a table name, a Material, or a permittivity in F/m.
+    """
+    area = _check_area(area_m2)
+    eps, name = _permittivity_of(semiconductor)
+    line = mott_schottky_line(voltage_V, capacitance_F, temperature_K)
+    doping = doping_from_slope(line.slope, area, eps)
+    return MottSchottkyResult(
+        doping_per_m3=doping,
+        doping_sigma_per_m3=abs(doping) * line.slope_sigma / abs(line.slope),
+        built_in_voltage_V=line.vbi_V,
+        built_in_sigma_V=line.intercept_V_sigma,
+        intercept_voltage_V=line.intercept_V,
+        slope_per_F2V=line.slope,
+        intercept_per_F2=line.intercept,
+        n_points=line.n_points,
+        relative_rms_residual=line.relative_rms_residual,
+        area_m2=area,
+        material=name,
+        temperature_K=float(temperature_K),
+    )
+
+
+def _permittivity_of(semiconductor: str | Material | float) -> tuple[float, str]:
+    if isinstance(semiconductor, (int, float)) and not isinstance(semiconductor, bool):
+        if not (math.isfinite(semiconductor) and semiconductor > 0):
+            raise BadInput(f"permittivity must be > 0 F/m, got {semiconductor!r}")
+        return float(semiconductor), f"eps={float(semiconductor):.4g} F/m"
+    mat = material(semiconductor)
+    return mat.permittivity_F_per_m, mat.name
 
 
 def _line_fit(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -138,26 +196,27 @@ def _line_fit(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def doping_profile(voltage_V, capacitance_F, area_m2: float,
-                   semiconductor: str | Material = "Si", window: int = 5) -> DopingProfile:
+                   semiconductor: str | Material | float = "Si",
+                   window: int = 5) -> DopingProfile:
     """N(W) from C-V data, d(1/C**2)/dV from local straight-line fits.
 
     Each point's slope is the least-squares slope of 1/C**2 against V over the
     ``window`` nearest points in voltage (centred where possible), which tolerates noise
     and uneven voltage steps better than a two-point difference. A wider window
-    smooths more and resolves less depth.
+    smooths more and resolves less depth. ``semiconductor``: table name, Material, or
+    permittivity in F/m.
     """
     area = _check_area(area_m2)
-    mat = material(semiconductor)
+    eps, name = _permittivity_of(semiconductor)
     if not (isinstance(window, int) and window >= 2):
         raise BadInput(f"doping profile window must be an integer >= 2, got {window!r}")
     v, c = _clean_cv(voltage_V, capacitance_F, window)
     y = 1.0 / c**2
     slopes = local_slopes(v, y, window)
-    eps = mat.permittivity_F_per_m
     with np.errstate(divide="ignore"):
         doping = -2.0 / (_Q * eps * area**2 * slopes)
     return DopingProfile(voltage_V=v, depth_m=eps * area / c, doping_per_m3=doping,
-                         window=window, area_m2=area, material=mat.name)
+                         window=window, area_m2=area, material=name)
 
 
 def local_slopes(x: np.ndarray, y: np.ndarray, window: int) -> np.ndarray:
@@ -201,20 +260,20 @@ def step_junction_built_in_voltage(acceptor_per_m3: float, donor_per_m3: float,
 
 
 def abrupt_capacitance(voltage_V, doping_per_m3: float, built_in_voltage_V: float,
-                       area_m2: float, semiconductor: str | Material = "Si",
+                       area_m2: float, semiconductor: str | Material | float = "Si",
                        temperature_K: float = TABLE_TEMPERATURE_K):
     """C [F] of a one-sided abrupt junction (the §5 formula); nan where V >= Vbi - kT/q."""
-    mat = material(semiconductor)
+    eps, _ = _permittivity_of(semiconductor)
     v = np.asarray(voltage_V, dtype=float)
     span = built_in_voltage_V - v - thermal_voltage(temperature_K)
     with np.errstate(invalid="ignore", divide="ignore"):
-        c = area_m2 * np.sqrt(_Q * mat.permittivity_F_per_m * doping_per_m3 / (2.0 * span))
+        c = area_m2 * np.sqrt(_Q * eps * doping_per_m3 / (2.0 * span))
     c = np.where(span > 0, c, np.nan)
     return c if c.ndim else float(c)
 
 
 def abrupt_card_values(doping_per_m3: float, built_in_voltage_V: float, area_m2: float,
-                       semiconductor: str | Material = "Si",
+                       semiconductor: str | Material | float = "Si",
                        temperature_K: float = TABLE_TEMPERATURE_K) -> dict[str, float]:
     """CJO, VJ, M of the model card that reproduces `abrupt_capacitance` exactly.
 

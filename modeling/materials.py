@@ -95,6 +95,10 @@ MATERIALS: dict[str, Material] = {
 }
 
 
+class UnknownMaterial(BadInput, ValueError):
+    """A material name the table does not hold (a BadInput, and a ValueError)."""
+
+
 def material(name: str | Material) -> Material:
     """The table entry for ``name`` (case-insensitive), or the Material itself."""
     if isinstance(name, Material):
@@ -102,4 +106,9 @@ def material(name: str | Material) -> Material:
     for key, entry in MATERIALS.items():
         if key.lower() == str(name).strip().lower():
             return entry
-    raise BadInput(f"unknown material {name!r}; known: {', '.join(MATERIALS)}")
+    raise UnknownMaterial(f"unknown material {name!r}; known: {', '.join(MATERIALS)}")
+
+
+def permittivity(name: str | Material) -> float:
+    """Absolute permittivity [F/m] of a table material; UnknownMaterial if not there."""
+    return material(name).permittivity_F_per_m
