@@ -36,6 +36,34 @@ def thermal_voltage(temperature_K: float = DEFAULT_TEMPERATURE_K) -> float:
     return constants.k * temperature_K / constants.e
 
 
+def saturation_current(params: DiodeParams, temperature_K: float,
+                       nominal_K: float = DEFAULT_TEMPERATURE_K) -> float:
+    """IS [A] at temperature_K of a model whose values hold at nominal_K (PHYSICS.md §7):
+
+        IS(T) = IS * (T/Tn)**(XTI/N) * exp((EG*q/(N*k)) * (1/Tn - 1/T))
+
+    the simulator form (Antognetti & Massobrio, 1988).
+    """
+    t, tn = float(temperature_K), float(nominal_K)
+    if not (t > 0 and tn > 0):
+        raise ValueError(f"temperatures must be > 0 K, got {t!r} and {tn!r}")
+    exponent = params.EG / (params.N * constants.k / constants.e) * (1.0 / tn - 1.0 / t)
+    return params.IS * (t / tn) ** (params.XTI / params.N) * math.exp(exponent)
+
+
+def params_at_temperature(params: DiodeParams, temperature_K: float,
+                          nominal_K: float = DEFAULT_TEMPERATURE_K) -> DiodeParams:
+    """``params`` with IS moved from nominal_K to temperature_K; nothing else changes.
+
+    Simulators also move VJ, CJO and (with their temperature coefficients) BV and RS;
+    this model does not, so away from nominal_K capacitances and breakdown stay at
+    their nominal values.
+    """
+    if temperature_K == nominal_K:
+        return params
+    return params.with_values(IS=saturation_current(params, temperature_K, nominal_K))
+
+
 def _exp(x):
     return np.exp(np.minimum(x, _EXP_CAP))
 
