@@ -1,0 +1,389 @@
+"""Instrument roles on a session and a dialect: a source-measure unit and an LCR meter.
+
+Each bias point is one program message (set the level, read, ask for compliance) so the
+per-point cost is one round trip. Every fault is an InstrumentError; settings that
+cannot be used are DialectError or BadInput. `safe_off` is the way out of every run: it
+ramps the source to zero, turns the output off and confirms it by asking.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from pnbench.drivers import scpi
+from pnbench.drivers.dialect import Dialect, LcrCommands, SmuCommands
+from pnbench.drivers.session import Session
+from pnbench.modeling import smallsignal
+from pnbench.modeling.errors import BadInput, DialectError, InstrumentError
+
+#: A reading within this fraction of the limit counts as compliance when the dialect
+#: has no status query for it.
+COMPLIANCE_FRACTION = 1e-3
+
+
+@dataclass(frozen=True)
+class SmuReading:
+    voltage_V: float
+    current_A: float
+    compliance: bool
+
+
+@dataclass(frozen=True)
+class LcrReading:
+    frequency_Hz: float
+    bias_V: float
+    admittance_S: complex
+    primary: float
+    secondary: float
+
+
+def _positive(name: str, x: float) -> float:
+    x = float(x)
+    if not (math.isfinite(x) and x > 0):
+        raise BadInput(f"{name} must be a positive number, found {x!r}")
+    return x
+
+
+def _finite(name: str, x: float) -> float:
+    x = float(x)
+    if not math.isfinite(x):
+        raise BadInput(f"{name} must be a finite number, found {x!r}")
+    return x
+
+
+def _fields(session: Session, reply: str, names: tuple[str, ...], message: str) -> dict:
+    try:
+        values = scpi.parse_numbers(reply)
+    except ValueError as exc:
+        raise InstrumentError(f"{session.resource_name}: malformed reading in reply to "
+                              f"{message!r}: {exc}") from None
+    if len(values) != len(names):
+        raise InstrumentError(
+            f"{session.resource_name}: reading {reply!r} has {len(values)} fields, the "
+            f"dialect's read_fields name {len(names)} ({', '.join(names)})")
+    return dict(zip(names, values, strict=True))
+
+
+def _flag(session: Session, reply: str, message: str) -> bool:
+    try:
+        return scpi.parse_bool(reply)
+    except ValueError:
+        raise InstrumentError(f"{session.resource_name}: expected 1/0/ON/OFF in reply to "
+                              f"{message!r}, got {reply!r}") from None
+
+
+class Smu:
+    """A source-measure unit: source voltage or current, limit the other, read both."""
+
+    def __init__(self, session: Session, dialect: Dialect | None = None) -> None:
+        self.session = session
+        self.dialect = dialect or session.dialect
+        self.commands: SmuCommands = self.dialect.require("smu")
+        self.source: str | None = None
+        self.limit: float | None = None
+        self.level: float | None = None
+        self._output_on = False
+        self._identity: str | None = None
+
+    @property
+    def identity(self) -> str:
+        if self._identity is None:
+            self._identity = self.session.identify()
+        return self._identity
+
+    def _set_command(self, level: float) -> str:
+        template = self.commands.set_voltage if self.source == "voltage" else (
+            self.commands.set_current)
+        return self.dialect.fill(template, value=level)
+
+    def configure(self, source: str = "voltage", limit: float = 1e-3, nplc: float = 1.0,
+                  four_wire: bool = False, range_: float | None = None) -> None:
+        """Set the source function, the limit on the other quantity, the measurement
+        range of that quantity (None: autorange), integration time and sensing; the level
+        goes to zero. Any error the instrument queues is raised with its own message."""
+        if source not in ("voltage", "current"):
+            raise BadInput(f"SMU source must be 'voltage' or 'current', found {source!r}")
+        limit = _positive("SMU limit", limit)
+        nplc = _positive("SMU integration time (NPLC)", nplc)
+        if range_ is not None:
+            range_ = _positive("SMU measurement range", range_)
+        if self._output_on:
+            self.safe_off()
+        c = self.commands
+        measured = "current" if source == "voltage" else "voltage"
+        fill = self.dialect.fill
+        units = [c.source_voltage_mode if source == "voltage" else c.source_current_mode,
+                 fill(c.set_voltage if source == "voltage" else c.set_current, value=0.0),
+                 fill(getattr(c, f"{measured}_limit"), value=limit)]
+        auto = getattr(c, f"{measured}_autorange")
+        fixed = getattr(c, f"{measured}_range")
+        if range_ is None:
+            if auto:
+                units.append(fill(auto, state=True))
+        else:
+            if not fixed:
+                raise DialectError(f"dialect {self.dialect.source}: [smu] {measured}_range is "
+                                   f"empty, so a fixed {measured} range cannot be set")
+            if auto:
+                units.append(fill(auto, state=False))
+            units.append(fill(fixed, value=range_))
+        if c.integration_nplc:
+            units.append(fill(c.integration_nplc, value=nplc))
+        if c.remote_sense:
+            units.append(fill(c.remote_sense, state=four_wire))
+        elif four_wire:
+            raise DialectError(f"dialect {self.dialect.source}: [smu] remote_sense is empty, "
+                               "so 4-wire sensing cannot be selected")
+        message = self.dialect.join(units)
+        self.session.write(message)
+        self.source, self.limit, self.level = source, limit, 0.0
+        self.session.drain_errors(context=f"configuring the SMU with {message!r}")
+
+    def _require_configured(self) -> None:
+        if self.source is None:
+            raise RuntimeError("Smu.configure() must come before sourcing")
+
+    def set_level(self, level: float) -> None:
+        """Set the source level (volts or amperes, as configured)."""
+        self._require_configured()
+        level = _finite("SMU level", level)
+        self.level = level
+        self.session.write(self._set_command(level))
+
+    def apply_and_read(self, level: float) -> SmuReading:
+        """Set the level, read, and ask for compliance: one message, one reply."""
+        self._require_configured()
+        level = _finite("SMU level", level)
+        c = self.commands
+        tripped = (c.tripped_sourcing_voltage if self.source == "voltage"
+                   else c.tripped_sourcing_current)
+        message = self.dialect.join([self._set_command(level), c.read, tripped])
+        self.level = level
+        units = self.session.ask(message)
+        values = _fields(self.session, units[0], c.read_fields, message)
+        compliance = False
+        if "compliance" in values:
+            compliance = round(values["compliance"]) != 0 if math.isfinite(
+                values["compliance"]) else False
+        if tripped:
+            compliance = compliance or _flag(self.session, units[1], message)
+        elif "compliance" not in values:
+            measured = values["current" if self.source == "voltage" else "voltage"]
+            compliance = abs(measured) >= self.limit * (1.0 - COMPLIANCE_FRACTION)
+        return SmuReading(voltage_V=values["voltage"], current_A=values["current"],
+                          compliance=bool(compliance))
+
+    def output(self, on: bool) -> None:
+        """Turn the output on or off; turning it on checks the instrument accepted it."""
+        if on:
+            self._require_configured()
+            self._output_on = True  # from now on, safe_off has work to do
+        message = self.dialect.fill(self.commands.output, state=bool(on))
+        self.session.write(message)
+        if on:
+            self.session.drain_errors(context=f"turning the output on with {message!r}")
+        else:
+            self._output_on = False
+
+    def output_is_on(self) -> bool:
+        """Ask the instrument whether its output is on."""
+        query = self.commands.output_query
+        return _flag(self.session, self.session.query(query), query)
+
+    def ramp_to_zero(self, steps: int = 10) -> None:
+        """Step the source level to zero, waiting for each step to complete."""
+        if self.source is None:
+            return
+        start = self.level if self.level is not None else 0.0
+        opc = self.dialect.common.operation_complete
+        count = max(1, int(steps)) if start != 0.0 else 1
+        for k in range(count - 1, -1, -1):
+            self.level = start * k / count
+            self.session.expect_complete(self.dialect.join(
+                [self._set_command(self.level), opc]))
+
+    def safe_off(self) -> list[str]:
+        """Ramp to zero, output off, confirm by query. Idempotent.
+
+        Returns the problems met on the way (empty when all went well); raises
+        InstrumentError only when the output cannot be confirmed off.
+        """
+        problems: list[str] = []
+        interrupted = False
+        try:
+            self.ramp_to_zero()
+        except KeyboardInterrupt:
+            interrupted = True
+            problems.append("ramp to zero interrupted by the operator; output turned off")
+        except Exception as exc:  # noqa: BLE001 - keep going: the output must go off
+            problems.append(f"ramp to zero failed: {exc}")
+        try:
+            self.session.write(self.dialect.fill(self.commands.output, state=False))
+        except Exception as exc:  # noqa: BLE001
+            problems.append(f"output off command failed: {exc}")
+        try:
+            still_on = self.output_is_on()
+        except Exception as exc:  # noqa: BLE001
+            problems.append(f"output state query failed: {exc}")
+            raise InstrumentError(f"{self.session.resource_name}: SMU output could not be "
+                                  "confirmed off; CHECK THE INSTRUMENT: "
+                                  + "; ".join(problems)) from None
+        if still_on:
+            raise InstrumentError(f"{self.session.resource_name}: SMU output is still ON after "
+                                  "the off command; CHECK THE INSTRUMENT"
+                                  + ("" if not problems else ": " + "; ".join(problems)))
+        self._output_on = False
+        if interrupted:
+            raise KeyboardInterrupt
+        return problems
+
+
+def admittance_from_reading(form: str, primary: float, secondary: float,
+                            frequency_Hz: float) -> complex:
+    """Complex admittance [S] from a two-element LCR reading of `form` (see LCR_FORMS).
+
+    Cp-Gp and Cs-Rs go through the meter conversions of `pnbench.modeling.smallsignal`;
+    the other forms are turned into one of those first. A marker value (overflow or
+    not-a-number) gives nan+nanj.
+    """
+    if not (math.isfinite(primary) and math.isfinite(secondary)):
+        return complex(math.nan, math.nan)
+    w = 2.0 * math.pi * frequency_Hz
+    if form == "CPGP":
+        y = smallsignal.admittance_from_parallel(primary, secondary, frequency_Hz)
+    elif form == "CPRP":
+        gp = 1.0 / secondary if secondary else math.inf
+        y = smallsignal.admittance_from_parallel(primary, gp, frequency_Hz)
+    elif form == "CPD":
+        y = smallsignal.admittance_from_parallel(primary, secondary * w * primary, frequency_Hz)
+    elif form == "CSRS":
+        y = smallsignal.admittance_from_series(primary, secondary, frequency_Hz)
+    elif form == "CSD":
+        y = smallsignal.admittance_from_series(primary, secondary / (w * primary), frequency_Hz)
+    elif form == "GB":
+        y = complex(primary, secondary)
+    elif form == "RX":
+        z = complex(primary, secondary)
+        y = 1.0 / z if z != 0 else complex(math.inf, 0.0)
+    else:
+        raise ValueError(f"unknown LCR form {form!r}")
+    return complex(y)
+
+
+class LcrMeter:
+    """An LCR meter: AC level, frequency, DC bias, corrections; reads admittance."""
+
+    def __init__(self, session: Session, dialect: Dialect | None = None) -> None:
+        self.session = session
+        self.dialect = dialect or session.dialect
+        self.commands: LcrCommands = self.dialect.require("lcr")
+        self.form = self.commands.form
+        self.ac_level_V: float | None = None
+        self._bias_on = False
+        self._identity: str | None = None
+
+    @property
+    def identity(self) -> str:
+        if self._identity is None:
+            self._identity = self.session.identify()
+        return self._identity
+
+    def configure(self, ac_level_V: float) -> None:
+        """Select the dialect's reading form, set the AC level; DC bias to zero and off."""
+        ac_level_V = _positive("LCR AC level", ac_level_V)
+        c = self.commands
+        fill = self.dialect.fill
+        units = []
+        if c.model:
+            units.append(fill(c.model, form=self.form) if "{form}" in c.model else c.model)
+        units += [fill(c.ac_level, value=ac_level_V), fill(c.bias_level, value=0.0),
+                  fill(c.bias_state, state=False)]
+        message = self.dialect.join(units)
+        self.session.write(message)
+        self.ac_level_V = ac_level_V
+        self._bias_on = False
+        self.session.drain_errors(context=f"configuring the LCR meter with {message!r}")
+
+    def apply_and_read(self, bias_V: float, frequency_Hz: float) -> LcrReading:
+        """Set the DC bias and the frequency, then read: one message, one reply."""
+        bias_V = _finite("LCR bias", bias_V)
+        frequency_Hz = _positive("LCR frequency", frequency_Hz)
+        c = self.commands
+        message = self.dialect.join([self.dialect.fill(c.bias_level, value=bias_V),
+                                     self.dialect.fill(c.frequency, value=frequency_Hz),
+                                     c.read])
+        units = self.session.ask(message)
+        values = _fields(self.session, units[0], c.read_fields, message)
+        primary, secondary = values["primary"], values["secondary"]
+        return LcrReading(
+            frequency_Hz=frequency_Hz, bias_V=bias_V,
+            admittance_S=admittance_from_reading(self.form, primary, secondary, frequency_Hz),
+            primary=primary, secondary=secondary)
+
+    def bias(self, on: bool) -> None:
+        """Turn the DC bias on or off; turning it on checks the instrument accepted it."""
+        if on:
+            self._bias_on = True
+        message = self.dialect.fill(self.commands.bias_state, state=bool(on))
+        self.session.write(message)
+        if on:
+            self.session.drain_errors(context=f"turning the bias on with {message!r}")
+        else:
+            self._bias_on = False
+
+    def bias_is_on(self) -> bool | None:
+        """Ask whether the DC bias is on; None when the dialect has no such query."""
+        query = self.commands.bias_state_query
+        if not query:
+            return None
+        return _flag(self.session, self.session.query(query), query)
+
+    def _correction(self, which: str, timeout_ms: float) -> None:
+        command = getattr(self.commands, f"{which}_correction")
+        if not command:
+            raise DialectError(f"dialect {self.dialect.source}: [lcr] {which}_correction is "
+                               "empty, so this meter's correction cannot be started")
+        self.session.write(command)
+        self.session.wait_complete(timeout_ms)
+        self.session.drain_errors(context=f"the {which} correction ({command!r})")
+
+    def open_correction(self, timeout_ms: float = 120_000) -> None:
+        """Run the open correction (fixture open) and wait for it to finish."""
+        self._correction("open", timeout_ms)
+
+    def short_correction(self, timeout_ms: float = 120_000) -> None:
+        """Run the short correction (fixture shorted) and wait for it to finish."""
+        self._correction("short", timeout_ms)
+
+    def safe_off(self) -> list[str]:
+        """Bias to zero and off, confirmed by query when the dialect has one. Idempotent.
+
+        Returns the problems met; raises InstrumentError only when the bias cannot be
+        confirmed off.
+        """
+        c = self.commands
+        problems: list[str] = []
+        message = self.dialect.join([self.dialect.fill(c.bias_level, value=0.0),
+                                     self.dialect.fill(c.bias_state, state=False)])
+        try:
+            self.session.write(message)
+        except Exception as exc:  # noqa: BLE001 - go on to the confirmation
+            problems.append(f"bias off command failed: {exc}")
+        try:
+            still_on = self.bias_is_on()
+        except Exception as exc:  # noqa: BLE001
+            problems.append(f"bias state query failed: {exc}")
+            raise InstrumentError(f"{self.session.resource_name}: LCR DC bias could not be "
+                                  "confirmed off; CHECK THE INSTRUMENT: "
+                                  + "; ".join(problems)) from None
+        if still_on:
+            raise InstrumentError(f"{self.session.resource_name}: LCR DC bias is still ON "
+                                  "after the off command; CHECK THE INSTRUMENT")
+        if still_on is None:
+            if problems:
+                raise InstrumentError(f"{self.session.resource_name}: LCR DC bias could not "
+                                      "be turned off: " + "; ".join(problems))
+            problems.append("bias off sent; the dialect has no bias_state_query to confirm it")
+        self._bias_on = False
+        return problems

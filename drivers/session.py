@@ -1,0 +1,381 @@
+"""One small session interface over any pyvisa resource and backend.
+
+`open_session` opens a resource through pyvisa (``@py`` pure-Python backend, a system VISA
+library given by its path, or ``FILE.yaml@sim`` for pyvisa-sim) and returns a `Session`
+whose every failure is an `InstrumentError` that says which instrument, which command and
+what happened: a timeout names the command that hung, a resource that is not there lists
+the ones that are, an empty or undecodable reply and a lost connection are named as such.
+
+On raw TCP socket resources the session sets TCP_NODELAY: without it a separate write and
+query cost tens of milliseconds per pair on loopback (Nagle's algorithm meeting a delayed
+acknowledgement). Roles still send one message per bias point where the dialect allows.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import socket
+import warnings
+from collections.abc import Iterator
+from importlib import resources
+from pathlib import Path
+
+from pnbench.drivers import scpi
+from pnbench.drivers.dialect import Dialect, load_dialect
+from pnbench.modeling.errors import BadInput, InstrumentError
+
+#: Most entries read from an error queue before giving up on it emptying.
+MAX_ERROR_ENTRIES = 64
+
+
+def resolve_backend(backend: str) -> str:
+    """The pyvisa library string for `backend`; a bare ``NAME.yaml@sim`` that is not a file
+    here is looked up among the bundled pyvisa-sim files of `pnbench.sim_configs`."""
+    if not backend.endswith("@sim") or backend == "@sim":
+        return backend
+    path = Path(backend[: -len("@sim")])
+    if path.is_file():
+        return f"{path}@sim"
+    bundled = resources.files("pnbench.sim_configs")
+    candidate = bundled / path.name
+    if path.parent == Path(".") and candidate.is_file():
+        return f"{candidate}@sim"
+    names = sorted(p.name for p in bundled.iterdir() if p.name.endswith(".yaml"))
+    raise BadInput(
+        f"pyvisa-sim file {path}: no such file (give a path, or one of the bundled files: "
+        f"{', '.join(names) or 'none'})"
+    )
+
+
+def list_visible(manager, query: str = "?*::INSTR") -> list[str]:
+    """Resource names the backend can see (raw socket resources are never listed)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        found = list(manager.list_resources(query))
+        if query != "?*":
+            with contextlib.suppress(Exception):
+                found += [r for r in manager.list_resources("?*") if r not in found]
+    return found
+
+
+def _socket_of(resource) -> socket.socket | None:
+    """The TCP socket under a pyvisa-py socket session, if there is one."""
+    try:
+        backend_session = resource.visalib.sessions[resource.session]
+    except (AttributeError, KeyError, TypeError, Exception):  # noqa: BLE001 - other backends
+        return None
+    sock = getattr(backend_session, "interface", None)
+    if isinstance(sock, socket.socket) and sock.type == socket.SOCK_STREAM and sock.family in (
+        socket.AF_INET, socket.AF_INET6
+    ):
+        return sock
+    return None
+
+
+class Session:
+    """An open instrument. Roles and the probe command talk through this only."""
+
+    def __init__(self, resource, resource_name: str, dialect: Dialect, backend: str) -> None:
+        self._resource = resource
+        self.resource_name = resource_name
+        self.dialect = dialect
+        self.backend = backend
+        self._socket = _socket_of(resource)
+        self.nodelay = self._set_nodelay()
+        self._closed = False
+
+    # --- plumbing --------------------------------------------------------------------
+    def _set_nodelay(self) -> bool:
+        sock = self._socket
+        if sock is None:
+            return False
+        try:
+            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+            return sock.getsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY) != 0
+        except OSError:
+            return False
+
+    def _peer_gone(self) -> bool:
+        """Whether the far end of a socket session has closed it."""
+        if self._socket is None:
+            return False
+        try:
+            data = self._socket.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT)
+        except BlockingIOError:
+            return False
+        except OSError:
+            return True
+        return data == b""
+
+    def _fail(self, action: str, message: str, exc: BaseException) -> InstrumentError:
+        import pyvisa
+
+        name = self.resource_name
+        if self._closed:
+            return InstrumentError(f"{name}: the session is closed; cannot {action} {message!r}")
+        if isinstance(exc, pyvisa.errors.VisaIOError):
+            if exc.error_code == pyvisa.constants.StatusCode.error_timeout:
+                if self._peer_gone():
+                    return InstrumentError(
+                        f"{name}: connection lost (the instrument closed it) while waiting "
+                        f"for the reply to {message!r}")
+                self._flush_input()
+                return InstrumentError(
+                    f"{name}: no reply within {self._resource.timeout:.0f} ms to {message!r} "
+                    "(check the command and the instrument's state; a long measurement "
+                    "needs a longer timeout)")
+            if exc.error_code == pyvisa.constants.StatusCode.error_connection_lost:
+                return InstrumentError(f"{name}: connection lost while trying to {action} "
+                                       f"{message!r}")
+            return InstrumentError(f"{name}: VISA error while trying to {action} {message!r}: "
+                                   f"{exc.description}")
+        if isinstance(exc, OSError):
+            return InstrumentError(f"{name}: connection lost while trying to {action} "
+                                   f"{message!r} ({exc.strerror or exc})")
+        if isinstance(exc, UnicodeDecodeError):
+            return InstrumentError(f"{name}: the reply to {message!r} is not text ({exc})")
+        return InstrumentError(f"{name}: could not {action} {message!r}: {exc}")
+
+    def _flush_input(self) -> None:
+        """Drop a late reply so the next query does not read it (best effort)."""
+        old = self._resource.timeout
+        try:
+            self._resource.timeout = 20
+            for _ in range(16):
+                self._resource.read_raw()
+        except Exception:  # noqa: BLE001 - a timeout here means the line is quiet
+            pass
+        finally:
+            with contextlib.suppress(Exception):
+                self._resource.timeout = old
+
+    @contextlib.contextmanager
+    def timeout(self, timeout_ms: float | None) -> Iterator[None]:
+        """Temporarily use another timeout (None keeps the current one)."""
+        if timeout_ms is None:
+            yield
+            return
+        old = self._resource.timeout
+        self._resource.timeout = timeout_ms
+        try:
+            yield
+        finally:
+            with contextlib.suppress(Exception):
+                self._resource.timeout = old
+
+    @property
+    def timeout_ms(self) -> float:
+        return float(self._resource.timeout)
+
+    # --- messages --------------------------------------------------------------------
+    def write(self, message: str) -> None:
+        """Send one program message (no reply expected)."""
+        try:
+            self._resource.write(message)
+        except Exception as exc:  # noqa: BLE001 - every failure becomes InstrumentError
+            raise self._fail("send", message, exc) from exc
+
+    def _read_line(self, message: str) -> str:
+        try:
+            reply = self._resource.read()
+        except Exception as exc:  # noqa: BLE001
+            raise self._fail("read the reply to", message, exc) from exc
+        reply = reply.strip()
+        if not reply:
+            raise InstrumentError(f"{self.resource_name}: empty reply to {message!r}")
+        return reply
+
+    def query(self, message: str) -> str:
+        """Send a message with one query in it and return the reply, stripped."""
+        self.write(message)
+        return self._read_line(message)
+
+    def ask(self, message: str) -> list[str]:
+        """Send a message with several queries; return one response unit per query.
+
+        Accepts both IEEE 488.2 replies (all units on one line, joined by the separator)
+        and instruments that answer each query on its own line.
+        """
+        expected = count_queries(message, self.dialect.separator)
+        if expected == 0:
+            self.write(message)
+            return []
+        self.write(message)
+        units: list[str] = []
+        while len(units) < expected:
+            units += scpi.split_units(self._read_line(message), self.dialect.separator)
+        if len(units) != expected:
+            raise InstrumentError(
+                f"{self.resource_name}: {len(units)} reply units to {message!r}, expected "
+                f"{expected} (one per query): {self.dialect.separator.join(units)!r}")
+        return units
+
+    # --- IEEE 488.2 common commands --------------------------------------------------
+    def identify(self) -> str:
+        """The instrument's identification string (*IDN? or the dialect's query)."""
+        return self.query(self.dialect.common.identify)
+
+    def reset(self) -> None:
+        """Reset the instrument and wait until it has finished."""
+        c = self.dialect.common
+        self.expect_complete(self.dialect.join([c.reset, c.operation_complete]))
+
+    def clear(self) -> None:
+        """Clear the status registers and the error queue (*CLS)."""
+        self.write(self.dialect.common.clear_status)
+
+    def wait_complete(self, timeout_ms: float | None = None) -> None:
+        """Wait until pending operations are complete (*OPC?)."""
+        with self.timeout(timeout_ms):
+            self.expect_complete(self.dialect.common.operation_complete)
+
+    def expect_complete(self, message: str) -> None:
+        """Send `message`, which ends in the operation-complete query; expect 1."""
+        reply = self.query(message)
+        try:
+            done = scpi.parse_number(reply) == 1
+        except ValueError:
+            done = False
+        if not done:
+            raise InstrumentError(
+                f"{self.resource_name}: expected 1 in reply to {message!r}, got {reply!r}")
+
+    def drain_errors(self, context: str = "", check: bool = True) -> list[tuple[int, str]]:
+        """Read the error queue until it reports 0.
+
+        With `check`, any entry raises InstrumentError carrying the instrument's own
+        messages and `context` (what was sent); otherwise the entries are returned.
+        """
+        query = self.dialect.common.next_error
+        entries: list[tuple[int, str]] = []
+        for _ in range(MAX_ERROR_ENTRIES):
+            reply = self.query(query)
+            try:
+                code, text = scpi.parse_error_entry(reply)
+            except ValueError:
+                raise InstrumentError(
+                    f"{self.resource_name}: the reply to {query!r} is not an error entry "
+                    f"(expected like -113,\"Undefined header\"): {reply!r}") from None
+            if code == 0:
+                break
+            entries.append((code, text))
+        else:
+            entries.append((0, f"(the error queue did not empty after {MAX_ERROR_ENTRIES} "
+                               "reads)"))
+        if entries and check:
+            where = f" after {context}" if context else ""
+            listed = "; ".join(scpi.format_error_entry(c, t) for c, t in entries)
+            raise InstrumentError(f"{self.resource_name} reported an error{where}: {listed}")
+        return entries
+
+    # --- life cycle --------------------------------------------------------------------
+    @property
+    def closed(self) -> bool:
+        return self._closed
+
+    def close(self) -> None:
+        """Close the resource (idempotent). The resource manager stays: it is shared."""
+        if self._closed:
+            return
+        self._closed = True
+        with contextlib.suppress(Exception):
+            self._resource.close()
+
+    def __enter__(self) -> Session:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def __repr__(self) -> str:
+        return f"Session({self.resource_name!r}, backend={self.backend!r})"
+
+
+def count_queries(message: str, separator: str = ";") -> int:
+    """How many response units an instrument owes for `message`."""
+    count = 0
+    for unit in scpi.split_units(message, separator):
+        try:
+            count += scpi.parse_command(unit).query
+        except ValueError:
+            count += unit.split(None, 1)[0].endswith("?")
+    return count
+
+
+def open_manager(backend: str = "@py"):
+    """The pyvisa ResourceManager of `backend`; failures are InstrumentError or BadInput."""
+    import pyvisa
+
+    library = resolve_backend(backend)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            return pyvisa.ResourceManager(library)
+    except Exception as exc:  # noqa: BLE001 - pyvisa raises many kinds here
+        detail = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise InstrumentError(
+            f"VISA backend {backend!r} could not be opened: {detail} (accepted: '@py', "
+            "'@sim', 'FILE.yaml@sim', or the path of a VISA library)") from None
+
+
+def open_session(
+    resource: str,
+    backend: str = "@py",
+    timeout_ms: int = 2000,
+    dialect: Dialect | None = None,
+) -> Session:
+    """Open `resource` on `backend` with the dialect's terminations and `timeout_ms`."""
+    dialect = dialect or load_dialect()
+    manager = open_manager(backend)
+    if backend.endswith("@sim") and not _sim_knows(manager, resource):
+        # pyvisa-sim hands out a dead session instead of failing: check first
+        raise _not_there(manager, resource, backend, LookupError("no such resource"))
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            handle = manager.open_resource(resource, open_timeout=timeout_ms)
+    except Exception as exc:  # noqa: BLE001
+        raise _not_there(manager, resource, backend, exc) from None
+    try:
+        handle.timeout = timeout_ms
+        handle.read_termination = dialect.read_termination or None
+        handle.write_termination = dialect.write_termination
+    except Exception as exc:  # noqa: BLE001
+        with contextlib.suppress(Exception):
+            handle.close()
+        raise InstrumentError(f"{resource}: cannot set terminations and timeout: {exc}") from None
+    session = Session(handle, resource, dialect, backend)
+    if session._socket is not None:
+        try:
+            session._socket.getpeername()
+        except OSError:
+            session.close()
+            raise _not_there(manager, resource, backend,
+                             ConnectionRefusedError("nothing accepted the connection")) from None
+    return session
+
+
+def _sim_knows(manager, resource: str) -> bool:
+    from pyvisa import rname
+
+    try:
+        wanted = str(rname.parse_resource_name(resource))
+    except rname.InvalidResourceName:
+        return False
+    return wanted in {str(rname.parse_resource_name(r)) for r in manager.list_resources("?*")}
+
+
+def _not_there(manager, resource: str, backend: str, exc: BaseException) -> InstrumentError:
+    reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    try:
+        visible = list_visible(manager)
+    except Exception:  # noqa: BLE001
+        visible = []
+    listed = ", ".join(visible) if visible else "none"
+    hint = ""
+    if not backend.endswith("@sim") and resource.upper().endswith("SOCKET"):
+        hint = (" Raw TCP socket instruments (TCPIP::HOST::PORT::SOCKET) are never listed: "
+                "check the address, the port and that the instrument is on.")
+    return InstrumentError(
+        f"{resource}: cannot open it through backend {backend!r} ({reason}). Resources "
+        f"visible there: {listed}.{hint}")
