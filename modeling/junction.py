@@ -64,6 +64,12 @@ def params_at_temperature(params: DiodeParams, temperature_K: float,
     return params.with_values(IS=saturation_current(params, temperature_K, nominal_K))
 
 
+def _shaped(x, shape: tuple):
+    """Array x given back in ``shape``; a Python float when the input was a scalar."""
+    x = np.asarray(x, dtype=float).reshape(shape)
+    return x if shape else float(x)
+
+
 def _exp(x):
     return np.exp(np.minimum(x, _EXP_CAP))
 
@@ -132,13 +138,14 @@ def junction_conductance(vd, params: DiodeParams, temperature_K: float = DEFAULT
 def current(v, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K):
     """Terminal current [A] at terminal voltage v [V] (array or scalar)."""
     a = params.N * thermal_voltage(temperature_K)
-    v_arr = np.asarray(v, dtype=float)
+    shape = np.shape(v)
+    v_arr = np.atleast_1d(np.asarray(v, dtype=float)).ravel()
     g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
     rs = params.RS
     i_fwd = _explicit_current(v_arr, -params.IS, g, math.log(params.IS), +1, rs, a)
     log_k = _breakdown_log_k(params, a)
     if log_k == -math.inf:
-        return i_fwd if v_arr.ndim else float(i_fwd)
+        return _shaped(i_fwd, shape)
     i_bd = _explicit_current(v_arr, -params.IS, g, log_k, -1, rs, a)
 
     def residual(i, v_):
@@ -160,7 +167,7 @@ def current(v, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K
             *_widened(np.minimum(i_bd, i_fwd)[need], np.maximum(i_bd, i_fwd)[need], 0.0),
             i[need],
         )
-    return i if v_arr.ndim else float(i)
+    return _shaped(i, shape)
 
 
 def _widened(lo, hi, scale: float):
@@ -199,14 +206,15 @@ def junction_voltage(
     either the result is -inf there.
     """
     a = params.N * thermal_voltage(temperature_K)
-    i = np.asarray(i_junction, dtype=float)
+    shape = np.shape(i_junction)
+    i = np.atleast_1d(np.asarray(i_junction, dtype=float)).ravel()
     g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
     log_k = _breakdown_log_k(params, a)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         vd_fwd = _explicit_vd(i, -params.IS, g, math.log(params.IS), +1, a)
         vd_fwd = np.where(np.isnan(vd_fwd), -np.inf, vd_fwd)
         if log_k == -math.inf:
-            return vd_fwd if i.ndim else float(vd_fwd)
+            return _shaped(vd_fwd, shape)
         vd_bd = _explicit_vd(i, -params.IS, g, log_k, -1, a)
     # The exact Vd lies in [vd_fwd, vd_bd] (each branch leaves out one exponential); the
     # breakdown branch has no solution where the current is above -IS.
@@ -232,7 +240,7 @@ def junction_voltage(
             *_widened(lo[need], hi[need], a),
             vd[need],
         )
-    return vd if i.ndim else float(vd)
+    return _shaped(vd, shape)
 
 
 def voltage(i, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K):
