@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import contextlib
 import socket
+import time
 import warnings
 from collections.abc import Iterator
 from importlib import resources
@@ -47,15 +48,11 @@ def resolve_backend(backend: str) -> str:
     )
 
 
-def list_visible(manager, query: str = "?*::INSTR") -> list[str]:
+def list_visible(manager, query: str = "?*") -> list[str]:
     """Resource names the backend can see (raw socket resources are never listed)."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        found = list(manager.list_resources(query))
-        if query != "?*":
-            with contextlib.suppress(Exception):
-                found += [r for r in manager.list_resources("?*") if r not in found]
-    return found
+        return list(manager.list_resources(query))
 
 
 def _socket_of(resource) -> socket.socket | None:
@@ -83,6 +80,7 @@ class Session:
         self._socket = _socket_of(resource)
         self.nodelay = self._set_nodelay()
         self._closed = False
+        self._suspect = False
 
     # --- plumbing --------------------------------------------------------------------
     def _set_nodelay(self) -> bool:
@@ -120,6 +118,7 @@ class Session:
                         f"{name}: connection lost (the instrument closed it) while waiting "
                         f"for the reply to {message!r}")
                 self._flush_input()
+                self._suspect = True
                 return InstrumentError(
                     f"{name}: no reply within {self._resource.timeout:.0f} ms to {message!r} "
                     "(check the command and the instrument's state; a long measurement "
@@ -136,12 +135,14 @@ class Session:
             return InstrumentError(f"{name}: the reply to {message!r} is not text ({exc})")
         return InstrumentError(f"{name}: could not {action} {message!r}: {exc}")
 
-    def _flush_input(self) -> None:
-        """Drop a late reply so the next query does not read it (best effort)."""
+    def _flush_input(self, quiet_ms: float = 50.0, cap_s: float = 1.0) -> None:
+        """Drop late replies until the line has been quiet for `quiet_ms` (best effort),
+        so the next query does not read an answer meant for an earlier one."""
         old = self._resource.timeout
+        deadline = time.monotonic() + cap_s
         try:
-            self._resource.timeout = 20
-            for _ in range(16):
+            self._resource.timeout = quiet_ms
+            while time.monotonic() < deadline:
                 self._resource.read_raw()
         except Exception:  # noqa: BLE001 - a timeout here means the line is quiet
             pass
@@ -170,6 +171,9 @@ class Session:
     # --- messages --------------------------------------------------------------------
     def write(self, message: str) -> None:
         """Send one program message (no reply expected)."""
+        if self._suspect:  # a reply timed out before: drop whatever came in since
+            self._suspect = False
+            self._flush_input()
         try:
             self._resource.write(message)
         except Exception as exc:  # noqa: BLE001 - every failure becomes InstrumentError
