@@ -33,6 +33,8 @@ What the runner does and what a comparison must account for:
   must keep away from: below -3*N*Vt (no breakdown region) it uses a cubic reverse
   approximation, and its breakdown branch replaces, not adds to, the saturation current.
   Both change currents by about IS, so compare where the current is well above IS.
+  Its breakdown current at -BV is about IBV - IS*BV/Vt rather than IBV: keep
+  IS*BV/(Vt*IBV) small in breakdown comparisons.
 """
 
 from __future__ import annotations
