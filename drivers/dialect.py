@@ -168,12 +168,10 @@ def _fault(source: str, where: str, what: str) -> DialectError:
 def _check_keys(table: dict, expected: tuple[str, ...] | dict, source: str, name: str) -> None:
     missing = [k for k in expected if k not in table]
     unknown = [k for k in table if k not in expected]
-    if missing:
-        raise _fault(source, f"[{name}]", f"missing key {missing[0]!r} "
-                     f"(every key of the table must be given; keys: {', '.join(expected)})")
-    if unknown:
-        raise _fault(source, f"[{name}]", f"unknown key {unknown[0]!r} "
-                     f"(accepted keys: {', '.join(expected)})")
+    problems = [f"missing key {k!r}" for k in missing] + [f"unknown key {k!r}" for k in unknown]
+    if problems:
+        raise _fault(source, f"[{name}]", "; ".join(problems) + " (every key of the table "
+                     f"must be given, no other; keys: {', '.join(expected)})")
 
 
 def _check_command(value: Any, kind: str, source: str, where: str) -> str:
