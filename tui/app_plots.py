@@ -1,0 +1,287 @@
+"""What each plot view shows, computed from a RunState and the fitted parameters.
+
+Pure numpy over `modeling`: a view becomes a `PlotData` (series of x/y values, axis
+titles, which axes are logarithmic). Log axes carry log10 of the value; the plot widget
+labels them in decades. The fitted curves come from the model itself (junction current,
+device admittance), evaluated on a grid; no fitting happens here.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from pnbench.modeling import junction, smallsignal
+from pnbench.modeling.params import DiodeParams
+from pnbench.sweeps.quantities import format_quantity
+
+from .app_state import Estimate, RunState
+
+#: (key, title) of every view, in the order the view key cycles through them.
+VIEWS: tuple[tuple[str, str], ...] = (
+    ("iv", "I-V semilog"),
+    ("resid", "I-V residual"),
+    ("cv", "C-V"),
+    ("mott", "Mott-Schottky"),
+    ("yc", "Cp vs f"),
+    ("yg", "Gp vs f"),
+)
+
+#: Decades shown below the largest current on the semilog I-V plot; smaller currents
+#: (such as the exact zero of a point at 0 V) would squash the rest into a few rows.
+IV_DECADES = 14
+#: No current below this is drawn (far under any bench SMU's resolution).
+IV_FLOOR_A = 1e-16
+
+#: Most points drawn per series; beyond this every k-th point is drawn.
+MAX_DRAWN = 2500
+
+#: Markers for data series, distinct without colour.
+MARKERS = ("o", "+", "x", "*", "#", "@")
+STYLES = ("bold", "bold", "bold", "bold", "bold", "bold")
+
+
+@dataclass
+class Series:
+    x: np.ndarray
+    y: np.ndarray
+    label: str
+    line: bool = False
+    marker: str = "o"
+
+
+@dataclass
+class PlotData:
+    view: str
+    title: str
+    x_title: str
+    y_title: str
+    x_unit: str = ""
+    y_unit: str = ""
+    x_log: bool = False
+    y_log: bool = False
+    series: list[Series] = field(default_factory=list)
+    note: str = ""
+
+    @property
+    def empty(self) -> bool:
+        return not any(len(s.x) for s in self.series)
+
+
+def model_params(parameters: dict[str, Estimate]) -> DiodeParams | None:
+    """A DiodeParams from the estimates known so far (absent ones take the card
+    defaults); None while IS or N is missing or the set is not a valid model."""
+    values = {}
+    for name, estimate in parameters.items():
+        if name.upper() in DiodeParams.__dataclass_fields__ and math.isfinite(estimate.value):
+            values[name.upper()] = estimate.value
+    try:
+        return DiodeParams.from_mapping(values)
+    except (ValueError, KeyError):
+        return None
+
+
+def has_dc_fit(parameters: dict[str, Estimate]) -> bool:
+    return "IS" in parameters and "N" in parameters
+
+
+def has_cv_fit(parameters: dict[str, Estimate]) -> bool:
+    return "CJO" in parameters
+
+
+def _thin(*arrays: np.ndarray) -> tuple[np.ndarray, ...]:
+    n = len(arrays[0])
+    if n <= MAX_DRAWN:
+        return arrays
+    step = int(math.ceil(n / MAX_DRAWN))
+    return tuple(a[::step] for a in arrays)
+
+
+def _log10_abs(values: np.ndarray) -> np.ndarray:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = np.log10(np.abs(values))
+    out[~np.isfinite(out)] = np.nan
+    return out
+
+
+def _grid(values: np.ndarray, count: int = 160) -> np.ndarray:
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return np.empty(0)
+    lo, hi = float(finite.min()), float(finite.max())
+    if hi <= lo:
+        return np.array([lo])
+    return np.linspace(lo, hi, count)
+
+
+def _admittance_split(state: RunState) -> tuple[np.ndarray, np.ndarray]:
+    """Boolean masks over state.cv: (C-V points, admittance-vs-frequency points)."""
+    steps = state.cv.steps
+    kinds = [state.step_kind(step).lower() for step in steps]
+    adm = np.array(["adm" in kind for kind in kinds], dtype=bool)
+    if adm.any():
+        return ~adm, adm
+    # No step says which is which: biases measured at 3 or more frequencies are
+    # admittance points; all points also stay in the C-V view.
+    v = np.round(state.cv.column("voltage_V"), 4)
+    f = state.cv.column("frequency_Hz")
+    multi = np.zeros(len(v), dtype=bool)
+    for bias in np.unique(v[np.isfinite(v)]):
+        at = v == bias
+        if np.unique(f[at]).size >= 3:
+            multi |= at
+    return np.ones(len(v), dtype=bool), multi
+
+
+def plot_data(view: str, state: RunState) -> PlotData:
+    """The series of one view (see VIEWS) for the run as it stands."""
+    params = model_params(state.parameters)
+    builder = {"iv": _iv, "resid": _residual, "cv": _cv, "mott": _mott,
+               "yc": _admittance, "yg": _admittance}[view]
+    return builder(view, state, params)
+
+
+def _iv(view: str, state: RunState, params: DiodeParams | None) -> PlotData:
+    data = PlotData(view, dict(VIEWS)[view], "V", "|I|", "V", "A", y_log=True)
+    v, i = state.iv.column("voltage_V"), state.iv.column("current_A")
+    compliance = state.iv.column("compliance") > 0
+    ok = ~compliance
+    data.series.append(Series(*_thin(v[ok], _log10_abs(i[ok])), "measured", marker="o"))
+    if compliance.any():
+        data.series.append(Series(v[compliance], _log10_abs(i[compliance]),
+                                  "in compliance", marker="!"))
+        data.note = f"{int(compliance.sum())} points in compliance (marked !)"
+    if params is not None and has_dc_fit(state.parameters) and len(v):
+        grid = _grid(v)
+        fit = junction.current(grid, params, state.temperature_K)
+        data.series.append(Series(grid, _log10_abs(np.asarray(fit)), "fit", line=True))
+    elif len(v):
+        data.note = data.note or "no I-V fit yet"
+    _clip_decades(data)
+    return data
+
+
+def _clip_decades(data: PlotData) -> None:
+    """Hide log values more than IV_DECADES under the largest measured one."""
+    measured = [s.y[np.isfinite(s.y)] for s in data.series if not s.line]
+    tops = [float(y.max()) for y in measured if y.size]
+    if not tops:
+        return
+    floor = max(max(tops) - IV_DECADES, math.log10(IV_FLOOR_A))
+    for series in data.series:
+        series.y = np.where(series.y >= floor, series.y, np.nan)
+
+
+def iv_residuals(state: RunState, params: DiodeParams) -> tuple[np.ndarray, np.ndarray]:
+    """(V, log10(|I measured| / |I fit|)) for the points both are nonzero at."""
+    v, i = state.iv.column("voltage_V"), state.iv.column("current_A")
+    fit = np.asarray(junction.current(v, params, state.temperature_K), dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = np.log10(np.abs(i) / np.abs(fit))
+    keep = np.isfinite(r) & (state.iv.column("compliance") == 0)
+    return v[keep], r[keep]
+
+
+def _residual(view: str, state: RunState, params: DiodeParams | None) -> PlotData:
+    data = PlotData(view, dict(VIEWS)[view], "V", "log10(I/Ifit)", "V", "dec")
+    if params is None or not has_dc_fit(state.parameters) or len(state.iv) == 0:
+        data.note = "needs I-V points and an I-V fit"
+        return data
+    v, r = iv_residuals(state, params)
+    data.series.append(Series(*_thin(v, r), "residual", marker="o"))
+    if len(v):
+        data.series.append(Series(np.array([v.min(), v.max()]), np.zeros(2), "zero",
+                                  line=True))
+        data.note = f"rms {float(np.sqrt(np.mean(r ** 2))):.3f} decades"
+    return data
+
+
+def _cv_points(state: RunState) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    cv_mask, _ = _admittance_split(state)
+    v = state.cv.column("voltage_V")[cv_mask]
+    c = state.cv.column("capacitance_F")[cv_mask]
+    f = state.cv.column("frequency_Hz")[cv_mask]
+    return v, c, f
+
+
+def _main_frequency(f: np.ndarray) -> float:
+    finite = f[np.isfinite(f)]
+    if finite.size == 0:
+        return math.nan
+    values, counts = np.unique(finite, return_counts=True)
+    return float(values[np.argmax(counts)])
+
+
+def _cp_fit(v: np.ndarray, frequency_Hz: float, params: DiodeParams,
+            temperature_K: float) -> np.ndarray:
+    y = smallsignal.device_admittance(v, frequency_Hz, params, temperature_K)
+    cp, _ = smallsignal.parallel_from_admittance(y, frequency_Hz)
+    return np.asarray(cp, dtype=float)
+
+
+def _cv(view: str, state: RunState, params: DiodeParams | None) -> PlotData:
+    data = PlotData(view, dict(VIEWS)[view], "V", "Cp", "V", "F")
+    v, c, f = _cv_points(state)
+    for n, freq in enumerate(np.unique(f[np.isfinite(f)])[:len(MARKERS)]):
+        at = f == freq
+        data.series.append(Series(*_thin(v[at], c[at]), f"{_si(freq, 'Hz')}",
+                                  marker=MARKERS[n]))
+    if params is not None and has_cv_fit(state.parameters) and len(v):
+        freq = _main_frequency(f)
+        if math.isfinite(freq):
+            grid = _grid(v)
+            data.series.append(Series(grid, _cp_fit(grid, freq, params, state.temperature_K),
+                                      "fit", line=True))
+    elif len(v):
+        data.note = "no C-V fit yet"
+    return data
+
+
+def _mott(view: str, state: RunState, params: DiodeParams | None) -> PlotData:
+    data = PlotData(view, dict(VIEWS)[view], "V", "1/C^2", "V", "1/F^2")
+    v, c, _ = _cv_points(state)
+    with np.errstate(divide="ignore"):
+        inv = 1.0 / c ** 2
+    good = np.isfinite(inv) & (c > 0)
+    data.series.append(Series(*_thin(v[good], inv[good]), "measured", marker="o"))
+    if params is not None and has_cv_fit(state.parameters) and good.any():
+        grid = _grid(v[good])
+        grid = grid[grid < params.FC * params.VJ]
+        cj = np.asarray(smallsignal.depletion_capacitance(grid, params), dtype=float)
+        data.series.append(Series(grid, 1.0 / cj ** 2, "fit (Cj)", line=True))
+        data.note = f"intercept near VJ = {params.VJ:.3g} V for an abrupt junction (M=0.5)"
+    return data
+
+
+def _admittance(view: str, state: RunState, params: DiodeParams | None) -> PlotData:
+    capacitive = view == "yc"
+    data = PlotData(view, dict(VIEWS)[view], "f", "Cp" if capacitive else "Gp", "Hz",
+                    "F" if capacitive else "S", x_log=True, y_log=True)
+    _, mask = _admittance_split(state)
+    v = np.round(state.cv.column("voltage_V")[mask], 4)
+    f = state.cv.column("frequency_Hz")[mask]
+    y = state.cv.column("capacitance_F" if capacitive else "conductance_S")[mask]
+    biases = np.unique(v[np.isfinite(v)])
+    if biases.size > len(MARKERS):  # show a spread of biases, lowest to highest
+        biases = biases[np.linspace(0, biases.size - 1, len(MARKERS)).round().astype(int)]
+    for n, bias in enumerate(biases):
+        at = (v == bias) & np.isfinite(f) & (f > 0)
+        order = np.argsort(f[at])
+        data.series.append(Series(np.log10(f[at][order]), _log10_abs(y[at][order]),
+                                  f"{bias:+.3g} V", marker=MARKERS[n]))
+        if params is not None and has_dc_fit(state.parameters) and at.sum() >= 2:
+            grid = np.linspace(f[at].min(), f[at].max(), 80)
+            adm = smallsignal.device_admittance(float(bias), grid, params,
+                                                state.temperature_K)
+            cp, gp = smallsignal.parallel_from_admittance(adm, grid)
+            data.series.append(Series(np.log10(grid), _log10_abs(cp if capacitive else gp),
+                                      "", line=True))
+    if not biases.size:
+        data.note = "no admittance points (bias x frequency) yet"
+    return data
+
+
+def _si(value: float, unit: str) -> str:
+    return format_quantity(value, unit, prec=3)

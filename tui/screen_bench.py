@@ -1,0 +1,164 @@
+"""The bench screen: instruments of the plan (role, resource, dialect, identity, state),
+what the VISA backends see, and the state of every source output."""
+
+from __future__ import annotations
+
+import json
+
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import VerticalScroll
+from textual.screen import Screen
+from textual.widgets import DataTable, Footer, Static
+
+from .app_bench import (
+    InstrumentRow,
+    identify_rows,
+    output_name,
+    plan_rows,
+    scan_resources,
+    with_run_identities,
+)
+from .widget_banner import ScreenBar, SourceBanner
+
+REFRESH_S = 0.5
+
+
+class BenchScreen(Screen):
+    """Instruments and outputs."""
+
+    BINDINGS = [
+        Binding("i", "identify", "Identify"),
+        Binding("l", "scan", "List VISA"),
+    ]
+
+    def __init__(self):
+        super().__init__()
+        self.rows: list[InstrumentRow] = []
+        self.scanned: list[tuple[str, str]] | None = None
+        self._identified = False
+        self._busy = ""
+
+    def compose(self) -> ComposeResult:
+        yield SourceBanner()
+        yield ScreenBar("bench", "Bench")
+        with VerticalScroll(id="bench-body"):
+            yield Static("Instruments of the plan", classes="section")
+            yield DataTable(id="bench-instruments", cursor_type="row", show_cursor=False)
+            yield Static("", id="bench-outputs")
+            yield Static("Resources the VISA backends list", classes="section")
+            yield Static("", id="bench-resources")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        table = self.query_one("#bench-instruments", DataTable)
+        for name in ("role", "resource", "backend", "dialect", "identity", "state"):
+            table.add_column(name, key=name)
+        self.refresh_rows()
+        self.set_interval(REFRESH_S, self.refresh_rows)
+
+    # ------------------------------------------------------------------ display
+    def refresh_rows(self) -> None:
+        if not self.is_current:
+            return
+        app = self.app
+        rows = self.rows if self._identified else plan_rows(app.plan, app.simulate)
+        live = app.live
+        if live is not None and live.run_dir is not None:
+            try:
+                doc = json.loads((live.run_dir / "run.json").read_text(encoding="utf-8"))
+            except (OSError, ValueError):
+                doc = {}
+            state = "in use by the sweep" if app.live_active else "released"
+            rows = with_run_identities(plan_rows(app.plan, app.simulate), doc, state)
+        if app.plan is None:
+            rows = []
+        self._fill(rows)
+        self._show_outputs()
+        self._show_resources()
+
+    def _fill(self, rows: list[InstrumentRow]) -> None:
+        table = self.query_one("#bench-instruments", DataTable)
+        if rows == self.rows and table.row_count:
+            return
+        self.rows = rows
+        table.clear()
+        if not rows:
+            table.add_row("--", "no plan loaded (F3 Plan)", "", "", "", "")
+        for row in rows:
+            table.add_row(row.role, row.resource, row.backend, row.dialect,
+                          row.identity or "--", row.state)
+
+    def _show_outputs(self) -> None:
+        app = self.app
+        truth = app.live.outputs() if app.live is not None else None
+        outputs = truth if truth is not None else app.state.outputs
+        if outputs:
+            parts = [f"{output_name(k)}: {'ON' if v else 'off'}" for k, v in
+                     sorted(outputs.items())]
+            source = "simulated bench" if truth is not None else "runner events"
+            text = f"Outputs ({source}): " + ", ".join(parts)
+        else:
+            text = "Outputs: no sweep has switched anything on in this app."
+        if app.simulate:
+            text += f"\nSimulated bench: device {app.simulate}, time scale {app.time_scale:g}"
+        if self._busy:
+            text += f"\n{self._busy}"
+        self.query_one("#bench-outputs", Static).update(text)
+
+    def _show_resources(self) -> None:
+        if self.scanned is None:
+            text = "not listed yet (l lists them; raw-socket instruments never appear here)"
+        elif not self.scanned:
+            text = "none found"
+        else:
+            text = "\n".join(f"{backend:>6}  {name}" for backend, name in self.scanned)
+        self.query_one("#bench-resources", Static).update(text)
+
+    # ------------------------------------------------------------------ actions
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action == "identify":
+            return self.app.plan is not None and not self.app.live_active
+        return True
+
+    def action_identify(self) -> None:
+        app = self.app
+        self._busy = "asking each instrument for its identity..."
+        rows = plan_rows(app.plan, app.simulate)
+
+        def work() -> None:
+            try:
+                found = identify_rows(rows, app.plan, app.simulate)
+            except Exception as exc:  # noqa: BLE001 - shown, the app stays up
+                app.call_from_thread(self._identified_failed, str(exc))
+                return
+            app.call_from_thread(self._identified_rows, found)
+
+        self.run_worker(work, thread=True, exclusive=True, group="identify")
+
+    def _identified_rows(self, rows: list[InstrumentRow]) -> None:
+        self._identified = True
+        self._busy = ""
+        self.rows = []
+        self._fill(rows)
+        self.rows = rows
+
+    def _identified_failed(self, message: str) -> None:
+        self._busy = f"identify failed: {message}"
+
+    def action_scan(self) -> None:
+        app = self.app
+        backends = sorted({inst.backend for inst in app.plan.instruments.values()}
+                          if app.plan else set()) or ["@py"]
+        self._busy = f"listing resources on {', '.join(backends)}..."
+
+        def work() -> None:
+            found = scan_resources(backends)
+            app.call_from_thread(self._scanned, found)
+
+        self.run_worker(work, thread=True, exclusive=True, group="scan")
+
+    def _scanned(self, found: list[tuple[str, str]]) -> None:
+        self.scanned = found
+        self._busy = ""
+        self._show_resources()

@@ -1,0 +1,191 @@
+"""The run screen: live plot, parameters, Q-point, log, progress; pause, resume, abort.
+
+It reads the app's RunState (filled on the UI thread from the runner's queue or from a
+folder being watched) on a timer, and redraws only what changed: tables and progress at
+most four times a second, the plot at most twice. With `read_only` (watch) the run
+controls are hidden and disabled.
+"""
+
+from __future__ import annotations
+
+import time
+
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical
+from textual.screen import Screen
+from textual.widgets import Footer, Log, Static
+
+from .app_plots import VIEWS, has_dc_fit, model_params, plot_data
+from .widget_banner import ScreenBar, SourceBanner
+from .widget_params import ParamTable
+from .widget_plot import SweepPlot
+from .widget_progress import RunProgress
+from .widget_qpoint import QPointPanel
+
+#: Side panels in the order the panel key cycles through them on a small terminal.
+PANELS = (("params", "Parameters"), ("qpoint", "Small-signal at Q-point"),
+          ("log", "Compliance, limits, warnings"))
+
+#: Columns and rows from which every panel shows at once.
+WIDE_COLUMNS = 150
+WIDE_ROWS = 40
+
+TABLE_PERIOD_S = 0.25
+PLOT_PERIOD_S = 0.5
+
+
+class RunScreen(Screen):
+    """Live view of one run (owned by this app, or watched through its folder)."""
+
+    BINDINGS = [
+        Binding("s", "start", "Start"),
+        Binding("space", "pause", "Pause/resume"),
+        Binding("x", "abort", "Abort"),
+        Binding("v", "next_view", "Plot view"),
+        Binding("V", "previous_view", "Prev view", show=False),
+        Binding("p", "next_panel", "Panel"),
+        Binding("b", "pick_qpoint", "Q-point"),
+    ] + [Binding(str(n + 1), f"view({n})", f"view {key}", show=False)
+         for n, (key, _) in enumerate(VIEWS)]
+
+    def __init__(self, read_only: bool = False):
+        super().__init__()
+        self.read_only = read_only
+        self.view_index = 0
+        self.panel_index = 0
+        self._drawn_version = -1
+        self._plot_version = -1
+        self._plot_drawn_at = 0.0
+        self._log_count = 0
+
+    def compose(self) -> ComposeResult:
+        yield SourceBanner()
+        yield ScreenBar("run", "Watch" if self.read_only else "Run")
+        with Horizontal(id="run-body"):
+            yield SweepPlot(id="run-plot")
+            with Vertical(id="run-side"):
+                yield Static("", id="panel-title")
+                yield ParamTable(id="params")
+                yield QPointPanel(id="qpoint")
+                yield Log(id="log", max_lines=2000, auto_scroll=True)
+        yield RunProgress(id="run-progress")
+        yield Static("", id="run-last")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        for widget_id in ("params", "qpoint", "log"):
+            self.query_one(f"#{widget_id}").add_class("panel")
+        self._layout(self.size.width, self.size.height)
+        self._show_panel()
+        self.set_interval(TABLE_PERIOD_S, self.refresh_view)
+        self.refresh_view(force=True)
+
+    def on_resize(self, event) -> None:
+        self._layout(event.size.width, event.size.height)
+
+    def _layout(self, width: int, height: int) -> None:
+        wide = width >= WIDE_COLUMNS and height >= WIDE_ROWS
+        self.set_class(wide, "-wide")
+        self.set_class(not wide, "-narrow")
+        table = self.query_one(ParamTable)
+        if table.detailed != wide:
+            table.detailed = wide
+            table.show(self.state.parameters) if table.row_count else None
+        self._show_panel()
+
+    # ------------------------------------------------------------------ drawing
+    @property
+    def state(self):
+        return self.app.state
+
+    def refresh_view(self, force: bool = False) -> None:
+        """Redraw what changed since the last call (timer and explicit calls)."""
+        state = self.state
+        if not force and state.version == self._drawn_version:
+            self._tick_progress()
+            return
+        self._drawn_version = state.version
+        params = model_params(state.parameters)
+        self.query_one(ParamTable).show(state.parameters)
+        self.query_one(QPointPanel).show(params, state.temperature_K,
+                                         has_dc_fit(state.parameters))
+        self.query_one(RunProgress).show(state)
+        self._append_log()
+        now = time.monotonic()
+        if force or now - self._plot_drawn_at >= PLOT_PERIOD_S:
+            self._draw_plot()
+
+    def _tick_progress(self) -> None:
+        """Elapsed time moves while nothing arrives; the plot catches up if it lagged."""
+        self.query_one(RunProgress).show(self.state)
+        if self._plot_version != self.state.version:
+            self._draw_plot()
+
+    def _draw_plot(self) -> None:
+        key = VIEWS[self.view_index][0]
+        data = plot_data(key, self.state)
+        self.query_one(SweepPlot).show(data, f"{self.view_index + 1}/{len(VIEWS)}")
+        self._plot_version = self.state.version
+        self._plot_drawn_at = time.monotonic()
+
+    def _append_log(self) -> None:
+        fresh = self.state.new_log_entries(self._log_count)
+        self._log_count = self.state.log_total
+        if not fresh:
+            return
+        self.query_one(Log).write_lines([entry.line() for entry in fresh])
+        important = [e for e in fresh if e.tag in ("COMPL", "LIMIT", "WARN", "ERROR")]
+        if important:
+            self.query_one("#run-last", Static).update("last: " + important[-1].line())
+
+    def _show_panel(self) -> None:
+        key, title = PANELS[self.panel_index]
+        for panel_key, _ in PANELS:
+            self.query_one(f"#{panel_key}").set_class(panel_key == key, "-current")
+        wide = self.has_class("-wide")
+        self.query_one("#panel-title", Static).update(
+            "Parameters | Q-point | Log" if wide else f"{title}  (p: next panel)")
+
+    # ------------------------------------------------------------------ actions
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action in ("start", "pause", "abort"):
+            if self.read_only:
+                return False  # watching: no control over the acquisition, not shown
+            return True if self.app.can_run_action(action) else None
+        return True
+
+    def action_start(self) -> None:
+        self.app.start_run()
+
+    def action_pause(self) -> None:
+        self.app.toggle_pause()
+
+    def action_abort(self) -> None:
+        self.app.ask_abort()
+
+    def action_next_view(self) -> None:
+        self.action_view((self.view_index + 1) % len(VIEWS))
+
+    def action_previous_view(self) -> None:
+        self.action_view((self.view_index - 1) % len(VIEWS))
+
+    def action_view(self, index: int) -> None:
+        self.view_index = int(index) % len(VIEWS)
+        self._draw_plot()
+
+    def action_next_panel(self) -> None:
+        self.panel_index = (self.panel_index + 1) % len(PANELS)
+        self._show_panel()
+
+    def action_pick_qpoint(self) -> None:
+        from .screen_dialogs import QPointDialog
+
+        panel = self.query_one(QPointPanel)
+
+        def chosen(choice) -> None:
+            if choice is not None:
+                panel.choice = choice
+                self.refresh_view(force=True)
+
+        self.app.push_screen(QPointDialog(panel.choice), chosen)
