@@ -81,6 +81,7 @@ class Session:
         self.nodelay = self._set_nodelay()
         self._closed = False
         self._suspect = False
+        self._identity: str | None = None
 
     # --- plumbing --------------------------------------------------------------------
     def _set_nodelay(self) -> bool:
@@ -171,13 +172,48 @@ class Session:
     # --- messages --------------------------------------------------------------------
     def write(self, message: str) -> None:
         """Send one program message (no reply expected)."""
-        if self._suspect:  # a reply timed out before: drop whatever came in since
-            self._suspect = False
-            self._flush_input()
+        if self._closed:
+            raise InstrumentError(f"{self.resource_name}: the session is closed; cannot send "
+                                  f"{message!r}")
+        if self._peer_gone():
+            raise InstrumentError(f"{self.resource_name}: connection lost (the instrument "
+                                  f"closed it); cannot send {message!r}")
+        if self._suspect:  # a reply timed out before: get back in step first
+            self._resync()
         try:
             self._resource.write(message)
         except Exception as exc:  # noqa: BLE001 - every failure becomes InstrumentError
             raise self._fail("send", message, exc) from exc
+
+    def _resync(self) -> None:
+        """After a timeout, skip late replies: ask for the identity and read lines until
+        one is it (the cached identity, or an IEEE 488.2 identity of four fields)."""
+        self._suspect = False
+        query = self.dialect.common.identify
+        try:
+            self._resource.write(query)
+        except Exception as exc:  # noqa: BLE001
+            raise self._fail("send", query, exc) from exc
+        skipped = []
+        for _ in range(16):
+            line = self._read_line(query)
+            if self._looks_like_identity(line):
+                return
+            skipped.append(line)
+        raise InstrumentError(f"{self.resource_name}: cannot get back in step after a "
+                              f"timeout; unexpected replies: {skipped[:3]!r}")
+
+    def _looks_like_identity(self, line: str) -> bool:
+        if self._identity is not None:
+            return line == self._identity
+        fields = scpi.split_args(line)
+        if len(fields) < 4:
+            return False
+        try:
+            scpi.parse_numbers(line)
+        except ValueError:
+            return True
+        return False
 
     def _read_line(self, message: str) -> str:
         try:
@@ -207,7 +243,16 @@ class Session:
         self.write(message)
         units: list[str] = []
         while len(units) < expected:
-            units += scpi.split_units(self._read_line(message), self.dialect.separator)
+            try:
+                line = self._read_line(message)
+            except InstrumentError as exc:
+                if not units:
+                    raise
+                raise InstrumentError(
+                    f"{self.resource_name}: incomplete reply to {message!r}: {len(units)} of "
+                    f"{expected} reply units ({self.dialect.separator.join(units)!r}), then "
+                    f"{exc}") from None
+            units += scpi.split_units(line, self.dialect.separator)
         if len(units) != expected:
             raise InstrumentError(
                 f"{self.resource_name}: {len(units)} reply units to {message!r}, expected "
@@ -217,7 +262,8 @@ class Session:
     # --- IEEE 488.2 common commands --------------------------------------------------
     def identify(self) -> str:
         """The instrument's identification string (*IDN? or the dialect's query)."""
-        return self.query(self.dialect.common.identify)
+        self._identity = self.query(self.dialect.common.identify)
+        return self._identity
 
     def reset(self) -> None:
         """Reset the instrument and wait until it has finished."""
