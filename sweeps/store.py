@@ -18,6 +18,7 @@ Readers (the app, reports, `watch`) use `read_run`, `read_points`, `read_events`
 
 from __future__ import annotations
 
+import fcntl
 import json
 import os
 import re
@@ -27,10 +28,11 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
-from pnbench.modeling.errors import DataFileError
+from pnbench.modeling.errors import BadInput, DataFileError
 from pnbench.sweeps.events import Event
 
 RUN_FORMAT = 1
+LOCK_NAME = ".pnbench.lock"
 COLUMNS = ("step", "index", "kind", "time_s", "voltage_V", "current_A", "frequency_Hz",
            "capacitance_F", "conductance_S", "compliance")
 HEADER = ",".join(COLUMNS)
@@ -134,6 +136,7 @@ class RunFolder:
 
     def __init__(self, path: Path) -> None:
         self.path = Path(path)
+        self._lockfile = _take_lock(self.path)
         self.run: dict = {}
         self._points = open(self.path / "points.csv", "a", encoding="utf-8", newline="")
         self._events = open(self.path / "events.jsonl", "a", encoding="utf-8")
@@ -247,6 +250,29 @@ class RunFolder:
                 f.close()
             except (OSError, ValueError):
                 pass
+        try:
+            self._lockfile.close()  # releases the lock
+        except OSError:
+            pass
+
+
+def _take_lock(path: Path):
+    """Hold an exclusive lock on the run folder while it is open for writing (released by
+    the kernel when the process dies, even by kill -9)."""
+    handle = open(path / LOCK_NAME, "a+", encoding="utf-8")
+    try:
+        fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError:
+        handle.seek(0)
+        owner = handle.read().strip() or "another process"
+        handle.close()
+        raise BadInput(f"run folder {path} is in use by pnbench process {owner}; wait for it "
+                       "to finish (or stop it) before resuming") from None
+    handle.seek(0)
+    handle.truncate()
+    handle.write(str(os.getpid()))
+    handle.flush()
+    return handle
 
 
 def card_file_name(device_name: str) -> str:

@@ -1,0 +1,200 @@
+"""Connecting the instruments a plan needs, and always leaving them off.
+
+    with open_bench(plan, simulate="lh-sw200", time_scale=0.0) as bench:
+        bench.smu, bench.lcr, bench.instruments    # roles and their identities
+        bench.safe_off()                           # {role: confirmed off}
+
+`open_bench` connects the roles the plan's steps use (from the plan's [instruments], or
+from a simulated bench started in-process for ``simulate``), asks each for its identity,
+optionally compares serial numbers with a previous run's, and turns every output off
+before handing the bench over. Leaving the `with` block, by any path, turns every output
+off again and confirms it. When a session has died (the connection dropped mid-step),
+`safe_off` opens a fresh one to the same instrument to turn it off: an instrument whose
+controller went away keeps its output on unless someone tells it otherwise.
+"""
+
+from __future__ import annotations
+
+import contextlib
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+
+from pnbench.modeling.errors import BadInput, InstrumentError
+from pnbench.sweeps.plan import Plan
+
+
+def serial_of(identity: str) -> str:
+    """The serial-number field of an IEEE 488.2 identification (the third field)."""
+    parts = [p.strip() for p in identity.split(",")]
+    return parts[2] if len(parts) >= 3 else identity.strip()
+
+
+def model_of(identity: str) -> str:
+    parts = [p.strip() for p in identity.split(",")]
+    return ",".join(parts[:2]) if len(parts) >= 2 else identity.strip()
+
+
+@dataclass
+class Connection:
+    """How one role is reached, and the identity it gave."""
+
+    role: str
+    resource: str
+    backend: str
+    dialect_path: str | None
+    timeout_ms: int
+    identity: str = ""
+
+    def to_json_dict(self) -> dict:
+        return {"resource": self.resource, "backend": self.backend,
+                "dialect": self.dialect_path, "identity": self.identity}
+
+
+@dataclass
+class Bench:
+    connections: dict = field(default_factory=dict)  # role -> Connection
+    roles: dict = field(default_factory=dict)  # role -> Smu | LcrMeter
+    sim: object | None = None
+    simulated: str | None = None
+    last_off: dict = field(default_factory=dict)
+    identity_changes: list = field(default_factory=list)
+
+    @property
+    def smu(self):
+        return self.roles.get("smu")
+
+    @property
+    def lcr(self):
+        return self.roles.get("lcr")
+
+    @property
+    def instruments(self) -> dict:
+        return {role: c.to_json_dict() for role, c in self.connections.items()}
+
+    def safe_off(self) -> dict[str, bool]:
+        """Ramp to zero and turn off every role's output; {role: confirmed off}."""
+        report = {role: self._off(role) for role in self.roles}
+        self.last_off = report
+        return report
+
+    def _off(self, role: str) -> bool:
+        for attempt in range(2):
+            try:
+                self.roles[role].safe_off()
+                return True
+            except KeyboardInterrupt:
+                continue  # a second Ctrl-C must not leave the output on: try again
+            except Exception:  # noqa: BLE001 - reconnect once and try again
+                if attempt == 0:
+                    try:
+                        self._reconnect(role)
+                    except Exception:  # noqa: BLE001
+                        return False
+        return False
+
+    def _reconnect(self, role: str) -> None:
+        old = self.roles[role]
+        with contextlib.suppress(Exception):
+            old.session.close()
+        fresh = _open_role(self.connections[role])
+        if role == "smu":  # carry the source state so ramp_to_zero knows where it is
+            fresh.source, fresh.limit, fresh.level = old.source, old.limit, old.level
+        self.roles[role] = fresh
+
+    def check_errors(self, role: str, context: str) -> None:
+        """Raise InstrumentError if the role's instrument has queued an error."""
+        instrument = self.roles.get(role)
+        if instrument is not None:
+            instrument.session.drain_errors(context=context)
+
+    def close(self) -> None:
+        for instrument in self.roles.values():
+            with contextlib.suppress(Exception):
+                instrument.session.close()
+        if self.sim is not None:
+            with contextlib.suppress(Exception):
+                self.sim.close()
+
+
+def _open_role(conn: Connection):
+    from pnbench.drivers.dialect import load_dialect
+    from pnbench.drivers.roles import LcrMeter, Smu
+    from pnbench.drivers.session import open_session
+
+    dialect = load_dialect(conn.dialect_path)
+    session = open_session(conn.resource, backend=conn.backend, timeout_ms=conn.timeout_ms,
+                           dialect=dialect)
+    try:
+        return Smu(session, dialect) if conn.role == "smu" else LcrMeter(session, dialect)
+    except Exception:
+        session.close()
+        raise
+
+
+def connections_for(plan: Plan, roles: set[str], sim=None) -> dict[str, Connection]:
+    """Where each needed role is: the simulated bench's sockets, or the plan's table."""
+    found = {}
+    for role in sorted(roles):
+        if sim is not None:
+            resource = sim.smu_resource if role == "smu" else sim.lcr_resource
+            found[role] = Connection(role, resource, "@py", None, 5000)
+            continue
+        spec = plan.instruments.get(role)
+        if spec is None:
+            raise BadInput(f"plan {plan.path}: its steps need the {role.upper()} but "
+                           f"[instruments] has no {role!r} entry; add one (resource, "
+                           "backend, dialect) or rehearse with --simulate DEVICE")
+        found[role] = Connection(role, spec.resource, spec.backend, spec.dialect,
+                                 spec.timeout_ms)
+    return found
+
+
+@contextlib.contextmanager
+def open_bench(plan: Plan, *, simulate: str | None = None, time_scale: float = 0.0,
+               expected: dict | None = None, force_identity: bool = False,
+               off_on_disconnect: bool = True) -> Iterator[Bench]:
+    """Connect, identify, switch everything off; on leaving, switch off and confirm.
+
+    ``expected`` maps role -> identity string of a previous run (resume): a different
+    serial number raises InstrumentError unless ``force_identity``.
+    """
+    bench = Bench(simulated=simulate)
+    try:
+        if simulate is not None:
+            from pnbench.drivers.simbench import SimBench
+
+            bench.sim = SimBench.start(simulate, time_scale=time_scale,
+                                       off_on_disconnect=off_on_disconnect)
+        bench.connections = connections_for(plan, plan.roles_needed, bench.sim)
+        for role, conn in bench.connections.items():
+            bench.roles[role] = _open_role(conn)
+            conn.identity = bench.roles[role].identity
+        _check_identities(bench, expected or {}, force_identity)
+        off = bench.safe_off()
+        if not all(off.values()):
+            bad = ", ".join(r for r, ok in off.items() if not ok)
+            raise InstrumentError(f"the {bad} output could not be confirmed off before "
+                                  "the run; check the instrument")
+        yield bench
+    finally:
+        try:
+            if bench.roles:
+                bench.safe_off()
+        finally:
+            bench.close()
+
+
+def _check_identities(bench: Bench, expected: dict, force: bool) -> None:
+    for role, identity in expected.items():
+        conn = bench.connections.get(role)
+        if conn is None or not identity:
+            continue
+        if serial_of(conn.identity) != serial_of(identity) or (
+                model_of(conn.identity) != model_of(identity)):
+            message = (f"the {role.upper()} at {conn.resource} is not the one this run "
+                       f"started with: it answers {conn.identity!r}, the run recorded "
+                       f"{identity!r}")
+            if not force:
+                raise InstrumentError(message + "; connect the same instrument, or pass "
+                                      "--force-identity to continue on this one")
+            bench.identity_changes.append(message)

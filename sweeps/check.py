@@ -1,0 +1,65 @@
+"""What a plan will cost before it runs: duration and worst-case power, per step.
+
+Duration per point = settle + readings x (integration + overhead), where a reading's
+integration is NPLC / line frequency for the SMU and `LCR_READING_S` for the LCR meter,
+and a step with a settle time takes one extra reading (the level is applied, the source
+settles, then it is read). The overhead per reading (`SMU_OVERHEAD_S`,
+`LCR_OVERHEAD_S`) covers command parsing, ranging and transfer: rough figures of
+common practice (no source), which a real instrument's manual may correct.
+
+Worst-case power is what a step could put into the device without the runner's power
+guard: |V| x compliance current when forcing voltage, |I| x compliance voltage when
+forcing current. Above max_power, the runner's prediction ends the step first.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from pnbench.sweeps.plan import Plan
+from pnbench.sweeps.planstep import Step
+
+SMU_OVERHEAD_S = 0.002
+LCR_READING_S = 0.03
+LCR_OVERHEAD_S = 0.003
+
+
+@dataclass(frozen=True)
+class Estimate:
+    total_s: float
+    step_s: list[float]
+    step_power_W: list[float | None]  # worst case without the power guard; None for LCR
+    worst_power_W: float
+    guarded_steps: list[str]  # steps whose worst case is above max_power
+
+    def to_json_dict(self) -> dict:
+        return {"total_s": self.total_s, "step_s": self.step_s,
+                "step_power_W": self.step_power_W, "worst_power_W": self.worst_power_W,
+                "guarded_steps": self.guarded_steps}
+
+
+def step_seconds(step: Step, line_frequency_Hz: float = 50.0) -> float:
+    if step.instrument == "smu":
+        reading = step.nplc / line_frequency_Hz + SMU_OVERHEAD_S
+        readings = step.average + (1 if step.settle_s > 0 else 0)
+        return step.planned * (step.settle_s + readings * reading)
+    biases = len({p.level for p in step.points})
+    reading = LCR_READING_S + LCR_OVERHEAD_S
+    settle = biases * (step.settle_s + (reading if step.settle_s > 0 else 0.0))
+    return settle + step.planned * step.average * reading
+
+
+def step_worst_power_W(step: Step) -> float | None:
+    if step.instrument != "smu":
+        return None
+    return max(abs(x) for x in step.levels) * float(step.compliance or 0.0)
+
+
+def estimate(plan: Plan) -> Estimate:
+    per_step = [step_seconds(s, plan.line_frequency_Hz) for s in plan.steps]
+    power = [step_worst_power_W(s) for s in plan.steps]
+    worst = max((p for p in power if p is not None), default=0.0)
+    guarded = [s.name for s, p in zip(plan.steps, power, strict=True)
+               if p is not None and p > plan.limits.max_power_W]
+    return Estimate(total_s=sum(per_step), step_s=per_step, step_power_W=power,
+                    worst_power_W=worst, guarded_steps=guarded)

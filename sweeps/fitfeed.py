@@ -1,0 +1,183 @@
+"""Feeding the incremental fitters off the acquisition path.
+
+The runner hands each point to `FitWorker.submit` (a queue put, microseconds) and goes on
+to the next bias point. The worker thread adds points to one `IncrementalFitter` per step,
+takes a snapshot at most every `snapshot_interval_s` (and when the step ends), emits a
+``fit`` event, flags a step whose parameters have settled to the step's target, and after
+each step writes model.json and the model card through the run folder.
+
+Fitting never stops a run: a fitter that raises is reported once as a ``warning`` event
+and that step goes on without live estimates.
+"""
+
+from __future__ import annotations
+
+import math
+import queue
+import threading
+import time
+from collections.abc import Callable
+
+from pnbench.sweeps import fitmodel
+from pnbench.sweeps.events import EventBus, finite
+from pnbench.sweeps.planstep import Step
+from pnbench.sweeps.store import Point
+
+_STOP = object()
+
+
+class FitWorker:
+    """One thread that owns every fitter of a run."""
+
+    def __init__(self, steps: tuple[Step, ...], bus: EventBus, *, temperature_K: float,
+                 write_model: Callable[[object], None] | None = None,
+                 load_points: Callable[[], list[Point]] | None = None,
+                 snapshot_interval_s: float = 0.25, enabled: bool = True,
+                 area_m2: float | None = None, extras: dict | None = None) -> None:
+        self.steps = {s.name: s for s in steps}
+        self.bus = bus
+        self.temperature_K = temperature_K
+        self.area_m2 = area_m2
+        self.extras = extras or {}
+        self.write_model = write_model
+        self.load_points = load_points or list
+        self.interval = snapshot_interval_s
+        self.enabled = enabled and fitmodel.available()
+        self._queue: queue.SimpleQueue = queue.SimpleQueue()
+        self._fitters: dict[str, object] = {}
+        self._broken: set[str] = set()
+        self._counts: dict[str, int] = {}
+        self._dirty: set[str] = set()
+        self._settled: set[str] = set()
+        self.latest: dict[str, object] = {}  # step -> FitResult
+        self._thread: threading.Thread | None = None
+        self._last_snapshot = 0.0
+
+    # -- called from the acquisition thread ------------------------------------------
+    def start(self) -> None:
+        if self.enabled and self._thread is None:
+            self._thread = threading.Thread(target=self._loop, name="pnbench-fit",
+                                            daemon=True)
+            self._thread.start()
+
+    def submit(self, step: Step, point: Point) -> None:
+        if self.enabled:
+            self._queue.put((step.name, point))
+
+    def step_done(self, step_name: str) -> None:
+        if self.enabled:
+            self._queue.put((step_name, None))
+
+    def is_settled(self, step_name: str) -> bool:
+        return step_name in self._settled
+
+    def preload(self, step: Step, points: list[Point]) -> None:
+        """Feed points already on disk (a resumed run) synchronously, then snapshot."""
+        if not self.enabled or not points:
+            return
+        for point in points:
+            self._add(step.name, point)
+        self._snapshot(step.name)
+
+    def finish(self, timeout_s: float = 60.0) -> None:
+        """Drain the queue, take the last snapshots and write the final model."""
+        if self._thread is not None:
+            self._queue.put(_STOP)
+            self._thread.join(timeout_s)
+            self._thread = None
+        elif self.enabled:
+            self._write_model()
+
+    # -- the worker thread ----------------------------------------------------------------
+    def _loop(self) -> None:
+        while True:
+            try:
+                item = self._queue.get(timeout=self.interval)
+            except queue.Empty:
+                self._snapshot_dirty()
+                continue
+            if item is _STOP:
+                self._snapshot_dirty()
+                self._write_model()
+                return
+            name, point = item
+            if point is None:
+                self._snapshot(name)
+                self._write_model()
+                continue
+            self._add(name, point)
+            now = time.monotonic()
+            if now - self._last_snapshot >= self.interval and self._queue.empty():
+                self._snapshot_dirty()
+
+    def _add(self, name: str, point: Point) -> None:
+        if name in self._broken:
+            return
+        step = self.steps[name]
+        try:
+            fitter = self._fitters.get(name)
+            if fitter is None:
+                fitter = fitmodel.new_fitter(step.kind, self.temperature_K,
+                                             self._dc_values())
+                self._fitters[name] = fitter
+            fitmodel.add_point(fitter, step.kind, point)
+        except Exception as exc:  # noqa: BLE001 - fitting must never stop a run
+            self._break(name, exc)
+            return
+        self._counts[name] = self._counts.get(name, 0) + 1
+        self._dirty.add(name)
+
+    def _dc_values(self) -> dict:
+        """IS, N, RS of the latest successful forward I-V fit (for the admittance fit)."""
+        for name, result in self.latest.items():
+            if self.steps[name].kind == "iv_forward" and result.success:
+                return {k: result.values[k] for k in ("IS", "N", "RS") if k in result.values}
+        return {}
+
+    def _snapshot_dirty(self) -> None:
+        for name in list(self._dirty):
+            self._snapshot(name)
+        self._last_snapshot = time.monotonic()
+
+    def _snapshot(self, name: str) -> None:
+        self._dirty.discard(name)
+        fitter = self._fitters.get(name)
+        if fitter is None or name in self._broken:
+            return
+        step = self.steps[name]
+        try:
+            result = fitter.snapshot()
+        except Exception as exc:  # noqa: BLE001
+            self._break(name, exc)
+            return
+        self.latest[name] = result
+        target = step.end_when_settled
+        settled = result.settled(target) if target else result.settled(0.01)
+        if (target and result.success and result.names and all(settled.values())
+                and self._counts.get(name, 0) >= step.min_points):
+            self._settled.add(name)
+        self.bus.emit("fit", name, fit_kind=result.kind, success=bool(result.success),
+                      message=str(result.message), n_points=int(result.n_points),
+                      parameters={
+                          n: {"value": finite(result.values[n]),
+                              "sigma": finite(result.sigmas.get(n, math.inf)),
+                              "settled": bool(settled.get(n, False))}
+                          for n in result.names})
+
+    def _write_model(self) -> None:
+        if self.write_model is None:
+            return
+        try:
+            model = fitmodel.run_model(self.steps, self.load_points(), self.latest,
+                                       self.temperature_K, area_m2=self.area_m2,
+                                       extras=self.extras)
+        except Exception as exc:  # noqa: BLE001
+            self.bus.emit("warning", None, message=f"model not written: {exc}")
+            return
+        if model is not None:
+            self.write_model(model)
+
+    def _break(self, name: str, exc: BaseException) -> None:
+        self._broken.add(name)
+        self.bus.emit("warning", name, message=f"live fit stopped for this step: "
+                      f"{type(exc).__name__}: {exc}")

@@ -1,0 +1,75 @@
+"""The seam between the runner and `pnbench.modeling`'s fitters.
+
+Three calls: a new incremental fitter for a step kind, adding one run point to it, and the
+run's model (a `ModelSet`) from every point so far. Keeping them here means the runner
+and the fit worker never depend on how the modeling package spells its arguments.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+
+import numpy as np
+
+from pnbench.modeling.smallsignal import admittance_from_parallel
+from pnbench.sweeps.store import Point
+
+#: The fitter kind of each step kind (the same names).
+FIT_KIND = {"iv_forward": "iv_forward", "iv_reverse": "iv_reverse", "cv": "cv",
+            "admittance": "admittance"}
+
+
+def available() -> bool:
+    """Whether the incremental fitters are installed (they are part of pnbench)."""
+    return importlib.util.find_spec("pnbench.modeling.incremental") is not None
+
+
+def new_fitter(step_kind: str, temperature_K: float, fixed: dict | None = None):
+    """An incremental fitter for a step. ``fixed`` holds model-card values from earlier
+    steps (IS, N, RS of the forward I-V) for the admittance fit to keep."""
+    from pnbench.modeling.incremental import IncrementalFitter
+
+    if step_kind == "admittance" and fixed:
+        return IncrementalFitter("admittance", temperature_K=temperature_K, fixed=fixed)
+    return IncrementalFitter(FIT_KIND[step_kind], temperature_K=temperature_K)
+
+
+def admittance_of(point: Point) -> complex:
+    """The complex admittance of a C-V or admittance point (parallel model)."""
+    return complex(admittance_from_parallel(point.capacitance_F, point.conductance_S or 0.0,
+                                            point.frequency_Hz))
+
+
+def add_point(fitter, step_kind: str, point: Point) -> None:
+    if step_kind in ("iv_forward", "iv_reverse"):
+        fitter.add(point.voltage_V, point.current_A, compliance=point.compliance)
+    else:
+        fitter.add(point.voltage_V, frequency_Hz=point.frequency_Hz,
+                   capacitance_F=point.capacitance_F, conductance_S=point.conductance_S)
+
+
+def arrays(points: list[Point], step_names: set[str]) -> dict[str, np.ndarray]:
+    """Columns of the points of the given steps."""
+    chosen = [p for p in points if p.step in step_names]
+    col = {name: np.array([getattr(p, name) if getattr(p, name) is not None else np.nan
+                           for p in chosen], dtype=float)
+           for name in ("voltage_V", "current_A", "frequency_Hz", "capacitance_F",
+                        "conductance_S")}
+    col["compliance"] = np.array([p.compliance for p in chosen], dtype=bool)
+    return col
+
+
+def run_model(steps: dict, points: list[Point], latest: dict, temperature_K: float, *,
+              area_m2: float | None = None, extras: dict | None = None):
+    """The run's ModelSet from every point so far (None when nothing can be fitted).
+    ``steps`` maps step names to objects with ``.kind``; ``latest`` is unused today
+    (kept for callers that hold live snapshots)."""
+    from pnbench.modeling.joint import fit_run
+
+    by_kind: dict[str, set[str]] = {}
+    for name, step in steps.items():
+        by_kind.setdefault(step.kind, set()).add(name)
+    data = {kind: arrays(points, names) for kind, names in by_kind.items()}
+    if not any(len(d["voltage_V"]) for d in data.values()):
+        return None
+    return fit_run(data, temperature_K=temperature_K, area_m2=area_m2, extras=extras)

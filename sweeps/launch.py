@@ -1,0 +1,258 @@
+"""One run from start to end: folder, bench, fitter, runner, in the right order.
+
+    launch = Launch.new(plan, simulate="lh-sw200", time_scale=0.0, out_dir="runs",
+                        listeners=[queue.put])
+    outcome = launch.run()       # blocking; or launch.start() + launch.wait() on a thread
+    launch.pause(); launch.resume(); launch.abort("why")
+
+    launch = Launch.resume_from(run_dir, simulate=None, force_identity=False)
+
+The command line and the app both use this, so a run started either way leaves the same
+run folder. Connection failures before the first point are recorded in run.json
+(status ``failed``) and raised to the caller.
+"""
+
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+
+from pnbench.modeling.errors import DataFileError, PnbenchError
+from pnbench.sweeps import resume as resume_mod
+from pnbench.sweeps.bench import open_bench
+from pnbench.sweeps.events import EventBus
+from pnbench.sweeps.fitfeed import FitWorker
+from pnbench.sweeps.plan import Plan, parse_plan
+from pnbench.sweeps.runner import Outcome, Runner
+from pnbench.sweeps.store import RunFolder, iso, read_points, read_run, utc_now
+
+
+def _version() -> str:
+    from importlib import metadata
+
+    try:
+        return metadata.version("pnbench")
+    except metadata.PackageNotFoundError:
+        return "0+unknown"
+
+
+class Launch:
+    def __init__(self, plan: Plan, *, simulate: str | None, time_scale: float,
+                 out_dir: str | Path | None = None, run_dir: str | Path | None = None,
+                 force_identity: bool = False, listeners=(), fit: bool = True,
+                 off_on_disconnect: bool = True) -> None:
+        self.plan = plan
+        self.simulate = str(simulate) if simulate is not None else None
+        self.time_scale = float(time_scale) if simulate is not None else 1.0
+        self.out_dir = Path(out_dir) if out_dir is not None else Path("runs")
+        self.resume_dir = Path(run_dir) if run_dir is not None else None
+        self.force_identity = force_identity
+        self.listeners = list(listeners)
+        self.fit_enabled = fit
+        self.off_on_disconnect = off_on_disconnect
+        self.run_dir: Path | None = self.resume_dir
+        self.outcome: Outcome | None = None
+        self.error: BaseException | None = None
+        self.runner: Runner | None = None
+        self.bench = None
+        self._thread: threading.Thread | None = None
+        self._pending: list = []  # control calls made before the runner exists
+
+    # -- constructors -------------------------------------------------------------------
+    @classmethod
+    def new(cls, plan: Plan, *, simulate: str | None = None, time_scale: float = 1.0,
+            out_dir: str | Path = "runs", listeners=(), fit: bool = True,
+            off_on_disconnect: bool = True) -> Launch:
+        return cls(plan, simulate=simulate, time_scale=time_scale, out_dir=out_dir,
+                   listeners=listeners, fit=fit, off_on_disconnect=off_on_disconnect)
+
+    @classmethod
+    def resume_from(cls, run_dir: str | Path, *, simulate: str | None = None,
+                    time_scale: float = 1.0, force_identity: bool = False, listeners=(),
+                    fit: bool = True) -> Launch:
+        """Prepare to continue the run in ``run_dir`` (its own plan.toml); ``simulate``
+        defaults to the device the run was simulated with."""
+        run_dir = Path(run_dir)
+        run = read_run(run_dir)
+        plan = plan_of_run(run_dir, run)
+        if simulate is None and run.get("simulated"):
+            simulate = str(run["simulated"])
+        return cls(plan, simulate=simulate, time_scale=time_scale, run_dir=run_dir,
+                   force_identity=force_identity, listeners=listeners, fit=fit)
+
+    # -- control ------------------------------------------------------------------------
+    def pause(self) -> None:
+        self._control("pause")
+
+    def resume(self) -> None:
+        self._control("resume")
+
+    def abort(self, reason: str = "stopped by the operator", status: str = "aborted") -> None:
+        self._control("abort", reason, status)
+
+    def _control(self, name: str, *args) -> None:
+        runner = self.runner
+        if runner is None:
+            self._pending.append((name, args))
+        else:
+            getattr(runner, name)(*args)
+
+    @property
+    def in_shutdown(self) -> bool:
+        return self.runner is not None and self.runner.in_shutdown
+
+    # -- running ------------------------------------------------------------------------
+    def start(self) -> None:
+        """Run on a background thread; `wait()` for it, `outcome`/`error` tell the end."""
+        self._thread = threading.Thread(target=self._thread_main, name="pnbench-run",
+                                        daemon=True)
+        self._thread.start()
+
+    def _thread_main(self) -> None:
+        try:
+            self.run()
+        except BaseException as exc:  # noqa: BLE001 - kept for the caller to show
+            self.error = exc
+
+    def is_alive(self) -> bool:
+        return self._thread is not None and self._thread.is_alive()
+
+    def wait(self, timeout_s: float | None = None) -> bool:
+        if self._thread is None:
+            return True
+        self._thread.join(timeout_s)
+        return not self._thread.is_alive()
+
+    def run(self) -> Outcome:
+        """Connect, run every remaining step, switch off, write the record. Blocking."""
+        folder, state = self._open_folder()
+        self.run_dir = folder.path
+        started = state.started_epoch_s if state is not None else None
+        bus = EventBus(sink=folder.append_event,
+                       start_seq=state.last_seq if state is not None else 0,
+                       started_epoch_s=started)
+        for listener in self.listeners:
+            bus.add_listener(listener)
+        try:
+            return self._run_on_bench(folder, bus, state)
+        finally:
+            folder.close()
+
+    def _open_folder(self):
+        if self.resume_dir is None:
+            folder = RunFolder.create(self.out_dir, self.plan.text, self._run_doc(),
+                                      self._metadata())
+            folder.log(f"plan {self.plan.path}; device {self.plan.device.name}; "
+                       f"simulated: {self.simulate or 'no'}")
+            return folder, None
+        folder = RunFolder.reopen(self.resume_dir)
+        try:
+            state = resume_mod.load_state(self.resume_dir, self.plan)
+        except BaseException:
+            folder.close()
+            raise
+        run = folder.run
+        history = list(run.get("resumes") or [])
+        history.append({"at": iso(utc_now()), "previous_status": state.previous_status,
+                        "points_on_disk": sum(state.done.values())})
+        folder.update_run(resume_count=int(run.get("resume_count", 0)) + 1, resumes=history,
+                          ended=None)
+        folder.log(f"resume #{len(history)}: previous status {state.previous_status!r}, "
+                   f"{sum(state.done.values())} points on disk")
+        return folder, state
+
+    def _run_on_bench(self, folder: RunFolder, bus: EventBus, state) -> Outcome:
+        expected = {}
+        if state is not None:
+            expected = {role: (info or {}).get("identity", "")
+                        for role, info in (folder.run.get("instruments") or {}).items()}
+        try:
+            with open_bench(self.plan, simulate=self.simulate, time_scale=self.time_scale,
+                            expected=expected, force_identity=self.force_identity,
+                            off_on_disconnect=self.off_on_disconnect) as bench:
+                self.bench = bench
+                folder.update_run(instruments=bench.instruments)
+                for change in bench.identity_changes:
+                    bus.emit("warning", None, message=f"--force-identity: {change}")
+                    folder.log(f"identity accepted by --force-identity: {change}")
+                if state is not None and state.previous_status == "running":
+                    bus.emit("warning", None, message="the previous process ended without "
+                             "closing the run (killed, crashed or power lost); continuing "
+                             "after the last recorded point")
+                fit = self._fit_worker(folder, bus, state)
+                self.runner = Runner(self.plan, folder, bench, bus, fit=fit,
+                                     time_scale=self.time_scale, resume_state=state)
+                for name, args in self._pending:
+                    getattr(self.runner, name)(*args)
+                outcome = self.runner.run()
+            if not all(bench.last_off.values()) and outcome.outputs_off_confirmed:
+                folder.update_run(outputs_off_confirmed=False)
+                outcome = Outcome(outcome.status, outcome.reason, False, outcome.run_dir)
+            self.outcome = outcome
+            return outcome
+        except PnbenchError as exc:
+            if self.runner is None:  # failed before the first point: record why
+                self._record_failure(folder, bus, exc)
+            raise
+        finally:
+            self.bench = None
+
+    def _record_failure(self, folder: RunFolder, bus: EventBus, exc: PnbenchError) -> None:
+        status = "failed"
+        folder.update_run(status=status, reason=str(exc), ended=iso(utc_now()),
+                          outputs_off_confirmed=False)
+        bus.emit("error", None, message=str(exc))
+        bus.emit("run_finished", None, status=status, reason=str(exc),
+                 outputs_off_confirmed=False)
+        folder.log(f"failed before the first point: {exc}")
+
+    def _fit_worker(self, folder: RunFolder, bus: EventBus, state) -> FitWorker:
+        def write_model(model) -> None:
+            folder.write_model(model.to_json_dict(), model.card_text(self.plan.device.name),
+                               self.plan.device.name)
+
+        worker = FitWorker(self.plan.steps, bus, temperature_K=self.plan.device.temperature_K,
+                           write_model=write_model, load_points=lambda: read_points(folder.path),
+                           enabled=self.fit_enabled, area_m2=self.plan.device.area_m2,
+                           extras={"device": self.plan.device.name})
+        if state is not None:
+            for step in self.plan.steps:
+                worker.preload(step, state.points.get(step.name, []))
+        return worker
+
+    def _run_doc(self) -> dict:
+        plan = self.plan
+        return {
+            "status": "starting", "reason": "", "device": plan.device.to_json_dict(),
+            "instruments": {}, "software_version": _version(), "ended": None,
+            "limits": plan.limits.to_json_dict(),
+            "steps": [{"name": s.name, "kind": s.kind, "planned": s.planned, "done": 0,
+                       "status": "pending", "ended_by": None} for s in plan.steps],
+            "outputs_off_confirmed": False, "simulated": self.simulate,
+            "time_scale": self.time_scale if self.simulate else None,
+            "plan_source": str(Path(plan.path).resolve()) if plan.path else None,
+            "resume_count": 0,
+        }
+
+    def _metadata(self) -> dict:
+        d = self.plan.device
+        meta = {"device": d.name, "temperature_K": d.temperature_K}
+        if d.area_m2 is not None:
+            meta["area_m2"] = d.area_m2
+        if d.material:
+            meta["material"] = d.material
+        return meta
+
+
+def plan_of_run(run_dir: Path, run: dict | None = None) -> Plan:
+    """The plan a run folder was started with (its plan.toml), validated again; relative
+    dialect paths are read from where the original plan was."""
+    run = run if run is not None else read_run(run_dir)
+    file = Path(run_dir) / "plan.toml"
+    try:
+        text = file.read_bytes()
+    except OSError as exc:
+        raise DataFileError(f"{file}: cannot read the plan of this run ({exc})") from None
+    source = run.get("plan_source")
+    base = Path(source).parent if isinstance(source, str) else Path(run_dir)
+    return parse_plan(text, str(file), base_dir=base)

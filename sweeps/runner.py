@@ -1,0 +1,405 @@
+"""The runner: executes a plan's steps on the instrument roles, safely, and records it all.
+
+    runner = Runner(plan, folder, bench, bus, fit=worker, time_scale=1.0)
+    outcome = runner.run()          # on any thread; pause(), resume(), abort() from others
+
+Order of work for one SMU point: check the level against the guards (before it is applied),
+apply and read (settle, average), append the point to points.csv (flushed), emit it, hand
+it to the fitter, check the reading. Every way out of `run` (the end, an exception, an
+instrument fault, an abort, Ctrl-C, a signal handled by `stopsignals`) goes through the
+same `finally`: ramp the source to zero, outputs and LCR bias off, read back that they are
+off, and record it in run.json (`outputs_off_confirmed`).
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from dataclasses import dataclass
+
+from pnbench.modeling.errors import InstrumentError, OperatorStop, SafetyStop
+from pnbench.modeling.smallsignal import parallel_from_admittance
+from pnbench.sweeps.events import EventBus, finite
+from pnbench.sweeps.limits import Reading, StepGuard, Verdict
+from pnbench.sweeps.plan import Plan
+from pnbench.sweeps.planstep import Step
+from pnbench.sweeps.store import Point, RunFolder, iso, utc_now
+
+#: Step statuses after which a step takes no more points.
+FINISHED = ("done", "limit", "settled")
+#: run.json is refreshed (done counts) at most this often while points flow.
+RUN_JSON_REFRESH_S = 5.0
+#: At most one compliance event per step in this interval (the points carry the flag).
+COMPLIANCE_EVENT_INTERVAL_S = 1.0
+
+
+@dataclass(frozen=True)
+class Outcome:
+    status: str  # completed, aborted, interrupted, safety_stop, failed
+    reason: str
+    outputs_off_confirmed: bool
+    run_dir: str
+
+    @property
+    def exit_code(self) -> int:
+        if self.status == "completed":
+            return 0 if self.outputs_off_confirmed else 3
+        return {"failed": 3, "safety_stop": 4, "aborted": 4, "interrupted": 4}.get(
+            self.status, 1)
+
+
+class Runner:
+    def __init__(self, plan: Plan, folder: RunFolder, bench, bus: EventBus, *,
+                 fit=None, time_scale: float = 1.0, resume_state=None) -> None:
+        self.plan = plan
+        self.folder = folder
+        self.bench = bench
+        self.bus = bus
+        self.fit = fit
+        self.time_scale = time_scale
+        self.state = resume_state
+        self.done = {s.name: 0 for s in plan.steps}
+        self.step_status = {s.name: "pending" for s in plan.steps}
+        self.ended_by: dict[str, str] = {}
+        if resume_state is not None:
+            self.done.update(resume_state.done)
+            self.step_status.update(resume_state.statuses)
+            self.ended_by.update(resume_state.ended_by)
+        self.current_step: str | None = None
+        self.in_shutdown = False
+        self._pause = threading.Event()
+        self._aborted = threading.Event()
+        self._abort: tuple[str, str] | None = None
+        self._last_refresh = 0.0
+        self._last_compliance_event: dict[str, float] = {}
+        self._compliance_count: dict[str, int] = {}
+
+    # -- control (any thread) -----------------------------------------------------------
+    def pause(self) -> None:
+        self._pause.set()
+
+    def resume(self) -> None:
+        self._pause.clear()
+
+    def abort(self, reason: str = "stopped by the operator", status: str = "aborted") -> None:
+        if self._abort is None:
+            self._abort = (reason, status)
+        self._aborted.set()
+
+    @property
+    def paused(self) -> bool:
+        return self._pause.is_set()
+
+    # -- the run --------------------------------------------------------------------------
+    def run(self) -> Outcome:
+        status, reason, failure = "completed", "all steps finished", None
+        try:
+            self._begin()
+            for step in self.plan.steps:
+                if self.step_status[step.name] in FINISHED:
+                    continue
+                self._run_step(step)
+        except OperatorStop as exc:
+            status = self._abort[1] if self._abort else "aborted"
+            reason = str(exc)
+        except SafetyStop as exc:
+            status, reason = "safety_stop", str(exc)
+        except InstrumentError as exc:
+            status, reason = "failed", str(exc)
+        except KeyboardInterrupt:
+            status, reason = "aborted", "stopped by the operator (Ctrl-C)"
+        except BaseException as exc:  # noqa: BLE001 - recorded, then raised again below
+            status, reason, failure = "failed", f"internal error: {exc!r}", exc
+        finally:
+            confirmed = self._shutdown(status, reason)
+        if failure is not None:
+            raise failure
+        return Outcome(status, reason, confirmed, str(self.folder.path))
+
+    def _begin(self) -> None:
+        resumed = self.state is not None
+        self.folder.update_run(status="running", reason="", steps=self._steps_doc())
+        self.bus.emit("run_started", None, resumed=resumed,
+                      resume_count=self.folder.run.get("resume_count", 0),
+                      planned=self.plan.total_points, done=sum(self.done.values()),
+                      steps=[s.name for s in self.plan.steps], run_dir=str(self.folder.path),
+                      progress={n: {"done": self.done[n], "status": self.step_status[n]}
+                                for n in self.done})
+        self.folder.log(("resumed" if resumed else "started") + f": {self.plan.total_points} "
+                        f"points planned in {len(self.plan.steps)} steps")
+        for name, status, message in (self.state.newly_finished if resumed else []):
+            if message:
+                self.bus.emit("limit", name, guard=self.ended_by.get(name), message=message,
+                              level=None)
+            self.bus.emit("step_finished", name, status=status, done=self.done[name],
+                          planned=self.plan.step(name).planned,
+                          ended_by=self.ended_by.get(name), compliance_count=0)
+        if self.fit is not None:
+            self.fit.start()
+
+    def _shutdown(self, status: str, reason: str) -> bool:
+        self.in_shutdown = True
+        confirmed = False
+        try:
+            confirmed = self._all_off()
+        finally:
+            self.folder.sync()
+            if self.current_step is not None:
+                self._finish_step_record(self.current_step, "interrupted")
+            self.folder.update_run(status=status, reason=reason, ended=iso(utc_now()),
+                                   outputs_off_confirmed=confirmed, steps=self._steps_doc())
+            self.folder.log(f"{status}: {reason}; outputs off confirmed: {confirmed}")
+            if self.fit is not None:
+                try:
+                    self.fit.finish()
+                except Exception as exc:  # noqa: BLE001 - the run's data are safe already
+                    self.folder.log(f"final fit failed: {exc!r}")
+            self.bus.emit("run_finished", None, status=status, reason=reason,
+                          outputs_off_confirmed=confirmed, done=sum(self.done.values()),
+                          planned=self.plan.total_points)
+            self.folder.sync()
+        return confirmed
+
+    def _all_off(self) -> bool:
+        report = self.bench.safe_off()
+        for role, ok in report.items():
+            self.bus.emit("output", None, role=role, on=not ok, confirmed=ok)
+        confirmed = all(report.values())
+        if not confirmed:
+            bad = ", ".join(r for r, ok in report.items() if not ok)
+            self.bus.emit("error", None, message=f"could not confirm that the {bad} "
+                          "output is off: switch it off at the instrument and check the "
+                          "fixture before touching it")
+        return confirmed
+
+    # -- steps ------------------------------------------------------------------------------
+    def _run_step(self, step: Step) -> None:
+        self.current_step = step.name
+        start = self.done[step.name]
+        self.step_status[step.name] = "running"
+        self._compliance_count[step.name] = 0
+        self.folder.update_run(steps=self._steps_doc())
+        self.bus.emit("step_started", step.name, step_kind=step.kind, planned=step.planned,
+                      done=start, instrument=step.instrument)
+        self.folder.log(f"step {step.name} ({step.kind}): from point {start} of "
+                        f"{step.planned}")
+        if self._settled(step):  # a resumed step whose fit had already settled
+            self._finish_step_record(step.name, "settled")
+            self.current_step = None
+            return
+        if step.instrument == "smu":
+            status, verdict = self._smu_step(step, start)
+        else:
+            status, verdict = self._lcr_step(step, start)
+        if verdict is not None:
+            self.ended_by[step.name] = verdict.kind
+        self.bench.check_errors(step.instrument, f"step {step.name}")
+        self._finish_step_record(step.name, status)
+        self.current_step = None
+
+    def _finish_step_record(self, name: str, status: str) -> None:
+        self.folder.sync()
+        self.step_status[name] = status
+        self.bus.emit("step_finished", name, status=status, done=self.done[name],
+                      planned=self.plan.step(name).planned,
+                      ended_by=self.ended_by.get(name),
+                      compliance_count=self._compliance_count.get(name, 0))
+        self.folder.update_run(steps=self._steps_doc())
+        if self.fit is not None and status != "interrupted":
+            self.fit.step_done(name)
+
+    def _steps_doc(self) -> list[dict]:
+        return [{"name": s.name, "kind": s.kind, "planned": s.planned,
+                 "done": self.done[s.name], "status": self.step_status[s.name],
+                 "ended_by": self.ended_by.get(s.name)} for s in self.plan.steps]
+
+    def _smu_step(self, step: Step, start: int) -> tuple[str, Verdict | None]:
+        guard = StepGuard(self.plan.limits, step.source, step.compliance,
+                          step.breakdown_guard_A)
+        if self.state is not None:
+            for p in self.state.tails.get(step.name, []):
+                guard.after(step.points[p.index].level, _reading_of(p))
+        self._arm_smu(step)
+        clean = False
+        try:
+            if start > 0:
+                self._approach(step, start)
+            for planned in step.points[start:]:
+                if self._checkpoint(step):
+                    self._arm_smu(step)
+                    self._approach(step, planned.index)
+                verdict = guard.before(planned.level)
+                if verdict is not None:
+                    clean = True
+                    return self._ended(step, verdict)
+                reading = self._read_smu(step, planned.level)
+                point = Point(step.name, planned.index, "iv", self.bus.elapsed_s(),
+                              reading.voltage_V, reading.current_A,
+                              compliance=reading.compliance)
+                self._record(step, point)
+                verdict = guard.after(planned.level, reading)
+                if verdict is not None and verdict.ends == "run":
+                    self.bus.emit("limit", step.name, guard=verdict.kind,
+                                  message=verdict.message, level=verdict.level)
+                    raise SafetyStop(f"step {step.name}: {verdict.message}")
+                if verdict is not None:
+                    clean = True
+                    return self._ended(step, verdict)
+                if self._settled(step):
+                    clean = True
+                    return "settled", None
+            clean = True
+            return "done", None
+        finally:
+            if clean:  # after a fault the shutdown's safe_off (which reconnects) does it
+                self._disarm_smu()
+
+    def _arm_smu(self, step: Step) -> None:
+        smu = self.bench.smu
+        smu.configure(source=step.source, limit=step.compliance, nplc=step.nplc,
+                      four_wire=step.four_wire)
+        smu.output(True)
+        self.bus.emit("output", step.name, role="smu", on=True)
+
+    def _disarm_smu(self) -> None:
+        smu = self.bench.smu
+        smu.ramp_to_zero()
+        smu.output(False)
+        self.bus.emit("output", self.current_step, role="smu", on=False)
+
+    def _approach(self, step: Step, index: int) -> None:
+        """Bring the source back to the level before ``index`` through at most ten of the
+        step's earlier levels (after a pause or a resume); readings are not kept."""
+        earlier = step.levels[:index]
+        stride = max(1, len(earlier) // 10)
+        for level in earlier[stride - 1::stride]:
+            self.bench.smu.apply_and_read(level)
+
+    def _read_smu(self, step: Step, level: float) -> Reading:
+        smu = self.bench.smu
+        r = smu.apply_and_read(level)
+        if step.settle_s > 0 and self.time_scale > 0:
+            self._sleep(step.settle_s)
+            r = smu.apply_and_read(level)
+        if step.average == 1:
+            return Reading(r.voltage_V, r.current_A, bool(r.compliance))
+        readings = [r] + [smu.apply_and_read(level) for _ in range(step.average - 1)]
+        n = len(readings)
+        return Reading(sum(x.voltage_V for x in readings) / n,
+                       sum(x.current_A for x in readings) / n,
+                       any(x.compliance for x in readings))
+
+    def _lcr_step(self, step: Step, start: int) -> tuple[str, Verdict | None]:
+        lcr = self.bench.lcr
+        self._arm_lcr(step)
+        last_bias = None
+        clean = False
+        try:
+            for planned in step.points[start:]:
+                if self._checkpoint(step):
+                    self._arm_lcr(step)
+                    last_bias = None
+                bias, f = planned.level, planned.frequency_Hz
+                if not self.plan.limits.voltage_allowed(bias):
+                    clean = True
+                    return self._ended(step, Verdict("voltage", f"bias {bias:g} V is outside "
+                                                     "the voltage limits", level=bias))
+                if bias != last_bias and step.settle_s > 0 and self.time_scale > 0:
+                    lcr.apply_and_read(bias, f)
+                    self._sleep(step.settle_s)
+                last_bias = bias
+                readings = [lcr.apply_and_read(bias, f) for _ in range(step.average)]
+                y = sum(r.admittance_S for r in readings) / len(readings)
+                cp, gp = parallel_from_admittance(y, f)
+                point = Point(step.name, planned.index, "cv", self.bus.elapsed_s(),
+                              float(readings[-1].bias_V), None, float(f), float(cp), float(gp))
+                self._record(step, point)
+                if self._settled(step):
+                    clean = True
+                    return "settled", None
+            clean = True
+            return "done", None
+        finally:
+            if clean:
+                lcr.bias(False)
+                self.bus.emit("output", step.name, role="lcr", on=False)
+
+    def _arm_lcr(self, step: Step) -> None:
+        lcr = self.bench.lcr
+        lcr.configure(ac_level_V=step.ac_level_V)
+        lcr.bias(True)
+        self.bus.emit("output", step.name, role="lcr", on=True)
+
+    # -- per point ----------------------------------------------------------------------
+    def _record(self, step: Step, point: Point) -> None:
+        self.folder.append_point(point)
+        self.done[step.name] = point.index + 1
+        self.bus.emit("point", step.name, index=point.index, point_kind=point.kind,
+                      voltage_V=point.voltage_V, current_A=point.current_A,
+                      frequency_Hz=point.frequency_Hz, capacitance_F=point.capacitance_F,
+                      conductance_S=point.conductance_S, compliance=point.compliance,
+                      time_s=point.time_s, planned=step.planned)
+        if self.fit is not None:
+            self.fit.submit(step, point)
+        if point.compliance:
+            self._compliance(step, point)
+        now = time.monotonic()
+        if now - self._last_refresh >= RUN_JSON_REFRESH_S:
+            self._last_refresh = now
+            self.folder.update_run(steps=self._steps_doc())
+
+    def _compliance(self, step: Step, point: Point) -> None:
+        count = self._compliance_count.get(step.name, 0) + 1
+        self._compliance_count[step.name] = count
+        now = time.monotonic()
+        if now - self._last_compliance_event.get(step.name, -1e9) >= \
+                COMPLIANCE_EVENT_INTERVAL_S:
+            self._last_compliance_event[step.name] = now
+            self.bus.emit("compliance", step.name, index=point.index,
+                          voltage_V=finite(point.voltage_V), current_A=finite(point.current_A),
+                          limit=step.compliance, count=count)
+
+    def _ended(self, step: Step, verdict: Verdict) -> tuple[str, Verdict]:
+        self.bus.emit("limit", step.name, guard=verdict.kind, message=verdict.message,
+                      level=verdict.level)
+        self.folder.log(f"step {step.name} ended by {verdict.kind}: {verdict.message}")
+        return "limit", verdict
+
+    def _settled(self, step: Step) -> bool:
+        return (step.end_when_settled is not None and self.fit is not None
+                and self.done[step.name] >= step.min_points
+                and self.fit.is_settled(step.name))
+
+    # -- pause and abort ----------------------------------------------------------------
+    def _checkpoint(self, step: Step) -> bool:
+        """Raise OperatorStop on abort; on pause, turn the step's source off, wait, and
+        return True so the caller re-arms it. False when nothing happened."""
+        if self._abort is not None:
+            raise OperatorStop(self._abort[0])
+        if not self._pause.is_set():
+            return False
+        if step.instrument == "smu":
+            self._disarm_smu()
+        else:
+            self.bench.lcr.bias(False)
+            self.bus.emit("output", step.name, role="lcr", on=False)
+        self.folder.update_run(status="paused", steps=self._steps_doc())
+        self.bus.emit("paused", step.name, done=self.done[step.name])
+        self.folder.log(f"paused in step {step.name} (outputs off)")
+        while self._pause.is_set() and self._abort is None:
+            self._aborted.wait(0.1)
+        if self._abort is not None:
+            raise OperatorStop(self._abort[0])
+        self.folder.update_run(status="running")
+        self.bus.emit("resumed", step.name, done=self.done[step.name])
+        self.folder.log(f"resumed step {step.name}")
+        return True
+
+    def _sleep(self, seconds: float) -> None:
+        self._aborted.wait(seconds * self.time_scale)
+        if self._abort is not None:
+            raise OperatorStop(self._abort[0])
+
+
+def _reading_of(point: Point) -> Reading:
+    return Reading(point.voltage_V or 0.0, point.current_A or 0.0, point.compliance)

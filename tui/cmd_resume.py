@@ -1,0 +1,37 @@
+"""`pnbench resume RUN_DIR`: finish an interrupted run where it stopped."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from pnbench.tui.cmd_run import add_bench_options, check_bench_options
+
+HELP = "continue an interrupted run at its next point (same instruments, same plan)"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("run_dir", metavar="RUN_DIR", help="the run folder to continue")
+    add_bench_options(parser)
+    parser.add_argument("--force-identity", action="store_true",
+                        help="continue even if an instrument answers with another serial "
+                        "number than the run recorded")
+
+
+def run(args) -> int:
+    from pnbench.sweeps.launch import Launch
+    from pnbench.sweeps.store import read_run
+    from pnbench.tui.headless import run_headless
+
+    check_bench_options(args)
+    run_doc = read_run(args.run_dir)
+    if run_doc.get("status") == "completed":
+        print(f"{args.run_dir}: the run is already completed; nothing to resume")
+        return 0
+    launch = Launch.resume_from(args.run_dir, simulate=args.simulate,
+                                time_scale=args.time_scale,
+                                force_identity=args.force_identity)
+    if launch.simulate and args.simulate is None:
+        print(f"simulated run: using the simulated bench with {launch.simulate}",
+              file=sys.stderr)
+    return run_headless(launch, launch.plan)

@@ -1,0 +1,61 @@
+"""`pnbench run PLAN`: run a plan file on the instruments or the simulated bench."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+HELP = "run a plan on the instruments (or rehearse it with --simulate DEVICE)"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("plan", help="plan file (TOML); see `pnbench check PLAN`")
+    add_bench_options(parser)
+    parser.add_argument("--out", default="runs", metavar="DIR",
+                        help="folder in which the run folder is created (default: runs)")
+    parser.add_argument("--headless", action="store_true",
+                        help="progress on the terminal (or plain lines in a log) instead "
+                        "of the app")
+
+
+def add_bench_options(parser: argparse.ArgumentParser, time_scale: float = 1.0) -> None:
+    parser.add_argument("--simulate", metavar="DUT.toml",
+                        help="use the simulated bench with this device file (or the name "
+                        "of a bundled one, e.g. lh-sw200) instead of the plan's instruments")
+    parser.add_argument("--time-scale", type=float, default=time_scale, metavar="X",
+                        help="with --simulate: 0 = as fast as possible, 1 = the "
+                        f"instruments' real time (default: {time_scale:g})")
+
+
+def check_bench_options(args) -> None:
+    """Bad --simulate or --time-scale values exit 2 before anything is created."""
+    from pnbench.modeling.errors import BadInput
+
+    if args.time_scale < 0 or args.time_scale != args.time_scale:
+        raise BadInput(f"--time-scale {args.time_scale}: expected a number >= 0 (0 = as fast "
+                       "as possible, 1 = real instrument time)")
+    if args.simulate is not None:
+        from pnbench.drivers.simdevice import resolve_device
+
+        resolve_device(args.simulate)  # DeviceFileError names the file and key
+
+
+def run(args) -> int:
+    from pnbench.sweeps.launch import Launch
+    from pnbench.sweeps.plan import load_plan
+    from pnbench.tui.headless import app_available, run_headless
+
+    plan = load_plan(args.plan)
+    check_bench_options(args)
+    if args.simulate is None and "--time-scale" in sys.argv:
+        print("note: --time-scale only applies with --simulate; ignored", file=sys.stderr)
+    if not args.headless and sys.stdout.isatty() and app_available():
+        from pnbench.tui.app import run_app
+
+        return run_app(plan_path=args.plan, simulate=args.simulate,
+                       time_scale=args.time_scale, out_dir=args.out, autostart=True)
+    for warning in plan.warnings:
+        print(f"warning: {warning}", file=sys.stderr)
+    launch = Launch.new(plan, simulate=args.simulate, time_scale=args.time_scale,
+                        out_dir=args.out)
+    return run_headless(launch, plan)

@@ -1,0 +1,259 @@
+"""Headless progress: bars with ETA and live parameters on a terminal, plain lines in a log.
+
+`Progress(plan)` offers `listener` for the event bus (it only queues the event) and a
+drawing thread started by `start()`. On a terminal the block of bars is redrawn in place
+four times a second, with limits, warnings and errors printed above it as they come; when
+the output is not a terminal (a log file, a pipe) it writes one timestamped line per
+happening and a progress line every `LINE_INTERVAL_S`. A closed terminal (SSH gone) stops
+the output quietly: the run goes on and its folder keeps everything.
+"""
+
+from __future__ import annotations
+
+import collections
+import math
+import sys
+import threading
+import time
+
+from pnbench.sweeps.quantities import format_quantity
+
+LINE_INTERVAL_S = 15.0
+REDRAW_S = 0.25
+BAR = 24
+_UNITS = {"IS": "A", "RS": "ohm", "RSH": "ohm", "CJO": "F", "VJ": "V", "TT": "s", "BV": "V",
+          "IBV": "A"}
+
+
+def format_duration(seconds: float) -> str:
+    if not math.isfinite(seconds) or seconds < 0:
+        return "--:--"
+    seconds = int(round(seconds))
+    h, rest = divmod(seconds, 3600)
+    m, s = divmod(rest, 60)
+    return f"{h}:{m:02d}:{s:02d}" if h else f"{m:02d}:{s:02d}"
+
+
+def format_parameter(name: str, entry: dict) -> str:
+    value, sigma = entry.get("value"), entry.get("sigma")
+    if value is None:
+        return f"{name} = ?"
+    text = format_quantity(value, _UNITS.get(name, ""), 3) if name in _UNITS else f"{value:.4g}"
+    if sigma is not None and value:
+        text += f" ±{abs(sigma / value):.1%}"
+    return f"{name} = {text}{' ✓' if entry.get('settled') else ''}"
+
+
+def bar(done: int, planned: int, width: int = BAR) -> str:
+    frac = 0.0 if planned <= 0 else min(1.0, done / planned)
+    full = int(round(frac * width))
+    return "[" + "#" * full + "-" * (width - full) + "]"
+
+
+class Progress:
+    def __init__(self, plan, stream=None, tty: bool | None = None) -> None:
+        self.stream = stream or sys.stdout
+        self.tty = self.stream.isatty() if tty is None else tty
+        self.plan = plan
+        self.steps = {s.name: {"kind": s.kind, "planned": s.planned, "done": 0,
+                               "status": "pending"} for s in plan.steps}
+        self.params: dict[str, dict] = {}
+        self._queue: collections.deque = collections.deque()
+        self._stop = threading.Event()
+        self._thread: threading.Thread | None = None
+        self._drawn = 0
+        self._t0: float | None = None
+        self._done0 = 0
+        self._last_line = 0.0
+        self._broken = False
+        self.current: str | None = None
+        self.run_dir = ""
+
+    # -- bus side ---------------------------------------------------------------------
+    def listener(self, event) -> None:
+        self._queue.append(event)
+
+    # -- drawing thread ---------------------------------------------------------------
+    def start(self) -> None:
+        self._thread = threading.Thread(target=self._loop, name="pnbench-progress",
+                                        daemon=True)
+        self._thread.start()
+
+    def stop(self) -> None:
+        self._stop.set()
+        if self._thread is not None:
+            self._thread.join(5)
+        self._drain()
+        if self.tty:
+            self._redraw(final=True)
+
+    def _loop(self) -> None:
+        while not self._stop.wait(REDRAW_S):
+            self._drain()
+            if self.tty:
+                self._redraw()
+            elif time.monotonic() - self._last_line >= LINE_INTERVAL_S and self.current:
+                self._progress_line()
+
+    def _drain(self) -> None:
+        while self._queue:
+            self._apply(self._queue.popleft())
+
+    def _apply(self, e) -> None:
+        kind, step = e.kind, e.step
+        if kind == "point":
+            info = self.steps.get(step)
+            if info is not None:
+                info["done"] = e.get("index", info["done"]) + 1
+            if self._t0 is None:
+                self._t0 = time.monotonic()
+                self._done0 = self.total_done() - 1
+            return
+        if kind == "run_started":
+            for name, known in (e.get("progress") or {}).items():
+                if name in self.steps:
+                    self.steps[name].update(done=int(known.get("done", 0)),
+                                            status=str(known.get("status", "pending")))
+            self.say(f"run {'resumed' if e.get('resumed') else 'started'}: "
+                     f"{e.get('planned')} points in {len(self.steps)} steps"
+                     + (f", {e.get('done')} already on disk" if e.get("done") else ""))
+        elif kind == "step_started":
+            self.current = step
+            self.steps[step].update(status="running", done=e.get("done", 0))
+            self.say(f"step {step} ({e.get('step_kind')}): {e.get('planned')} points"
+                     + (f", continuing at point {e.get('done')}" if e.get("done") else ""))
+        elif kind == "step_finished":
+            self.steps[step].update(status=e.get("status"), done=e.get("done", 0))
+            why = f", ended by {e.get('ended_by')}" if e.get("ended_by") else ""
+            self.say(f"step {step} finished ({e.get('status')}{why}): "
+                     f"{e.get('done')}/{e.get('planned')} points")
+            if step in self.params and not self.tty:
+                self.say(f"fit {step}: " + self.param_text(step))
+        elif kind == "fit":
+            self.params[step] = e.get("parameters") or {}
+        elif kind in ("limit", "warning", "error"):
+            self.say(f"{kind}{' in ' + step if step else ''}: {e.get('message')}")
+        elif kind == "compliance":
+            self.say(f"compliance in {step} at point {e.get('index')} "
+                     f"({e.get('count')} so far in this step)")
+        elif kind in ("paused", "resumed"):
+            self.say(f"{kind} in step {step}" + (" (outputs off)" if kind == "paused" else ""))
+        elif kind == "run_finished":
+            self.current = None
+            self.say(f"run finished: {e.get('status')} ({e.get('reason')}); outputs off "
+                     f"confirmed: {'yes' if e.get('outputs_off_confirmed') else 'NO'}")
+
+    # -- text -----------------------------------------------------------------------------
+    def total_done(self) -> int:
+        return sum(i["done"] for i in self.steps.values())
+
+    def total_planned(self) -> int:
+        return sum(i["planned"] for i in self.steps.values())
+
+    def eta_s(self) -> float:
+        if self._t0 is None:
+            return math.nan
+        taken = self.total_done() - self._done0
+        if taken <= 0:
+            return math.nan
+        rate = taken / max(time.monotonic() - self._t0, 1e-9)
+        left = sum(i["planned"] - i["done"] for i in self.steps.values()
+                   if i["status"] in ("pending", "running"))
+        return left / rate
+
+    def param_text(self, step: str) -> str:
+        return "  ".join(format_parameter(n, p) for n, p in self.params.get(step, {}).items())
+
+    def say(self, text: str) -> None:
+        stamp = time.strftime("%H:%M:%S")
+        if self.tty:
+            self._write(self._clear() + f"{stamp} {text}\n")
+            self._drawn = 0
+        else:
+            self._write(f"{stamp} {text}\n")
+            self._last_line = time.monotonic()
+
+    def _progress_line(self) -> None:
+        step = self.steps[self.current]
+        self.say(f"{self.current}: {step['done']}/{step['planned']} points; total "
+                 f"{self.total_done()}/{self.total_planned()}; ETA {format_duration(self.eta_s())}")
+
+    def block(self) -> list[str]:
+        width = max(len(n) for n in self.steps)
+        lines = []
+        for name, info in self.steps.items():
+            mark = {"running": ">", "done": " ", "limit": "!", "settled": "~"}.get(
+                info["status"], " ")
+            lines.append(f"{mark}{name:<{width}} {bar(info['done'], info['planned'])} "
+                         f"{info['done']:>6}/{info['planned']:<6} {info['status']}")
+        total, planned = self.total_done(), self.total_planned()
+        lines.append(f" {'total':<{width}} {bar(total, planned)} {total:>6}/{planned:<6} "
+                     f"ETA {format_duration(self.eta_s())}")
+        if self.current in self.params:
+            lines.append(" " + self.param_text(self.current))
+        return lines
+
+    def _clear(self) -> str:
+        return f"\x1b[{self._drawn}F\x1b[J" if self._drawn else ""
+
+    def _redraw(self, final: bool = False) -> None:
+        lines = self.block()
+        self._write(self._clear() + "\n".join(lines) + "\n")
+        self._drawn = 0 if final else len(lines)
+
+    def _write(self, text: str) -> None:
+        if self._broken:
+            return
+        try:
+            self.stream.write(text)
+            self.stream.flush()
+        except (OSError, ValueError):
+            self._broken = True  # the terminal is gone; the run folder has it all
+
+
+def finish_report(run_dir, stream=None) -> None:
+    """Write the report of a run folder when the report module is there; a failure is a
+    warning (the run's data are already safe)."""
+    stream = stream or sys.stderr
+    try:
+        from pnbench.tui.report import write_report
+    except ImportError:
+        return
+    try:
+        path = write_report(run_dir)
+        print(f"report: {path}", file=sys.stdout)
+    except Exception as exc:  # noqa: BLE001 - never lose a run over its report
+        print(f"warning: the report could not be written ({type(exc).__name__}: {exc}); "
+              f"the run folder is complete, try `pnbench report {run_dir}`", file=stream)
+
+
+def run_headless(launch, plan, *, stream=None, tty: bool | None = None) -> int:
+    """Run `launch` on this thread with progress output; signals stop it gracefully.
+    Returns the exit code; connection errors before the first point propagate."""
+    from pnbench.sweeps.stopsignals import stop_on_signals
+
+    progress = Progress(plan, stream=stream, tty=tty)
+    launch.listeners.append(progress.listener)
+    progress.start()
+    outcome = None
+    try:
+        with stop_on_signals(launch):
+            outcome = launch.run()
+    finally:
+        progress.stop()
+        if launch.run_dir is not None:
+            print(f"run folder: {launch.run_dir}", file=progress.stream)
+    finish_report(launch.run_dir)
+    if outcome.exit_code != 0:
+        print(f"pnbench: run {outcome.status}: {outcome.reason}"
+              + ("" if outcome.outputs_off_confirmed else
+                 "; OUTPUTS NOT CONFIRMED OFF: check the instruments"), file=sys.stderr)
+    return outcome.exit_code
+
+
+def app_available() -> bool:
+    try:
+        from pnbench.tui.app import run_app  # noqa: F401
+    except ImportError:
+        return False
+    return True
