@@ -1,0 +1,224 @@
+"""Forward I–V fit of IS, N, RS (and RSH when the data show a shunt) on the exact model.
+
+The model is the explicit Lambert-W solution of junction.current (PHYSICS.md §2); the
+residuals are in log current, so every decade of current counts by its relative error,
+and IS is fitted as ln IS. Start values come from the data alone (no guess from the
+user): the steepest straight stretch of ln I against V gives N and IS, the Cheung–Cheung
+line dV/d(ln I) = N*Vt + I*RS (Cheung & Cheung, Appl. Phys. Lett. 49, 85, 1986) over the
+points above it gives RS, and the excess current below it a shunt. Points in compliance,
+at V <= 0, or at the measurement floor are left out (an override mask may choose).
+
+Reverse-bias analysis (leakage, RSH, BV at IBV) is in fit_reverse and re-exported here.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from . import lsq
+from .fit_reverse import fit_reverse  # noqa: F401  (part of this module's API)
+from .fitresult import FitResult, empty_result
+from .junction import _EXP_CAP, thermal_voltage
+from .junction import current as junction_current_total
+from .params import DEFAULT_TEMPERATURE_K, DiodeParams
+
+#: Names of the forward fit, in the order of the fitted vector.
+FORWARD_NAMES = ("IS", "N", "RS", "RSH")
+RS_ABSENT = "RS not determined: the data never leave the exponential region"
+RSH_ABSENT = "RSH not determined: no shunt current shows below the exponential region"
+#: The fewest usable points a forward fit starts with.
+MIN_POINTS = 4
+
+
+class ForwardModel:
+    """I(V) of the exact DC model; t = (ln IS, N, RS, 1/RSH); one log channel."""
+
+    channels = ("log",)
+
+    def __init__(self, temperature_K: float = DEFAULT_TEMPERATURE_K):
+        self.temperature_K = temperature_K
+        self.vt = thermal_voltage(temperature_K)
+        self.params = (
+            lsq.Param("IS", "log", lower=math.log(1e-40), upper=math.log(10.0)),
+            lsq.Param("N", "lin", lower=0.3, upper=20.0),
+            lsq.Param("RS", "lin", lower=0.0, optional=True, absent_reason=RS_ABSENT),
+            lsq.Param("RSH", "inv", lower=0.0, optional=True, absent_reason=RSH_ABSENT),
+        )
+
+    def diode(self, t: np.ndarray) -> DiodeParams:
+        g = float(t[3])
+        return DiodeParams(IS=math.exp(t[0]), N=float(t[1]), RS=float(t[2]),
+                           RSH=math.inf if g <= 0 else 1.0 / g)
+
+    def predict(self, t, x, active):
+        v = x[:, 0]
+        p = self.diode(t)
+        i = np.asarray(junction_current_total(v, p, self.temperature_K), dtype=float)
+        if active is None:
+            return i[:, None], None
+        a = p.N * self.vt
+        vd = v - i * p.RS
+        e = np.exp(np.minimum(vd / a, _EXP_CAP))
+        gd = p.IS * e / a
+        g_sh = max(float(t[3]), 0.0)
+        gtot = gd + g_sh
+        denom = 1.0 + p.RS * gtot
+        cols = {
+            0: p.IS * np.expm1(np.minimum(vd / a, _EXP_CAP)),
+            1: -gd * vd / p.N,
+            2: -gtot * i,
+            3: vd,
+        }
+        jac = np.stack([cols[int(k)] / denom for k in active], axis=-1)
+        return i[:, None], jac[:, None, :]
+
+
+def _window_sums(x: np.ndarray, y: np.ndarray, w: int):
+    c = [np.concatenate([[0.0], np.cumsum(a)]) for a in (x, y, x * x, x * y, y * y)]
+    sx, sy, sxx, sxy, syy = (a[w:] - a[:-w] for a in c)
+    sxx_c = sxx - sx * sx / w
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slope = (sxy - sx * sy / w) / sxx_c
+        ss = np.maximum(syy - sy * sy / w - slope**2 * sxx_c, 0.0)
+        slope_sd = np.sqrt(ss / max(w - 2, 1) / sxx_c)
+    return slope, (sy - slope * sx) / w, np.sqrt(ss / w), slope_sd
+
+
+def start_values(v: np.ndarray, i: np.ndarray, temperature_K: float,
+                 floor_A: float = 0.0) -> np.ndarray:
+    """t = (ln IS, N, RS, 1/RSH) read off the data; no user guess.
+
+    N and IS from the steepest straight stretch of ln I (a window of points whose line
+    explains them to within ~10 %, steepness judged by slope minus two of its standard
+    errors, and lying at V > 4*N*Vt so neither the -1 of the exponential nor a shunt bends
+    it); RS from the Cheung–Cheung line above it (or the excess voltage at the top point);
+    a shunt from the current in excess of the exponential below it.
+    """
+    vt = thermal_voltage(temperature_K)
+    ok = np.isfinite(v) & np.isfinite(i) & (v > 0) & (i > max(floor_A, 0.0))
+    order = np.argsort(v[ok], kind="stable")
+    vv, ii = v[ok][order], i[ok][order]
+    m = len(vv)
+    if m < 2:
+        raise ValueError("need two forward points above the floor")
+    y = np.log(ii)
+    w = int(max(3, min(m // 5, 25))) if m >= 3 else 2
+    best = None
+    if m >= w:
+        slope, icpt, rms, sd = _window_sums(vv, y, w)
+        n_win = 1.0 / (slope * vt)
+        v_low = vv[: len(slope)]
+        good = (slope > 0) & (n_win > 0.5) & (n_win < 15) & (v_low >= 4 * n_win * vt)
+        for tol in (0.1, 0.3, math.inf):
+            cand = np.flatnonzero(good & (rms < tol))
+            if cand.size:
+                score = slope[cand] - 2 * np.nan_to_num(sd[cand], nan=0.0)
+                best = int(cand[np.argmax(score)])
+                break
+    if best is None:  # no clean window: the two-point slope of the top half
+        lo, hi = m // 2, m - 1
+        s = (y[hi] - y[lo]) / max(vv[hi] - vv[lo], 1e-12)
+        n0 = float(np.clip(1.0 / (max(s, 1e-9) * vt), 0.8, 5.0))
+        is0 = float(np.exp(y[lo] - vv[lo] / (n0 * vt)))
+        first, last = lo, hi
+    else:
+        n0 = float(np.clip(1.0 / (slope[best] * vt), 0.5, 15.0))
+        is0 = float(np.exp(icpt[best]))
+        first, last = best, best + w - 1
+    a = n0 * vt
+    rs0 = _cheung_rs(vv[last:], ii[last:], a, is0)
+    below = slice(0, first)
+    g0 = 0.0
+    if first > 0:
+        excess = ii[below] - is0 * np.expm1(vv[below] / a)
+        share = excess / ii[below]
+        if np.median(share) > 0.3:
+            g0 = float(np.median(excess[share > 0.3] / vv[below][share > 0.3]))
+    return np.array([math.log(max(is0, 1e-40)), n0, rs0, max(g0, 0.0)])
+
+
+def _cheung_rs(v: np.ndarray, i: np.ndarray, a: float, is0: float) -> float:
+    """RS from dV/d(ln I) = a + I*RS over points spaced >= 0.2 apart in ln I."""
+    if len(v) < 2:
+        return 0.0
+    keep = [0]
+    y = np.log(i)
+    for k in range(1, len(v)):
+        if y[k] - y[keep[-1]] >= 0.2:
+            keep.append(k)
+    if len(keep) >= 4:
+        vk, ik, yk = v[keep], i[keep], y[keep]
+        deriv = np.diff(vk) / np.diff(yk)
+        i_mid = np.sqrt(ik[1:] * ik[:-1])
+        slope, _ = np.polyfit(i_mid, deriv, 1)
+        if slope > 0:
+            return float(slope)
+    excess = v[-1] - a * math.log1p(i[-1] / is0)
+    return float(max(excess / i[-1], 0.0))
+
+
+def _eligible(v, i, compliance, use):
+    ok = np.isfinite(v) & np.isfinite(i) & (v > 0)
+    if compliance is not None:
+        ok &= ~np.asarray(compliance, dtype=bool)
+    if use is not None:
+        ok &= np.asarray(use, dtype=bool)
+    return ok
+
+
+def fit_forward(voltage_V, current_A, *, compliance=None,
+                temperature_K: float = DEFAULT_TEMPERATURE_K, use=None,
+                noise: tuple[float, float] | None = None, shunt: bool = True,
+                start: np.ndarray | None = None) -> FitResult:
+    """Fit IS, N, RS (and RSH when a shunt shows) to forward I–V points.
+
+    ``compliance`` flags points to leave out; ``use`` (bool mask) overrides the automatic
+    choice of points (still only V > 0 and I > 0 can enter a log fit); ``noise`` =
+    (relative, floor_A) when the instrument's noise is known, else it is estimated from
+    the residuals. ``start`` (ln IS, N, RS, 1/RSH) skips the automatic start values.
+    """
+    v = np.asarray(voltage_V, dtype=float).ravel()
+    i = np.asarray(current_A, dtype=float).ravel()
+    if v.shape != i.shape:
+        raise ValueError(f"voltage has {v.size} values, current {i.size}")
+    model = ForwardModel(temperature_K)
+    return fit_with_model(model, v, i, _eligible(v, i, compliance, use),
+                          forced=use is not None, noise=noise, shunt=shunt, start=start)
+
+
+def forward_state(model: ForwardModel, v: np.ndarray, i: np.ndarray,
+                  eligible: np.ndarray, *, forced: bool = False,
+                  noise: tuple[float, float] | None = None, shunt: bool = True,
+                  start: np.ndarray | None = None) -> lsq.FitState | str:
+    """The least-squares state of a forward fit, or the reason there is none."""
+    pos = eligible & (i > 0)
+    if np.count_nonzero(pos) < MIN_POINTS:
+        return (f"too few forward points with positive current to fit "
+                f"({np.count_nonzero(pos)}; need {MIN_POINTS})")
+    x, y, elig = v[:, None], i[:, None], eligible[:, None]
+    known = None if noise is None else lsq.Noise((float(noise[0]),), (float(noise[1]),),
+                                                 estimated=False)
+    floor0 = known.floor[0] if known else lsq.initial_noise(model, y, elig).floor[0]
+    above = i[pos] > floor0 * lsq.FLOOR_FACTOR
+    floor_cut = floor0 * lsq.FLOOR_FACTOR if np.count_nonzero(above) >= 2 else 0.0
+    t0 = start_values(v[pos], i[pos], model.temperature_K, floor_cut)
+    if start is not None:  # warm start: keep the data's own guess where start has none
+        t0 = np.where(np.isfinite(start), start, t0)
+        if shunt and t0[3] <= 0:
+            t0[3] = max(start_values(v[pos], i[pos], model.temperature_K)[3], 0.0)
+    active = np.array([True, True, True, shunt])
+    if not shunt:
+        t0 = t0.copy()
+        t0[3] = 0.0
+    return lsq.fit(model, x, y, elig, t0, active, noise=known, forced_use=forced)
+
+
+def fit_with_model(model: ForwardModel, v, i, eligible, *, forced=False, noise=None,
+                   shunt=True, start=None) -> FitResult:
+    state = forward_state(model, v, i, eligible, forced=forced, noise=noise, shunt=shunt,
+                          start=start)
+    if isinstance(state, str):
+        return empty_result("iv_forward", v.size, state)
+    return lsq.to_result(model, state, "iv_forward", v.size)

@@ -1,0 +1,167 @@
+"""Reverse I–V: leakage at a reference voltage, the shunt RSH, and BV at a stated IBV.
+
+* BV: the voltage at which the reverse current reaches IBV (the simulator convention,
+  PHYSICS.md §2), read where the data cross IBV by a straight line through ln|I| against
+  V over the points within a decade either side (the breakdown current is exponential in
+  V, so the line is the right interpolant); with only the two bracketing points, the line
+  through them. If the data never reach IBV, BV is absent and the message says how far
+  they got; nothing is extrapolated.
+* RSH: the slope of |I| against |V| before breakdown (points where the breakdown
+  exponential, extrapolated back, is below a thousandth of the current and |V| is above
+  ten Vt), kept only when it stands three standard errors above zero.
+* leakage: the current at the reference voltage from a local straight line through the
+  nearest points (reported as a positive magnitude with its standard error).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .fitresult import FitResult, correlation_from_covariance, empty_result
+from .junction import thermal_voltage
+from .params import DEFAULT_TEMPERATURE_K
+
+#: IBV when the caller states none (the common simulator default, 1 mA).
+DEFAULT_IBV_A = 1e-3
+
+
+def _line(x: np.ndarray, y: np.ndarray, w: np.ndarray | None = None):
+    """Weighted straight line y = a + b x: (a, b, cov 2x2, reduced chi2)."""
+    w = np.ones_like(x) if w is None else w
+    design = np.column_stack([np.ones_like(x), x]) * np.sqrt(w)[:, None]
+    coef, *_ = np.linalg.lstsq(design, y * np.sqrt(w), rcond=None)
+    resid = (y - coef[0] - coef[1] * x) * np.sqrt(w)
+    dof = len(x) - 2
+    s2 = float(resid @ resid) / dof if dof > 0 else math.nan
+    try:
+        cov = np.linalg.inv(design.T @ design) * s2
+    except np.linalg.LinAlgError:
+        cov = np.full((2, 2), math.inf)
+    return float(coef[0]), float(coef[1]), cov, s2
+
+
+def _breakdown(v, mag, ibv):
+    """(BV, sigma, slope of ln|I| per volt of |V|, n points) or None when not reached."""
+    order = np.argsort(-v, kind="stable")  # from 0 V towards deeper reverse bias
+    vv, ii = -v[order], mag[order]  # |V| ascending
+    above = ii >= ibv
+    if not above.any():
+        return None
+    k = int(np.argmax(above))  # first point at or beyond IBV
+    if k == 0:
+        return None  # no point below IBV on the way: the crossing is not bracketed
+    lo = k - 1
+    while lo > 0 and ii[lo - 1] >= ibv / 10 and ii[lo - 1] < ii[lo]:
+        lo -= 1
+    hi = k
+    while hi + 1 < len(ii) and ii[hi + 1] <= ibv * 10 and ii[hi + 1] > ii[hi]:
+        hi += 1
+    x, y = vv[lo:hi + 1], np.log(ii[lo:hi + 1])
+    if len(x) >= 4:
+        a, b, cov, _ = _line(x, y)
+    else:  # the two bracketing points
+        x, y = vv[k - 1:k + 1], np.log(ii[k - 1:k + 1])
+        b = (y[1] - y[0]) / (x[1] - x[0]) if x[1] != x[0] else math.inf
+        a = y[0] - b * x[0]
+        cov = np.full((2, 2), math.inf)
+    if not (b > 0 and math.isfinite(b)):
+        return None
+    bv = (math.log(ibv) - a) / b
+    # delta method: BV = (ln IBV - a)/b
+    grad = np.array([-1.0 / b, -(math.log(ibv) - a) / b**2])
+    var = float(grad @ cov @ grad) if np.all(np.isfinite(cov)) else math.inf
+    return bv, math.sqrt(var) if var >= 0 else math.inf, b, len(x)
+
+
+def fit_reverse(voltage_V, current_A, *, compliance=None,
+                temperature_K: float = DEFAULT_TEMPERATURE_K,
+                reference_V: float | None = None, ibv_A: float | None = None,
+                use=None) -> FitResult:
+    """Leakage at ``reference_V`` (default: the deepest bias before breakdown), RSH, and
+    BV at ``ibv_A`` (default 1 mA) from reverse I–V points (V < 0)."""
+    v = np.asarray(voltage_V, dtype=float).ravel()
+    i = np.asarray(current_A, dtype=float).ravel()
+    n = v.size
+    ok = np.isfinite(v) & np.isfinite(i) & (v < 0)
+    if compliance is not None:
+        ok &= ~np.asarray(compliance, dtype=bool)
+    if use is not None:
+        ok &= np.asarray(use, dtype=bool)
+    ibv = DEFAULT_IBV_A if ibv_A is None else float(ibv_A)
+    if not ibv > 0:
+        raise ValueError(f"IBV must be > 0, got {ibv_A!r}")
+    if np.count_nonzero(ok) < 2:
+        return empty_result("iv_reverse", n, f"too few reverse points "
+                            f"({np.count_nonzero(ok)}; need 2)", used=ok)
+    vt = thermal_voltage(temperature_K)
+    vr, mag = v[ok], -i[ok]  # reverse current as a positive magnitude where it flows
+    names, values, sig, notes = [], {}, {}, []
+    extras: dict = {"IBV_A": ibv}
+    bd = _breakdown(vr, mag, ibv)
+    deepest = float(-vr.min())
+    if bd is None:
+        reached = float(np.max(mag))
+        notes.append(f"BV not determined: the reverse current never crossed IBV = {ibv:.3g} A "
+                     f"(largest {reached:.3g} A at up to {deepest:.4g} V)")
+        pre = np.ones(vr.size, dtype=bool)
+    else:
+        bv, bv_sd, slope, npts = bd
+        names.append("BV")
+        values["BV"], sig["BV"] = bv, bv_sd
+        extras["BV_points"] = npts
+        # where the breakdown exponential, extrapolated back, is below 1e-3 of the current
+        i_bd = ibv * np.exp(-slope * (bv - (-vr)))
+        pre = i_bd < 1e-3 * np.abs(mag)
+    pre &= -vr >= 10 * vt
+    used = np.zeros(n, dtype=bool)
+    pre_idx = np.flatnonzero(ok)[pre]
+    if pre.sum() >= 3:
+        x, y = -vr[pre], mag[pre]
+        w = 1.0 / np.maximum(np.abs(y), 1e-3 * np.median(np.abs(y)) + 1e-300) ** 2
+        _, g, cov, _ = _line(x, y, w)
+        g_sd = math.sqrt(cov[1, 1]) if np.isfinite(cov[1, 1]) and cov[1, 1] >= 0 else math.inf
+        if g > 0 and g > 3 * g_sd:
+            names.append("RSH")
+            values["RSH"], sig["RSH"] = 1.0 / g, g_sd / g**2
+        else:
+            notes.append("RSH not determined: the reverse current does not grow in "
+                         "proportion to the voltage before breakdown")
+        used[pre_idx] = True
+    else:
+        notes.append("RSH not determined: fewer than 3 reverse points between 10 Vt and "
+                     "the breakdown knee")
+    _leakage(vr[pre], mag[pre], reference_V, extras, notes)
+    if bd is not None:
+        used[np.flatnonzero(ok)[np.abs(mag - ibv) <= 9 * ibv]] = True
+    cov = np.diag([sig[nm] ** 2 for nm in names]) if names else np.zeros((0, 0))
+    success = bool(names) or "leakage_A" in extras
+    head = (f"{' '.join(names) or 'leakage only'} from {int(ok.sum())} reverse points"
+            if success else "nothing determined from the reverse points")
+    return FitResult(kind="iv_reverse", names=tuple(names), values=values, sigmas=sig,
+                     covariance=cov, correlation=correlation_from_covariance(cov), used=used,
+                     n_points=n, reduced_chi2=math.nan, success=success,
+                     message="; ".join([head] + notes), extras=extras)
+
+
+def _leakage(vr, mag, reference_V, extras, notes) -> None:
+    if vr.size < 2:
+        notes.append("leakage not determined: fewer than 2 reverse points before breakdown")
+        return
+    ref = -abs(float(reference_V)) if reference_V is not None else float(vr.min())
+    if ref < vr.min() - 1e-9 * abs(ref) or ref > vr.max() + 1e-9 * abs(ref):
+        notes.append(f"leakage at {ref:.4g} V not determined: the reverse points before "
+                     f"breakdown span {vr.min():.4g} V to {vr.max():.4g} V")
+        return
+    near = np.argsort(np.abs(vr - ref), kind="stable")[: min(5, vr.size)]
+    if near.size >= 3:
+        a, b, cov, _ = _line(vr[near] - ref, mag[near])
+        value = a
+        sd = math.sqrt(cov[0, 0]) if np.isfinite(cov[0, 0]) and cov[0, 0] >= 0 else None
+    else:
+        value = float(np.interp(ref, np.sort(vr), mag[np.argsort(vr)]))
+        sd = None
+    extras["leakage_voltage_V"] = ref
+    extras["leakage_A"] = float(value)
+    extras["leakage_sigma_A"] = sd

@@ -1,0 +1,356 @@
+"""Streaming fits: points arrive one at a time or in batches, an estimate is ready any time.
+
+How a least-squares kind (``iv_forward``, ``cv``, ``admittance``) keeps up without
+refitting from scratch:
+
+* The normal equations H = J^T W J, g = J^T W r and the weighted sum of squares are kept
+  as running sums, linearized at a reference point t_ref. A new point adds its row in
+  O(p^2); a snapshot solves the p x p system for one Gauss–Newton step from t_ref, which,
+  t_ref being the optimum of most of the same data, lands on the optimum of all of it to
+  well within its standard error.
+* When that step grows beyond about one standard error (the linearization may no longer
+  hold), the sums are rebuilt at the new estimate with a few warm-started iterations
+  (O(n), rare).
+* Whenever the point count has grown by ``growth`` (25 % by default) since the last
+  one, a full refit runs, warm-started: it re-estimates the noise model, re-chooses the
+  points above the floor and re-decides which optional parameters (RS, RSH, TT, ...) the
+  data determine. Amortized, that is O(1) per point.
+
+``iv_reverse`` is a closed-form analysis (straight lines through the data): a snapshot
+recomputes it when points were added. ``iv`` routes forward and reverse points to one
+fitter each and merges their snapshots.
+
+Every public method holds one lock, so the acquisition thread may ``add`` while another
+thread takes a ``snapshot``. Nothing here starts a thread or reads a clock.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+from collections.abc import Iterable
+from dataclasses import replace
+
+import numpy as np
+
+from . import fit_iv, lsq
+from .fitresult import FitResult, empty_result
+from .joint import merge_results
+from .params import DEFAULT_TEMPERATURE_K
+
+#: What an IncrementalFitter can be asked to fit.
+FITTER_KINDS = ("iv", "iv_forward", "iv_reverse", "cv", "admittance")
+#: Rebuild the sums when the pending step moves the estimate by more than this
+#: Mahalanobis distance squared (in units of the current covariance).
+RELINEARIZE_CHI2 = 1.0
+
+
+class _Buffer:
+    """Growable column storage (amortized doubling)."""
+
+    def __init__(self, width: int, dtype=float):
+        self.data = np.empty((16, width), dtype=dtype)
+        self.n = 0
+
+    def extend(self, rows: np.ndarray) -> None:
+        need = self.n + len(rows)
+        if need > len(self.data):
+            bigger = np.empty((max(need, 2 * len(self.data)), self.data.shape[1]),
+                              dtype=self.data.dtype)
+            bigger[: self.n] = self.data[: self.n]
+            self.data = bigger
+        self.data[self.n:need] = rows
+        self.n = need
+
+    def view(self) -> np.ndarray:
+        return self.data[: self.n]
+
+
+def _column(value, n: int, name: str) -> np.ndarray:
+    if value is None:
+        return np.full(n, np.nan)
+    arr = np.asarray(value, dtype=float).ravel()
+    if arr.size == 1 and n > 1:
+        arr = np.full(n, float(arr[0]))
+    if arr.size != n:
+        raise ValueError(f"{name} has {arr.size} values, voltage_V has {n}")
+    return arr
+
+
+class _LsqStream:
+    """Running normal equations for one least-squares kind (see the module notes)."""
+
+    def __init__(self, spec, growth: float):
+        self.spec = spec
+        self.model = spec.model
+        channels = len(self.model.channels)
+        self.x = _Buffer(spec.x_width)
+        self.y = _Buffer(channels)
+        self.elig = _Buffer(channels, dtype=bool)
+        self.used = _Buffer(channels, dtype=bool)
+        self.growth = growth
+        self.state: lsq.FitState | None = None
+        self.reason = f"waiting for points (need {spec.min_points})"
+        self.next_full = spec.min_points
+        self.h = self.g = None
+        self.s = 0.0
+        self.rows = 0
+
+    @property
+    def n(self) -> int:
+        return self.x.n
+
+    def add(self, x: np.ndarray, y: np.ndarray, elig: np.ndarray) -> None:
+        start = self.n
+        self.x.extend(x)
+        self.y.extend(y)
+        self.elig.extend(elig)
+        self.used.extend(np.zeros_like(elig))
+        if self.n >= self.next_full:
+            self._full_refit()
+            return
+        if self.state is None:
+            return
+        self._accumulate(slice(start, self.n))
+        step = self._step()
+        if step is not None:
+            idx = np.flatnonzero(self.state.active)
+            moved = float(step @ self.h @ step) / max(self._s2(step), 1e-300)
+            if moved > RELINEARIZE_CHI2 or not np.isfinite(moved):
+                t = self.state.t.copy()
+                t[idx] = self._clipped(t[idx] + step, idx)
+                self._relinearize(t)
+
+    def _s2(self, step: np.ndarray) -> float:
+        dof = self.rows - len(step)
+        chi2 = self.s + 2 * float(step @ self.g) + float(step @ self.h @ step)
+        return chi2 / dof if dof > 0 else math.inf
+
+    def _clipped(self, t_active: np.ndarray, idx: np.ndarray) -> np.ndarray:
+        lo = np.array([self.model.params[k].lower for k in idx])
+        hi = np.array([self.model.params[k].upper for k in idx])
+        return np.clip(t_active, lo, hi)
+
+    def _accumulate(self, rows: slice) -> None:
+        st = self.state
+        x, y, elig = self.x.view()[rows], self.y.view()[rows], self.elig.view()[rows]
+        yhat, _ = self.model.predict(st.t, x, None)
+        use = lsq.usable_rows(self.model, y, yhat, elig, st.noise)
+        self.used.view()[rows] = use
+        if not use.any():
+            return
+        idx = np.flatnonzero(st.active)
+        r, jac, _ = lsq.weighted_rows(self.model, st.t, idx, x, y, use, st.noise)
+        self.h += jac.T @ jac
+        self.g += jac.T @ r
+        self.s += float(r @ r)
+        self.rows += len(r)
+
+    def _step(self) -> np.ndarray | None:
+        if self.state is None or self.h.shape[0] == 0:
+            return None
+        d = np.sqrt(np.maximum(np.diag(self.h), 1e-300))
+        try:
+            return -np.linalg.solve(self.h / np.outer(d, d), self.g / d) / d
+        except np.linalg.LinAlgError:
+            return None
+
+    def _reset_sums(self, state: lsq.FitState) -> None:
+        self.state = state
+        self.h, self.g = state.hessian.copy(), state.gradient.copy()
+        self.s, self.rows = state.chi2, state.n_rows
+        self.used.view()[:] = state.used
+
+    def _relinearize(self, t: np.ndarray) -> None:
+        st = self.state
+        x, y, elig = self.x.view(), self.y.view(), self.elig.view()
+        yhat, _ = self.model.predict(t, x, None)
+        use = lsq.usable_rows(self.model, y, yhat, elig, st.noise)
+        t, *_ = lsq.levenberg(self.model, t, st.active, x, y, use, st.noise, max_iter=4)
+        idx = np.flatnonzero(st.active)
+        r, jac, _ = lsq.weighted_rows(self.model, t, idx, x, y, use, st.noise)
+        self._reset_sums(replace(st, t=t, used=use, hessian=jac.T @ jac,
+                                 gradient=jac.T @ r, chi2=float(r @ r), n_rows=int(use.sum())))
+
+    def _full_refit(self) -> None:
+        start = None
+        if self.state is not None and lsq.healthy(self.model, self.state):
+            start = np.where(self.state.active, self.current_t(), np.nan)
+        state = self.spec.full_state(self.x.view(), self.y.view(), self.elig.view(), start)
+        if isinstance(state, str):
+            self.reason = state
+            self.state = None
+        else:
+            self._reset_sums(state)
+        # while the fit is not healthy yet (e.g. only floor noise so far), refit sooner
+        growth = self.growth if self.state is not None and lsq.healthy(self.model, self.state)\
+            else 1.0 + (self.growth - 1.0) / 5.0
+        self.next_full = max(self.n + 1, math.ceil(self.n * growth))
+
+    def current_t(self) -> np.ndarray:
+        t = self.state.t.copy()
+        step = self._step()
+        if step is not None:
+            idx = np.flatnonzero(self.state.active)
+            t[idx] = self._clipped(t[idx] + step, idx)
+        return t
+
+    def snapshot(self) -> FitResult:
+        if self.state is None:
+            return empty_result(self.spec.kind, self.n, self.reason)
+        st = self.state
+        step = self._step()
+        t, chi2 = st.t, self.s
+        if step is not None:
+            idx = np.flatnonzero(st.active)
+            t = st.t.copy()
+            t[idx] = self._clipped(st.t[idx] + step, idx)
+            actual = t[idx] - st.t[idx]
+            chi2 = max(self.s + 2 * float(actual @ self.g) + float(actual @ self.h @ actual),
+                       0.0)
+        view = replace(st, t=t, used=self.used.view().copy(), hessian=self.h,
+                       gradient=np.zeros_like(self.g), chi2=chi2, n_rows=self.rows)
+        return lsq.to_result(self.model, view, self.spec.kind, self.n,
+                             extras=self.spec.extras(), min_rows=self.spec.min_points)
+
+
+class _ForwardSpec:
+    kind = "iv_forward"
+    x_width = 1
+    min_points = fit_iv.MIN_POINTS
+
+    def __init__(self, temperature_K: float, noise, shunt: bool = True):
+        self.model = fit_iv.ForwardModel(temperature_K)
+        self.noise = noise
+        self.shunt = shunt
+
+    def rows(self, v, i, f, c, g, comp):
+        ok = np.isfinite(v) & np.isfinite(i) & (v > 0) & ~comp
+        return v[:, None], i[:, None], ok[:, None]
+
+    def full_state(self, x, y, elig, start):
+        return fit_iv.forward_state(self.model, x[:, 0], y[:, 0], elig[:, 0],
+                                    noise=self.noise, shunt=self.shunt, start=start)
+
+    def extras(self) -> dict:
+        return {}
+
+
+class _ReverseStream:
+    def __init__(self, temperature_K, reference_V, ibv_A):
+        self.v, self.i, self.comp = _Buffer(1), _Buffer(1), _Buffer(1, dtype=bool)
+        self.kw = {"temperature_K": temperature_K, "reference_V": reference_V,
+                   "ibv_A": ibv_A}
+        self.cache: FitResult | None = None
+
+    @property
+    def n(self) -> int:
+        return self.v.n
+
+    def add(self, v, i, comp) -> None:
+        self.v.extend(v[:, None])
+        self.i.extend(i[:, None])
+        self.comp.extend(comp[:, None])
+        self.cache = None
+
+    def snapshot(self) -> FitResult:
+        if self.cache is None:
+            self.cache = fit_iv.fit_reverse(self.v.view()[:, 0], self.i.view()[:, 0],
+                                            compliance=self.comp.view()[:, 0], **self.kw)
+        return self.cache
+
+
+class IncrementalFitter:
+    """A fit that follows a sweep: ``add`` points as they come, ``snapshot`` any time.
+
+    kind: "iv_forward", "iv_reverse", "iv" (both, by the sign of V), "cv" (CJO, VJ, M
+    from C–V) or "admittance" (the whole small-signal model, TT included, from C and G).
+    Options: ``temperature_K``; ``target_rel`` (default for ``settled``); ``noise``
+    (relative, floor) of the measured channel when known (I-V), else estimated;
+    ``reference_V`` and ``ibv_A`` for the reverse analysis; ``with_fixture`` (fit a
+    parallel fixture capacitance); ``fixed`` (model-card values to hold, e.g. IS, N, RS
+    from an I–V fit while fitting admittance); ``growth`` (full refit schedule).
+    """
+
+    def __init__(self, kind: str, *, temperature_K: float = DEFAULT_TEMPERATURE_K,
+                 target_rel: float = 0.01, noise: tuple[float, float] | None = None,
+                 reference_V: float | None = None, ibv_A: float | None = None,
+                 with_fixture: bool = False, fixed: dict[str, float] | None = None,
+                 growth: float = 1.25):
+        if kind not in FITTER_KINDS:
+            raise ValueError(f"unknown fit kind {kind!r}; known: {', '.join(FITTER_KINDS)}")
+        if not growth > 1.0:
+            raise ValueError(f"growth must be > 1, got {growth!r}")
+        self.kind = kind
+        self.temperature_K = float(temperature_K)
+        self.target_rel = float(target_rel)
+        self._lock = threading.Lock()
+        self._forward = self._reverse = self._small = None
+        if kind in ("iv", "iv_forward"):
+            self._forward = _LsqStream(_ForwardSpec(self.temperature_K, noise), growth)
+        if kind in ("iv", "iv_reverse"):
+            self._reverse = _ReverseStream(self.temperature_K, reference_V, ibv_A)
+        if kind in ("cv", "admittance"):
+            from . import fit_cv
+
+            spec = fit_cv.stream_spec(kind, self.temperature_K, with_fixture=with_fixture,
+                                      fixed=fixed)
+            self._small = _LsqStream(spec, growth)
+        self._order: list[np.ndarray] = []  # for "iv": which points went forward
+        self._cache: FitResult | None = None
+
+    @property
+    def n_points(self) -> int:
+        with self._lock:
+            return sum(s.n for s in (self._forward, self._reverse, self._small) if s)
+
+    def add(self, voltage_V, current_A=None, *, frequency_Hz=None, capacitance_F=None,
+            conductance_S=None, compliance=False) -> None:
+        """Add one point (scalars) or a batch (arrays of one length)."""
+        v = np.atleast_1d(np.asarray(voltage_V, dtype=float)).ravel()
+        n = v.size
+        i = _column(current_A, n, "current_A")
+        f = _column(frequency_Hz, n, "frequency_Hz")
+        c = _column(capacitance_F, n, "capacitance_F")
+        g = _column(conductance_S, n, "conductance_S")
+        comp = np.asarray(compliance, dtype=bool).ravel()
+        comp = np.full(n, bool(comp[0])) if comp.size == 1 else comp
+        if comp.size != n:
+            raise ValueError(f"compliance has {comp.size} values, voltage_V has {n}")
+        with self._lock:
+            self._cache = None
+            if self.kind == "iv":
+                fwd = v > 0
+                self._order.append(fwd)
+                if fwd.any():
+                    self._forward.add(*self._forward.spec.rows(v[fwd], i[fwd], None, None,
+                                                               None, comp[fwd]))
+                if (~fwd).any():
+                    self._reverse.add(v[~fwd], i[~fwd], comp[~fwd])
+            elif self._forward is not None:
+                self._forward.add(*self._forward.spec.rows(v, i, f, c, g, comp))
+            elif self._reverse is not None:
+                self._reverse.add(v, i, comp)
+            else:
+                self._small.add(*self._small.spec.rows(v, i, f, c, g, comp))
+
+    def snapshot(self) -> FitResult:
+        """The current estimate as a frozen FitResult (cheap; cached until the next add)."""
+        with self._lock:
+            if self._cache is None:
+                self._cache = self._snapshot()
+            return self._cache
+
+    def _snapshot(self) -> FitResult:
+        if self.kind == "iv":
+            fwd_mask = np.concatenate(self._order) if self._order else np.zeros(0, bool)
+            return merge_results("iv", [self._forward.snapshot(), self._reverse.snapshot()],
+                                 [fwd_mask, ~fwd_mask])
+        stream = self._forward or self._reverse or self._small
+        return stream.snapshot()
+
+    def settled(self, target_rel: float | None = None,
+                names: Iterable[str] | None = None) -> dict[str, bool]:
+        """Per parameter: relative standard error below ``target_rel`` (or the default)."""
+        target = self.target_rel if target_rel is None else target_rel
+        return self.snapshot().settled(target, names)

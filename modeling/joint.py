@@ -1,0 +1,205 @@
+"""Everything a run holds, fitted into one model: I–V, C–V and admittance together.
+
+Order of work (each stage uses the one before):
+
+1. Forward I–V (V > 0): IS, N, RS, RSH (fit_iv.fit_forward).
+2. Reverse I–V (V < 0): BV at IBV, RSH, leakage (fit_reverse.fit_reverse).
+3. C–V / admittance: with a conductance column and forward points the whole small-signal
+   model is fitted in complex admittance (fit_cv.fit_admittance), holding IS, N, RS (and
+   RSH) at the I–V values when the run has I–V data (DC data pin them far more tightly;
+   their uncertainty is left out of TT's sigma); without I–V the conductance against bias
+   supplies IS, N, RS. Without conductance, CJO, VJ, M from the C–V points alone.
+4. Mott–Schottky doping when the device area is known (depletion module).
+
+The model.json document carries the values with sigmas and, under "fits", one
+FitResult.summary() per stage (message, points used, reduced chi-square, correlation).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from .fitresult import FitResult, correlation_from_covariance, empty_result
+from .modelset import ModelSet
+from .params import DEFAULT_TEMPERATURE_K
+
+#: Which fit supplies each model-card parameter first (later ones fill gaps).
+PRIORITY = {
+    "IS": ("iv_forward", "admittance"), "N": ("iv_forward", "admittance"),
+    "RS": ("iv_forward", "admittance"), "RSH": ("iv_forward", "iv_reverse", "admittance"),
+    "BV": ("iv_reverse",), "CJO": ("admittance", "cv"), "VJ": ("admittance", "cv"),
+    "M": ("admittance", "cv"), "TT": ("admittance",),
+}
+_IV_KINDS = ("iv", "iv_forward", "iv_reverse")
+_CV_KINDS = ("cv", "admittance")
+
+
+@dataclass(frozen=True)
+class JointFit:
+    """The run's model and the fits it came from (by kind)."""
+
+    model: ModelSet
+    results: dict[str, FitResult] = field(default_factory=dict)
+
+    @property
+    def message(self) -> str:
+        return "; ".join(f"{k}: {r.message}" for k, r in self.results.items())
+
+
+def _col(columns: Mapping[str, Any], name: str, n: int | None = None) -> np.ndarray:
+    if name not in columns or columns[name] is None:
+        return np.full(n if n is not None else 0, np.nan)
+    return np.asarray(columns[name], dtype=float).ravel()
+
+
+def _pool(data: Mapping[str, Mapping[str, Any]], kinds: Sequence[str]) -> dict | None:
+    parts = [data[k] for k in kinds if k in data and data[k] is not None]
+    if not parts:
+        return None
+    out: dict[str, np.ndarray] = {}
+    for name in ("voltage_V", "current_A", "frequency_Hz", "capacitance_F",
+                 "conductance_S"):
+        out[name] = np.concatenate([_col(p, name, len(_col(p, "voltage_V"))) for p in parts])
+    out["compliance"] = np.concatenate([
+        np.asarray(p["compliance"], dtype=bool).ravel() if p.get("compliance") is not None
+        else np.zeros(len(_col(p, "voltage_V")), dtype=bool) for p in parts])
+    return out if out["voltage_V"].size else None
+
+
+def fit_all(data: Mapping[str, Mapping[str, Any]], *,
+            temperature_K: float = DEFAULT_TEMPERATURE_K, area_m2: float | None = None,
+            reference_V: float | None = None, ibv_A: float | None = None,
+            with_fixture: bool = False, epsilon_r: float | None = None,
+            extras: Mapping[str, Any] | None = None) -> JointFit:
+    """Fit every kind of data present; ``data`` maps a kind ("iv", "iv_forward",
+    "iv_reverse", "cv", "admittance") to columns named as in points.csv
+    (voltage_V, current_A, frequency_Hz, capacitance_F, conductance_S, compliance).
+
+    All I–V kinds are pooled (forward and reverse split by the sign of V), as are the
+    C–V kinds.
+    """
+    from . import fit_iv
+
+    results: dict[str, FitResult] = {}
+    iv = _pool(data, _IV_KINDS)
+    if iv is not None:
+        v, i, comp = iv["voltage_V"], iv["current_A"], iv["compliance"]
+        if np.any(v > 0):
+            results["iv_forward"] = fit_iv.fit_forward(v, i, compliance=comp,
+                                                       temperature_K=temperature_K)
+        if np.any(v < 0):
+            results["iv_reverse"] = fit_iv.fit_reverse(v, i, compliance=comp,
+                                                       temperature_K=temperature_K,
+                                                       reference_V=reference_V, ibv_A=ibv_A)
+    cv = _pool(data, _CV_KINDS)
+    if cv is not None:
+        from . import fit_cv
+
+        fixed = {}
+        fwd = results.get("iv_forward")
+        if fwd is not None and fwd.success:
+            fixed = {k: fwd.values[k] for k in ("IS", "N", "RS", "RSH") if k in fwd.values}
+        results.update(fit_cv.fit_cv_data(
+            cv["voltage_V"], cv["frequency_Hz"], cv["capacitance_F"], cv["conductance_S"],
+            compliance=cv["compliance"], temperature_K=temperature_K,
+            with_fixture=with_fixture, fixed=fixed or None))
+    more = dict(extras or {})
+    if cv is not None and area_m2 is not None:
+        from . import fit_cv
+
+        doping = fit_cv.doping(cv["voltage_V"], cv["capacitance_F"], area_m2=area_m2,
+                               temperature_K=temperature_K, epsilon_r=epsilon_r,
+                               compliance=cv["compliance"])
+        if doping is not None:
+            more["doping"] = doping
+    if area_m2 is not None:
+        more["area_m2"] = float(area_m2)
+    return JointFit(model=model_from_results(results, temperature_K, more), results=results)
+
+
+def fit_run(data: Mapping[str, Mapping[str, Any]], **options: Any) -> ModelSet:
+    """The run's ModelSet (see fit_all for ``data`` and the options)."""
+    return fit_all(data, **options).model
+
+
+def model_from_results(results: Mapping[str, FitResult], temperature_K: float,
+                       extras: Mapping[str, Any] | None = None) -> ModelSet:
+    """One ModelSet from fits of several kinds (PRIORITY decides who supplies what)."""
+    values: dict[str, float] = {}
+    sigmas: dict[str, float | None] = {}
+    for name, sources in PRIORITY.items():
+        for kind in sources:
+            r = results.get(kind)
+            if r is not None and r.success and name in r.values:
+                values[name] = r.values[name]
+                s = r.sigmas[name]
+                sigmas[name] = s if math.isfinite(s) else None
+                break
+    rev = results.get("iv_reverse")
+    if "BV" in values and rev is not None:
+        values["IBV"] = float(rev.extras["IBV_A"])
+        sigmas["IBV"] = None  # stated, not measured
+    out: dict[str, Any] = {"fits": {k: r.summary() for k, r in results.items()}}
+    if rev is not None and "leakage_A" in rev.extras:
+        out["leakage"] = {"voltage_V": rev.extras["leakage_voltage_V"],
+                          "current_A": rev.extras["leakage_A"],
+                          "sigma_A": rev.extras.get("leakage_sigma_A")}
+    for kind in ("admittance", "cv"):
+        r = results.get(kind)
+        if r is not None and "CFIX" in r.values:
+            out["fixture_capacitance_F"] = {"value": r.values["CFIX"],
+                                            "sigma": _finite_or_none(r.sigmas["CFIX"])}
+            break
+    out.update(extras or {})
+    return ModelSet(values=values, sigmas=sigmas, temperature_K=temperature_K, extras=out)
+
+
+def _finite_or_none(x: float) -> float | None:
+    return float(x) if math.isfinite(x) else None
+
+
+def merge_results(kind: str, results: Sequence[FitResult],
+                  masks: Sequence[np.ndarray]) -> FitResult:
+    """One FitResult from fits of disjoint point sets (``masks`` place each fit's points
+    among all of them). A name fitted twice keeps the estimate with the smaller relative
+    sigma; the covariance is block-diagonal (the point sets are independent)."""
+    n = int(sum(np.count_nonzero(m) for m in masks))
+    if n == 0 or not results:
+        return empty_result(kind, n, "waiting for points")
+    chosen: dict[str, tuple[int, int]] = {}
+    for k, r in enumerate(results):
+        for j, name in enumerate(r.names):
+            if name not in chosen or r.relative_sigma(name) < results[chosen[name][0]]\
+                    .relative_sigma(name):
+                chosen[name] = (k, j)
+    names = tuple(chosen)
+    cov = np.zeros((len(names), len(names)))
+    for a, na in enumerate(names):
+        for b, nb in enumerate(names):
+            (ka, ja), (kb, jb) = chosen[na], chosen[nb]
+            if ka == kb:
+                cov[a, b] = results[ka].covariance[ja, jb]
+    used = np.zeros(n, dtype=bool)
+    extras: dict[str, Any] = {}
+    chi2, rows = 0.0, 0
+    for r, m in zip(results, masks, strict=True):
+        if r.n_points == np.count_nonzero(m):
+            used[np.asarray(m, dtype=bool)] = r.used
+        extras.update({k: v for k, v in r.extras.items() if k not in extras})
+        if math.isfinite(r.reduced_chi2):
+            chi2 += r.reduced_chi2 * r.n_used
+            rows += r.n_used
+    return FitResult(
+        kind=kind, names=names, values={nm: results[chosen[nm][0]].values[nm] for nm in names},
+        sigmas={nm: results[chosen[nm][0]].sigmas[nm] for nm in names},
+        covariance=cov, correlation=correlation_from_covariance(cov), used=used, n_points=n,
+        reduced_chi2=chi2 / rows if rows else math.nan,
+        success=any(r.success for r in results),
+        message="; ".join(f"{r.kind}: {r.message}" for r in results if r.n_points),
+        extras=extras,
+    )

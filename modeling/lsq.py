@@ -1,0 +1,450 @@
+"""Weighted nonlinear least squares shared by every fitter (pure numpy/scipy).
+
+A *model* names its parameters (``Param``: how the fitted variable t maps to the
+model-card value, bounds, whether the data may leave it undetermined) and its measured
+*channels* (``"log"``: residual in the logarithm, for currents and conductances that span
+decades; ``"lin"``: plain residual, for capacitances). Each channel has a noise model
+
+    sigma = sqrt((rel * y)**2 + floor**2)        (percent of reading plus a floor)
+
+either given by the caller or estimated from the residuals (iteratively reweighted).
+Residuals are divided by sigma, so for Gaussian noise of that size the weighted sum of
+squares is a chi-square and cov = s**2 (J^T W J)^-1 (PHYSICS.md §6) is the Cramér–Rao
+bound at the optimum. Points whose model value lies below ``FLOOR_FACTOR`` times the
+floor carry almost no information and are left out of log channels (the log of a
+reading at the floor is meaningless); the choice uses the model value, not the reading,
+so it does not bias the fit.
+
+The solver is a small Levenberg–Marquardt with Marquardt scaling and bounds by
+projection: a handful of parameters, many points, no scipy call overhead.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from typing import Protocol
+
+import numpy as np
+
+from .fitresult import FitResult, correlation_from_covariance
+
+#: A log-channel point is used only where the model value exceeds this many floors.
+FLOOR_FACTOR = 10.0
+#: An optional parameter is kept only when it is this many sigmas away from its null.
+Z_KEEP = 3.0
+
+
+@dataclass(frozen=True)
+class Param:
+    """One fitted parameter: the model-card ``name`` and how t maps to its value.
+
+    scale "log": value = exp(t); "lin": value = t; "inv": value = 1/t (a resistance fitted
+    as a conductance, so "no shunt" is t = 0). ``optional`` parameters are dropped, with
+    ``absent_reason`` in the message, when the data do not set them apart from ``null``.
+    """
+
+    name: str
+    scale: str = "lin"
+    lower: float = -math.inf
+    upper: float = math.inf
+    optional: bool = False
+    null: float = 0.0
+    absent_reason: str = ""
+
+    def value(self, t: float) -> float:
+        if self.scale == "log":
+            return math.exp(t)
+        if self.scale == "inv":
+            return math.inf if t == 0 else 1.0 / t
+        return t
+
+    def derivative(self, t: float) -> float:
+        """d value / d t."""
+        if self.scale == "log":
+            return math.exp(t)
+        if self.scale == "inv":
+            return -math.inf if t == 0 else -1.0 / t**2
+        return 1.0
+
+    def to_t(self, value: float) -> float:
+        if self.scale == "log":
+            return math.log(value)
+        if self.scale == "inv":
+            return 0.0 if math.isinf(value) else 1.0 / value
+        return float(value)
+
+
+class Model(Protocol):
+    params: tuple[Param, ...]
+    channels: tuple[str, ...]
+
+    def predict(self, t: np.ndarray, x: np.ndarray,
+                active: np.ndarray | None) -> tuple[np.ndarray, np.ndarray | None]:
+        """Model values (m, C) at conditions x (m, d), and d values / d t[active]
+        (m, C, k) when ``active`` (index array) is given."""
+
+
+@dataclass(frozen=True)
+class Noise:
+    """Per-channel noise model: sigma = sqrt((rel*y)**2 + floor**2)."""
+
+    rel: tuple[float, ...]
+    floor: tuple[float, ...]
+    estimated: bool = True
+
+    def sigma(self, yhat: np.ndarray) -> np.ndarray:
+        rel = np.asarray(self.rel)
+        floor = np.asarray(self.floor)
+        return np.sqrt((rel * yhat) ** 2 + floor**2)
+
+
+@dataclass
+class FitState:
+    """Where a fit stands: the full t vector, which parameters are active, the noise
+    model, the rows used (m, C) and the normal equations at t."""
+
+    t: np.ndarray
+    active: np.ndarray
+    noise: Noise
+    used: np.ndarray
+    hessian: np.ndarray
+    gradient: np.ndarray
+    chi2: float
+    n_rows: int
+    converged: bool = True
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def dof(self) -> int:
+        return self.n_rows - int(np.count_nonzero(self.active))
+
+
+def numeric_jacobian(f, t: np.ndarray, active: np.ndarray, x: np.ndarray,
+                     y0: np.ndarray, step: float = 1e-6) -> np.ndarray:
+    """Forward differences of f(t, x) -> (m, C) over t[active] -> (m, C, k)."""
+    jac = np.empty(y0.shape + (len(active),))
+    for col, k in enumerate(active):
+        h = step * max(1.0, abs(t[k]))
+        tk = t.copy()
+        tk[k] += h
+        jac[..., col] = (f(tk, x) - y0) / h
+    return jac
+
+
+def weighted_rows(model: Model, t: np.ndarray, active_idx: np.ndarray, x: np.ndarray,
+                  y: np.ndarray, use: np.ndarray, noise: Noise,
+                  want_jac: bool = True, yhat_ref: np.ndarray | None = None):
+    """Weighted residuals (model - data)/sigma and their Jacobian, rows where ``use``.
+
+    Sigma comes from ``yhat_ref`` (the model at the start of a reweighting round) when
+    given, so the weights stay fixed while the solver moves.
+    """
+    yhat, jac = model.predict(t, x, active_idx if want_jac else None)
+    ref = yhat if yhat_ref is None else yhat_ref
+    sig = noise.sigma(np.abs(ref))
+    r = np.empty_like(yhat)
+    scale = np.empty_like(yhat)
+    tiny = 1e-300
+    for c, kind in enumerate(model.channels):
+        if kind == "log":
+            pos = np.maximum(np.abs(ref[:, c]), tiny)
+            s = np.maximum(sig[:, c] / pos, 1e-15)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                r[:, c] = (np.log(np.maximum(yhat[:, c], tiny))
+                           - np.log(np.where(use[:, c], y[:, c], 1.0))) / s
+            scale[:, c] = 1.0 / (s * np.maximum(yhat[:, c], tiny))
+        else:
+            s = np.maximum(sig[:, c], 1e-300)
+            r[:, c] = (yhat[:, c] - y[:, c]) / s
+            scale[:, c] = 1.0 / s
+    rows = r[use]
+    if not want_jac:
+        return rows, None, yhat
+    return rows, (jac * scale[..., None])[use], yhat
+
+
+def _solve_scaled(h: np.ndarray, g: np.ndarray, lam: float) -> np.ndarray:
+    d = np.sqrt(np.maximum(np.diag(h), 1e-300))
+    hs = h / np.outer(d, d) + lam * np.eye(len(d))
+    try:
+        return -np.linalg.solve(hs, g / d) / d
+    except np.linalg.LinAlgError:
+        return -(np.linalg.lstsq(hs, g / d, rcond=None)[0]) / d
+
+
+def levenberg(model: Model, t0: np.ndarray, active: np.ndarray, x: np.ndarray,
+              y: np.ndarray, use: np.ndarray, noise: Noise, max_iter: int = 60,
+              yhat_ref: np.ndarray | None = None):
+    """Minimize the weighted sum of squares over t[active] from t0.
+
+    Returns (t, H, g, chi2, converged) with H = J^T J and g = J^T r at the result.
+    """
+    idx = np.flatnonzero(active)
+    lower = np.array([model.params[k].lower for k in idx])
+    upper = np.array([model.params[k].upper for k in idx])
+    t = t0.astype(float).copy()
+    t[idx] = np.clip(t[idx], lower, upper)
+    r, jac, _ = weighted_rows(model, t, idx, x, y, use, noise, yhat_ref=yhat_ref)
+    chi2 = float(r @ r)
+    lam = 1e-3
+    converged = False
+    for _ in range(max_iter):
+        h = jac.T @ jac
+        g = jac.T @ r
+        # a parameter on a bound that the gradient pushes outward stays put this step
+        free = ~(((t[idx] <= lower) & (g > 0)) | ((t[idx] >= upper) & (g < 0)))
+        improved = False
+        while lam < 1e12:
+            step = np.zeros(len(idx))
+            if np.any(free):
+                step[free] = _solve_scaled(h[np.ix_(free, free)], g[free], lam)
+            t_new = t.copy()
+            t_new[idx] = np.clip(t[idx] + step, lower, upper)
+            r_new, jac_new, _ = weighted_rows(model, t_new, idx, x, y, use, noise,
+                                              yhat_ref=yhat_ref)
+            chi2_new = float(r_new @ r_new)
+            if np.isfinite(chi2_new) and chi2_new <= chi2:
+                actual = t_new[idx] - t[idx]
+                gain = float(actual @ h @ actual)
+                t, r, jac = t_new, r_new, jac_new
+                drop = chi2 - chi2_new
+                chi2 = chi2_new
+                lam = max(lam / 5.0, 1e-12)
+                improved = True
+                if drop <= 1e-12 * chi2 + 1e-300 or gain <= 1e-12 * max(chi2, 1.0):
+                    converged = True
+                break
+            lam *= 6.0
+        if not improved:
+            converged = True  # no step lowers chi2: a (bounded) minimum
+            break
+        if converged:
+            break
+    return t, jac.T @ jac, jac.T @ r, chi2, converged
+
+
+def _noise_newton(q, e2, y2, lo, hi, iterations: int = 40):
+    """Minimize sum(ln s2 + e2/s2), s2 = exp(q0) y2 + exp(q1), by damped Newton in q."""
+
+    def parts(q):
+        a, b = math.exp(q[0]), math.exp(q[1])
+        s2 = a * y2 + b
+        f = float(np.sum(np.log(s2) + e2 / s2))
+        u = 1.0 / s2 - e2 / s2**2  # df/ds2
+        v = -1.0 / s2**2 + 2 * e2 / s2**3  # d2f/ds2^2
+        ga, gb = a * float(u @ y2), b * float(u.sum())
+        haa = a * a * float(v @ (y2 * y2)) + ga
+        hbb = b * b * float(v.sum()) + gb
+        hab = a * b * float(v @ y2)
+        return f, np.array([ga, gb]), np.array([[haa, hab], [hab, hbb]])
+
+    f, g, h = parts(q)
+    lam = 1e-3
+    for _ in range(iterations):
+        step = None
+        while lam < 1e8:
+            try:
+                step = -np.linalg.solve(h + lam * np.diag(np.abs(np.diag(h)) + 1e-9), g)
+            except np.linalg.LinAlgError:
+                lam *= 10
+                continue
+            q_new = np.clip(q + step, lo, hi)
+            f_new, g_new, h_new = parts(q_new)
+            if f_new <= f:
+                break
+            lam *= 10
+        else:
+            break
+        moved = float(np.max(np.abs(q_new - q)))
+        q, f, g, h = q_new, f_new, g_new, h_new
+        lam = max(lam / 10, 1e-9)
+        if moved < 1e-6:
+            break
+    return q
+
+
+def estimate_noise(model: Model, y: np.ndarray, yhat: np.ndarray,
+                   eligible: np.ndarray, previous: Noise) -> Noise:
+    """Maximum-likelihood noise model per channel from the residuals y - yhat.
+
+    Minimizes sum(ln s2 + e**2/s2) with s2 = rel**2 yhat**2 + floor**2 (Gaussian
+    residuals), over ln rel and ln floor, from moment estimates (median e**2/yhat**2 over
+    the larger half of the values, median e**2 over the smaller half).
+    """
+    rel, floor = list(previous.rel), list(previous.floor)
+    for c in range(len(model.channels)):
+        ok = eligible[:, c] & np.isfinite(y[:, c]) & np.isfinite(yhat[:, c])
+        if np.count_nonzero(ok) < 6:
+            continue
+        e2 = (y[ok, c] - yhat[ok, c]) ** 2
+        y2 = yhat[ok, c] ** 2
+        top = math.sqrt(float(np.max(y2))) or 1.0
+        big = y2 >= np.median(y2)
+        a0 = math.sqrt(max(float(np.median(e2[big] / np.maximum(y2[big], 1e-300))), 1e-30))
+        b0 = math.sqrt(max(float(np.median(e2[~big])) if np.any(~big) else 0.0,
+                           (1e-12 * top) ** 2))
+        lo = np.array([math.log(1e-15), math.log(1e-15 * top)])
+        hi = np.array([math.log(10.0), math.log(top)])
+        q = np.clip(np.log([a0, b0]), lo, hi)
+        q = _noise_newton(2 * q, e2, y2, 2 * lo, 2 * hi) / 2
+        rel[c], floor[c] = math.exp(q[0]), math.exp(q[1])
+    return Noise(tuple(rel), tuple(floor), estimated=True)
+
+
+def usable_rows(model: Model, y: np.ndarray, yhat: np.ndarray, eligible: np.ndarray,
+                noise: Noise, forced: bool = False) -> np.ndarray:
+    """Rows a fit may use: eligible, and for log channels above the measurement floor."""
+    use = eligible & np.isfinite(y)
+    for c, kind in enumerate(model.channels):
+        if kind == "log":
+            use[:, c] &= y[:, c] > 0
+            if not forced:
+                use[:, c] &= yhat[:, c] > FLOOR_FACTOR * noise.floor[c]
+    return use
+
+
+def covariance_t(state: FitState) -> np.ndarray:
+    """s**2 H^-1 over the active parameters (s**2 = reduced chi-square); inf if singular."""
+    h = state.hessian
+    k = h.shape[0]
+    if k == 0:
+        return np.zeros((0, 0))
+    d = np.sqrt(np.maximum(np.diag(h), 1e-300))
+    hs = h / np.outer(d, d)
+    w, v = np.linalg.eigh(hs)
+    s2 = state.chi2 / state.dof if state.dof > 0 else math.inf
+    if w[0] <= 1e-13 * max(w[-1], 1e-300) or not math.isfinite(s2):
+        cov = np.full((k, k), math.inf)
+        if w[0] > 0 and math.isfinite(s2):
+            inv = (v / w) @ v.T / np.outer(d, d)
+            cov = np.where(np.isfinite(inv), s2 * inv, math.inf)
+            cov[:, w.argmin()] = math.inf
+        return cov
+    return s2 * ((v / w) @ v.T) / np.outer(d, d)
+
+
+def significance(model: Model, state: FitState) -> dict[int, float]:
+    """|t - null|/sigma_t of every active optional parameter (0 when undetermined)."""
+    idx = np.flatnonzero(state.active)
+    cov = covariance_t(state)
+    out = {}
+    for j, k in enumerate(idx):
+        p = model.params[k]
+        if not p.optional:
+            continue
+        sd = math.sqrt(cov[j, j]) if np.isfinite(cov[j, j]) and cov[j, j] > 0 else math.inf
+        out[int(k)] = abs(state.t[k] - p.null) / sd if math.isfinite(sd) else 0.0
+    return out
+
+
+def fit(model: Model, x: np.ndarray, y: np.ndarray, eligible: np.ndarray, t0: np.ndarray,
+        active: np.ndarray, noise: Noise | None = None, forced_use: bool = False,
+        rounds: int = 3, max_iter: int = 60) -> FitState:
+    """Reweighted fit with selection of the optional parameters the data determine."""
+    estimate = noise is None or noise.estimated
+    if noise is None:
+        noise = initial_noise(model, y, eligible)
+    t, active = t0.astype(float).copy(), active.copy()
+    notes: list[str] = []
+    state = _rounds(model, x, y, eligible, t, active, noise, forced_use, rounds, estimate,
+                    max_iter)
+    while True:
+        z = significance(model, state)
+        weak = {k: v for k, v in z.items() if v < Z_KEEP}
+        if not weak:
+            break
+        k = min(weak, key=weak.get)
+        p = model.params[k]
+        notes.append(p.absent_reason or f"{p.name} not determined by the data")
+        active = state.active.copy()
+        active[k] = False
+        t = state.t.copy()
+        t[k] = p.null
+        state = _rounds(model, x, y, eligible, t, active, state.noise, forced_use,
+                        max(2, rounds - 1), estimate, max_iter)
+    state.notes = notes + state.notes
+    return state
+
+
+def initial_noise(model: Model, y: np.ndarray, eligible: np.ndarray) -> Noise:
+    """Pure relative weighting, with a floor read from readings of the wrong sign."""
+    floors = []
+    for c, kind in enumerate(model.channels):
+        col = y[eligible[:, c] & np.isfinite(y[:, c]), c]
+        neg = col[col <= 0]
+        floors.append(float(np.max(np.abs(neg))) / FLOOR_FACTOR * 3 if kind == "log"
+                      and neg.size else 0.0)
+    return Noise(tuple(1.0 for _ in model.channels), tuple(floors), estimated=True)
+
+
+def _rounds(model, x, y, eligible, t, active, noise, forced, rounds, estimate, max_iter):
+    yhat, _ = model.predict(t, x, None)
+    converged = True
+    for i in range(rounds):
+        use = usable_rows(model, y, yhat, eligible, noise, forced)
+        t, h, g, chi2, converged = levenberg(model, t, active, x, y, use, noise, max_iter,
+                                             yhat_ref=yhat)
+        yhat, _ = model.predict(t, x, None)
+        if not estimate or i == rounds - 1:
+            break
+        noise = estimate_noise(model, y, yhat, eligible, noise)
+    # final normal equations with weights at the solution
+    use = usable_rows(model, y, yhat, eligible, noise, forced)
+    idx = np.flatnonzero(active)
+    r, jac, _ = weighted_rows(model, t, idx, x, y, use, noise)
+    return FitState(t=t, active=active, noise=noise, used=use, hessian=jac.T @ jac,
+                    gradient=jac.T @ r, chi2=float(r @ r), n_rows=int(use.sum()),
+                    converged=converged)
+
+
+def with_noise(noise: Noise, **changes) -> Noise:
+    return replace(noise, **changes)
+
+
+def at_bounds(model: Model, state: FitState) -> list[str]:
+    """Names of required active parameters sitting on a bound (a fit gone astray)."""
+    return [model.params[k].name for k in np.flatnonzero(state.active)
+            if not model.params[k].optional
+            and (state.t[k] <= model.params[k].lower or state.t[k] >= model.params[k].upper)]
+
+
+def healthy(model: Model, state: FitState) -> bool:
+    """A state fit to warm-start from: converged, nothing required on a bound."""
+    return bool(state.converged and state.dof > 0 and not at_bounds(model, state))
+
+
+def to_result(model, state: FitState, kind: str, n_points: int,
+                      extras: dict | None = None, min_rows: int = 4) -> FitResult:
+    """The FitResult of a finished least-squares state (values in SI, not t)."""
+    idx = np.flatnonzero(state.active)
+    cov_t = covariance_t(state)
+    d = np.array([model.params[k].derivative(state.t[k]) for k in idx])
+    cov = cov_t * np.outer(d, d)
+    names = tuple(model.params[k].name for k in idx)
+    values = {model.params[k].name: model.params[k].value(state.t[k]) for k in idx}
+    sig = np.sqrt(np.where(np.isfinite(np.diag(cov)), np.diag(cov), math.inf))
+    sigmas = dict(zip(names, sig, strict=True))
+    cor = correlation_from_covariance(np.where(np.isfinite(cov), cov, 0.0))
+    ok = state.n_rows >= min_rows and state.dof > 0 and bool(np.all(np.isfinite(sig)))
+    red = state.chi2 / state.dof if state.dof > 0 else math.nan
+    parts = [f"{' '.join(names)} from {int(state.used.any(axis=1).sum())} of "
+             f"{n_points} points" if ok else "fit failed: the data do not determine "
+             f"{' '.join(n for n, s in sigmas.items() if not math.isfinite(s)) or 'it'}"]
+    parts += state.notes
+    if not state.converged:
+        parts.append("the solver stopped before converging")
+    at_bound = at_bounds(model, state)
+    if at_bound:
+        parts.append(f"{', '.join(at_bound)} at the edge of the allowed range")
+        ok = False
+    noise_extras = {}
+    for c, ch in enumerate(model.channels):
+        key = f"noise_{c}" if len(model.channels) > 1 else "noise"
+        noise_extras[key] = {"relative": state.noise.rel[c], "floor": state.noise.floor[c],
+                             "estimated": state.noise.estimated, "channel": ch}
+    return FitResult(
+        kind=kind, names=names, values=values, sigmas=sigmas, covariance=cov,
+        correlation=cor, used=state.used.any(axis=1), n_points=n_points, reduced_chi2=red,
+        success=ok, message="; ".join(parts), extras={**noise_extras, **(extras or {})},
+    )
