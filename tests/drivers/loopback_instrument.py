@@ -1,10 +1,10 @@
 """A tiny threaded TCP instrument for socket-level driver tests (not the simulated bench).
 
 It answers IEEE 488.2 style: all response units of one program message on one line,
-joined by ';'. A few test-only headers misbehave on purpose:
-SLOW? (replies after `slow_s`), HANG? (never replies), EMPTY? (an empty line),
-TWO? (two units for one query), BYE (closes the connection), LEVel? (echoes the last
-:LEVel setting).
+joined by ';'. Queries listed in `canned` (by header) get that reply. A few test-only
+headers misbehave on purpose: SLOW? (replies after `slow_s`), HANG? (never replies),
+EMPTY? (an empty line), TWO? (two units for one query), BYE (closes the connection);
+LEVel? echoes the last :LEVel setting.
 """
 
 from __future__ import annotations
@@ -17,8 +17,9 @@ from pnbench.drivers import scpi
 
 
 class LoopbackInstrument:
-    def __init__(self, slow_s: float = 0.15) -> None:
+    def __init__(self, slow_s: float = 0.15, canned: dict[str, str] | None = None) -> None:
         self.slow_s = slow_s
+        self.canned = {k.upper().lstrip(":"): v for k, v in (canned or {}).items()}
         self.received: list[str] = []
         self.level = "0"
         self.nodelay_seen: list[int] = []
@@ -68,6 +69,9 @@ class LoopbackInstrument:
             head = cmd.header.upper().lstrip(":")
             if head == "BYE":
                 return False
+            if cmd.query and head in self.canned:
+                replies.append(self.canned[head])
+                continue
             if not cmd.query:
                 if head == "LEVEL":
                     self.level = cmd.args[0]

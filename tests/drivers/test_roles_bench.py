@@ -137,3 +137,31 @@ def test_series_form_gives_the_same_admittance(bench):
         assert s.query(":SENSe:IMPedance:MODel?").upper().startswith("CSRS")
         y_series = series_meter.apply_and_read(-2.0, 1e5).admittance_S
     assert np.isclose(y_series, y_parallel, rtol=0.02)
+
+
+def test_example_user_dialects_load_and_drive_an_instrument():
+    """The README's example dialects (docs/dialects/) load, and the SMU one reads its
+    compliance from the status field of a five-field reading."""
+    from pathlib import Path
+
+    from loopback_instrument import LoopbackInstrument
+
+    docs = Path(__file__).resolve().parents[2] / "docs" / "dialects"
+    lcr_dialect = dl.load_dialect(docs / "harrow-lane-lcr.toml")
+    assert lcr_dialect.smu is None and lcr_dialect.lcr.form == "CPD"
+    smu_dialect = dl.load_dialect(docs / "harrow-lane-smu.toml")
+    inst = LoopbackInstrument(canned={":READ": "0.41,1.0E-02,41,12.5,1", ":OUTP": "0"})
+    try:
+        with open_session(inst.resource, timeout_ms=500, dialect=smu_dialect) as s:
+            smu = Smu(s)
+            smu.configure("voltage", limit=1e-2)
+            assert inst.received[-2] == (":SOUR:FUNC VOLT;:SOUR:VOLT 0;:SENS:CURR:PROT 0.01;"
+                                         ":SENS:CURR:RANG:AUTO 1;:SENS:CURR:NPLC 1")
+            reading = smu.apply_and_read(0.45)
+            assert inst.received[-1] == ":SOUR:VOLT 0.45;:READ?"  # one message, no tripped?
+            assert (reading.voltage_V, reading.current_A, reading.compliance) == (
+                0.41, 1e-2, True)
+            assert smu.safe_off() == []
+            assert inst.received[-1] == ":OUTP?"
+    finally:
+        inst.close()
