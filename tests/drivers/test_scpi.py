@@ -264,3 +264,27 @@ def test_is_marker():
     assert scpi.is_marker(math.nan) and scpi.is_marker(math.inf) and scpi.is_marker(-math.inf)
     assert scpi.is_marker(9.91e37) and scpi.is_marker(-9.9e37)
     assert not scpi.is_marker(1.0) and not scpi.is_marker(9.9e36)
+
+
+mnemonic = st.tuples(
+    st.text(alphabet="ABCDEFGHIJKLMNOPQRSTUVWXYZ", min_size=1, max_size=4),
+    st.text(alphabet="abcdefghijklmnopqrstuvwxyz", min_size=0, max_size=5),
+)
+
+
+@given(st.lists(mnemonic, min_size=1, max_size=4), st.data())
+def test_header_matches_exactly_long_or_short_form_per_node(nodes, data):
+    """SCPI-1999 vol. 1, 6.2.1 (from memory): each node is accepted in its short form (the
+    capitals) or its long form, in any case; any other truncation is not a match."""
+    pattern = "".join(":" + upper + lower for upper, lower in nodes)
+    words = []
+    for upper, lower in nodes:
+        word = data.draw(st.sampled_from([upper, upper + lower]))
+        words.append(data.draw(st.sampled_from([word, word.lower()])))
+    assert scpi.header_matches(pattern, ":".join(words))
+    k = data.draw(st.integers(0, len(nodes) - 1))
+    upper, lower = nodes[k]
+    if len(lower) >= 2:  # a form strictly between short and long
+        bad = words.copy()
+        bad[k] = upper + lower[: data.draw(st.integers(1, len(lower) - 1))]
+        assert not scpi.header_matches(pattern, ":".join(bad))
