@@ -81,12 +81,12 @@ def qty(value: float | None, unit: str, prec: int = 4) -> str:
     if value is None:
         return "\u2014"
     value = float(value)
+    unit = "\u03a9" if unit == "ohm" else unit
     if math.isnan(value):
         return "n/a"
     if math.isinf(value):
         sign = "\u2212" if value < 0 else ""
         return f"{sign}\u221e {unit}".strip()
-    unit = "\u03a9" if unit == "ohm" else unit
     if not unit:
         return f"{value:.{prec + 1}g}"
     return _MICRO.sub(" \u00b5", Quantity(value, unit).render(prec=prec))
