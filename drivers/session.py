@@ -70,7 +70,10 @@ def _socket_of(resource) -> socket.socket | None:
 
 
 class Session:
-    """An open instrument. Roles and the probe command talk through this only."""
+    """An open instrument. Roles and the probe command talk through this only.
+
+    Not thread-safe: one thread (the acquisition thread) owns a session at a time.
+    """
 
     def __init__(self, resource, resource_name: str, dialect: Dialect, backend: str) -> None:
         self._resource = resource
@@ -96,10 +99,11 @@ class Session:
 
     def _peer_gone(self) -> bool:
         """Whether the far end of a socket session has closed it."""
-        if self._socket is None:
+        dontwait = getattr(socket, "MSG_DONTWAIT", 0)  # absent on some platforms
+        if self._socket is None or not dontwait:
             return False
         try:
-            data = self._socket.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT)
+            data = self._socket.recv(1, socket.MSG_PEEK | dontwait)
         except BlockingIOError:
             return False
         except OSError:
