@@ -2,10 +2,13 @@
 
 Model (see PHYSICS.md §2): junction current
 
-    Ij(Vd) = IS*(exp(Vd/a) - 1) + Vd/RSH - IBV*exp(-(Vd + BV)/a),   a = N*Vt
+    Ij(Vd) = IS*(exp(Vd/a) - 1) + Vd/RSH - K*(exp(-Vd/a) - 1),   a = N*Vt,
+    K = IBV*exp(-BV/a)
 
 with terminal voltage V = Vd + I*RS. The breakdown term follows the simulator
-convention that the reverse current is IBV at Vd = -BV (Nagel, SPICE2, 1975).
+convention that the reverse current is about IBV at Vd = -BV (Nagel, SPICE2, 1975); the
+"- 1" keeps the current exactly zero at zero bias (it matters only for a breakdown
+voltage of a few N*Vt, where K is not negligible).
 
 Away from breakdown the current is the exact explicit Lambert-W solution (Banwell &
 Jayakumar, Electron. Lett. 36(4), 2000; with shunt, Ortiz-Conde et al., Solid-State
@@ -70,6 +73,11 @@ def _shaped(x, shape: tuple):
     return x if shape else float(x)
 
 
+def _times(g: float, v):
+    """g*v, exactly 0 where there is no shunt (g = 0) even at v = -inf."""
+    return g * v if g != 0.0 else np.zeros_like(v)
+
+
 def _exp(x):
     return np.exp(np.minimum(x, _EXP_CAP))
 
@@ -84,6 +92,11 @@ def _breakdown_log_k(p: DiodeParams, a: float) -> float:
     return math.log(p.IBV) - p.BV / a
 
 
+def _k(log_k: float) -> float:
+    """K itself (0 without breakdown or where it underflows)."""
+    return 0.0 if log_k == -math.inf else math.exp(log_k)
+
+
 def _k_exp(log_k: float, x):
     """K*exp(x) computed as exp(ln K + x), finite for any K and x."""
     if log_k == -math.inf:
@@ -96,11 +109,11 @@ def _explicit_current(v, A, g, log_k, s, rs, a):
 
     One-exponential branch: s = +1 forward (K = IS), s = -1 breakdown; K given as ln K.
     """
-    base = (A + g * v) / (1.0 + g * rs)
+    base = (A + _times(g, v)) / (1.0 + g * rs)
     if log_k == -math.inf:
         return base
     if rs == 0.0:
-        return A + g * v + s * _k_exp(log_k, s * v / a)
+        return A + _times(g, v) + s * _k_exp(log_k, s * v / a)
     x = log_k + math.log(rs / (a * (1.0 + g * rs))) + s * (v - rs * base) / a
     w = np.real(wrightomega(x))
     return base + s * (a / rs) * w
@@ -113,9 +126,14 @@ def _explicit_vd(i, A, g, log_k, s, a):
     if g == 0.0:
         with np.errstate(divide="ignore", invalid="ignore"):
             return s * a * (np.log(s * (i - A)) - log_k)
-    x = log_k - math.log(g * a) + s * (i - A) / (g * a)
+    c = log_k - math.log(g * a)
+    x = c + s * (i - A) / (g * a)
     w = np.real(wrightomega(x))
-    return (i - A) / g - s * a * w
+    # Vd = (i - A)/g - s*a*w loses digits to cancellation where the shunt current
+    # (i - A)/g dwarfs Vd; since w + ln(w) = x it equals s*a*(ln(w) - c), exact there.
+    with np.errstate(divide="ignore"):
+        return np.where(w > 1.0, s * a * (np.log(np.maximum(w, 1.0)) - c),
+                        (i - A) / g - s * a * w)
 
 
 def junction_current(vd, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K):
@@ -124,7 +142,9 @@ def junction_current(vd, params: DiodeParams, temperature_K: float = DEFAULT_TEM
     vd = np.asarray(vd, dtype=float)
     g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
     log_k = _breakdown_log_k(params, a)
-    return params.IS * np.expm1(np.minimum(vd / a, _EXP_CAP)) + g * vd - _k_exp(log_k, -vd / a)
+    shunt = _times(g, vd)
+    breakdown = _k_exp(log_k, -vd / a) - _k(log_k)
+    return params.IS * np.expm1(np.minimum(vd / a, _EXP_CAP)) + shunt - breakdown
 
 
 def junction_conductance(vd, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K):
@@ -142,11 +162,12 @@ def current(v, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K
     v_arr = np.atleast_1d(np.asarray(v, dtype=float)).ravel()
     g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
     rs = params.RS
-    i_fwd = _explicit_current(v_arr, -params.IS, g, math.log(params.IS), +1, rs, a)
+    offset = -params.IS + _k(_breakdown_log_k(params, a))
+    i_fwd = _explicit_current(v_arr, offset, g, math.log(params.IS), +1, rs, a)
     log_k = _breakdown_log_k(params, a)
     if log_k == -math.inf:
         return _shaped(i_fwd, shape)
-    i_bd = _explicit_current(v_arr, -params.IS, g, log_k, -1, rs, a)
+    i_bd = _explicit_current(v_arr, offset, g, log_k, -1, rs, a)
 
     def residual(i, v_):
         return i - junction_current(v_ - i * rs, params, temperature_K)
@@ -211,16 +232,25 @@ def junction_voltage(
     g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
     log_k = _breakdown_log_k(params, a)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        vd_fwd = _explicit_vd(i, -params.IS, g, math.log(params.IS), +1, a)
+        offset = -params.IS + _k(log_k)
+        vd_fwd = _explicit_vd(i, offset, g, math.log(params.IS), +1, a)
         vd_fwd = np.where(np.isnan(vd_fwd), -np.inf, vd_fwd)
         if log_k == -math.inf:
             return _shaped(vd_fwd, shape)
-        vd_bd = _explicit_vd(i, -params.IS, g, log_k, -1, a)
+        vd_bd = _explicit_vd(i, offset, g, log_k, -1, a)
     # The exact Vd lies in [vd_fwd, vd_bd] (each branch leaves out one exponential); the
-    # breakdown branch has no solution where the current is above -IS.
+    # breakdown branch has no solution where the current is above -IS + K.
     vd_bd = np.where(np.isnan(vd_bd), np.inf, vd_bd)
     hi = np.minimum(vd_bd, np.where(i < 0, 0.0, np.inf))
     lo = np.where(np.isfinite(vd_fwd), vd_fwd, hi - 60 * a)
+    # Above -IS the breakdown branch gives no upper end; above lo the breakdown current
+    # is at most d = K*exp(-lo/a), so the forward branch at i + d is one.
+    open_top = ~np.isfinite(hi) & np.isfinite(lo)
+    if np.any(open_top):
+        d = _k_exp(log_k, -lo[open_top] / a)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            hi[open_top] = _explicit_vd(i[open_top] + d, offset, g, math.log(params.IS),
+                                        +1, a)
 
     def residual(x, k):
         return junction_current(x, params, temperature_K) - i[k]
