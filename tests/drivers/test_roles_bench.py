@@ -140,13 +140,13 @@ def test_series_form_gives_the_same_admittance(bench):
 
 
 def test_example_user_dialects_load_and_drive_an_instrument():
-    """The README's example dialects (docs/dialects/) load, and the SMU one reads its
+    """The README's example dialects (drivers/dialects/examples/) load, and the SMU one reads its
     compliance from the status field of a five-field reading."""
     from pathlib import Path
 
     from loopback_instrument import LoopbackInstrument
 
-    docs = Path(__file__).resolve().parents[2] / "docs" / "dialects"
+    docs = Path(__file__).resolve().parents[2] / "drivers" / "dialects" / "examples"
     lcr_dialect = dl.load_dialect(docs / "harrow-lane-lcr.toml")
     assert lcr_dialect.smu is None and lcr_dialect.lcr.form == "CPD"
     smu_dialect = dl.load_dialect(docs / "harrow-lane-smu.toml")
