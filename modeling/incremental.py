@@ -133,7 +133,8 @@ class _LsqStream:
 
     def _accumulate(self, rows: slice) -> None:
         st = self.state
-        x, y, elig = self.x.view()[rows], self.y.view()[rows], self.elig.view()[rows]
+        x, y = self.x.view()[rows], self.y.view()[rows]
+        elig = self.spec.eligible_now(x, self.elig.view()[rows])
         yhat, _ = self.model.predict(st.t, x, None)
         use = lsq.usable_rows(self.model, y, yhat, elig, st.noise)
         self.used.view()[rows] = use
@@ -163,7 +164,8 @@ class _LsqStream:
 
     def _relinearize(self, t: np.ndarray) -> None:
         st = self.state
-        x, y, elig = self.x.view(), self.y.view(), self.elig.view()
+        x, y = self.x.view(), self.y.view()
+        elig = self.spec.eligible_now(x, self.elig.view())
         yhat, _ = self.model.predict(t, x, None)
         use = lsq.usable_rows(self.model, y, yhat, elig, st.noise)
         t, *_ = lsq.levenberg(self.model, t, st.active, x, y, use, st.noise, max_iter=4)
@@ -231,6 +233,9 @@ class _ForwardSpec:
     def full_state(self, x, y, elig, start):
         return fit_iv.forward_state(self.model, x[:, 0], y[:, 0], elig[:, 0],
                                     noise=self.noise, shunt=self.shunt, start=start)
+
+    def eligible_now(self, x, elig):
+        return elig
 
     def extras(self) -> dict:
         return {}

@@ -74,7 +74,7 @@ def _pool(data: Mapping[str, Mapping[str, Any]], kinds: Sequence[str]) -> dict |
 def fit_all(data: Mapping[str, Mapping[str, Any]], *,
             temperature_K: float = DEFAULT_TEMPERATURE_K, area_m2: float | None = None,
             reference_V: float | None = None, ibv_A: float | None = None,
-            with_fixture: bool = False, epsilon_r: float | None = None,
+            with_fixture: bool = False, semiconductor: str | float = "Si",
             extras: Mapping[str, Any] | None = None) -> JointFit:
     """Fit every kind of data present; ``data`` maps a kind ("iv", "iv_forward",
     "iv_reverse", "cv", "admittance") to columns named as in points.csv
@@ -113,7 +113,7 @@ def fit_all(data: Mapping[str, Mapping[str, Any]], *,
         from . import fit_cv
 
         doping = fit_cv.doping(cv["voltage_V"], cv["capacitance_F"], area_m2=area_m2,
-                               temperature_K=temperature_K, epsilon_r=epsilon_r,
+                               temperature_K=temperature_K, semiconductor=semiconductor,
                                compliance=cv["compliance"])
         if doping is not None:
             more["doping"] = doping

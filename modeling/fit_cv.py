@@ -1,0 +1,393 @@
+"""C–V and admittance fits: CJO, VJ, M (and a fixture capacitance), and TT with IS, N, RS.
+
+* ``fit_cv``: the depletion capacitance Cj(V) = CJO/(1 - V/VJ)**M (with the simulator's
+  linear continuation above FC*VJ, PHYSICS.md §3) fitted to reverse and low-forward
+  points. Forward points are taken in, lowest bias first, only while they agree with
+  the depletion curve extrapolated from the points before them (to within four standard
+  errors of the prediction and the noise), so the diffusion capacitance never biases it.
+* ``fit_admittance``: the whole small-signal model of PHYSICS.md §3, RS in series with
+  gd + 1/RSH + j*w*(Cj + TT*gd), fitted in complex admittance: the capacitance channel
+  (Im Y / w) and the conductance channel (Re Y, residuals in its logarithm, forward
+  points only) together. The conductance against bias carries IS, N and RS, so C–V data
+  alone yield TT; with an I–V fit at hand those can be held (``fixed``).
+* ``doping``: the Mott–Schottky doping and built-in voltage (depletion module) from the
+  reverse points when the area is known.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from . import depletion, lsq
+from .errors import BadInput
+from .fit_iv import start_values as iv_start_values
+from .fitresult import FitResult, empty_result
+from .junction import thermal_voltage
+from .params import DEFAULT_TEMPERATURE_K, DiodeParams
+from .smallsignal import depletion_capacitance, device_admittance
+
+MIN_CV_POINTS = 4
+#: Forward points join a depletion fit while within this many standard errors.
+Z_ACCEPT = 4.0
+_TINY_IS = 1e-30
+
+
+def _params(fixture: bool, with_dc: bool) -> tuple[lsq.Param, ...]:
+    out = []
+    if with_dc:
+        out += [
+            lsq.Param("IS", "log", lower=math.log(1e-40), upper=math.log(10.0)),
+            lsq.Param("N", "lin", lower=0.3, upper=20.0),
+            lsq.Param("RS", "lin", lower=0.0, optional=True, step=1e-9,
+                      absent_reason="RS not determined: the conductance never bends "
+                                    "away from the exponential"),
+            lsq.Param("RSH", "inv", lower=0.0, optional=True, step=1e-18,
+                      absent_reason="RSH not determined: no shunt conductance shows"),
+        ]
+    out += [
+        lsq.Param("CJO", "log", lower=math.log(1e-18), upper=0.0),
+        lsq.Param("VJ", "lin", lower=0.05, upper=5.0),
+        lsq.Param("M", "lin", lower=0.01, upper=3.0),
+    ]
+    if with_dc:
+        out.append(lsq.Param("TT", "lin", lower=0.0, optional=True, step=1e-16,
+                             absent_reason="TT not determined: the diffusion capacitance "
+                                           "never shows above the depletion capacitance"))
+    if fixture:
+        out.append(lsq.Param("CFIX", "lin", lower=0.0, optional=True, step=1e-18,
+                             absent_reason="fixture capacitance not determined"))
+    return tuple(out)
+
+
+class DepletionModel:
+    """C(V) = Cj(V) + CFIX; x = (V, f); one linear channel."""
+
+    channels = ("lin",)
+
+    def __init__(self, fc: float = 0.5, fixture: bool = False):
+        self.fc = fc
+        self.params = _params(fixture, with_dc=False)
+
+    def _c(self, t, x):
+        p = DiodeParams(CJO=math.exp(t[0]), VJ=float(t[1]), M=float(t[2]), FC=self.fc)
+        c = np.asarray(depletion_capacitance(x[:, 0], p), dtype=float)
+        return (c + (t[3] if len(t) > 3 else 0.0))[:, None]
+
+    def predict(self, t, x, active):
+        y = self._c(t, x)
+        if active is None:
+            return y, None
+        return y, lsq.numeric_jacobian(self._c, t, active, x, y, self.params)
+
+
+class AdmittanceModel:
+    """(C, G) = (Im Y/w + CFIX, Re Y) of the whole device; x = (V, f)."""
+
+    channels = ("lin", "log")
+
+    def __init__(self, temperature_K: float = DEFAULT_TEMPERATURE_K, fc: float = 0.5,
+                 fixture: bool = False):
+        self.temperature_K = temperature_K
+        self.fc = fc
+        self.params = _params(fixture, with_dc=True)
+        self.index = {p.name: k for k, p in enumerate(self.params)}
+
+    def diode(self, t) -> DiodeParams:
+        g = float(t[3])
+        return DiodeParams(IS=math.exp(t[0]), N=float(t[1]), RS=float(t[2]),
+                           RSH=math.inf if g <= 0 else 1.0 / g, CJO=math.exp(t[4]),
+                           VJ=float(t[5]), M=float(t[6]), TT=float(t[7]), FC=self.fc)
+
+    def _y(self, t, x):
+        y = device_admittance(x[:, 0], x[:, 1], self.diode(t), self.temperature_K)
+        w = 2 * np.pi * x[:, 1]
+        c = y.imag / w + (t[8] if len(t) > 8 else 0.0)
+        return np.column_stack([c, y.real])
+
+    def predict(self, t, x, active):
+        y = self._y(t, x)
+        if active is None:
+            return y, None
+        return y, lsq.numeric_jacobian(self._y, t, active, x, y, self.params)
+
+
+def depletion_start(v: np.ndarray, c: np.ndarray, fc: float = 0.5) -> np.ndarray:
+    """(ln CJO, VJ, M) from a scan over VJ of straight lines ln C = ln CJO - M ln(1-V/VJ)."""
+    best = None
+    for vj in np.geomspace(0.1, 3.0, 40):
+        sel = v < fc * vj
+        if np.count_nonzero(sel) < 3:
+            continue
+        xx = np.log1p(-v[sel] / vj)
+        yy = np.log(c[sel])
+        if np.ptp(xx) <= 0:
+            continue
+        m, lnc = np.polyfit(xx, yy, 1)
+        rms = float(np.sqrt(np.mean((lnc + m * xx - yy) ** 2)))
+        score = rms - 1e-3 * np.count_nonzero(sel) / sel.size  # prefer covering more points
+        if -m > 0 and (best is None or score < best[0]):
+            best = (score, lnc, vj, -m)
+    if best is None:
+        c0 = float(np.interp(0.0, np.sort(v), c[np.argsort(v)]))
+        return np.array([math.log(max(c0, 1e-18)), 0.7, 0.4])
+    return np.array([best[1], best[2], float(np.clip(best[3], 0.02, 2.5))])
+
+
+def _prediction_z(model, state: lsq.FitState, x, y) -> np.ndarray:
+    """Standardized residual of points not in the fit: noise plus prediction error."""
+    idx = np.flatnonzero(state.active)
+    yhat, jac = model.predict(state.t, x, idx)
+    cov = lsq.covariance_t(state)
+    jac = jac[:, 0, :]
+    var_pred = np.einsum("ij,jk,ik->i", jac, np.where(np.isfinite(cov), cov, 0.0), jac)
+    var = state.noise.sigma(np.abs(yhat))[:, 0] ** 2 + np.maximum(var_pred, 0.0)
+    return (y[:, 0] - yhat[:, 0]) / np.sqrt(np.maximum(var, 1e-300))
+
+
+def depletion_state(model: DepletionModel, x, y, elig, start=None, noise=None):
+    """Fit Cj(V) to the depletion region; the forward cut is chosen by agreement."""
+    v = x[:, 0]
+    ok = elig[:, 0] & np.isfinite(y[:, 0]) & (y[:, 0] > 0)
+    if np.count_nonzero(ok) < MIN_CV_POINTS:
+        return f"too few C-V points ({np.count_nonzero(ok)}; need {MIN_CV_POINTS})"
+    accepted = ok & (v <= 0)
+    if np.count_nonzero(accepted) < MIN_CV_POINTS:
+        cut = np.sort(v[ok])[MIN_CV_POINTS - 1]
+        accepted = ok & (v <= cut)
+    t0 = np.zeros(len(model.params))
+    t0[:3] = depletion_start(v[accepted], y[accepted, 0], model.fc)
+    if start is not None:
+        t0 = np.where(np.isfinite(start), start, t0)
+    active = np.ones(len(model.params), dtype=bool)
+    state = lsq.fit(model, x, y, accepted[:, None], t0, active, noise=noise)
+    grew = False
+    for _ in range(12):
+        rest = np.flatnonzero(ok & ~accepted & (v > v[accepted].max()))
+        if rest.size == 0:
+            return state
+        rest = rest[np.argsort(v[rest], kind="stable")]
+        z = _prediction_z(model, state, x[rest], y[rest])
+        bad = np.flatnonzero(np.abs(z) >= Z_ACCEPT)
+        take = rest if bad.size == 0 else rest[: bad[0]]
+        if take.size == 0:
+            break
+        accepted[take] = True
+        grew = True
+        state = lsq.fit(model, x, y, accepted[:, None], state.t, state.active | active,
+                        noise=noise, rounds=2)
+    if not grew:
+        return state
+    # The points just below the first rejected one carry diffusion capacitance too,
+    # below the threshold but not below the noise: back off until the excess, growing
+    # as exp(V/(Nc*Vt)), has fallen from Z_ACCEPT to a third of a standard error.
+    rest = np.flatnonzero(ok & ~accepted & (v > v[accepted].max()))
+    rest = rest[np.argsort(v[rest], kind="stable")]
+    z = _prediction_z(model, state, x[rest], y[rest])
+    n_vt = 2.0 * thermal_voltage(DEFAULT_TEMPERATURE_K)
+    pos = np.flatnonzero(z > 0)
+    if pos.size >= 2 and v[rest[pos[1]]] > v[rest[pos[0]]] and z[pos[1]] > z[pos[0]]:
+        n_vt = (v[rest[pos[1]]] - v[rest[pos[0]]]) / math.log(z[pos[1]] / z[pos[0]])
+        n_vt = float(np.clip(n_vt, 0.8, 3.0) * thermal_voltage(DEFAULT_TEMPERATURE_K)) \
+            if np.isfinite(n_vt) else 2.0 * thermal_voltage(DEFAULT_TEMPERATURE_K)
+    v_first = v[rest[0]] if rest.size else v[accepted].max()
+    cut = v_first - n_vt * math.log(max(abs(z[0]) if z.size else Z_ACCEPT, Z_ACCEPT) / 0.3)
+    trimmed = accepted & ((v <= max(cut, 0.0)) | (v <= 0))
+    if np.count_nonzero(trimmed) >= MIN_CV_POINTS and np.any(trimmed != accepted):
+        state = lsq.fit(model, x, y, trimmed[:, None], state.t, state.active | active,
+                        noise=noise, rounds=2)
+    return state
+
+
+def _known_noise(noise):
+    if noise is None:
+        return None
+    rel, floor = zip(*noise, strict=True)
+    return lsq.Noise(tuple(rel), tuple(floor), estimated=False)
+
+
+def fit_cv(voltage_V, frequency_Hz, capacitance_F, *, compliance=None, use=None,
+           temperature_K: float = DEFAULT_TEMPERATURE_K, with_fixture: bool = False,
+           fc: float = 0.5) -> FitResult:
+    """CJO, VJ, M (and CFIX when ``with_fixture``) from C–V points (parallel C)."""
+    x, y, elig = _cv_arrays(voltage_V, frequency_Hz, capacitance_F, None, compliance, use)
+    model = DepletionModel(fc, with_fixture)
+    state = depletion_state(model, x, y[:, :1], elig[:, :1])
+    if isinstance(state, str):
+        return empty_result("cv", len(x), state)
+    return lsq.to_result(model, state, "cv", len(x), min_rows=MIN_CV_POINTS)
+
+
+def _cv_arrays(v, f, c, g, compliance, use):
+    v = np.asarray(v, dtype=float).ravel()
+    n = v.size
+    f = np.broadcast_to(np.asarray(f, dtype=float).ravel(), (n,)) if np.size(f) in (1, n) \
+        else None
+    if f is None:
+        raise ValueError("frequency_Hz must be one value or one per point")
+    c = np.asarray(c, dtype=float).ravel()
+    g = np.full(n, np.nan) if g is None else np.asarray(g, dtype=float).ravel()
+    if c.size != n or g.size != n:
+        raise ValueError(f"C-V columns differ in length ({n}, {c.size}, {g.size})")
+    base = np.isfinite(v) & np.isfinite(f) & (f > 0)
+    if compliance is not None:
+        base &= ~np.asarray(compliance, dtype=bool)
+    if use is not None:
+        base &= np.asarray(use, dtype=bool)
+    elig = np.column_stack([base & np.isfinite(c), base & np.isfinite(g) & (v > 0)])
+    return np.column_stack([v, f]), np.column_stack([c, g]), elig
+
+
+def admittance_state(model: AdmittanceModel, x, y, elig, start=None, fixed=None,
+                     noise=None):
+    """Fit the whole admittance; without usable conductance, the depletion part only."""
+    v = x[:, 0]
+    dep = DepletionModel(model.fc, fixture=len(model.params) > 8)
+    dstate = depletion_state(dep, x, y[:, :1], elig[:, :1])
+    if isinstance(dstate, str):
+        return dstate
+    k = model.index
+    t0 = np.zeros(len(model.params))
+    t0[k["CJO"]:k["M"] + 1] = dstate.t[:3]
+    if "CFIX" in k:
+        t0[k["CFIX"]] = dstate.t[3] if dstate.active[3] else 0.0
+    g_neg = y[elig[:, 1] & (y[:, 1] <= 0), 1]
+    g_floor = 3.0 * float(np.max(np.abs(g_neg))) if g_neg.size else 0.0
+    gpos = elig[:, 1] & (y[:, 1] > g_floor)
+    vt = thermal_voltage(model.temperature_K)
+    with_dc = np.count_nonzero(gpos) >= 4
+    if with_dc:
+        ts = iv_start_values(v[gpos], y[gpos, 1], model.temperature_K)
+        t0[k["N"]] = ts[1]
+        t0[k["IS"]] = ts[0] + math.log(ts[1] * vt)  # G ~ IS/(N Vt) exp(V/(N Vt))
+        top = np.argsort(v[gpos])[-5:]
+        ysel = y[gpos][top]
+        yy = ysel[:, 1] + 1j * 2 * np.pi * x[gpos][top, 1] * ysel[:, 0]
+        t0[k["RS"]] = max(0.8 * float(np.min((1.0 / yy).real)), 0.0)
+        cj = dep.predict(dstate.t, x, None)[0][:, 0]
+        extra = y[:, 0] - cj
+        big = gpos & (extra > 0.1 * y[:, 0])
+        t0[k["TT"]] = float(np.median(extra[big] / y[big, 1])) if big.any() else 0.0
+    else:
+        t0[k["IS"]], t0[k["N"]] = math.log(_TINY_IS), 1.0
+    if start is not None:
+        t0 = np.where(np.isfinite(start), start, t0)
+    active = np.ones(len(model.params), dtype=bool)
+    for name, value in (fixed or {}).items():
+        if name in k:
+            t0[k[name]] = model.params[k[name]].to_t(value)
+            active[k[name]] = False
+    if not with_dc:
+        for name in ("IS", "N", "RS", "RSH", "TT"):
+            active[k[name]] = False
+        t0[k["IS"]], t0[k["RS"]], t0[k["RSH"]], t0[k["TT"]] = math.log(_TINY_IS), 0, 0, 0
+    # the depletion fit's choice of C points is kept where the DC part is not fitted
+    use = elig.copy()
+    if not with_dc or not active[k["TT"]]:
+        use[:, 0] &= dstate.used[:, 0]
+    return lsq.fit(model, x, y, use, t0, active, noise=noise)
+
+
+def fit_admittance(voltage_V, frequency_Hz, capacitance_F, conductance_S, *,
+                   compliance=None, use=None, temperature_K: float = DEFAULT_TEMPERATURE_K,
+                   with_fixture: bool = False, fixed: dict[str, float] | None = None,
+                   fc: float = 0.5) -> FitResult:
+    """The whole small-signal model from C and G against bias (parallel readings).
+
+    ``fixed`` holds model-card values (IS, N, RS, RSH from an I–V fit) instead of fitting.
+    """
+    x, y, elig = _cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
+                            compliance, use)
+    model = AdmittanceModel(temperature_K, fc, with_fixture)
+    state = admittance_state(model, x, y, elig, fixed=fixed)
+    if isinstance(state, str):
+        return empty_result("admittance", len(x), state)
+    extras = {"fixed": dict(fixed)} if fixed else {}
+    return lsq.to_result(model, state, "admittance", len(x), extras=extras,
+                         min_rows=MIN_CV_POINTS)
+
+
+def fit_cv_data(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
+                compliance=None, temperature_K: float = DEFAULT_TEMPERATURE_K,
+                with_fixture: bool = False,
+                fixed: dict[str, float] | None = None) -> dict[str, FitResult]:
+    """The depletion fit and, when forward conductance is present, the admittance fit."""
+    out = {"cv": fit_cv(voltage_V, frequency_Hz, capacitance_F, compliance=compliance,
+                        temperature_K=temperature_K, with_fixture=with_fixture)}
+    v = np.asarray(voltage_V, dtype=float).ravel()
+    if conductance_S is not None:
+        g = np.asarray(conductance_S, dtype=float).ravel()
+        if np.count_nonzero(np.isfinite(g) & (g > 0) & (v > 0)) >= 4:
+            out["admittance"] = fit_admittance(
+                voltage_V, frequency_Hz, capacitance_F, g, compliance=compliance,
+                temperature_K=temperature_K, with_fixture=with_fixture, fixed=fixed)
+    return out
+
+
+def doping(voltage_V, capacitance_F, *, area_m2: float, semiconductor="Si",
+           temperature_K: float = DEFAULT_TEMPERATURE_K, compliance=None) -> dict:
+    """Mott–Schottky doping and built-in voltage from the reverse-bias points (a dict
+    for model.json; "message" says why when it cannot be read)."""
+    v = np.asarray(voltage_V, dtype=float).ravel()
+    c = np.asarray(capacitance_F, dtype=float).ravel()
+    ok = np.isfinite(v) & np.isfinite(c) & (c > 0) & (v <= 0)
+    if compliance is not None:
+        ok &= ~np.asarray(compliance, dtype=bool)
+    try:
+        r = depletion.mott_schottky(v[ok], c[ok], area_m2, semiconductor, temperature_K)
+    except (BadInput, ValueError) as exc:
+        return {"message": f"doping not determined: {exc}", "area_m2": area_m2}
+    return {"doping_per_m3": r.doping_per_m3, "doping_sigma_per_m3": r.doping_sigma_per_m3,
+            "built_in_voltage_V": r.built_in_voltage_V,
+            "built_in_sigma_V": r.built_in_sigma_V, "material": r.material,
+            "area_m2": r.area_m2, "n_points": r.n_points,
+            "relative_rms_residual": r.relative_rms_residual}
+
+
+class StreamSpec:
+    """What the incremental fitter needs to stream C–V ("cv") or admittance points."""
+
+    x_width = 2
+    min_points = MIN_CV_POINTS
+
+    def __init__(self, kind: str, temperature_K: float, with_fixture: bool = False,
+                 fixed: dict[str, float] | None = None, fc: float = 0.5):
+        self.kind = kind
+        self.fixed = dict(fixed) if fixed else None
+        self.model = (DepletionModel(fc, with_fixture) if kind == "cv"
+                      else AdmittanceModel(temperature_K, fc, with_fixture))
+        self.v_cut = math.inf
+
+    def rows(self, v, i, f, c, g, comp):
+        x, y, elig = _cv_arrays(v, f, c, g, comp, None)
+        if self.kind == "cv":
+            return x, y[:, :1], elig[:, :1]
+        return x, y, elig
+
+    def full_state(self, x, y, elig, start):
+        if self.kind == "cv":
+            state = depletion_state(self.model, x, y, elig, start)
+        else:
+            state = admittance_state(self.model, x, y, elig, start, fixed=self.fixed)
+        self.v_cut = math.inf
+        if not isinstance(state, str):
+            left_out = elig[:, 0] & ~state.used[:, 0]
+            if left_out.any() and state.used[:, 0].any():
+                top = x[state.used[:, 0], 0].max()
+                if np.all(x[left_out, 0] > top):  # a forward cut, not scattered rejects
+                    self.v_cut = float(top)
+        return state
+
+    def eligible_now(self, x, elig):
+        out = elig.copy()
+        out[:, 0] &= x[:, 0] <= self.v_cut
+        return out
+
+    def extras(self) -> dict:
+        return {"fixed": dict(self.fixed)} if self.fixed else {}
+
+
+def stream_spec(kind: str, temperature_K: float, *, with_fixture: bool = False,
+                fixed: dict[str, float] | None = None) -> StreamSpec:
+    return StreamSpec(kind, temperature_K, with_fixture, fixed)

@@ -1,0 +1,111 @@
+"""Noise models for the fitters: sigma = sqrt((rel*y)**2 + floor**2) per channel.
+
+Instruments state their accuracy as a percent of reading plus a floor; the same two
+numbers describe what the fitters see. When the caller does not know them they are
+estimated from the residuals of a fit by maximum likelihood (Gaussian residuals), and
+the fit is repeated with the new weights (iteratively reweighted least squares).
+Weights use the model value, not the reading, so they do not bias the estimates.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+#: A log-channel point is used only where the model value exceeds this many floors.
+FLOOR_FACTOR = 10.0
+
+
+@dataclass(frozen=True)
+class Noise:
+    """Per-channel noise model: sigma = sqrt((rel*y)**2 + floor**2)."""
+
+    rel: tuple[float, ...]
+    floor: tuple[float, ...]
+    estimated: bool = True
+
+    def sigma(self, yhat: np.ndarray) -> np.ndarray:
+        rel = np.asarray(self.rel)
+        floor = np.asarray(self.floor)
+        return np.sqrt((rel * yhat) ** 2 + floor**2)
+
+
+def _noise_newton(q, e2, y2, lo, hi, iterations: int = 40):
+    """Minimize sum(ln s2 + e2/s2), s2 = exp(q0) y2 + exp(q1), by damped Newton in q."""
+
+    def parts(q):
+        a, b = math.exp(q[0]), math.exp(q[1])
+        s2 = a * y2 + b
+        f = float(np.sum(np.log(s2) + e2 / s2))
+        u = 1.0 / s2 - e2 / s2**2  # df/ds2
+        v = -1.0 / s2**2 + 2 * e2 / s2**3  # d2f/ds2^2
+        ga, gb = a * float(u @ y2), b * float(u.sum())
+        haa = a * a * float(v @ (y2 * y2)) + ga
+        hbb = b * b * float(v.sum()) + gb
+        hab = a * b * float(v @ y2)
+        return f, np.array([ga, gb]), np.array([[haa, hab], [hab, hbb]])
+
+    f, g, h = parts(q)
+    lam = 1e-3
+    for _ in range(iterations):
+        step = None
+        while lam < 1e8:
+            try:
+                step = -np.linalg.solve(h + lam * np.diag(np.abs(np.diag(h)) + 1e-9), g)
+            except np.linalg.LinAlgError:
+                lam *= 10
+                continue
+            q_new = np.clip(q + step, lo, hi)
+            f_new, g_new, h_new = parts(q_new)
+            if f_new <= f:
+                break
+            lam *= 10
+        else:
+            break
+        moved = float(np.max(np.abs(q_new - q)))
+        q, f, g, h = q_new, f_new, g_new, h_new
+        lam = max(lam / 10, 1e-9)
+        if moved < 1e-6:
+            break
+    return q
+
+
+def estimate_noise(model, y: np.ndarray, yhat: np.ndarray,
+                   eligible: np.ndarray, previous: Noise) -> Noise:
+    """Maximum-likelihood noise model per channel from the residuals y - yhat.
+
+    Minimizes sum(ln s2 + e**2/s2) with s2 = rel**2 yhat**2 + floor**2 (Gaussian
+    residuals), over ln rel and ln floor, from moment estimates (median e**2/yhat**2 over
+    the larger half of the values, median e**2 over the smaller half).
+    """
+    rel, floor = list(previous.rel), list(previous.floor)
+    for c in range(len(model.channels)):
+        ok = eligible[:, c] & np.isfinite(y[:, c]) & np.isfinite(yhat[:, c])
+        if np.count_nonzero(ok) < 6:
+            continue
+        e2 = (y[ok, c] - yhat[ok, c]) ** 2
+        y2 = yhat[ok, c] ** 2
+        top = math.sqrt(float(np.max(y2))) or 1.0
+        big = y2 >= np.median(y2)
+        a0 = math.sqrt(max(float(np.median(e2[big] / np.maximum(y2[big], 1e-300))), 1e-30))
+        b0 = math.sqrt(max(float(np.median(e2[~big])) if np.any(~big) else 0.0,
+                           (1e-12 * top) ** 2))
+        lo = np.array([math.log(1e-15), math.log(1e-15 * top)])
+        hi = np.array([math.log(10.0), math.log(top)])
+        q = np.clip(np.log([a0, b0]), lo, hi)
+        q = _noise_newton(2 * q, e2, y2, 2 * lo, 2 * hi) / 2
+        rel[c], floor[c] = math.exp(q[0]), math.exp(q[1])
+    return Noise(tuple(rel), tuple(floor), estimated=True)
+
+
+def initial_noise(model, y: np.ndarray, eligible: np.ndarray) -> Noise:
+    """Pure relative weighting, with a floor read from readings of the wrong sign."""
+    floors = []
+    for c, kind in enumerate(model.channels):
+        col = y[eligible[:, c] & np.isfinite(y[:, c]), c]
+        neg = col[col <= 0]
+        floors.append(float(np.max(np.abs(neg))) / FLOOR_FACTOR * 3 if kind == "log"
+                      and neg.size else 0.0)
+    return Noise(tuple(1.0 for _ in model.channels), tuple(floors), estimated=True)
