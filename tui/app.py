@@ -27,7 +27,6 @@ from .app_state import RunState
 
 DRAIN_PERIOD_S = 0.1
 WATCH_PERIOD_S = 0.5
-OUTPUT_POLL_S = 0.5
 
 OVERNIGHT_ADVICE = (
     "Overnight and other long runs belong in headless mode: start them with "
@@ -102,7 +101,6 @@ class PnbenchApp(App):
         self.add_mode("run", RunScreen)
         self.add_mode("review", ReviewScreen)
         self.set_interval(DRAIN_PERIOD_S, self.drain_live)
-        self.set_interval(OUTPUT_POLL_S, self.poll_outputs)
         if self.autostart and self.plan is not None:
             self.switch_mode("run")
             self.start_run()
@@ -227,6 +225,7 @@ class PnbenchApp(App):
         if problem is not None:
             self._start_failed(problem)
         self._was_active = live.running
+        self.poll_outputs()
         if was_active and not self._was_active:
             self.refresh_bindings()
             if self.state.finished:

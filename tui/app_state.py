@@ -88,8 +88,8 @@ class StepProgress:
         return (self.last_time_s - self.first_time_s) / (self.done - 1)
 
     def remaining_points(self) -> int:
-        if self.status in ("completed", "finished", "done", "skipped", "aborted"):
-            return 0
+        if self.status not in ("pending", "running", "paused"):
+            return 0  # done, ended by a limit or by settling, aborted, skipped
         return max(self.planned - self.done, 0)
 
 
@@ -363,20 +363,40 @@ def _family(kind: str) -> str:
 
 
 def describe(event: dict) -> str:
-    """A one-line human description of an event (message first, then other fields)."""
+    """A one-line human description of an event (its message first, where it has one)."""
     kind = str(event.get("kind", ""))
-    message = event.get("message") or event.get("text") or event.get("reason")
+    message = event.get("message") or event.get("text")
     if kind == "output":
         state = "ON" if event.get("on") else "off"
-        return f"{event.get('role', 'source')} output {state}"
+        confirmed = " (confirmed)" if event.get("confirmed") else ""
+        return f"{str(event.get('role', 'source')).upper()} output {state}{confirmed}"
     if kind == "run_finished":
-        status = event.get("status", "?")
-        return f"run {status}" + (f": {message}" if message else "")
+        reason = event.get("reason")
+        return f"run {event.get('status', '?')}" + (f": {reason}" if reason else "")
+    if kind == "run_started":
+        planned = event.get("planned")
+        again = " again (resumed)" if event.get("resumed") else ""
+        return f"run started{again}" + (f", {planned} points planned" if planned else "")
+    if kind == "step_started":
+        return (f"step started ({event.get('step_kind', '?')}, "
+                f"{event.get('planned', '?')} points)")
+    if kind == "step_finished":
+        ended = event.get("ended_by")
+        text = (f"step {event.get('status', 'finished')}: {event.get('done', '?')}/"
+                f"{event.get('planned', '?')} points")
+        return text + (f", ended by {ended}" if ended else "")
+    if kind == "compliance":
+        v = event.get("voltage_V")
+        i = event.get("current_A")
+        where = f" at {_short(v)} V, {_short(i)} A" if v is not None and i is not None else ""
+        return (message or "reading in compliance") + where
+    if kind in ("paused", "resumed"):
+        return f"{kind} after {event.get('done', '?')} points of the step"
     extras = [f"{key}={_short(value)}" for key, value in event.items()
-              if key not in _ENVELOPE and key not in ("message", "text", "reason")
-              and not isinstance(value, (dict, list))]
+              if key not in _ENVELOPE and key not in ("message", "text")
+              and not isinstance(value, (dict, list)) and value is not None]
     body = str(message) if message else kind.replace("_", " ")
-    return body + (f" ({', '.join(extras)})" if extras else "")
+    return body + (f" ({', '.join(extras)})" if extras and not message else "")
 
 
 def _short(value: object) -> str:

@@ -62,8 +62,10 @@ class Analysis:
     reverse: Points | None = None
     cv_curves: list[Curve] = field(default_factory=list)
     spectra: list[Curve] = field(default_factory=list)
-    bv_reached: bool = False
     reverse_extreme_V: float | None = None
+    #: Where the reverse figure marks breakdown (V < 0), and what the mark says.
+    breakdown_V: float | None = None
+    breakdown_label: str = ""
     mott_schottky: object | None = None  # depletion module's result (see report_depletion)
     profile: tuple[np.ndarray, np.ndarray] | None = None  # (W [m], N [m^-3])
     table_frequencies_Hz: tuple[float, ...] = ()
@@ -213,8 +215,7 @@ def analyze(data: RunData) -> Analysis:
         out.missing.append("no reverse I-V points: the reverse I-V figure is missing")
     else:
         out.reverse_extreme_V = float(np.min(out.reverse.voltage_V))
-        bv = out.params.BV if out.params is not None else math.inf
-        out.bv_reached = math.isfinite(bv) and out.reverse_extreme_V <= -BV_REACHED_FRACTION * bv
+        _breakdown(out, data)
     if data.cv is not None:
         out.cv_curves, out.spectra = group_cv(data.cv, step_kinds(data))
     if not out.cv_curves:
@@ -228,6 +229,27 @@ def analyze(data: RunData) -> Analysis:
     report_depletion.add_depletion(out, data)
     _qpoint_table(out)
     return out
+
+
+def _breakdown(out: Analysis, data: RunData) -> None:
+    """Mark breakdown when the sweep reached it: the model's BV if the sweep went that
+    far, else where a breakdown guard tripped, else where reverse compliance began."""
+    rev = out.reverse
+    bv = out.model.values.get("BV", math.inf) if out.model is not None else math.inf
+    if math.isfinite(bv) and out.reverse_extreme_V <= -BV_REACHED_FRACTION * bv:
+        out.breakdown_V, out.breakdown_label = -bv, f"BV = {bv:.4g} V (model)"
+        return
+    for event in data.events:
+        text = f"{event.get('guard', '')} {event.get('message', '')}"
+        if event.get("kind") == "limit" and "breakdown" in text:
+            in_step = np.array([s == event.get("step") for s in rev.step])
+            volts = rev.voltage_V[in_step] if in_step.any() else rev.voltage_V
+            out.breakdown_V = float(np.min(volts))
+            out.breakdown_label = f"breakdown guard tripped at {out.breakdown_V:.4g} V"
+            return
+    if rev.compliance.any():
+        out.breakdown_V = float(np.max(rev.voltage_V[rev.compliance]))
+        out.breakdown_label = f"reverse compliance from {out.breakdown_V:.4g} V"
 
 
 def _table_frequencies(out: Analysis) -> tuple[tuple[float, ...], bool]:
@@ -294,6 +316,9 @@ def missing_items(data: RunData, an: Analysis) -> list[str]:
             continue
         done, planned = step.get("done", 0), step.get("planned", 0)
         if isinstance(done, int) and isinstance(planned, int) and done < planned:
+            why = str(step.get("status") or "status unknown")
+            if step.get("ended_by"):
+                why += f": ended by {step['ended_by']}"
             items.append(f"step {step.get('name')}: {done} of {planned} planned points "
-                         f"measured ({step.get('status', 'status unknown')})")
+                         f"measured ({why})")
     return items + list(data.missing) + list(an.missing)

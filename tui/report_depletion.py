@@ -37,6 +37,7 @@ class MottSchottkyView:
     intercept_V: float  # where the line crosses 1/C^2 = 0
     vbi_V: float  # intercept + kT/q
     vbi_sigma_V: float
+    relative_rms_residual: float  # how far 1/C^2 is from a straight line
     doping_m3: float | None
     doping_sigma_m3: float | None
     doping_note: str  # why there is no doping, when there is none
@@ -79,7 +80,8 @@ def add_depletion(out: Analysis, data: RunData) -> None:
         frequency_Hz=curve.label_value, voltage_V=curve.voltage_V[ok],
         capacitance_F=curve.capacitance_F[ok], used=used[ok], slope=line.slope_per_F2V,
         intercept_V=line.intercept_voltage_V, vbi_V=line.built_in_voltage_V,
-        vbi_sigma_V=line.built_in_sigma_V, doping_m3=doping,
+        vbi_sigma_V=line.built_in_sigma_V,
+        relative_rms_residual=line.relative_rms_residual, doping_m3=doping,
         doping_sigma_m3=None if note else line.doping_sigma_per_m3, doping_note=note,
         material=None if note else line.material,
     )

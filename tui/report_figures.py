@@ -221,21 +221,40 @@ def reverse_iv(an: Analysis, device: str):
         grid = np.linspace(v.min(), min(-1e-3, v.max()), 400)
         model = np.abs(np.asarray(junction.current(grid, p, an.temperature_K)))
         ax.plot(grid, model, "-", color=MODEL, label="model")
-    if an.bv_reached and p is not None:
-        ax.axvline(-p.BV, color=ACCENT, linestyle="--", linewidth=1.2,
-                   label=f"BV = {p.BV:.4g} V")
-        ax.annotate(f"breakdown\nBV = {p.BV:.4g} V", xy=(-p.BV, float(np.nanmax(i))),
-                    xytext=(8, -4), textcoords="offset points", fontsize=8, color=ACCENT,
-                    va="top")
+        shown.append(_near(model, i))
+    if an.breakdown_V is not None:
+        ax.axvline(an.breakdown_V, color=ACCENT, linestyle="--", linewidth=1.2,
+                   label=an.breakdown_label)
     _log_axis(ax, "y", np.concatenate(shown))
     ax.set_xlabel("Voltage V (V)")
     ax.set_ylabel("Reverse current |I| (A)")
     ax.legend(loc="upper right")
     _grids(ax)
-    note = "breakdown reached" if an.bv_reached else \
+    note = an.breakdown_label if an.breakdown_V is not None else \
         f"breakdown not reached down to {an.reverse_extreme_V:.4g} V"
     _title(fig, "Reverse I\u2013V", f"{device} at {an.temperature_K:.2f} K; {note}")
     return fig
+
+
+def _near(model: np.ndarray, measured: np.ndarray, decades: float = 3.0) -> np.ndarray:
+    """Model values within a few decades of the measured range (for the axis limits):
+    a model far below the noise floor or far into breakdown should not squash the data."""
+    m = measured[np.isfinite(measured) & (measured > 0)]
+    if not m.size:
+        return model
+    lo, hi = m.min() / 10**decades, m.max() * 10
+    return model[(model >= lo) & (model <= hi)]
+
+
+def _colours(n: int) -> list:
+    """``n`` line colours: the house series, or a ramp along it for many curves."""
+    if n <= len(SERIES):
+        return list(SERIES[:n])
+    from matplotlib.colors import LinearSegmentedColormap
+
+    ramp = LinearSegmentedColormap.from_list("pnbench", [SERIES[0], SERIES[1], SERIES[2],
+                                                         MODEL])
+    return [ramp(k / (n - 1)) for k in range(n)]
 
 
 def _has(an: Analysis, *names: str) -> bool:
@@ -248,8 +267,8 @@ def cv(an: Analysis, device: str):
     fig, axes = _new_figure()
     ax = axes[0, 0]
     factor, unit = prefix_scale(np.concatenate([c.capacitance_F for c in an.cv_curves]), "F")
-    for k, c in enumerate(an.cv_curves[: len(SERIES)]):
-        colour = SERIES[k]
+    for k, (c, colour) in enumerate(zip(an.cv_curves, _colours(len(an.cv_curves)),
+                                        strict=True)):
         f_label = _hz(c.label_value)
         if len({x.step for x in an.cv_curves}) > 1:
             f_label += f" ({c.step})"
@@ -342,8 +361,7 @@ def admittance(an: Analysis, device: str):
 
     g_all, f_all, handles = [], [], []
     with_model = _has(an, "IS", "CJO", "TT")
-    for k, s in enumerate(spectra[: len(SERIES)]):
-        colour = SERIES[k]
+    for s, colour in zip(spectra, _colours(len(spectra)), strict=True):
         g_ax.plot(s.frequency_Hz, s.conductance_S, "o", color=colour, mfc="none",
                   clip_on=False, zorder=3)
         c_ax.plot(s.frequency_Hz, s.capacitance_F / factor, "o", color=colour, mfc="none",

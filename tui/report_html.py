@@ -70,6 +70,8 @@ _NOTICE_KINDS = ("warning", "compliance", "limit", "error")
 _MICRO = re.compile(r"(?<=[\d.]) u(?=\S)")
 _EVENT_ROWS = 400
 DASH = "\u2014"
+#: Currents, capacitances and conductances below this print as 0 (zepto scale).
+_NEGLIGIBLE = 1e-21
 
 
 def esc(value: object) -> str:
@@ -87,6 +89,8 @@ def qty(value: float | None, unit: str, prec: int = 4) -> str:
     if math.isinf(value):
         sign = "\u2212" if value < 0 else ""
         return f"{sign}\u221e {unit}".strip()
+    if abs(value) < _NEGLIGIBLE and unit in ("A", "F", "S"):
+        return f"0 {unit}"  # rounding dust (a current at exactly zero bias, ...)
     if not unit:
         return f"{value:.{prec + 1}g}"
     return _MICRO.sub(" \u00b5", Quantity(value, unit).render(prec=prec))
@@ -166,7 +170,7 @@ def _parameters(data: RunData, an: Analysis) -> str:
         value, sigma = m.values[name], m.sigma(name)
         rel = "\u2014" if sigma is None or value == 0 else f"{100 * sigma / abs(value):.3g} %"
         rows.append([f"<strong>{esc(name)}</strong>", _num(esc(qty(value, UNITS[name]))),
-                     _num(esc(qty(sigma, UNITS[name]) if sigma is not None else "unknown")),
+                     _num(esc(qty(sigma, UNITS[name], prec=2) if sigma is not None else "unknown")),
                      _num(esc(rel))])
     parts.append(_table(["Parameter", "Value", "\u03c3", "\u03c3 / value"], rows))
     parts.append(_fit_quality(an))
@@ -225,7 +229,9 @@ def _depletion(an: Analysis) -> str:
     pairs = [("C\u2013V frequency", esc(qty(ms.frequency_Hz, "Hz"))),
              ("Points on the line", esc(f"{int(ms.used.sum())} (zero and reverse bias)")),
              ("Intercept of 1/C\u00b2", esc(f"{ms.intercept_V:.4g} V")),
-             ("Built-in voltage Vbi", esc(f"{ms.vbi_V:.4g} V \u00b1 {ms.vbi_sigma_V:.2g} V"))]
+             ("Built-in voltage Vbi", esc(f"{ms.vbi_V:.4g} V \u00b1 {ms.vbi_sigma_V:.2g} V")),
+             ("Straightness (rms of residual / 1/C\u00b2)",
+              esc(f"{100 * ms.relative_rms_residual:.2g} %"))]
     if ms.doping_m3 is not None:
         pairs.append(("Doping N", esc(f"{ms.doping_m3 * 1e-6:.4g} cm\u207b\u00b3 \u00b1 "
                                       f"{ms.doping_sigma_m3 * 1e-6:.2g} cm\u207b\u00b3 "
@@ -233,6 +239,12 @@ def _depletion(an: Analysis) -> str:
     else:
         pairs.append(("Doping N", esc(f"not available: {ms.doping_note}")))
     return "<h3>Depletion (Mott\u2013Schottky)</h3>" + _kv(pairs)
+
+
+def _area(area_m2: float) -> str:
+    if area_m2 >= 1e-8:
+        return f"{area_m2 * 1e6:.4g} mm\u00b2 ({area_m2:.4g} m\u00b2)"
+    return f"{area_m2 * 1e12:.4g} \u00b5m\u00b2 ({area_m2:.4g} m\u00b2)"
 
 
 def _card_name(name: str) -> str:
@@ -289,8 +301,7 @@ def _device_and_instruments(data: RunData, an: Analysis) -> str:
     area = data.area_m2
     parts.append(_kv([
         ("Device", esc(data.device_name)),
-        ("Area", esc(f"{area:.4g} m\u00b2 ({area * 1e12:.4g} \u00b5m\u00b2)")
-         if area else "not recorded"),
+        ("Area", esc(_area(area)) if area else "not recorded"),
         ("Material", esc(data.material or "not recorded")),
         ("Temperature", esc(f"{an.temperature_K:.2f} K")),
         ("Notes", esc(dev.get("notes") or "\u2014")),
@@ -302,7 +313,7 @@ def _device_and_instruments(data: RunData, an: Analysis) -> str:
             info = info if isinstance(info, dict) else {"identity": info}
             rows.append([esc(role), esc(info.get("identity") or "not identified"),
                          esc(info.get("resource", "")), esc(info.get("backend", "")),
-                         esc(info.get("dialect", ""))])
+                         esc(info.get("dialect") or "default")])
         parts.append(_table(["Role", "Identity", "Resource", "Backend", "Dialect"], rows))
     else:
         parts.append("<p>No instrument record.</p>")
@@ -315,14 +326,16 @@ def _plan(data: RunData) -> str:
     limits = run.get("limits")
     if isinstance(limits, dict) and limits:
         parts.append("<h3>Safety limits</h3>")
-        parts.append(_kv([(k, esc(_plain(v))) for k, v in limits.items()]))
+        parts.append(_kv([(k, esc("none" if v is None else _plain(v)))
+                          for k, v in limits.items()]))
     steps = run.get("steps")
     if isinstance(steps, list) and steps:
         rows = [[esc(s.get("name", "")), esc(s.get("kind", "")),
                  _num(esc(s.get("done", ""))), _num(esc(s.get("planned", ""))),
-                 esc(s.get("status", ""))] for s in steps if isinstance(s, dict)]
+                 esc(s.get("status", "")), esc(s.get("ended_by") or "")]
+                for s in steps if isinstance(s, dict)]
         parts.append("<h3>Steps</h3>")
-        parts.append(_table(["Step", "Kind", "Done", "Planned", "Status"], rows))
+        parts.append(_table(["Step", "Kind", "Done", "Planned", "Status", "Ended by"], rows))
     parts.append("<h3>Plan as run (plan.toml)</h3>")
     parts.append(f"<pre>{esc(data.plan_text)}</pre>" if data.plan_text is not None
                  else "<p>plan.toml is missing.</p>")

@@ -1,0 +1,182 @@
+"""The app driving a real run on the simulated bench (sweeps.launch over loopback
+sockets), through its keys: start, see points and parameters, pause, abort, quit."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from pnbench.tui.app import PnbenchApp
+
+PLAN = """
+[plan]
+format = 1
+title = "app test plan"
+
+[device]
+name = "LH-SW200-t1"
+temperature = "300.15 K"
+
+[limits]
+max_voltage = "1 V"
+max_reverse_voltage = "20 V"
+max_current = "50 mA"
+max_power = "50 mW"
+
+[[steps]]
+name = "forward"
+kind = "iv_forward"
+start = "0.3 V"
+stop = "0.65 V"
+points = {points}
+compliance = "20 mA"
+
+[[steps]]
+name = "reverse"
+kind = "iv_reverse"
+start = "0 V"
+stop = "-5 V"
+points = 11
+compliance = "1 mA"
+breakdown_guard = "100 uA"
+"""
+
+#: Longest wait for something the run should do (generous: the machine is shared).
+PATIENCE_S = 60.0
+
+
+def write_plan(folder: Path, points: int) -> Path:
+    path = folder / "plan.toml"
+    path.write_text(PLAN.format(points=points), encoding="utf-8")
+    return path
+
+
+async def wait_for(pilot, condition, what: str, patience_s: float = PATIENCE_S) -> None:
+    """Let the app run until `condition()` holds (fails naming `what` otherwise)."""
+    steps = int(patience_s / 0.05)
+    for _ in range(steps):
+        if condition():
+            return
+        await pilot.pause(0.05)
+    raise AssertionError(f"gave up waiting for {what}")
+
+
+def run_doc(app: PnbenchApp) -> dict:
+    return json.loads((app.last_run_dir / "run.json").read_text(encoding="utf-8"))
+
+
+async def test_start_see_points_and_parameters_pause_then_abort_leaves_outputs_off(
+        tmp_path):
+    plan = write_plan(tmp_path, points=400)
+    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.3, out_dir=tmp_path / "runs")
+    async with app.run_test(size=(80, 24)) as pilot:
+        assert app.current_mode == "run" and app.plan is not None
+        await pilot.press("s")
+        await wait_for(pilot, lambda: len(app.state.iv) >= 10, "the first points")
+        await wait_for(pilot, lambda: app.source_on, "the source-on banner")
+        assert "SOURCE OUTPUT ON" in app.output_text
+        await pilot.press("space")
+        await wait_for(pilot, lambda: app.state.status == "paused", "the pause")
+        held = app.state.point_count
+        await pilot.pause(0.5)
+        assert app.state.point_count <= held + 1  # one reading may have been in flight
+        await pilot.press("space")
+        await wait_for(pilot, lambda: app.state.status == "running", "the resume")
+        await wait_for(pilot, lambda: "IS" in app.state.parameters, "a fit estimate")
+        await pilot.press("x")  # asks first ...
+        await wait_for(pilot, lambda: app.screen.__class__.__name__ == "ConfirmDialog",
+                       "the abort question")
+        await pilot.press("y")  # ... then aborts
+        await wait_for(pilot, lambda: app.state.finished and not app.live.running,
+                       "the end of the run")
+        await pilot.pause(0.2)
+        assert app.state.status == "aborted"
+        assert app.live.outputs() == {"smu_output": False, "lcr_bias": False}
+        assert not app.source_on and "outputs off" in app.output_text
+        doc = run_doc(app)
+        assert doc["status"] == "aborted" and doc["outputs_off_confirmed"] is True
+        assert app.state.point_count < 411  # it did stop early
+        # the points the screen showed are the points on disk
+        rows = [line for line in (app.last_run_dir / "points.csv").read_text().splitlines()
+                if line and not line.startswith(("#", "step,"))]
+        assert len(rows) == app.state.point_count
+
+
+async def test_quitting_during_a_run_asks_then_aborts_safely(tmp_path):
+    plan = write_plan(tmp_path, points=400)
+    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=1.0, out_dir=tmp_path / "runs",
+                     autostart=True)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(pilot, lambda: len(app.state.iv) >= 3, "the first points")
+        await pilot.press("ctrl+q")
+        await wait_for(pilot, lambda: app.screen.__class__.__name__ == "ConfirmDialog",
+                       "the quit question")
+        text = " ".join(str(w.render()) for w in app.screen.query("Static"))
+        assert "headless" in text and "pnbench watch" in text
+        await pilot.press("n")  # stay: the run goes on
+        await pilot.pause(0.3)
+        assert app.live.running
+        await pilot.press("ctrl+q")
+        await wait_for(pilot, lambda: app.screen.__class__.__name__ == "ConfirmDialog",
+                       "the quit question again")
+        await pilot.press("y")
+        await wait_for(pilot, lambda: not app.is_running, "the app to end")
+    assert not app.live.running
+    assert app.live.outputs() == {"smu_output": False, "lcr_bias": False}
+    doc = run_doc(app)
+    assert doc["status"] == "aborted" and doc["outputs_off_confirmed"] is True
+
+
+async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts(tmp_path):
+    plan = tmp_path / "bad.toml"
+    plan.write_text(PLAN.format(points=0), encoding="utf-8")
+    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs",
+                     autostart=True)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause(0.2)
+        assert app.current_mode == "plan" and app.live is None
+        messages = str(app.screen.query_one("#plan-messages").render())
+        assert "CHECK FAILED" in messages and "line" in messages and "points" in messages
+        editor = app.screen.query_one("TextArea")
+        editor.load_text(PLAN.format(points=5))
+        await pilot.press("ctrl+t")
+        await pilot.pause(0.1)
+        assert app.plan is not None
+        assert "CHECK PASSED" in str(app.screen.query_one("#plan-messages").render())
+    assert not (tmp_path / "runs").exists()  # checking never starts anything
+
+
+@pytest.mark.parametrize("size", [(80, 24), (200, 60)])
+async def test_a_finished_run_reviews_refits_and_exports_a_card(tmp_path, size):
+    plan = write_plan(tmp_path, points=25)
+    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs",
+                     autostart=True)
+    async with app.run_test(size=size) as pilot:
+        await wait_for(pilot, lambda: app.state.finished and not app.live.running,
+                       "the end of the run")
+        await pilot.press("f5")
+        await wait_for(pilot, lambda: getattr(app.screen, "review", None) is not None,
+                       "the review of the run")
+        review = app.screen.review
+        assert len(review.points) == app.state.point_count
+        await pilot.press("t")  # leave out the step under the cursor (forward)
+        assert not review.used[0]
+        await pilot.press("a")  # take every point again
+        assert review.used.all()
+        await pilot.press("r")
+        await wait_for(pilot, lambda: review.refit_doc is not None
+                       or "failed" in app.screen._busy, "the refit")
+        assert review.refit_doc is not None, app.screen._busy
+        assert "IS" in review.refit_doc["parameters"]
+        await pilot.press("c")
+        await pilot.pause(0.1)
+        target = tmp_path / "card.lib"
+        dialog_input = app.screen.query_one("Input")
+        dialog_input.value = str(target)
+        await pilot.press("enter")
+        await wait_for(pilot, target.exists, "the card file")
+    card = target.read_text()
+    assert ".model LH-SW200-t1 D(" in card and "IS=" in card
+    assert (tmp_path / "card.json").exists()  # the refit's model.json beside it
