@@ -264,7 +264,9 @@ class ModelSet:
                 if pname == "RSH":
                     values["RSH"] = _card_number(m.group(2), f"{source}, line {cline}: RSH")
                 if m.group(3) is not None and pname in values:
-                    sigmas[pname] = _card_number(m.group(3), f"{source}, line {cline}: sigma")
+                    sigma_text = m.group(3)
+                    sigmas[pname] = math.inf if sigma_text.lower() == "inf" else \
+                        _card_number(sigma_text, f"{source}, line {cline}: sigma")
         extras: dict[str, Any] = {"model_name": model_name}
         if other:
             extras[OTHER_CARD_PARAMETERS] = other
