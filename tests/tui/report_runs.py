@@ -7,7 +7,9 @@ need neither the sweep engine nor the simulated bench.
 
 from __future__ import annotations
 
+import io
 import json
+from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
@@ -197,3 +199,54 @@ def forward_fit_summary() -> dict:
 def append_lines(path: Path, text: str) -> None:
     with open(path, "a", encoding="utf-8") as f:
         f.write(text)
+
+
+# --- reading a report back ---------------------------------------------------------------
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+
+
+class PageScan(HTMLParser):
+    """Collects every tag, every URL-bearing attribute and the visible text."""
+
+    URL_ATTRIBUTES = {"src", "href", "srcset", "data", "action", "poster", "xlink:href",
+                      "background", "formaction", "manifest"}
+
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, dict]] = []
+        self.urls: list[tuple[str, str, str]] = []
+        self.text: list[str] = []
+        self.styles: list[str] = []
+        self._in_style = False
+
+    def handle_starttag(self, tag, attrs):
+        attrs = dict(attrs)
+        self.tags.append((tag, attrs))
+        for name, value in attrs.items():
+            if name in self.URL_ATTRIBUTES:
+                self.urls.append((tag, name, value or ""))
+        self._in_style = tag == "style"
+
+    def handle_endtag(self, tag):
+        self._in_style = False
+
+    def handle_data(self, data):
+        (self.styles if self._in_style else self.text).append(data)
+
+
+def scan(path: Path) -> PageScan:
+    page = PageScan()
+    page.feed(path.read_text(encoding="utf-8"))
+    page.close()
+    return page
+
+
+def check_png(payload: bytes) -> tuple[int, int]:
+    """Signature, then a full decode with matplotlib (shape of the decoded image)."""
+    import matplotlib.image
+
+    assert payload.startswith(PNG_SIGNATURE)
+    image = matplotlib.image.imread(io.BytesIO(payload), format="png")
+    assert image.ndim == 3 and image.shape[0] > 200 and image.shape[1] > 300
+    return image.shape[0], image.shape[1]

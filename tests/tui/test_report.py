@@ -3,68 +3,19 @@
 from __future__ import annotations
 
 import base64
-import io
 import json
 import subprocess
 import sys
 import xml.etree.ElementTree as ET
-from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
 import report_runs
+from report_runs import check_png, scan
 
 from pnbench.tui import cli
 from pnbench.tui.report import build_report, write_report
 from pnbench.tui.report_figures import FIGURE_NAMES
-
-PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
-
-
-class PageScan(HTMLParser):
-    """Collects every tag, every URL-bearing attribute and the visible text."""
-
-    URL_ATTRIBUTES = {"src", "href", "srcset", "data", "action", "poster", "xlink:href",
-                      "background", "formaction", "manifest"}
-
-    def __init__(self) -> None:
-        super().__init__(convert_charrefs=True)
-        self.tags: list[tuple[str, dict]] = []
-        self.urls: list[tuple[str, str, str]] = []
-        self.text: list[str] = []
-        self.styles: list[str] = []
-        self._in_style = False
-
-    def handle_starttag(self, tag, attrs):
-        attrs = dict(attrs)
-        self.tags.append((tag, attrs))
-        for name, value in attrs.items():
-            if name in self.URL_ATTRIBUTES:
-                self.urls.append((tag, name, value or ""))
-        self._in_style = tag == "style"
-
-    def handle_endtag(self, tag):
-        self._in_style = False
-
-    def handle_data(self, data):
-        (self.styles if self._in_style else self.text).append(data)
-
-
-def scan(path: Path) -> PageScan:
-    page = PageScan()
-    page.feed(path.read_text(encoding="utf-8"))
-    page.close()
-    return page
-
-
-def check_png(payload: bytes) -> tuple[int, int]:
-    """Signature, then a full decode with matplotlib (shape of the decoded image)."""
-    import matplotlib.image
-
-    assert payload.startswith(PNG_SIGNATURE)
-    image = matplotlib.image.imread(io.BytesIO(payload), format="png")
-    assert image.ndim == 3 and image.shape[0] > 200 and image.shape[1] > 300
-    return image.shape[0], image.shape[1]
 
 
 @pytest.fixture(scope="module")

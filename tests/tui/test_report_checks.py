@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -93,7 +94,8 @@ def test_qpoints_cover_reverse_zero_and_the_measured_admittance_biases(full):
 
 
 def test_breakdown_is_marked_only_when_the_sweep_reached_it(tmp_path, full):
-    assert full.bv_reached and full.reverse_extreme_V <= -T.BV
+    assert full.reverse_extreme_V <= -T.BV
+    assert full.breakdown_V == -T.BV and full.breakdown_label == "BV = 60 V (model)"
     run_dir = report_runs.make_run(tmp_path, parts=("reverse",))
     path = run_dir / "points.csv"
     lines = path.read_text().splitlines(keepends=True)
@@ -101,7 +103,14 @@ def test_breakdown_is_marked_only_when_the_sweep_reached_it(tmp_path, full):
             float(ln.split(",")[4]) >= -0.9 * T.BV]
     path.write_text("".join(kept))
     an = analyze(load_run(run_dir))
-    assert an.reverse_extreme_V > -BV_REACHED_FRACTION * T.BV and not an.bv_reached
+    assert an.reverse_extreme_V > -BV_REACHED_FRACTION * T.BV and an.breakdown_V is None
+    # a breakdown guard that tripped marks where the step stopped
+    report_runs.append_lines(run_dir / "events.jsonl", json.dumps(
+        {"seq": 50, "time_s": 9.0, "kind": "limit", "step": "reverse_iv",
+         "guard": "breakdown_guard", "message": "|I| reached the breakdown guard"}) + "\n")
+    an = analyze(load_run(run_dir))
+    assert an.breakdown_V == -54.0
+    assert an.breakdown_label == "breakdown guard tripped at -54 V"
 
 
 def test_log_axes_span_whole_decades_with_room():
