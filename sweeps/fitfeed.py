@@ -118,7 +118,9 @@ class FitWorker:
             fitter = self._fitters.get(name)
             if fitter is None:
                 fitter = fitmodel.new_fitter(step.kind, self.temperature_K,
-                                             self._dc_values())
+                                             self._dc_values(),
+                                             fitmodel.breakdown_current_A(
+                                                 self.steps.values()))
                 self._fitters[name] = fitter
             fitmodel.add_point(fitter, step.kind, point)
         except Exception as exc:  # noqa: BLE001 - fitting must never stop a run

@@ -24,14 +24,25 @@ def available() -> bool:
     return importlib.util.find_spec("pnbench.modeling.incremental") is not None
 
 
-def new_fitter(step_kind: str, temperature_K: float, fixed: dict | None = None):
+def new_fitter(step_kind: str, temperature_K: float, fixed: dict | None = None,
+               ibv_A: float | None = None):
     """An incremental fitter for a step. ``fixed`` holds model-card values from earlier
     steps (IS, N, RS of the forward I-V) for the admittance fit to keep."""
     from pnbench.modeling.incremental import IncrementalFitter
 
     if step_kind == "admittance" and fixed:
         return IncrementalFitter("admittance", temperature_K=temperature_K, fixed=fixed)
+    if step_kind == "iv_reverse" and ibv_A is not None:
+        return IncrementalFitter("iv_reverse", temperature_K=temperature_K, ibv_A=ibv_A)
     return IncrementalFitter(FIT_KIND[step_kind], temperature_K=temperature_K)
+
+
+def breakdown_current_A(steps) -> float | None:
+    """The current at which BV is stated: the smallest breakdown guard of the reverse
+    steps, but not above the simulators' customary 1 mA (a step only ends at its guard,
+    so the data always reach it)."""
+    guards = [g for s in steps if (g := getattr(s, "breakdown_guard_A", None))]
+    return min(min(guards), 1e-3) if guards else None
 
 
 def admittance_of(point: Point) -> complex:
@@ -72,4 +83,5 @@ def run_model(steps: dict, points: list[Point], latest: dict, temperature_K: flo
     data = {kind: arrays(points, names) for kind, names in by_kind.items()}
     if not any(len(d["voltage_V"]) for d in data.values()):
         return None
-    return fit_run(data, temperature_K=temperature_K, area_m2=area_m2, extras=extras)
+    return fit_run(data, temperature_K=temperature_K, area_m2=area_m2, extras=extras,
+                   ibv_A=breakdown_current_A(steps.values()))

@@ -1,0 +1,97 @@
+"""`pnbench check PLAN`: validate a plan and say what it will do, without any instrument."""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+HELP = "validate a plan: steps, points, estimated duration and worst-case power"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("plan", help="plan file (TOML)")
+    parser.add_argument("--json", action="store_true",
+                        help="print the summary as one JSON object")
+
+
+def _range(step) -> str:
+    from pnbench.sweeps.quantities import format_quantity as q
+
+    if step.instrument == "smu":
+        unit = step.source_unit
+        other = "A" if unit == "V" else "V"
+        text = (f"{q(step.levels[0], unit, 3)} to {q(step.levels[-1], unit, 3)}, "
+                f"compliance {q(step.compliance, other, 3)}")
+        if step.breakdown_guard_A:
+            text += f", guard {q(step.breakdown_guard_A, 'A', 3)}"
+        return text
+    biases = sorted({p.level for p in step.points})
+    freqs = sorted({p.frequency_Hz for p in step.points})
+    return (f"bias {q(biases[0], 'V', 3)} to {q(biases[-1], 'V', 3)} ({len(biases)}), "
+            f"{len(freqs)} frequencies {q(freqs[0], 'Hz', 3)} to {q(freqs[-1], 'Hz', 3)}, "
+            f"AC {q(step.ac_level_V, 'V', 3)}")
+
+
+def summary(plan) -> dict:
+    from pnbench.sweeps.check import estimate
+    from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V
+
+    est = estimate(plan)
+    return {
+        "plan": plan.path, "title": plan.title, "device": plan.device.to_json_dict(),
+        "limits": plan.limits.to_json_dict(),
+        "hazardous_voltage": plan.limits.highest_voltage_V() > HAZARDOUS_VOLTAGE_V,
+        "instruments": {r: i.to_json_dict() for r, i in plan.instruments.items()},
+        "steps": [{**s.to_json_dict(), "range": _range(s), "estimate_s": t,
+                   "worst_case_power_W": p}
+                  for s, t, p in zip(plan.steps, est.step_s, est.step_power_W, strict=True)],
+        "total_points": plan.total_points, "estimate": est.to_json_dict(),
+        "warnings": list(plan.warnings),
+    }
+
+
+def run(args) -> int:
+    from pnbench.sweeps.check import estimate
+    from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V
+    from pnbench.sweeps.plan import load_plan
+    from pnbench.sweeps.quantities import format_quantity as q
+    from pnbench.tui.headless import format_duration
+
+    plan = load_plan(args.plan)
+    if args.json:
+        print(json.dumps(summary(plan), indent=2))
+        return 0
+    est = estimate(plan)
+    lim, d = plan.limits, plan.device
+    print(f"plan {plan.path}: valid" + (f" - {plan.title}" if plan.title else ""))
+    print(f"device {d.name}" + (f", {d.material}" if d.material else "")
+          + (f", area {d.area_m2:.4g} m^2" if d.area_m2 else "")
+          + f", {d.temperature_K:.2f} K")
+    print(f"limits: {q(lim.max_voltage_V, 'V', 3)} forward, "
+          f"{q(lim.max_reverse_voltage_V, 'V', 3)} reverse, {q(lim.max_current_A, 'A', 3)}, "
+          f"{q(lim.max_power_W, 'W', 3)}")
+    if lim.highest_voltage_V() > HAZARDOUS_VOLTAGE_V:
+        print(f"HAZARDOUS VOLTAGE: up to {lim.highest_voltage_V():g} V (acknowledged up to "
+              f"{lim.hazardous_ack_V:g} V); enclose and interlock the fixture")
+    if plan.instruments:
+        for role, inst in sorted(plan.instruments.items()):
+            print(f"{role}: {inst.resource} ({inst.backend}, dialect "
+                  f"{inst.dialect or 'default'})")
+    else:
+        print("instruments: none in the plan (run it with --simulate DEVICE)")
+    width = max(len(s.name) for s in plan.steps)
+    print(f"\n{'#':>2} {'step':<{width}} {'kind':<11} {'points':>6} {'time':>8} "
+          f"{'worst P':>9}  range")
+    for n, (s, t, p) in enumerate(zip(plan.steps, est.step_s, est.step_power_W,
+                                      strict=True), start=1):
+        power = q(p, "W", 3) if p is not None else "-"
+        print(f"{n:>2} {s.name:<{width}} {s.kind:<11} {s.planned:>6} {format_duration(t):>8} "
+              f"{power:>9}  {_range(s)}")
+    print(f"\n{plan.total_points} points, estimated {format_duration(est.total_s)} "
+          "(points x (settle + integration + overhead))")
+    print(f"worst-case power without the power guard: {q(est.worst_power_W, 'W', 3)}"
+          + (f"; above max_power in {', '.join(est.guarded_steps)}: the runner predicts "
+             "each level's power and ends the step before it" if est.guarded_steps else ""))
+    for w in plan.warnings:
+        print(f"warning: {w}")
+    return 0
