@@ -293,12 +293,13 @@ def _qpoint_table(out: Analysis) -> None:
         z = np.abs(q.impedance(np.array(freqs)))
         meas = {}
         for s in out.spectra:
-            if "voltage" in bias and abs(s.label_value - bias["voltage"]) < 1e-9:
-                y = smallsignal.admittance_from_parallel(s.capacitance_F,
-                                                         np.nan_to_num(s.conductance_S),
-                                                         s.frequency_Hz)
-                meas = {float(f): float(abs(1 / yy)) for f, yy in zip(s.frequency_Hz, y,
-                                                                      strict=True)}
+            if "voltage" not in bias or abs(s.label_value - bias["voltage"]) > 1e-9:
+                continue
+            ok = np.isfinite(s.conductance_S)  # |Z| needs both parts of the admittance
+            y = smallsignal.admittance_from_parallel(s.capacitance_F[ok], s.conductance_S[ok],
+                                                     s.frequency_Hz[ok])
+            meas = {float(f): float(abs(1 / yy))
+                    for f, yy in zip(s.frequency_Hz[ok], y, strict=True)}
         out.qrows.append(QRow(origin, q, dict(zip(freqs, map(float, z), strict=True)), meas))
 
 
@@ -307,8 +308,12 @@ def missing_items(data: RunData, an: Analysis) -> list[str]:
     items = []
     run = data.run or {}
     status = run.get("status")
-    if status and status != "completed":
-        reason = f": {run['reason']}" if run.get("reason") else ""
+    reason = f": {run['reason']}" if run.get("reason") else ""
+    if status in ("running", "paused"):
+        items.append(f"run.json says the run is {status}: it is still going, or its "
+                     "process ended without closing the folder; this report shows the "
+                     "points taken so far")
+    elif status and status != "completed":
         items.append(f"the run did not complete (status {status}{reason}); this report "
                      "shows what was measured before it stopped")
     for step in run.get("steps") or []:

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import io
 import math
+import os
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -433,6 +434,6 @@ def render_all(an: Analysis, device: str, figures_dir: Path) -> list[FigureFile]
 
 
 def _atomic_write(path: Path, payload: bytes) -> None:
-    tmp = path.with_name(f".{path.name}.{threading.get_ident()}.tmp")
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}.tmp")
     tmp.write_bytes(payload)
     tmp.replace(path)

@@ -69,6 +69,7 @@ _TITLES = {"iv_forward": "Forward I\u2013V", "iv_reverse": "Reverse I\u2013V",
 _NOTICE_KINDS = ("warning", "compliance", "limit", "error")
 _MICRO = re.compile(r"(?<=[\d.]) u(?=\S)")
 _EVENT_ROWS = 400
+_DETAIL_CHARS = 400  # an event's detail column is cut after this many characters
 DASH = "\u2014"
 #: Currents, capacitances and conductances below this print as 0 (zepto scale).
 _NEGLIGIBLE = 1e-21
@@ -132,7 +133,7 @@ def _header(data: RunData, an: Analysis, version: str) -> str:
         ("Run recorded by", esc(f"pnbench {run['software_version']}"
                                 if run.get("software_version") else "unknown version")),
         ("Report made by", esc(f"pnbench {version}")),
-        ("Instruments", esc(f"simulated bench, device file {simulated}") if simulated
+        ("Instruments", esc(f"simulated bench (device {simulated})") if simulated
          else "real instruments" if data.run else "unknown"),
     ]
     if run.get("resume_count"):
@@ -350,7 +351,8 @@ def _event_detail(event: dict) -> str:
     rest = {k: v for k, v in event.items() if k not in ("seq", "time_s", "kind", "step")}
     message = rest.pop("message", None)
     text = "; ".join(f"{k} = {_plain(v)}" for k, v in rest.items())
-    return " \u2014 ".join(x for x in (message and str(message), text) if x)
+    detail = " \u2014 ".join(x for x in (message and str(message), text) if x)
+    return detail if len(detail) <= _DETAIL_CHARS else detail[:_DETAIL_CHARS] + " \u2026"
 
 
 def _events(data: RunData) -> str:

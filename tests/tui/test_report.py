@@ -159,3 +159,38 @@ def test_the_command_module_does_not_import_matplotlib():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True)
     assert out.stdout.strip() == "False"
+
+
+def test_a_run_that_has_just_started_gets_a_report_of_nothing_yet(tmp_path):
+    run_dir = report_runs.make_run(tmp_path, parts=(), status="running", model=False)
+    report = build_report(run_dir)
+    assert report.figures == ()
+    joined = " ".join(report.missing)
+    assert "run.json says the run is running" in joined
+    assert "points.csv holds no points yet" in joined
+    assert "No figure could be drawn from this run." in report.path.read_text()
+
+
+def test_meter_readings_without_conductance_still_draw(tmp_path):
+    """A meter set to report capacitance only leaves conductance_S empty."""
+    run_dir = report_runs.make_run(tmp_path, parts=("cv", "admittance"))
+    path = run_dir / "points.csv"
+    rows = []
+    for line in path.read_text().splitlines():
+        cells = line.split(",")
+        if not line.startswith("#") and cells[2] == "cv":
+            cells[8] = ""
+        rows.append(",".join(cells))
+    path.write_text("\n".join(rows) + "\n")
+    report = build_report(run_dir)
+    assert {p.stem for p in report.figures} == {"cv", "mott_schottky", "doping_profile",
+                                                "admittance"}
+    row = next(r for r in report_analysis_of(run_dir).qrows if r.point.bias_voltage_V > 0)
+    assert row.measured_ohm == {}  # no measured |Z| without the conductance
+
+
+def report_analysis_of(run_dir):
+    from pnbench.tui.report_analysis import analyze
+    from pnbench.tui.report_data import load_run
+
+    return analyze(load_run(run_dir))
