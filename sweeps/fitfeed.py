@@ -24,6 +24,8 @@ from pnbench.sweeps.planstep import Step
 from pnbench.sweeps.store import Point
 
 _STOP = object()
+#: Most points taken off the queue at once (added to a fitter as one batch).
+MAX_BATCH = 4096
 
 
 class FitWorker:
@@ -75,8 +77,7 @@ class FitWorker:
         """Feed points already on disk (a resumed run) synchronously, then snapshot."""
         if not self.enabled or not points:
             return
-        for point in points:
-            self._add(step.name, point)
+        self._add(step.name, list(points))
         self._snapshot(step.name)
 
     def finish(self, timeout_s: float = 60.0) -> None:
@@ -92,25 +93,49 @@ class FitWorker:
     def _loop(self) -> None:
         while True:
             try:
-                item = self._queue.get(timeout=self.interval)
+                first = self._queue.get(timeout=self.interval)
             except queue.Empty:
                 self._snapshot_dirty()
                 continue
+            batch = [first]
+            while len(batch) < MAX_BATCH:
+                try:
+                    batch.append(self._queue.get_nowait())
+                except queue.Empty:
+                    break
+            if self._handle(batch):
+                return
+            if time.monotonic() - self._last_snapshot >= self.interval:
+                self._snapshot_dirty()
+
+    def _handle(self, batch: list) -> bool:
+        """Add runs of points in batches; act on step ends and the stop mark in order.
+        True when the stop mark was met."""
+        run: list[Point] = []
+        run_step = None
+        for item in [*batch, None]:
+            if item is not None and item is not _STOP and item[1] is not None \
+                    and item[0] == run_step:
+                run.append(item[1])
+                continue
+            if run:
+                self._add(run_step, run)
+                run, run_step = [], None
+            if item is None:
+                break
             if item is _STOP:
                 self._snapshot_dirty()
                 self._write_model()
-                return
+                return True
             name, point = item
             if point is None:
                 self._snapshot(name)
                 self._write_model()
-                continue
-            self._add(name, point)
-            now = time.monotonic()
-            if now - self._last_snapshot >= self.interval and self._queue.empty():
-                self._snapshot_dirty()
+            else:
+                run, run_step = [point], name
+        return False
 
-    def _add(self, name: str, point: Point) -> None:
+    def _add(self, name: str, points: list[Point]) -> None:
         if name in self._broken:
             return
         step = self.steps[name]
@@ -122,11 +147,11 @@ class FitWorker:
                                              fitmodel.breakdown_current_A(
                                                  self.steps.values()))
                 self._fitters[name] = fitter
-            fitmodel.add_point(fitter, step.kind, point)
+            fitmodel.add_points(fitter, step.kind, points)
         except Exception as exc:  # noqa: BLE001 - fitting must never stop a run
             self._break(name, exc)
             return
-        self._counts[name] = self._counts.get(name, 0) + 1
+        self._counts[name] = self._counts.get(name, 0) + len(points)
         self._dirty.add(name)
 
     def _dc_values(self) -> dict:

@@ -51,12 +51,16 @@ def admittance_of(point: Point) -> complex:
                                             point.frequency_Hz))
 
 
-def add_point(fitter, step_kind: str, point: Point) -> None:
+def add_points(fitter, step_kind: str, points: list[Point]) -> None:
+    """Add run points to a step's fitter as one batch."""
+    if not points:
+        return
+    col = arrays(points, {points[0].step})
     if step_kind in ("iv_forward", "iv_reverse"):
-        fitter.add(point.voltage_V, point.current_A, compliance=point.compliance)
+        fitter.add(col["voltage_V"], col["current_A"], compliance=col["compliance"])
     else:
-        fitter.add(point.voltage_V, frequency_Hz=point.frequency_Hz,
-                   capacitance_F=point.capacitance_F, conductance_S=point.conductance_S)
+        fitter.add(col["voltage_V"], frequency_Hz=col["frequency_Hz"],
+                   capacitance_F=col["capacitance_F"], conductance_S=col["conductance_S"])
 
 
 def arrays(points: list[Point], step_names: set[str]) -> dict[str, np.ndarray]:

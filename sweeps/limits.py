@@ -7,9 +7,10 @@ reading the instrument should never have produced).
 
 The power limit is checked before a level is applied by predicting the next reading from
 the last ones: the current of a forward-biased junction grows exponentially with voltage,
-so the prediction extrapolates log|I| linearly in V (and V linearly in log I for a forced
-current), never below a straight-line extrapolation, and never above what the compliance
-setting allows. A prediction is an estimate; the reading is checked again afterwards.
+so the prediction extrapolates log|I| linearly in V (an upper bound once series
+resistance bends the curve), never below a straight line; for a forced current it passes
+V = a + b ln I + R I through the last three readings. Neither goes above what the
+compliance setting allows. A prediction is an estimate; the reading is checked again afterwards.
 """
 
 from __future__ import annotations
@@ -17,6 +18,8 @@ from __future__ import annotations
 import math
 from collections import deque
 from dataclasses import asdict, dataclass
+
+import numpy as np
 
 #: Voltage above which a plan must carry an explicit acknowledgment. IEC 61010-1 treats
 #: DC voltages above 60 V as hazardous-live in dry locations in its older editions (from
@@ -86,13 +89,26 @@ def _extrapolate_current(history: deque, v_next: float) -> float:
 
 
 def _extrapolate_voltage(history: deque, i_next: float) -> float:
+    """|V| at a forced current from the last readings, with the junction law with series
+    resistance V = a + b ln I + R I (b, R >= 0): solved exactly through three readings,
+    through two without R; with mixed signs, a straight line."""
+    pts = [(i, v) for i, v in history if i > 0]
+    if i_next > 0 and len(pts) >= 2:
+        last_i, last_v = pts[-1]
+        if len(pts) >= 3:
+            rows = np.array([[1.0, math.log(i), i] for i, _ in pts[-3:]])
+            try:
+                a, b, r = np.linalg.solve(rows, np.array([v for _, v in pts[-3:]]))
+            except np.linalg.LinAlgError:
+                a = None
+            if a is not None and b >= 0 and r >= 0:
+                return abs(a + b * math.log(i_next) + r * i_next)
+        (i1, v1), (i2, v2) = pts[-2], pts[-1]
+        if i1 != i2:
+            per_ln = max((v2 - v1) / math.log(i2 / i1), 0.0)
+            return abs(last_v + per_ln * math.log(i_next / last_i))
     (i1, v1), (i2, v2) = history[-2], history[-1]
-    linear = abs(v2) + abs((v2 - v1) / (i2 - i1) * (i_next - i2)) if i2 != i1 else abs(v2)
-    logarithmic = abs(v2)
-    if i1 > 0 and i2 > 0 and i_next > 0 and i1 != i2:
-        per_ln = (v2 - v1) / math.log(i2 / i1)
-        logarithmic = abs(v2 + per_ln * math.log(i_next / i2))
-    return max(linear, logarithmic)
+    return abs(v2) + abs((v2 - v1) / (i2 - i1) * (i_next - i2)) if i2 != i1 else abs(v2)
 
 
 class StepGuard:
@@ -109,7 +125,7 @@ class StepGuard:
         self.source = source
         self.compliance = abs(compliance)
         self.breakdown_guard_A = breakdown_guard_A
-        self.history: deque = deque(maxlen=2)  # (source level, measured other quantity)
+        self.history: deque = deque(maxlen=3)  # (source level, measured other quantity)
         self.consecutive_compliance = 0
 
     def predicted_power_W(self, level: float) -> float:
@@ -150,11 +166,17 @@ class StepGuard:
         v, i = reading.voltage_V, reading.current_A
         other = i if self.source == "voltage" else v
         self.history.append((level, other))
-        if abs(i) > lim.max_current_A * (1 + OVERSHOOT_MARGIN) or (
-            not lim.voltage_allowed(v * (1 - OVERSHOOT_MARGIN))
-        ):
-            return Verdict("overshoot", f"reading {v:g} V, {i:g} A is beyond the plan's "
-                           "limits: the instrument did not hold its compliance", "run", level)
+        i_cap, v_cap = lim.max_current_A, None
+        if self.source == "voltage":
+            i_cap = min(i_cap, self.compliance)
+        else:
+            v_cap = self.compliance
+        if abs(i) > i_cap * (1 + OVERSHOOT_MARGIN) or (
+            not lim.voltage_allowed(v * (1 - OVERSHOOT_MARGIN))) or (
+                v_cap is not None and abs(v) > v_cap * (1 + OVERSHOOT_MARGIN)):
+            return Verdict("overshoot", f"reading {v:g} V, {i:g} A is beyond the "
+                           "compliance and limits set: the instrument did not hold its "
+                           "compliance", "run", level)
         if self.breakdown_guard_A is not None and abs(i) >= self.breakdown_guard_A:
             return Verdict("breakdown_guard", f"|I| = {abs(i):.3g} A reached the breakdown "
                            f"guard {self.breakdown_guard_A:g} A at {v:.4g} V", level=level)

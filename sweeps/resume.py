@@ -100,7 +100,7 @@ def _replay(step, pts: list[Point], plan: Plan, state: ResumeState) -> None:
             state.ended_by[step.name] = verdict.kind
             state.newly_finished.append((step.name, "limit", verdict.message))
             return
-    state.tails[step.name] = pts[-2:]
+    state.tails[step.name] = pts[-3:]
 
 
 def _epoch(text: object) -> float | None:

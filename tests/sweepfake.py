@@ -7,6 +7,8 @@ faults after N readings)."""
 from __future__ import annotations
 
 import math
+import random
+import time
 from dataclasses import dataclass, field
 
 from pnbench.drivers.roles import LcrReading, SmuReading
@@ -37,7 +39,8 @@ class FakeSmu:
 
     def __init__(self, params: DiodeParams | None = None, identity: str = "fake,SMU,1234,1",
                  fail_after: int | None = None, compliance_from: float | None = None,
-                 overshoot: bool = False) -> None:
+                 overshoot: bool = False, noise_rel: float = 0.0,
+                 io_delay_s: float = 0.0) -> None:
         self.p = params or DiodeParams(IS=1e-14, N=1.0, RS=0.5, BV=20.0, IBV=1e-6)
         self.identity = identity
         self.session = FakeSession("fake-smu")
@@ -49,6 +52,9 @@ class FakeSmu:
         self.fail_after = fail_after
         self.compliance_from = compliance_from
         self.overshoot = overshoot
+        self.noise_rel = noise_rel
+        self.io_delay_s = io_delay_s  # sleep per reading, as I/O would (frees the GIL)
+        self._rng = random.Random(7)
         self.log: list[tuple[str, object]] = []
         self.max_abs_level_on = 0.0
 
@@ -73,6 +79,8 @@ class FakeSmu:
         return i
 
     def apply_and_read(self, level: float) -> SmuReading:
+        if self.io_delay_s:
+            time.sleep(self.io_delay_s)
         self.reads += 1
         if self.fail_after is not None and self.reads > self.fail_after:
             raise InstrumentError("fake-smu: connection lost")
@@ -81,6 +89,8 @@ class FakeSmu:
             self.max_abs_level_on = max(self.max_abs_level_on, abs(level))
         if self.source == "voltage":
             i = self._current(level)
+            if self.noise_rel:
+                i *= 1 + self.noise_rel * self._rng.gauss(0.0, 1.0)
             comp = abs(i) >= self.limit or (self.compliance_from is not None
                                             and level >= self.compliance_from)
             if comp and not self.overshoot:

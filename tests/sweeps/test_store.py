@@ -1,0 +1,168 @@
+"""The run folder: exact round trips, torn lines cut on reopen, atomic documents, the lock,
+and following a live run."""
+
+from __future__ import annotations
+
+import json
+import os
+import threading
+from datetime import UTC, datetime
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from pnbench.modeling.errors import BadInput, DataFileError
+from pnbench.sweeps.events import Event, EventBus
+from pnbench.sweeps.store import (
+    HEADER,
+    Point,
+    PointTail,
+    RunFolder,
+    folder_name,
+    read_events,
+    read_metadata,
+    read_points,
+    read_run,
+)
+
+
+def make(tmp_path, name="LH-T1"):
+    return RunFolder.create(tmp_path, "[device]\nname = 'x'\n",
+                            {"device": {"name": name}, "status": "running"},
+                            {"device": name, "temperature_K": 300.15})
+
+
+def test_layout_and_metadata(tmp_path):
+    folder = make(tmp_path)
+    folder.close()
+    names = {p.name for p in folder.path.iterdir()}
+    assert {"plan.toml", "run.json", "points.csv", "events.jsonl", "run.log"} <= names
+    assert read_metadata(folder.path) == {"device": "LH-T1", "temperature_K": "300.15"}
+    lines = (folder.path / "points.csv").read_text().splitlines()
+    assert lines[-1] == HEADER
+    assert read_run(folder.path)["format"] == 1
+
+
+def test_folder_name_from_start_time_and_device():
+    start = datetime(2031, 4, 5, 6, 7, 8, tzinfo=UTC)
+    assert folder_name(start, "LH D/1 (b)") == "20310405-060708_LH_D_1_b"
+
+
+def test_same_second_gets_a_second_folder(tmp_path):
+    start = datetime(2031, 4, 5, 6, 7, 8, tzinfo=UTC)
+    a = RunFolder.create(tmp_path, "", {"device": {"name": "X"}}, {}, started=start)
+    b = RunFolder.create(tmp_path, "", {"device": {"name": "X"}}, {}, started=start)
+    assert a.path != b.path and b.path.name.endswith("-2")
+    a.close()
+    b.close()
+
+
+_floats = st.floats(allow_nan=False, allow_infinity=False)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.integers(0, 10**6), _floats, _floats, st.one_of(st.none(), _floats),
+       st.booleans())
+def test_point_rows_round_trip_exactly(index, v, i, c, comp):
+    p = Point("fwd", index, "iv", 1.5, v, i, None, c, None, comp)
+    assert Point.from_row(p.to_row()) == p
+
+
+def test_torn_last_line_is_cut_on_reopen(tmp_path):
+    folder = make(tmp_path)
+    for k in range(5):
+        folder.append_point(Point("fwd", k, "iv", 0.1 * k, 0.1 * k, 1e-9 * k))
+    bus = EventBus(sink=folder.append_event)
+    bus.emit("run_started")
+    folder.close()
+    with open(folder.path / "points.csv", "a") as f:
+        f.write("fwd,5,iv,0.5,0.5,1")  # killed mid-write
+    with open(folder.path / "events.jsonl", "a") as f:
+        f.write('{"seq": 2, "ti')
+    assert len(read_points(folder.path)) == 5  # readers skip the torn line
+    again = RunFolder.reopen(folder.path)
+    again.append_point(Point("fwd", 5, "iv", 0.5, 0.5, 5e-9))
+    again.close()
+    assert [p.index for p in read_points(folder.path)] == list(range(6))
+    assert [e.seq for e in read_events(folder.path)] == [1]
+    assert "removed" in (folder.path / "run.log").read_text()
+
+
+def test_run_json_is_replaced_atomically(tmp_path):
+    folder = make(tmp_path)
+    stop = threading.Event()
+    seen = []
+
+    def reader():
+        while not stop.is_set():
+            seen.append(json.loads((folder.path / "run.json").read_text())["n"])
+
+    folder.update_run(n=0)
+    t = threading.Thread(target=reader)
+    t.start()
+    for n in range(200):
+        folder.update_run(n=n, padding="x" * (n * 50))
+    stop.set()
+    t.join()
+    folder.close()
+    assert seen and seen == sorted(seen)
+    assert not [p for p in folder.path.iterdir() if p.name.endswith(".tmp")]
+
+
+def test_a_folder_open_for_writing_is_locked(tmp_path):
+    folder = make(tmp_path)
+    with pytest.raises(BadInput, match=f"in use by pnbench process {os.getpid()}"):
+        RunFolder.reopen(folder.path)
+    folder.close()
+    RunFolder.reopen(folder.path).close()
+
+
+def test_point_tail_follows_a_live_run(tmp_path):
+    folder = make(tmp_path)
+    tail = PointTail(folder.path)
+    assert tail.read_new()[0] == []
+    folder.append_point(Point("a", 0, "iv", 0.0, 0.1, 1e-9))
+    folder._points.write("a,1,iv,0.1,0.2")  # half a row, not yet flushed as a line
+    folder._points.flush()
+    got, _ = tail.read_new()
+    assert [p.index for p in got] == [0]
+    folder._points.write(",2e-09,,,,0\n")
+    folder._points.flush()
+    got, _ = tail.read_new()
+    assert [(p.index, p.current_A) for p in got] == [(1, 2e-9)]
+    folder.close()
+
+
+def test_damaged_folders_name_the_file(tmp_path):
+    with pytest.raises(DataFileError, match="no run.json"):
+        read_run(tmp_path)
+    folder = make(tmp_path)
+    folder.close()
+    with open(folder.path / "points.csv", "a") as f:
+        f.write("fwd,zero,iv,0,,,,,,0\n")
+    with pytest.raises(DataFileError, match="points.csv"):
+        read_points(folder.path)
+
+
+def test_events_are_numbered_without_gaps_across_threads(tmp_path):
+    folder = make(tmp_path)
+    bus = EventBus(sink=folder.append_event, start_seq=10)
+    got = []
+    bus.add_listener(got.append)
+
+    def emit_many():
+        for _ in range(200):
+            bus.emit("warning", None, message="x")
+            bus.emit("point", "s", index=0)
+
+    threads = [threading.Thread(target=emit_many) for _ in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    folder.close()
+    written = read_events(folder.path)
+    assert [e.seq for e in written] == list(range(11, 811))
+    assert len(got) == 1600
+    assert Event.from_json_dict(written[0].to_json_dict()) == written[0]
