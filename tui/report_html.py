@@ -8,18 +8,12 @@ and can be mailed as one file.
 from __future__ import annotations
 
 import base64
-import html
 import json
-import math
-import re
-
-from quantiphy import Quantity
-
-from pnbench.modeling.params import UNITS
 
 from .report_analysis import Analysis
 from .report_data import RunData
 from .report_figures import FigureFile
+from .report_tables import DASH, area_text, esc, kv, num, parameters, qpoints, table
 
 _CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",sans-serif;
@@ -67,56 +61,8 @@ _TITLES = {"iv_forward": "Forward I\u2013V", "iv_reverse": "Reverse I\u2013V",
            "cv": "C\u2013V", "mott_schottky": "Mott\u2013Schottky (1/C\u00b2)",
            "doping_profile": "Doping profile N(W)", "admittance": "Admittance"}
 _NOTICE_KINDS = ("warning", "compliance", "limit", "error")
-_MICRO = re.compile(r"(?<=[\d.]) u(?=\S)")
 _EVENT_ROWS = 400
 _DETAIL_CHARS = 400  # an event's detail column is cut after this many characters
-DASH = "\u2014"
-#: Currents, capacitances and conductances below this print as 0 (zepto scale).
-_NEGLIGIBLE = 1e-21
-
-
-def esc(value: object) -> str:
-    return html.escape(str(value), quote=True)
-
-
-def qty(value: float | None, unit: str, prec: int = 4) -> str:
-    """A value with SI prefix and unit for people ("2.5 mA", "800 m\u03a9")."""
-    if value is None:
-        return "\u2014"
-    value = float(value)
-    unit = "\u03a9" if unit == "ohm" else unit
-    if math.isnan(value):
-        return "n/a"
-    if math.isinf(value):
-        sign = "\u2212" if value < 0 else ""
-        return f"{sign}\u221e {unit}".strip()
-    if abs(value) < _NEGLIGIBLE and unit in ("A", "F", "S"):
-        return f"0 {unit}"  # rounding dust (a current at exactly zero bias, ...)
-    if not unit:
-        return f"{value:.{prec + 1}g}"
-    return _MICRO.sub(" \u00b5", Quantity(value, unit).render(prec=prec))
-
-
-def _table(head: list[str], rows: list[list[str]], cls: str = "",
-           row_classes: list[str] | None = None) -> str:
-    out = [f'<table class="{cls}">' if cls else "<table>", "<tr>"]
-    out += [f"<th>{h}</th>" for h in head] + ["</tr>"]
-    for k, row in enumerate(rows):
-        rc = row_classes[k] if row_classes else ""
-        out.append(f'<tr class="{rc}">' if rc else "<tr>")
-        out += [c if c.startswith("<td") else f"<td>{c}</td>" for c in row]
-        out.append("</tr>")
-    out.append("</table>")
-    return "".join(out)
-
-
-def _num(text: str) -> str:
-    return f'<td class="num">{text}</td>'
-
-
-def _kv(pairs: list[tuple[str, str]]) -> str:
-    rows = "".join(f"<tr><th>{esc(k)}</th><td>{v}</td></tr>" for k, v in pairs)
-    return f'<table class="kv">{rows}</table>'
 
 
 def _header(data: RunData, an: Analysis, version: str) -> str:
@@ -143,7 +89,7 @@ def _header(data: RunData, an: Analysis, version: str) -> str:
                       "confirmed" if run["outputs_off_confirmed"] else
                       "<strong>not confirmed</strong>"))
     return (f"<h1>Run report: {esc(data.device_name)}</h1>"
-            f'<p class="sub">Run folder {esc(data.run_dir.name)}</p>' + _kv(pairs))
+            f'<p class="sub">Run folder {esc(data.run_dir.name)}</p>' + kv(pairs))
 
 
 def _missing(data: RunData, items: list[str]) -> str:
@@ -154,103 +100,6 @@ def _missing(data: RunData, items: list[str]) -> str:
     lis = "".join(f"<li>{esc(i)}</li>" for i in items)
     return (f'<div class="{cls}" id="missing"><strong>Missing from this report</strong>'
             f"<ul>{lis}</ul></div>")
-
-
-def _parameters(data: RunData, an: Analysis) -> str:
-    parts = ["<h2 id=\"parameters\">Extracted parameters</h2>"]
-    m = an.model
-    if m is None:
-        parts.append("<p>No model was extracted (model.json is missing).</p>")
-        return "".join(parts)
-    parts.append(f"<p>From {esc(an.model_source)}, values at {m.temperature_K:.2f} K; "
-                 "\u03c3 is one standard deviation.</p>")
-    rows = []
-    for name in UNITS:
-        if name not in m.values:
-            continue
-        value, sigma = m.values[name], m.sigma(name)
-        rel = "\u2014" if sigma is None or value == 0 else f"{100 * sigma / abs(value):.3g} %"
-        rows.append([f"<strong>{esc(name)}</strong>", _num(esc(qty(value, UNITS[name]))),
-                     _num(esc(qty(sigma, UNITS[name], prec=2) if sigma is not None else "unknown")),
-                     _num(esc(rel))])
-    parts.append(_table(["Parameter", "Value", "\u03c3", "\u03c3 / value"], rows))
-    parts.append(_fit_quality(an))
-    for label, names, matrix in an.correlations:
-        parts.append(f"<h3>Correlation of the estimates ({esc(label)})</h3>")
-        parts.append(_correlation_table(names, matrix))
-    if an.correlations:
-        parts.append("<p>|r| above 0.9 (bold) means the data hardly tell those "
-                     "parameters apart.</p>")
-    parts.append(_depletion(an))
-    card = data.card_text or m.card_text(_card_name(data.device_name))
-    source = data.card_name or "made from model.json"
-    parts.append(f"<h3>Model card ({esc(source)})</h3><pre>{esc(card)}</pre>")
-    return "".join(parts)
-
-
-def _correlation_table(names: tuple[str, ...], matrix) -> str:
-    rows = []
-    for a, line in zip(names, matrix, strict=True):
-        cells = [f"<strong>{esc(a)}</strong>"]
-        for r in line:
-            if not math.isfinite(r):
-                cells.append(_num("\u2014"))
-                continue
-            weight = "font-weight:600;" if abs(r) > 0.9 else ""
-            colour = "36,71,107" if r >= 0 else "209,96,61"
-            cells.append(f'<td class="num" style="{weight}background:rgba({colour},'
-                         f'{0.45 * min(1.0, abs(r)):.2f})">{esc(f"{r:+.2f}")}</td>')
-        rows.append(cells)
-    return _table([""] + [esc(n) for n in names], rows)
-
-
-def _fit_quality(an: Analysis) -> str:
-    rows = []
-    for label, rec in an.fits:
-        if "success" not in rec:
-            continue
-        chi2 = rec.get("reduced_chi2")
-        used = rec.get("n_used")
-        total = rec.get("n_points")
-        rows.append([esc(rec.get("kind") or label),
-                     "yes" if rec.get("success") else "<strong>no</strong>",
-                     _num(esc(f"{used} of {total}" if used is not None else total or "")),
-                     _num(esc(f"{chi2:.3g}" if isinstance(chi2, (int, float)) else "\u2014")),
-                     esc(rec.get("message") or "")])
-    if not rows:
-        return ""
-    return "<h3>Fits</h3>" + _table(["Fit", "Converged", "Points used", "Reduced \u03c7\u00b2",
-                                     "Message"], rows)
-
-
-def _depletion(an: Analysis) -> str:
-    ms = an.mott_schottky
-    if ms is None:
-        return ""
-    pairs = [("C\u2013V frequency", esc(qty(ms.frequency_Hz, "Hz"))),
-             ("Points on the line", esc(f"{int(ms.used.sum())} (zero and reverse bias)")),
-             ("Intercept of 1/C\u00b2", esc(f"{ms.intercept_V:.4g} V")),
-             ("Built-in voltage Vbi", esc(f"{ms.vbi_V:.4g} V \u00b1 {ms.vbi_sigma_V:.2g} V")),
-             ("Straightness (rms of residual / 1/C\u00b2)",
-              esc(f"{100 * ms.relative_rms_residual:.2g} %"))]
-    if ms.doping_m3 is not None:
-        pairs.append(("Doping N", esc(f"{ms.doping_m3 * 1e-6:.4g} cm\u207b\u00b3 \u00b1 "
-                                      f"{ms.doping_sigma_m3 * 1e-6:.2g} cm\u207b\u00b3 "
-                                      f"({ms.material})")))
-    else:
-        pairs.append(("Doping N", esc(f"not available: {ms.doping_note}")))
-    return "<h3>Depletion (Mott\u2013Schottky)</h3>" + _kv(pairs)
-
-
-def _area(area_m2: float) -> str:
-    if area_m2 >= 1e-8:
-        return f"{area_m2 * 1e6:.4g} mm\u00b2 ({area_m2:.4g} m\u00b2)"
-    return f"{area_m2 * 1e12:.4g} \u00b5m\u00b2 ({area_m2:.4g} m\u00b2)"
-
-
-def _card_name(name: str) -> str:
-    clean = re.sub(r"[^A-Za-z0-9_.+\-]", "_", name) or "dut"
-    return clean if clean[0].isalpha() else "d" + clean
 
 
 def _figures(figures: list[FigureFile]) -> str:
@@ -267,42 +116,13 @@ def _figures(figures: list[FigureFile]) -> str:
     return "".join(parts)
 
 
-def _qpoints(an: Analysis) -> str:
-    parts = ['<h2 id="qpoints">Small-signal equivalent at a few Q-points</h2>']
-    if not an.qrows:
-        parts.append("<p>Not available: no model.</p>")
-        return "".join(parts)
-    freqs = an.table_frequencies_Hz
-    which = "measured" if an.table_frequencies_measured else "nominal (none measured)"
-    parts.append(f"<p>Model values (RS in series with gd, Cj and Cd). |Z| at the {which} "
-                 "frequencies; where the admittance was measured at that bias, the "
-                 "measured |Z| follows in brackets.</p>")
-    head = ["Q-point", "V", "I", "rd", "gd", "Cj", "Cd", "RS"]
-    head += [f"|Z| at {esc(qty(f, 'Hz'))}" for f in freqs]
-    rows = []
-    for row in an.qrows:
-        q = row.point
-        cells = [esc(row.origin), _num(esc(qty(q.bias_voltage_V, "V"))),
-                 _num(esc(qty(q.bias_current_A, "A"))), _num(esc(qty(q.rd_ohm, "ohm"))),
-                 _num(esc(qty(q.gd_S, "S"))), _num(esc(qty(q.cj_F, "F"))),
-                 _num(esc(qty(q.cd_F, "F"))), _num(esc(qty(q.rs_ohm, "ohm")))]
-        for f in freqs:
-            text = qty(row.impedance_ohm[f], "ohm")
-            if f in row.measured_ohm:
-                text += f" ({qty(row.measured_ohm[f], 'ohm')})"
-            cells.append(_num(esc(text)))
-        rows.append(cells)
-    parts.append(_table(head, rows))
-    return "".join(parts)
-
-
 def _device_and_instruments(data: RunData, an: Analysis) -> str:
     dev = data.device
     parts = ['<h2 id="device">Device and instruments</h2>']
     area = data.area_m2
-    parts.append(_kv([
+    parts.append(kv([
         ("Device", esc(data.device_name)),
-        ("Area", esc(_area(area)) if area else "not recorded"),
+        ("Area", esc(area_text(area)) if area else "not recorded"),
         ("Material", esc(data.material or "not recorded")),
         ("Temperature", esc(f"{an.temperature_K:.2f} K")),
         ("Notes", esc(dev.get("notes") or "\u2014")),
@@ -315,7 +135,7 @@ def _device_and_instruments(data: RunData, an: Analysis) -> str:
             rows.append([esc(role), esc(info.get("identity") or "not identified"),
                          esc(info.get("resource", "")), esc(info.get("backend", "")),
                          esc(info.get("dialect") or "default")])
-        parts.append(_table(["Role", "Identity", "Resource", "Backend", "Dialect"], rows))
+        parts.append(table(["Role", "Identity", "Resource", "Backend", "Dialect"], rows))
     else:
         parts.append("<p>No instrument record.</p>")
     return "".join(parts)
@@ -327,16 +147,16 @@ def _plan(data: RunData) -> str:
     limits = run.get("limits")
     if isinstance(limits, dict) and limits:
         parts.append("<h3>Safety limits</h3>")
-        parts.append(_kv([(k, esc("none" if v is None else _plain(v)))
+        parts.append(kv([(k, esc("none" if v is None else _plain(v)))
                           for k, v in limits.items()]))
     steps = run.get("steps")
     if isinstance(steps, list) and steps:
         rows = [[esc(s.get("name", "")), esc(s.get("kind", "")),
-                 _num(esc(s.get("done", ""))), _num(esc(s.get("planned", ""))),
+                 num(esc(s.get("done", ""))), num(esc(s.get("planned", ""))),
                  esc(s.get("status", "")), esc(s.get("ended_by") or "")]
                 for s in steps if isinstance(s, dict)]
         parts.append("<h3>Steps</h3>")
-        parts.append(_table(["Step", "Kind", "Done", "Planned", "Status", "Ended by"], rows))
+        parts.append(table(["Step", "Kind", "Done", "Planned", "Status", "Ended by"], rows))
     parts.append("<h3>Plan as run (plan.toml)</h3>")
     parts.append(f"<pre>{esc(data.plan_text)}</pre>" if data.plan_text is not None
                  else "<p>plan.toml is missing.</p>")
@@ -376,15 +196,15 @@ def _events(data: RunData) -> str:
     rows, classes = [], []
     for e in shown[:_EVENT_ROWS]:
         t = e.get("time_s")
-        rows.append([_num(esc(e.get("seq", ""))),
-                     _num(esc(f"{t:.3f} s" if isinstance(t, (int, float)) else "")),
+        rows.append([num(esc(e.get("seq", ""))),
+                     num(esc(f"{t:.3f} s" if isinstance(t, (int, float)) else "")),
                      esc(e.get("kind", "")), esc(e.get("step") or ""),
                      esc(_event_detail(e))])
         kind = e.get("kind")
         classes.append("bad" if kind in ("error", "limit") else
                        "warn" if kind in _NOTICE_KINDS else "")
     if rows:
-        parts.append(_table(["#", "Time", "Kind", "Step", "Detail"], rows,
+        parts.append(table(["#", "Time", "Kind", "Step", "Detail"], rows,
                             row_classes=classes))
     return "".join(parts)
 
@@ -393,8 +213,8 @@ def render(data: RunData, an: Analysis, figures: list[FigureFile], missing: list
            version: str, made_at: str) -> str:
     """The whole report page as a string."""
     body = "".join([
-        _header(data, an, version), _missing(data, missing), _parameters(data, an),
-        _figures(figures), _qpoints(an), _device_and_instruments(data, an), _plan(data),
+        _header(data, an, version), _missing(data, missing), parameters(data, an),
+        _figures(figures), qpoints(an), _device_and_instruments(data, an), _plan(data),
         _events(data),
         f"<footer>Made by pnbench {esc(version)} at {esc(made_at)} from the files of this "
         "run folder.</footer>",

@@ -95,6 +95,7 @@ def test_the_page_holds_the_tables_the_issue_asks_for(full_run):
                    "Small-signal equivalent", "Mott", "cm\u207b\u00b3"):
         assert needle in text, needle
     assert "fit updates are in events.jsonl" in text
+    assert "Other results in model.json" in text and "hr-sw-101" in text
 
 
 def test_a_report_is_remade_in_place_without_leftovers(full_run):

@@ -13,8 +13,8 @@ from spicehelp import ac_admittance
 
 from pnbench.tui.report_analysis import BV_REACHED_FRACTION, analyze
 from pnbench.tui.report_data import load_run
-from pnbench.tui.report_figures import decade_limits, prefix_scale
-from pnbench.tui.report_html import qty
+from pnbench.tui.report_plotstyle import decade_limits, prefix_scale
+from pnbench.tui.report_tables import qty
 
 T = report_runs.TRUE
 
