@@ -15,7 +15,8 @@ each bundled file's header):
 
 The device on the bench is the card scaled by `area` (IS, IBV and CJO times area; RS and
 RSH divided by it, as simulators treat their AREA factor) and IS moved from `tnom_K` to
-`temperature_K` with the simulator law of PHYSICS.md section 7. Other parameters do not
+`temperature_K` with the simulator law of PHYSICS.md section 7
+(`junction.params_at_temperature`). Other parameters do not
 change with temperature here. Anything wrong raises DeviceFileError naming the file and key.
 """
 
@@ -29,8 +30,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from scipy import constants
-
+from pnbench.modeling import junction
 from pnbench.modeling.errors import DeviceFileError
 from pnbench.modeling.params import UNITS, DiodeParams
 
@@ -84,20 +84,11 @@ class SimDevice:
     @property
     def params(self) -> DiodeParams:
         """The diode on the bench: card scaled by area and moved to temperature_K."""
-        p, area = self.card, float(self.device["area"])
-        is_t = saturation_current_at(p, float(self.device["tnom_K"]), self.temperature_K)
-        return p.with_values(IS=is_t * area, IBV=p.IBV * area, CJO=p.CJO * area,
+        area = float(self.device["area"])
+        p = junction.params_at_temperature(self.card, self.temperature_K,
+                                           float(self.device["tnom_K"]))
+        return p.with_values(IS=p.IS * area, IBV=p.IBV * area, CJO=p.CJO * area,
                              RS=p.RS / area, RSH=p.RSH / area)
-
-
-def saturation_current_at(p: DiodeParams, tnom_K: float, temperature_K: float) -> float:
-    """IS at temperature_K from IS at tnom_K (PHYSICS.md section 7, simulator form):
-
-    IS(T) = IS * (T/Tn)**(XTI/N) * exp(EG*q/(N*k) * (1/Tn - 1/T)).
-    """
-    ratio = temperature_K / tnom_K
-    exponent = p.EG * constants.e / (p.N * constants.k) * (1.0 / tnom_K - 1.0 / temperature_K)
-    return p.IS * ratio ** (p.XTI / p.N) * math.exp(exponent)
 
 
 # --- loading ---------------------------------------------------------------------------
