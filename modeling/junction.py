@@ -28,6 +28,8 @@ from scipy.special import wrightomega
 
 from .params import DEFAULT_TEMPERATURE_K, DiodeParams
 
+_EPS = float(np.finfo(float).eps)
+
 #: Largest exponent used before clipping (exp(700) ~ 1e304 is still finite).
 _EXP_CAP = 700.0
 
@@ -79,7 +81,13 @@ def _times(g: float, v):
 
 
 def _exp(x):
-    return np.exp(np.minimum(x, _EXP_CAP))
+    """exp(x) capped above at exp(700) and exactly 0 below exp(-700) (~1e-304).
+
+    The floor is for speed as much as for cleanliness: numpy's exp takes a slow path
+    (about 15x) on arguments that underflow, which deep reverse bias produces in bulk.
+    """
+    x = np.asarray(x, dtype=float)
+    return np.where(x < -_EXP_CAP, 0.0, np.exp(np.clip(x, -_EXP_CAP, _EXP_CAP)))
 
 
 def _breakdown_log_k(p: DiodeParams, a: float) -> float:
@@ -144,7 +152,7 @@ def junction_current(vd, params: DiodeParams, temperature_K: float = DEFAULT_TEM
     log_k = _breakdown_log_k(params, a)
     shunt = _times(g, vd)
     breakdown = _k_exp(log_k, -vd / a) - _k(log_k)
-    return params.IS * np.expm1(np.minimum(vd / a, _EXP_CAP)) + shunt - breakdown
+    return params.IS * np.expm1(np.clip(vd / a, -_EXP_CAP, _EXP_CAP)) + shunt - breakdown
 
 
 def junction_conductance(vd, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K):
@@ -162,31 +170,46 @@ def current(v, params: DiodeParams, temperature_K: float = DEFAULT_TEMPERATURE_K
     v_arr = np.atleast_1d(np.asarray(v, dtype=float)).ravel()
     g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
     rs = params.RS
-    offset = -params.IS + _k(_breakdown_log_k(params, a))
-    i_fwd = _explicit_current(v_arr, offset, g, math.log(params.IS), +1, rs, a)
-    log_k = _breakdown_log_k(params, a)
+    log_is, log_k = math.log(params.IS), _breakdown_log_k(params, a)
+    offset = -params.IS + _k(log_k)
     if log_k == -math.inf:
-        return _shaped(i_fwd, shape)
-    i_bd = _explicit_current(v_arr, offset, g, log_k, -1, rs, a)
+        return _shaped(_explicit_current(v_arr, offset, g, log_is, +1, rs, a), shape)
 
-    def residual(i, v_):
-        return i - junction_current(v_ - i * rs, params, temperature_K)
+    def residual(i, idx=slice(None)):
+        return i - junction_current(v_arr[idx] - i * rs, params, temperature_K)
 
-    # The exact I lies in [i_bd, i_fwd]: each explicit branch leaves out one exponential.
-    # Keep the better one; refine only where neither is exact (near a low breakdown knee).
-    r_fwd, r_bd = residual(i_fwd, v_arr), residual(i_bd, v_arr)
-    use_bd = np.abs(r_bd) < np.abs(r_fwd)
-    i = np.where(use_bd, i_bd, i_fwd)
-    r = np.where(use_bd, r_bd, r_fwd)
-    need = np.abs(r) > 1e-13 * np.maximum(np.abs(i), params.IS)
-    if np.any(need):
-        i = np.array(i, dtype=float, copy=True)
+    def g_total(i, idx=slice(None)):
+        return g + junction_conductance(v_arr[idx] - i * rs, params, temperature_K)
+
+    def tolerance(i, idx=slice(None)):
+        # What a residual can be trusted to: 1e-13 relative, or the rounding of
+        # Vd = V - I*RS (a few ulps of the larger term) times the conductance there.
+        scale = np.abs(v_arr[idx]) + np.abs(i * rs)
+        return 1e-13 * np.maximum(np.abs(i), params.IS) + 8 * _EPS * scale * g_total(i, idx)
+
+    # Each explicit branch leaves out one exponential. Below -BV/2 (where Vd is too) the
+    # forward one is below IS*exp(-BV/(2a)), above it the breakdown one is below
+    # IBV*exp(-BV/(2a)): take the branch of each side, then check every point.
+    deep = v_arr < -0.5 * params.BV
+    i = np.empty_like(v_arr)
+    i[~deep] = _explicit_current(v_arr[~deep], offset, g, log_is, +1, rs, a)
+    i[deep] = _explicit_current(v_arr[deep], offset, g, log_k, -1, rs, a)
+    # One pass for the check: both exponentials once, for residual and tolerance.
+    vd = v_arr - i * rs
+    e_fwd, e_bd = params.IS * _exp(vd / a), _exp(log_k - vd / a)
+    ij = (e_fwd - params.IS) + _times(g, vd) - (e_bd - _k(log_k))
+    trusted = (1e-13 * np.maximum(np.abs(i), params.IS)
+               + 8 * _EPS * (np.abs(v_arr) + np.abs(i * rs)) * (g + (e_fwd + e_bd) / a))
+    need = np.flatnonzero(np.abs(i - ij) > trusted)
+    if need.size:
+        # Near a low breakdown knee both matter: the exact I lies in [i_bd, i_fwd].
+        i_fwd = _explicit_current(v_arr[need], offset, g, log_is, +1, rs, a)
+        i_bd = _explicit_current(v_arr[need], offset, g, log_k, -1, rs, a)
+        better = np.where(np.abs(residual(i_bd, need)) < np.abs(residual(i_fwd, need)),
+                          i_bd, i_fwd)
         i[need] = _newton(
-            lambda x, k=need: residual(x, v_arr[k]),
-            lambda x, k=need: 1.0 + rs * (g + junction_conductance(v_arr[k] - x * rs,
-                                                                   params, temperature_K)),
-            *_widened(np.minimum(i_bd, i_fwd)[need], np.maximum(i_bd, i_fwd)[need], 0.0),
-            i[need],
+            residual, lambda x, idx: 1.0 + rs * g_total(x, idx), tolerance, need,
+            *_widened(np.minimum(i_bd, i_fwd), np.maximum(i_bd, i_fwd), 0.0), better,
         )
     return _shaped(i, shape)
 
@@ -201,19 +224,28 @@ def _widened(lo, hi, scale: float):
     return lo - pad, hi + pad
 
 
-def _newton(f, df, lo, hi, x, iterations: int = 100):
-    """Safeguarded Newton for an increasing f on the bracket [lo, hi] (vectorized)."""
+def _newton(f, df, tol, idx, lo, hi, x, iterations: int = 100):
+    """Safeguarded Newton for increasing functions on brackets [lo, hi] (vectorized).
+
+    f(x, idx), df(x, idx) and tol(x, idx) evaluate the residual, its slope and the
+    residual that counts as zero for the points idx (indices into the caller's arrays);
+    only points not yet converged are evaluated again.
+    """
     lo, hi, x = lo.copy(), hi.copy(), x.copy()
+    active = np.arange(x.size)
     for _ in range(iterations):
-        r = f(x)
-        lo = np.where(r < 0, x, lo)
-        hi = np.where(r > 0, x, hi)
-        step = x - r / df(x)
-        outside = ~((step >= lo) & (step <= hi))
-        new = np.where(r == 0, x, np.where(outside, 0.5 * (lo + hi), step))
-        done = np.abs(new - x) <= 4e-16 * np.abs(new) + 1e-300
-        x = new
-        if np.all(done):
+        xa, ia = x[active], idx[active]
+        r = f(xa, ia)
+        settled = np.abs(r) <= tol(xa, ia)
+        lo_a = np.where(r < 0, xa, lo[active])
+        hi_a = np.where(r > 0, xa, hi[active])
+        step = xa - r / df(xa, ia)
+        outside = ~((step >= lo_a) & (step <= hi_a))
+        new = np.where(settled, xa, np.where(outside, 0.5 * (lo_a + hi_a), step))
+        small = np.abs(new - xa) <= 4e-16 * np.abs(new) + 1e-300
+        x[active], lo[active], hi[active] = new, lo_a, hi_a
+        active = active[~(settled | small)]
+        if active.size == 0:
             break
     return x
 
@@ -230,46 +262,58 @@ def junction_voltage(
     shape = np.shape(i_junction)
     i = np.atleast_1d(np.asarray(i_junction, dtype=float)).ravel()
     g = 0.0 if math.isinf(params.RSH) else 1.0 / params.RSH
-    log_k = _breakdown_log_k(params, a)
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        offset = -params.IS + _k(log_k)
-        vd_fwd = _explicit_vd(i, offset, g, math.log(params.IS), +1, a)
-        vd_fwd = np.where(np.isnan(vd_fwd), -np.inf, vd_fwd)
-        if log_k == -math.inf:
-            return _shaped(vd_fwd, shape)
-        vd_bd = _explicit_vd(i, offset, g, log_k, -1, a)
+    log_is, log_k = math.log(params.IS), _breakdown_log_k(params, a)
+    offset = -params.IS + _k(log_k)
+
+    def branch(current, s):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            x = _explicit_vd(current, offset, g, log_is if s > 0 else log_k, s, a)
+        # No solution: the forward branch never gets down there, the breakdown branch
+        # never gets up there.
+        return np.where(np.isnan(x), -np.inf * s, x)
+
+    if log_k == -math.inf:
+        return _shaped(branch(i, +1), shape)
+
+    def residual(x, idx=slice(None)):
+        return junction_current(x, params, temperature_K) - i[idx]
+
+    def slope(x, idx=slice(None)):
+        return g + junction_conductance(x, params, temperature_K)
+
+    def tolerance(x, idx=slice(None)):
+        # 1e-13 relative, or the rounding of Vd (a few ulps) times the conductance there.
+        return (1e-13 * np.maximum(np.abs(i[idx]), params.IS)
+                + 8 * _EPS * np.abs(x) * slope(x))
+
+    # As in `current`: the breakdown branch below the current at -BV/2, the forward
+    # branch above it, then a check of every point.
+    deep = i < float(junction_current(-0.5 * params.BV, params, temperature_K))
+    vd = np.empty_like(i)
+    vd[~deep], vd[deep] = branch(i[~deep], +1), branch(i[deep], -1)
+    with np.errstate(invalid="ignore"):
+        need = np.flatnonzero(~np.isfinite(vd) | ~(np.abs(residual(vd)) <= tolerance(vd)))
+    if need.size == 0:
+        return _shaped(vd, shape)
     # The exact Vd lies in [vd_fwd, vd_bd] (each branch leaves out one exponential); the
     # breakdown branch has no solution where the current is above -IS + K.
-    vd_bd = np.where(np.isnan(vd_bd), np.inf, vd_bd)
-    hi = np.minimum(vd_bd, np.where(i < 0, 0.0, np.inf))
+    ii = i[need]
+    vd_fwd, vd_bd = branch(ii, +1), branch(ii, -1)
+    hi = np.minimum(vd_bd, np.where(ii < 0, 0.0, np.inf))
     lo = np.where(np.isfinite(vd_fwd), vd_fwd, hi - 60 * a)
     # Above -IS the breakdown branch gives no upper end; above lo the breakdown current
     # is at most d = K*exp(-lo/a), so the forward branch at i + d is one.
     open_top = ~np.isfinite(hi) & np.isfinite(lo)
     if np.any(open_top):
-        d = _k_exp(log_k, -lo[open_top] / a)
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            hi[open_top] = _explicit_vd(i[open_top] + d, offset, g, math.log(params.IS),
-                                        +1, a)
-
-    def residual(x, k):
-        return junction_current(x, params, temperature_K) - i[k]
-
-    candidates = np.stack([np.where(np.isfinite(lo), lo, 0.0), np.where(np.isfinite(hi), hi, 0.0)])
-    everywhere = np.ones(i.shape, dtype=bool)
-    res = np.abs(np.stack([residual(c, everywhere) for c in candidates]))
-    pick = np.argmin(res, axis=0)
-    vd = np.where(pick == 0, candidates[0], candidates[1])
-    r = np.min(res, axis=0)
-    need = (r > 1e-13 * np.maximum(np.abs(i), params.IS)) & np.isfinite(hi)
-    if np.any(need):
-        vd = np.array(vd, dtype=float, copy=True)
-        vd[need] = _newton(
-            lambda x, k=need: residual(x, k),
-            lambda x: g + junction_conductance(x, params, temperature_K),
-            *_widened(lo[need], hi[need], a),
-            vd[need],
-        )
+        hi[open_top] = branch(ii[open_top] + _k_exp(log_k, -lo[open_top] / a), +1)
+    candidates = [np.where(np.isfinite(lo), lo, 0.0), np.where(np.isfinite(hi), hi, 0.0)]
+    res = [np.abs(residual(c, need)) for c in candidates]
+    start = np.where(res[0] <= res[1], candidates[0], candidates[1])
+    vd[need] = start
+    ok = np.isfinite(hi) & ~(np.minimum(res[0], res[1]) <= tolerance(start, need))
+    if np.any(ok):
+        vd[need[ok]] = _newton(residual, slope, tolerance, need[ok],
+                               *_widened(lo[ok], hi[ok], a), start[ok])
     return _shaped(vd, shape)
 
 
