@@ -10,8 +10,12 @@ and waits for that before returning.
 
 from __future__ import annotations
 
+import contextlib
 import math
+import os
 import signal
+import threading
+import time
 from pathlib import Path
 
 from textual.app import App
@@ -43,13 +47,15 @@ class PnbenchApp(App):
     TITLE = "pnbench"
     ENABLE_COMMAND_PALETTE = False
 
+    #: Quit and the key list come first: on an 80-column footer the screen keys after
+    #: them may not fit, and the screen bar at the top shows those anyway.
     BINDINGS = [
-        Binding("f2", "goto('bench')", "Bench", priority=True),
-        Binding("f3", "goto('plan')", "Plan", priority=True),
-        Binding("f4", "goto('run')", "Run", priority=True),
-        Binding("f5", "goto('review')", "Review", priority=True),
-        Binding("f1", "keys", "Keys"),
         Binding("ctrl+q", "quit", "Quit", priority=True),
+        Binding("f1", "keys", "Keys", key_display="F1"),
+        Binding("f2", "goto('bench')", "Bench", priority=True, key_display="F2"),
+        Binding("f3", "goto('plan')", "Plan", priority=True, key_display="F3"),
+        Binding("f4", "goto('run')", "Run", priority=True, key_display="F4"),
+        Binding("f5", "goto('review')", "Review", priority=True, key_display="F5"),
     ]
 
     output_text = reactive("outputs: no sweep started in this app")
@@ -76,6 +82,7 @@ class PnbenchApp(App):
         self.plan = None
         self.plan_error = ""
         self._was_active = False
+        self._shown_status = ""
         self._closing = False
         if self.plan_path is not None:
             self.load_plan_file(self.plan_path)
@@ -228,6 +235,8 @@ class PnbenchApp(App):
         self.poll_outputs()
         if was_active and not self._was_active:
             self.refresh_bindings()
+            if live.run_dir is not None:
+                self._apply_model(FolderTail(live.run_dir))
             if self.state.finished:
                 self.notify(f"Run {self.state.status}. F5 reviews it: refit, card, report.",
                             timeout=8)
@@ -239,8 +248,18 @@ class PnbenchApp(App):
         batch = self.tail.poll()
         if batch:
             apply_batch(self.state, batch)
+        if self.state.finished:  # the final model of every point, once written
+            self._apply_model(self.tail)
         self._update_outputs(self.state.outputs)
         self._update_status()
+
+    def _apply_model(self, tail: FolderTail) -> None:
+        try:
+            doc = tail.read_model()
+        except PnbenchError:
+            return  # being replaced right now: the next poll reads it
+        if doc is not None:
+            self.state.apply_model_json(doc)
 
     def poll_outputs(self) -> None:
         live = self.live
@@ -266,6 +285,9 @@ class PnbenchApp(App):
         fraction = state.progress_fraction()
         percent = f" {fraction:.0%}" if math.isfinite(fraction) else ""
         self.status_text = f"{state.status}{percent}"
+        if state.status != self._shown_status:  # Pause becomes Resume, Start comes back
+            self._shown_status = state.status
+            self.refresh_bindings()
 
     # ------------------------------------------------------------------ navigation
     def check_action(self, action: str, parameters: tuple) -> bool | None:
@@ -316,17 +338,35 @@ class PnbenchApp(App):
         self.call_from_thread(self.exit, 0)
 
 
+#: Seconds the hang-up guard waits for the sweep's ramp-down and off check, then for the
+#: app's own exit, before it ends the process itself.
+HANGUP_RUN_WAIT_S = 120.0
+HANGUP_EXIT_WAIT_S = 3.0
+
+
 def _safe_exit_on_signals(app: PnbenchApp) -> dict:
-    """SIGHUP (the SSH link dropped) and SIGTERM end the app through its normal exit,
-    after which run_app aborts the sweep; returns the previous handlers."""
+    """On SIGHUP (the SSH link dropped) and SIGTERM: abort the sweep this app owns (the
+    runner ramps down and turns every output off) and end the app.
+
+    A dropped terminal can leave Textual's main thread blocked writing to it, so the
+    handler does not rely on the app: it tells the runner to abort (a flag, returns at
+    once) and starts a guard thread that waits for the runner to confirm the outputs
+    off, gives the app a moment to exit normally, and otherwise ends the process.
+    Returns the previous handlers."""
     previous = {}
 
     def handler(signum, _frame) -> None:
+        if app._closing:
+            return
         app._closing = True
-        try:
-            app.call_later(app.exit, 4)
-        except Exception:  # noqa: BLE001 - the loop may be gone; the finally still runs
-            raise KeyboardInterrupt from None
+        live = app.live
+        if live is not None and live.running:
+            live.abort(f"the app got {signal.Signals(signum).name} (terminal hung up or "
+                       "asked to stop)")
+        threading.Thread(target=_hangup_guard, args=(app, live), daemon=True,
+                         name="pnbench-hangup").start()
+        with contextlib.suppress(Exception):
+            app.call_later(app.exit, None, 4)
 
     for sig in (signal.SIGHUP, signal.SIGTERM):
         try:
@@ -334,6 +374,17 @@ def _safe_exit_on_signals(app: PnbenchApp) -> dict:
         except (ValueError, OSError):  # not the main thread
             pass
     return previous
+
+
+def _hangup_guard(app: PnbenchApp, live) -> None:
+    if live is not None:
+        live.wait(HANGUP_RUN_WAIT_S)  # the runner's ramp-down, outputs off, files closed
+    deadline = time.monotonic() + HANGUP_EXIT_WAIT_S
+    while time.monotonic() < deadline:
+        if not app.is_running:
+            return  # the app ended by itself; run_app finishes the job
+        time.sleep(0.05)
+    os._exit(4)  # the terminal is gone and the app cannot draw its way out
 
 
 def run_app(plan_path: str | Path | None = None, simulate: str | None = None,

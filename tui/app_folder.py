@@ -22,6 +22,7 @@ from .app_state import RunState
 POINTS = "points.csv"
 EVENTS = "events.jsonl"
 RUN = "run.json"
+MODEL = "model.json"
 
 
 @dataclass
@@ -31,6 +32,7 @@ class Batch:
     points: list[dict] = field(default_factory=list)
     events: list[dict] = field(default_factory=list)
     run: dict | None = None
+    model: dict | None = None
     metadata: dict[str, str] = field(default_factory=dict)
     problems: list[str] = field(default_factory=list)
 
@@ -80,6 +82,7 @@ class FolderTail:
         self._events = _LineReader(self.run_dir / EVENTS)
         self._header: list[str] | None = None
         self._run_stamp: tuple[int, int] | None = None
+        self._model_stamp: tuple[int, int] | None = None
         self.metadata: dict[str, str] = {}
         self.points_line = 0
 
@@ -92,6 +95,12 @@ class FolderTail:
         self._poll_events(batch)
         self._poll_run(batch)
         return batch
+
+    def read_model(self) -> dict | None:
+        """model.json when it changed since the last call (None otherwise)."""
+        doc, self._model_stamp = read_json_if_changed(self.run_dir / MODEL,
+                                                      self._model_stamp)
+        return doc
 
     def _poll_points(self, batch: Batch) -> None:
         lines = self._points.read()
@@ -133,22 +142,29 @@ class FolderTail:
                 batch.problems.append(f"{self.run_dir / EVENTS} line {number}: not an object")
 
     def _poll_run(self, batch: Batch) -> None:
-        path = self.run_dir / RUN
         try:
-            st = os.stat(path)
-        except FileNotFoundError:
-            return
-        stamp = (st.st_mtime_ns, st.st_size)
-        if stamp == self._run_stamp:
-            return
-        try:
-            doc = json.loads(path.read_text(encoding="utf-8"))
-        except (OSError, json.JSONDecodeError) as exc:
-            batch.problems.append(f"{path}: cannot read yet ({exc})")
-            return
-        self._run_stamp = stamp
-        if isinstance(doc, dict):
-            batch.run = doc
+            batch.run, self._run_stamp = read_json_if_changed(self.run_dir / RUN,
+                                                              self._run_stamp)
+        except DataFileError as exc:
+            batch.problems.append(str(exc))
+
+
+def read_json_if_changed(path: Path, stamp: tuple[int, int] | None
+                         ) -> tuple[dict | None, tuple[int, int] | None]:
+    """(document, new stamp) of a JSON file replaced atomically by its writer; the
+    document is None when the file is missing or has not changed since `stamp`."""
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        return None, stamp
+    new = (st.st_mtime_ns, st.st_size)
+    if new == stamp:
+        return None, stamp
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError) as exc:
+        raise DataFileError(f"{path}: cannot read yet ({exc})") from None
+    return (doc if isinstance(doc, dict) else None), new
 
 
 def apply_batch(state: RunState, batch: Batch) -> None:

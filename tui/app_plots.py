@@ -21,13 +21,17 @@ from .app_state import Estimate, RunState
 
 #: (key, title) of every view, in the order the view key cycles through them.
 VIEWS: tuple[tuple[str, str], ...] = (
-    ("iv", "I-V semilog"),
+    ("fwd", "I-V forward"),
+    ("rev", "I-V reverse"),
     ("resid", "I-V residual"),
     ("cv", "C-V"),
     ("mott", "Mott-Schottky"),
-    ("yc", "Cp vs f"),
-    ("yg", "Gp vs f"),
+    ("yc", "admittance C"),
+    ("yg", "admittance G"),
 )
+
+#: The view that shows a step kind best (the run screen follows the running step).
+VIEW_OF_KIND = {"iv_forward": "fwd", "iv_reverse": "rev", "cv": "cv", "admittance": "yc"}
 
 #: Decades shown below the largest current on the semilog I-V plot; smaller currents
 #: (such as the exact zero of a point at 0 V) would squash the rest into a few rows.
@@ -35,8 +39,12 @@ IV_DECADES = 14
 #: No current below this is drawn (far under any bench SMU's resolution).
 IV_FLOOR_A = 1e-16
 
-#: Most points drawn per series; beyond this every k-th point is drawn.
-MAX_DRAWN = 2500
+#: Most points drawn per series. A terminal plot has a few thousand character cells:
+#: beyond this, points that would land in the same spot of a fine grid are drawn once,
+#: then every k-th point. Drawing is the costly part of a redraw (textual-plot draws
+#: point by point), so this keeps keys answered while a long sweep streams in.
+MAX_DRAWN = 800
+THIN_GRID = 400
 
 #: Markers for data series, distinct without colour.
 MARKERS = ("o", "+", "x", "*", "#", "@")
@@ -91,12 +99,26 @@ def has_cv_fit(parameters: dict[str, Estimate]) -> bool:
     return "CJO" in parameters
 
 
-def _thin(*arrays: np.ndarray) -> tuple[np.ndarray, ...]:
-    n = len(arrays[0])
+def _thin(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """At most MAX_DRAWN points that look the same as (x, y) on a terminal plot."""
+    n = len(x)
     if n <= MAX_DRAWN:
-        return arrays
-    step = int(math.ceil(n / MAX_DRAWN))
-    return tuple(a[::step] for a in arrays)
+        return x, y
+    finite = np.isfinite(x) & np.isfinite(y)
+    x, y = x[finite], y[finite]
+    if len(x) == 0:
+        return x, y
+
+    def cell(values: np.ndarray) -> np.ndarray:
+        lo, hi = float(values.min()), float(values.max())
+        span = hi - lo if hi > lo else 1.0
+        return np.minimum(((values - lo) / span * THIN_GRID).astype(np.int64), THIN_GRID)
+
+    _, first = np.unique(cell(x) * (THIN_GRID + 1) + cell(y), return_index=True)
+    keep = np.sort(first)
+    if len(keep) > MAX_DRAWN:
+        keep = keep[:: int(math.ceil(len(keep) / MAX_DRAWN))]
+    return x[keep], y[keep]
 
 
 def _log10_abs(values: np.ndarray) -> np.ndarray:
@@ -138,27 +160,40 @@ def _admittance_split(state: RunState) -> tuple[np.ndarray, np.ndarray]:
 def plot_data(view: str, state: RunState) -> PlotData:
     """The series of one view (see VIEWS) for the run as it stands."""
     params = model_params(state.parameters)
-    builder = {"iv": _iv, "resid": _residual, "cv": _cv, "mott": _mott,
+    builder = {"fwd": _iv, "rev": _iv, "resid": _residual, "cv": _cv, "mott": _mott,
                "yc": _admittance, "yg": _admittance}[view]
     return builder(view, state, params)
 
 
+def _reverse_mask(state: RunState) -> np.ndarray:
+    """I-V points of reverse steps (by step kind; by the sign of V when unknown)."""
+    kinds = [state.step_kind(step).lower() for step in state.iv.steps]
+    v = state.iv.column("voltage_V")
+    known = np.array([k.startswith("iv_") for k in kinds], dtype=bool)
+    by_kind = np.array([k == "iv_reverse" for k in kinds], dtype=bool)
+    return np.where(known, by_kind, v < 0)
+
+
 def _iv(view: str, state: RunState, params: DiodeParams | None) -> PlotData:
     data = PlotData(view, dict(VIEWS)[view], "V", "|I|", "V", "A", y_log=True)
-    v, i = state.iv.column("voltage_V"), state.iv.column("current_A")
-    compliance = state.iv.column("compliance") > 0
+    reverse = _reverse_mask(state)
+    keep = reverse if view == "rev" else ~reverse
+    v, i = state.iv.column("voltage_V")[keep], state.iv.column("current_A")[keep]
+    compliance = state.iv.column("compliance")[keep] > 0
     ok = ~compliance
     data.series.append(Series(*_thin(v[ok], _log10_abs(i[ok])), "measured", marker="o"))
     if compliance.any():
         data.series.append(Series(v[compliance], _log10_abs(i[compliance]),
                                   "in compliance", marker="!"))
-        data.note = f"{int(compliance.sum())} points in compliance (marked !)"
+        data.note = f"{int(compliance.sum())} in compliance (!)"
     if params is not None and has_dc_fit(state.parameters) and len(v):
         grid = _grid(v)
         fit = junction.current(grid, params, state.temperature_K)
         data.series.append(Series(grid, _log10_abs(np.asarray(fit)), "fit", line=True))
     elif len(v):
         data.note = data.note or "no I-V fit yet"
+    if not len(v):
+        data.note = f"no {'reverse' if view == 'rev' else 'forward'} I-V points yet"
     _clip_decades(data)
     return data
 

@@ -268,6 +268,19 @@ class RunState:
                 progress.planned = planned
         self.version += 1
 
+    def apply_model_json(self, doc: dict) -> None:
+        """The run's model.json (the fit of every point, written after each step and at
+        the end): its values replace the live estimates of the same names."""
+        for name, entry in (doc.get("parameters") or {}).items():
+            if not isinstance(entry, dict) or not isinstance(entry.get("value"),
+                                                               (int, float)):
+                continue
+            sigma = entry.get("sigma")
+            self.parameters[name] = Estimate(
+                float(entry["value"]),
+                float(sigma) if isinstance(sigma, (int, float)) else None, True)
+        self.version += 1
+
     def add_log(self, entry: LogEntry) -> None:
         self.log.append(entry)
         self.log_total += 1
@@ -334,8 +347,8 @@ class RunState:
         planned = sum(p.planned for p in self.steps.values())
         if planned <= 0:
             return math.nan
-        done = sum(min(p.done, p.planned) if p.planned else p.done
-                   for p in self.steps.values())
+        done = sum(p.planned if p.remaining_points() == 0 and p.status != "pending"
+                   else min(p.done, p.planned) for p in self.steps.values())
         return min(done / planned, 1.0)
 
     def elapsed_s(self) -> float:

@@ -9,7 +9,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import VerticalScroll
 from textual.screen import Screen
-from textual.widgets import DataTable, Footer, Static
+from textual.widgets import Footer, Static
 
 from .app_bench import (
     InstrumentRow,
@@ -22,6 +22,7 @@ from .app_bench import (
 from .widget_banner import ScreenBar, SourceBanner
 
 REFRESH_S = 0.5
+ROLE_NAMES = {"smu": "SMU (source-measure unit)", "lcr": "LCR meter"}
 
 
 class BenchScreen(Screen):
@@ -43,17 +44,14 @@ class BenchScreen(Screen):
         yield SourceBanner()
         yield ScreenBar("bench", "Bench")
         with VerticalScroll(id="bench-body"):
-            yield Static("Instruments of the plan", classes="section")
-            yield DataTable(id="bench-instruments", cursor_type="row", show_cursor=False)
+            yield Static("Instruments", classes="section")
+            yield Static("", id="bench-instruments")
             yield Static("", id="bench-outputs")
             yield Static("Resources the VISA backends list", classes="section")
             yield Static("", id="bench-resources")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
-        table = self.query_one("#bench-instruments", DataTable)
-        for name in ("role", "resource", "backend", "dialect", "identity", "state"):
-            table.add_column(name, key=name)
         self.refresh_rows()
         self.set_interval(REFRESH_S, self.refresh_rows)
 
@@ -78,16 +76,31 @@ class BenchScreen(Screen):
         self._show_resources()
 
     def _fill(self, rows: list[InstrumentRow]) -> None:
-        table = self.query_one("#bench-instruments", DataTable)
-        if rows == self.rows and table.row_count:
-            return
+        """One block per role: the state first, then where it is and what it said."""
         self.rows = rows
-        table.clear()
         if not rows:
-            table.add_row("--", "no plan loaded (F3 Plan)", "", "", "", "")
-        for row in rows:
-            table.add_row(row.role, row.resource, row.backend, row.dialect,
-                          row.identity or "--", row.state)
+            text = "No plan loaded: F3 opens the Plan screen."
+        else:
+            outputs = self._outputs()
+            blocks = []
+            for row in rows:
+                state = next((on for key, on in outputs.items()
+                              if key.split("_")[0] == row.role), None)
+                output = "unknown" if state is None else ("ON" if state else "off")
+                backend = f" ({row.backend})" if row.backend else ""
+                blocks.append(
+                    f"{ROLE_NAMES.get(row.role, row.role.upper())}  [{row.state}]\n"
+                    f"  resource  {row.resource}{backend}\n"
+                    f"  dialect   {row.dialect or '--'}\n"
+                    f"  identity  {row.identity or '-- (i asks it)'}\n"
+                    f"  output    {output}")
+            text = "\n".join(blocks)
+        self.query_one("#bench-instruments", Static).update(text)
+
+    def _outputs(self) -> dict[str, bool]:
+        app = self.app
+        truth = app.live.outputs() if app.live is not None else None
+        return truth if truth is not None else dict(app.state.outputs)
 
     def _show_outputs(self) -> None:
         app = self.app
@@ -139,9 +152,7 @@ class BenchScreen(Screen):
     def _identified_rows(self, rows: list[InstrumentRow]) -> None:
         self._identified = True
         self._busy = ""
-        self.rows = []
         self._fill(rows)
-        self.rows = rows
 
     def _identified_failed(self, message: str) -> None:
         self._busy = f"identify failed: {message}"

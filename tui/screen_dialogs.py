@@ -45,7 +45,7 @@ class ConfirmDialog(ModalScreen[bool]):
             yield Static(self.title_text, classes="dialog-title")
             yield Static(self.body)
             yield Static("y: yes    n or Esc: no", classes="dialog-error")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_key(self, event) -> None:
         if self.yes_key and event.key == self.yes_key:  # the same key twice confirms
@@ -74,7 +74,7 @@ class PathDialog(ModalScreen[str | None]):
             yield Static(self.hint)
             yield Input(self.value, id="path")
             yield Static("", classes="dialog-error", id="path-error")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_input_submitted(self, event: Input.Submitted) -> None:
         text = event.value.strip()
@@ -110,7 +110,7 @@ class QPointDialog(ModalScreen[QChoice | None]):
             yield Input(freqs, id="freqs")
             yield Static("Enter: accept   Tab: next field   Esc: cancel",
                          classes="dialog-error", id="qpoint-error")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_input_submitted(self, event: Input.Submitted) -> None:
         try:

@@ -29,7 +29,7 @@ class PlanScreen(Screen):
         Binding("ctrl+s", "save", "Save as", priority=True),
         Binding("ctrl+n", "example", "Example", priority=True),
         Binding("ctrl+r", "run", "Run it", priority=True),
-        Binding("escape", "leave_editor", "Leave editor", show=False),
+        Binding("escape", "leave_editor", "Messages", show=False),
     ]
 
     def compose(self) -> ComposeResult:
@@ -37,10 +37,10 @@ class PlanScreen(Screen):
         yield ScreenBar("plan", "Plan")
         yield Static("", id="plan-path")
         with Horizontal(id="plan-body"):
-            yield TextArea("", id="plan-text", show_line_numbers=True, tab_behavior="indent")
+            yield TextArea("", id="plan-text", show_line_numbers=True, tab_behavior="focus")
             with VerticalScroll(id="plan-report"):
                 yield Static("", id="plan-messages")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         editor = self.query_one(TextArea)

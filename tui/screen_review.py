@@ -37,14 +37,14 @@ class ReviewScreen(Screen):
     """Open a run folder, choose points, refit, export."""
 
     BINDINGS = [
-        Binding("o", "open", "Open run"),
-        Binding("space", "toggle", "Use/skip"),
+        Binding("o", "open", "Open"),
+        Binding("space", "toggle", "Use"),
         Binding("t", "toggle_step", "Step"),
         Binding("a", "use_all", "All"),
         Binding("r", "refit", "Refit"),
         Binding("c", "card", "Card"),
         Binding("e", "report", "Report"),
-        Binding("v", "next_view", "Plot view"),
+        Binding("v", "next_view", "View"),
     ]
 
     def __init__(self):
@@ -63,7 +63,7 @@ class ReviewScreen(Screen):
             with Vertical(id="review-side"):
                 yield ParamTable(id="review-params")
         yield DataTable(id="review-points", cursor_type="row", zebra_stripes=True)
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         table = self.query_one("#review-points", DataTable)

@@ -16,7 +16,7 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 from textual.widgets import Footer, Log, Static
 
-from .app_plots import VIEWS, has_dc_fit, model_params, plot_data
+from .app_plots import VIEW_OF_KIND, VIEWS, has_dc_fit, model_params, plot_data
 from .widget_banner import ScreenBar, SourceBanner
 from .widget_params import ParamTable
 from .widget_plot import SweepPlot
@@ -40,9 +40,10 @@ class RunScreen(Screen):
 
     BINDINGS = [
         Binding("s", "start", "Start"),
-        Binding("space", "pause", "Pause/resume"),
+        Binding("space", "pause", "Pause"),
+        Binding("space", "resume", "Resume"),
         Binding("x", "abort", "Abort"),
-        Binding("v", "next_view", "Plot view"),
+        Binding("v", "next_view", "View"),
         Binding("V", "previous_view", "Prev view", show=False),
         Binding("p", "next_panel", "Panel"),
         Binding("b", "pick_qpoint", "Q-point"),
@@ -53,6 +54,8 @@ class RunScreen(Screen):
         super().__init__()
         self.read_only = read_only
         self.view_index = 0
+        #: the plot follows the running step's kind until the user picks a view
+        self.follow_step = True
         self.panel_index = 0
         self._drawn_version = -1
         self._plot_version = -1
@@ -71,7 +74,7 @@ class RunScreen(Screen):
                 yield Log(id="log", max_lines=2000, auto_scroll=True)
         yield RunProgress(id="run-progress")
         yield Static("", id="run-last")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         for widget_id in ("params", "qpoint", "log"):
@@ -106,6 +109,8 @@ class RunScreen(Screen):
             self._tick_progress()
             return
         self._drawn_version = state.version
+        if self.follow_step:
+            self._follow(state)
         params = model_params(state.parameters)
         self.query_one(ParamTable).show(state.parameters)
         self.query_one(QPointPanel).show(params, state.temperature_K,
@@ -113,8 +118,16 @@ class RunScreen(Screen):
         self.query_one(RunProgress).show(state)
         self._append_log()
         now = time.monotonic()
-        if force or now - self._plot_drawn_at >= PLOT_PERIOD_S:
+        if force or now - self._plot_drawn_at >= PLOT_PERIOD_S:  # throttled
             self._draw_plot()
+
+    def _follow(self, state) -> None:
+        kind = state.step_kind(state.current_step or "")
+        key = VIEW_OF_KIND.get(kind)
+        keys = [k for k, _ in VIEWS]
+        if key in keys and keys.index(key) != self.view_index:
+            self.view_index = keys.index(key)
+            self._plot_drawn_at = 0.0  # draw the new view now
 
     def _tick_progress(self) -> None:
         """Elapsed time moves while nothing arrives; the plot catches up if it lagged."""
@@ -149,9 +162,12 @@ class RunScreen(Screen):
 
     # ------------------------------------------------------------------ actions
     def check_action(self, action: str, parameters: tuple) -> bool | None:
-        if action in ("start", "pause", "abort"):
+        if action in ("start", "pause", "resume", "abort"):
             if self.read_only:
                 return False  # watching: no control over the acquisition, not shown
+            paused = self.state.status == "paused"
+            if (action == "pause" and paused) or (action == "resume" and not paused):
+                return False  # one space key: Pause while running, Resume when paused
             return True if self.app.can_run_action(action) else None
         return True
 
@@ -159,6 +175,9 @@ class RunScreen(Screen):
         self.app.start_run()
 
     def action_pause(self) -> None:
+        self.app.toggle_pause()
+
+    def action_resume(self) -> None:
         self.app.toggle_pause()
 
     def action_abort(self) -> None:
@@ -171,6 +190,7 @@ class RunScreen(Screen):
         self.action_view((self.view_index - 1) % len(VIEWS))
 
     def action_view(self, index: int) -> None:
+        self.follow_step = False
         self.view_index = int(index) % len(VIEWS)
         self._draw_plot()
 

@@ -117,7 +117,8 @@ class SweepPlot(Vertical):
                              else SIFormatter(data.x_unit))
         plot.set_y_formatter(DecadeFormatter(data.y_unit) if data.y_log
                              else SIFormatter(data.y_unit))
-        plot.set_ylabel(y_title)
+        # textual-plot does not clear the label row: pad over a longer earlier label
+        plot.set_ylabel(y_title.ljust(14))
         plot.set_xlabel(x_title)  # drawn only when the bottom margin has room
         # lines first, so the measured markers stay visible on top of the fit
         for series in sorted(data.series, key=lambda s: not s.line):

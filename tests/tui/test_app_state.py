@@ -154,11 +154,15 @@ def test_fit_curve_through_true_parameters_has_zero_residual(finished_state):
 
 def test_semilog_view_holds_log10_of_current_and_the_admittance_view_splits_biases(
         finished_state):
-    data = plot_data("iv", finished_state)
+    data = plot_data("fwd", finished_state)
     measured = data.series[0]
+    v = finished_state.iv.column("voltage_V")
     i = np.abs(finished_state.iv.column("current_A"))
-    shown = np.isfinite(measured.y)
-    assert np.allclose(10 ** measured.y[shown], i[: len(measured.y)][shown])
+    forward = np.array([s == "forward" for s in finished_state.iv.steps])
+    assert np.array_equal(measured.x, v[forward])
+    assert np.allclose(10 ** measured.y, i[forward])
+    reverse = plot_data("rev", finished_state).series[0]
+    assert np.array_equal(reverse.x, v[~forward]) and (reverse.x <= 0).all()
     adm = plot_data("yc", finished_state)
     labels = {s.label for s in adm.series if not s.line}
     assert labels == {"+0.5 V", "+0.6 V"}
