@@ -30,6 +30,7 @@ from .report_plotstyle import (
     grids,
     hz,
     log_axis,
+    marks,
     new_figure,
     prefix_scale,
     title,
@@ -60,9 +61,9 @@ def forward_iv(an: Analysis, device: str):
     fig, axes = new_figure(2, 1, sharex=True, height_ratios=(3, 1.2))
     top, low = axes[0, 0], axes[1, 0]
     v, i, hit = pts.voltage_V, np.abs(pts.current_A), pts.compliance
-    top.plot(v[~hit], i[~hit], "o", color=MEASURED, mfc="none", label="measured")
+    marks(top, v[~hit], i[~hit], "o", MEASURED, label="measured")
     if hit.any():
-        top.plot(v[hit], i[hit], "s", color=COMPLIANCE, mfc="none", label="at compliance")
+        marks(top, v[hit], i[hit], "s", COMPLIANCE, label="at compliance")
     shown = [i]
     p = an.params
     if p is not None and an.model is not None and "IS" in an.model.values:
@@ -74,8 +75,7 @@ def forward_iv(an: Analysis, device: str):
         res = 100.0 * (i[ok] / at[ok] - 1.0)
         cap = float(min(100.0, max(1.0, 1.15 * np.max(np.abs(res))))) if res.size else 1.0
         low.axhline(0.0, color="#505860", linewidth=0.8)
-        low.plot(v[ok], np.clip(res, -cap, cap), "o", color=MEASURED, mfc="none",
-                 markersize=3.5)
+        marks(low, v[ok], np.clip(res, -cap, cap), "o", MEASURED, small=True)
         low.set_ylim(-cap, cap)
         beyond = int(np.sum(np.abs(res) > cap))
         if beyond:
@@ -103,9 +103,9 @@ def reverse_iv(an: Analysis, device: str):
     fig, axes = new_figure()
     ax = axes[0, 0]
     v, i, hit = pts.voltage_V, np.abs(pts.current_A), pts.compliance
-    ax.plot(v[~hit], i[~hit], "o", color=MEASURED, mfc="none", label="measured")
+    marks(ax, v[~hit], i[~hit], "o", MEASURED, label="measured")
     if hit.any():
-        ax.plot(v[hit], i[hit], "s", color=COMPLIANCE, mfc="none", label="at compliance")
+        marks(ax, v[hit], i[hit], "s", COMPLIANCE, label="at compliance")
     shown = [i]
     p = an.params
     if p is not None and an.model is not None and "IS" in an.model.values:
@@ -152,7 +152,7 @@ def cv(an: Analysis, device: str):
         f_label = hz(c.label_value)
         if len({x.step for x in an.cv_curves}) > 1:
             f_label += f" ({c.step})"
-        ax.plot(c.voltage_V, c.capacitance_F / factor, "o", color=colour, mfc="none",
+        marks(ax, c.voltage_V, c.capacitance_F / factor, "o", colour,
                 label=f"measured, {f_label}")
         if _has(an, "CJO", "TT"):
             grid = np.linspace(c.voltage_V.min(), c.voltage_V.max(), 300)

@@ -107,6 +107,21 @@ def _mantissa_labels(value: float, _pos=None) -> str:
     return f"{mantissa}\u00d7{_power(exponent)}" if mantissa in (2, 5) else ""
 
 
+#: Above this many points a marker set is drawn as an image inside the SVG (an overnight
+#: run's tens of thousands of markers would otherwise make an SVG of many megabytes).
+RASTER_ABOVE = 2000
+
+
+def marks(ax, x, y, marker: str, colour, *, small: bool = False, **kw):
+    """Measured points as open markers, smaller and rasterized when there are many."""
+    n = len(x)
+    size = 3.5 if small else 4.5
+    if n > 300:
+        size = min(size, 2.5)
+    return ax.plot(x, y, marker, color=colour, mfc="none", markersize=size,
+                   linestyle="none", rasterized=n > RASTER_ABOVE, **kw)
+
+
 def new_figure(rows: int = 1, cols: int = 1, **kw):
     from matplotlib.figure import Figure
 

@@ -1,0 +1,76 @@
+"""How long a report takes, and how it grows with the number of points.
+
+Baseline: the report of a complete synthetic run (forward and reverse I-V, C-V, forward
+admittance; about 170 points), made in this process after one warm-up report so that
+matplotlib's import and font cache are not counted. Then the same run with 20 000 and
+50 000 extra forward I-V points (an overnight run's size). Figures: seconds per report,
+the ratio to the baseline, and the size of the largest SVG (markers are rasterized above
+a few thousand points so it stays small).
+
+    python tests/benchmarks/report.py
+
+Last line: one JSON object with the figures.
+"""
+
+from __future__ import annotations
+
+import json
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tui"))
+
+import report_runs  # noqa: E402  (test helper beside the report tests)
+
+from pnbench.modeling import junction  # noqa: E402
+from pnbench.tui.report import build_report  # noqa: E402
+
+
+def _add_forward_points(run_dir: Path, count: int) -> None:
+    rng = np.random.default_rng(3)
+    v = np.linspace(0.01, 0.85, count)
+    i = junction.current(v, report_runs.TRUE, report_runs.TEMPERATURE_K)
+    i = i * (1 + 0.003 * rng.standard_normal(count))
+    lines = [f"forward_iv,{1000 + k},iv,{k * 0.01:.6f},{a!r},{b!r},,,,0"
+             for k, (a, b) in enumerate(zip(v.tolist(), i.tolist(), strict=True))]
+    with open(run_dir / "points.csv", "a", encoding="utf-8") as f:
+        f.write("\n".join(lines) + "\n")
+
+
+def _timed(run_dir: Path, repeats: int) -> float:
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        build_report(run_dir)
+        times.append(time.perf_counter() - start)
+    return statistics.median(times)
+
+
+def main() -> None:
+    with tempfile.TemporaryDirectory() as tmp:
+        root = Path(tmp)
+        base = report_runs.make_run(root, name="base")
+        build_report(base)  # warm-up: imports, font cache
+        t_base = _timed(base, 3)
+        print(f"complete run, ~170 points: {t_base:.2f} s per report")
+        figures = {"baseline_s": round(t_base, 3)}
+        for extra in (20_000, 50_000):
+            run_dir = report_runs.make_run(root, name=f"big{extra}")
+            _add_forward_points(run_dir, extra)
+            t = _timed(run_dir, 1)
+            svg_kB = max(p.stat().st_size for p in (run_dir / "figures").glob("*.svg")) / 1e3
+            print(f"with {extra} extra points: {t:.2f} s ({t / t_base:.1f} x the baseline), "
+                  f"largest SVG {svg_kB:.0f} kB")
+            figures[f"extra_{extra}_s"] = round(t, 3)
+            figures[f"extra_{extra}_ratio"] = round(t / t_base, 2)
+            figures[f"extra_{extra}_largest_svg_kB"] = round(svg_kB)
+        print(json.dumps(figures))
+
+
+if __name__ == "__main__":
+    main()
