@@ -58,7 +58,8 @@ class Limits:
 @dataclass(frozen=True)
 class Verdict:
     """Why a step (or the run) has to end. ``kind`` names the guard that fired:
-    ``voltage``, ``current``, ``power``, ``breakdown_guard``, ``compliance_storm`` or
+    ``voltage``, ``current``, ``power``, ``breakdown_guard``, ``compliance_storm``,
+    ``overflow`` (readings that are SCPI overflow or not-a-number markers) or
     ``overshoot``; ``ends`` is ``"step"`` or ``"run"``."""
 
     kind: str
@@ -127,6 +128,7 @@ class StepGuard:
         self.breakdown_guard_A = breakdown_guard_A
         self.history: deque = deque(maxlen=3)  # (source level, measured other quantity)
         self.consecutive_compliance = 0
+        self.consecutive_overflow = 0
 
     def predicted_power_W(self, level: float) -> float:
         """Power the device would take at ``level``, from the last two readings."""
@@ -164,6 +166,13 @@ class StepGuard:
         """A verdict if the reading ends the step or the run; updates the history."""
         lim = self.limits
         v, i = reading.voltage_V, reading.current_A
+        if not (math.isfinite(v) and math.isfinite(i)):
+            self.consecutive_overflow += 1
+            if self.consecutive_overflow >= COMPLIANCE_STORM_COUNT:
+                return Verdict("overflow", f"{self.consecutive_overflow} readings in a row "
+                               "were overflow or not-a-number markers", level=level)
+            return None
+        self.consecutive_overflow = 0
         other = i if self.source == "voltage" else v
         self.history.append((level, other))
         i_cap, v_cap = lim.max_current_A, None

@@ -189,7 +189,8 @@ def _read_instruments(raw: object, base_dir: Path, problems: Problems) -> dict:
     for label in list(table.table):
         table.known.add(label)
         t = TableReader(table.table[label], ("instruments", label), problems)
-        role = t.choice("role", ROLES, label if label in ROLES else None, required=True)
+        role = t.choice("role", ROLES, label if label in ROLES else None,
+                        required=label not in ROLES)
         resource = t.text("resource", required=True)
         backend = t.text("backend", "@py") or "@py"
         dialect = t.text("dialect")

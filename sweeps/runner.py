@@ -13,6 +13,7 @@ off, and record it in run.json (`outputs_off_confirmed`).
 
 from __future__ import annotations
 
+import math
 import threading
 import time
 from dataclasses import dataclass
@@ -237,6 +238,10 @@ class Runner:
                               reading.voltage_V, reading.current_A,
                               compliance=reading.compliance)
                 self._record(step, point)
+                if not (math.isfinite(reading.voltage_V) and math.isfinite(reading.current_A)):
+                    self.bus.emit("warning", step.name, message=f"point {planned.index}: the "
+                                  "instrument answered an overflow or not-a-number marker "
+                                  f"at {planned.level:g} {step.source_unit}", index=planned.index)
                 verdict = guard.after(planned.level, reading)
                 if verdict is not None and verdict.ends == "run":
                     self.bus.emit("limit", step.name, guard=verdict.kind,
@@ -311,6 +316,10 @@ class Runner:
                 readings = [lcr.apply_and_read(bias, f) for _ in range(step.average)]
                 y = sum(r.admittance_S for r in readings) / len(readings)
                 cp, gp = parallel_from_admittance(y, f)
+                if not (math.isfinite(cp) and math.isfinite(gp)):
+                    self.bus.emit("warning", step.name, message=f"point {planned.index}: the "
+                                  "meter answered an overflow or not-a-number marker at "
+                                  f"{bias:g} V, {f:g} Hz", index=planned.index)
                 point = Point(step.name, planned.index, "cv", self.bus.elapsed_s(),
                               float(readings[-1].bias_V), None, float(f), float(cp), float(gp))
                 self._record(step, point)

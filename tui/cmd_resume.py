@@ -13,6 +13,9 @@ HELP = "continue an interrupted run at its next point (same instruments, same pl
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("run_dir", metavar="RUN_DIR", help="the run folder to continue")
     add_bench_options(parser)
+    parser.add_argument("--no-report", action="store_true",
+                        help="do not write report.html at the end (`pnbench report RUN_DIR` "
+                        "makes it later)")
     parser.add_argument("--force-identity", action="store_true",
                         help="continue even if an instrument answers with another serial "
                         "number than the run recorded")
@@ -34,4 +37,4 @@ def run(args) -> int:
     if launch.simulate and args.simulate is None:
         print(f"simulated run: using the simulated bench with {launch.simulate}",
               file=sys.stderr)
-    return run_headless(launch, launch.plan)
+    return run_headless(launch, launch.plan, report=not args.no_report)

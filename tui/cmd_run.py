@@ -11,6 +11,9 @@ HELP = "run a plan on the instruments (or rehearse it with --simulate DEVICE)"
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("plan", help="plan file (TOML); see `pnbench check PLAN`")
     add_bench_options(parser)
+    parser.add_argument("--no-report", action="store_true",
+                        help="do not write report.html at the end (`pnbench report RUN_DIR` "
+                        "makes it later)")
     parser.add_argument("--out", default="runs", metavar="DIR",
                         help="folder in which the run folder is created (default: runs)")
     parser.add_argument("--headless", action="store_true",
@@ -58,4 +61,4 @@ def run(args) -> int:
         print(f"warning: {warning}", file=sys.stderr)
     launch = Launch.new(plan, simulate=args.simulate, time_scale=args.time_scale,
                         out_dir=args.out)
-    return run_headless(launch, plan)
+    return run_headless(launch, plan, report=not args.no_report)

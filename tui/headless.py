@@ -227,7 +227,8 @@ def finish_report(run_dir, stream=None) -> None:
               f"the run folder is complete, try `pnbench report {run_dir}`", file=stream)
 
 
-def run_headless(launch, plan, *, stream=None, tty: bool | None = None) -> int:
+def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
+                 report: bool = True) -> int:
     """Run `launch` on this thread with progress output; signals stop it gracefully.
     Returns the exit code; connection errors before the first point propagate."""
     from pnbench.sweeps.stopsignals import stop_on_signals
@@ -243,7 +244,8 @@ def run_headless(launch, plan, *, stream=None, tty: bool | None = None) -> int:
         progress.stop()
         if launch.run_dir is not None:
             print(f"run folder: {launch.run_dir}", file=progress.stream)
-    finish_report(launch.run_dir)
+    if report:
+        finish_report(launch.run_dir)
     if outcome.exit_code != 0:
         print(f"pnbench: run {outcome.status}: {outcome.reason}"
               + ("" if outcome.outputs_off_confirmed else

@@ -1,0 +1,173 @@
+"""Instrument faults on the simulated bench over real sockets: the run stops with exit
+code 3 and says why, every point read before the fault is on disk, the outputs end off
+(the bench's connection watchdog is disabled, so only pnbench can have switched them off),
+and `resume` finishes the plan without repeating or losing a point."""
+
+from __future__ import annotations
+
+import textwrap
+
+import pytest
+
+from pnbench.drivers.simbench import SimBench
+from pnbench.sweeps.launch import Launch
+from pnbench.sweeps.plan import parse_plan
+from pnbench.sweeps.store import read_events, read_points, read_run
+
+PLAN = textwrap.dedent("""\
+    [device]
+    name = "LH-VC510"
+
+    [instruments.smu]
+    resource = "{smu}"
+    timeout = "400 ms"
+
+    [instruments.lcr]
+    resource = "{lcr}"
+    timeout = "400 ms"
+
+    [limits]
+    max_voltage = "2 V"
+    max_reverse_voltage = "40 V"
+    max_current = "100 mA"
+    max_power = "150 mW"
+
+    [[steps]]
+    name = "forward"
+    kind = "iv_forward"
+    source = "voltage"
+    start = "0.3 V"
+    stop = "{fwd_stop}"
+    points = 40
+    compliance = "{compliance}"
+
+    [[steps]]
+    name = "reverse"
+    kind = "iv_reverse"
+    stop = "-20 V"
+    points = 21
+    compliance = "1 mA"
+    breakdown_guard = "10 uA"
+
+    [[steps]]
+    name = "cv"
+    kind = "cv"
+    bias_start = 0
+    bias_stop = "-10 V"
+    bias_points = 6
+    frequencies = ["100 kHz", "1 MHz"]
+    """)
+
+
+@pytest.fixture
+def bench():
+    sim = SimBench.start("lh-vc510", time_scale=0.0, off_on_disconnect=False)
+    yield sim
+    sim.close()
+
+
+def make_plan(sim, tmp_path, fwd_stop="0.75 V", compliance="100 mA"):
+    text = PLAN.format(smu=sim.smu_resource, lcr=sim.lcr_resource, fwd_stop=fwd_stop,
+                       compliance=compliance)
+    path = tmp_path / "plan.toml"
+    path.write_text(text)
+    return parse_plan(text, str(path), base_dir=tmp_path)
+
+
+def planned_keys(plan, run_dir):
+    run = read_run(run_dir)
+    return [(s["name"], k) for s in run["steps"] for k in range(s["done"])]
+
+
+def assert_off(sim):
+    assert sim.outputs() == {"smu_output": False, "lcr_bias": False}
+
+
+def run_with_fault(sim, tmp_path, instrument, fault, **options):
+    plan = make_plan(sim, tmp_path)
+    sim.inject(instrument, fault, **options)
+    launch = Launch.new(plan, out_dir=tmp_path / "runs")
+    outcome = launch.run()
+    return plan, launch, outcome
+
+
+@pytest.mark.parametrize("instrument, fault, options, words", [
+    ("smu", "drop", {"after": 60}, "connection lost"),
+    ("smu", "stall", {"after": 60, "seconds": 1.5}, "no reply"),
+    ("smu", "garbage", {"after": 60}, "reply"),
+    ("lcr", "drop", {"after": 12}, "connection lost"),
+])
+def test_fault_mid_step_then_resume(bench, tmp_path, instrument, fault, options, words):
+    plan, launch, outcome = run_with_fault(bench, tmp_path, instrument, fault, **options)
+    assert outcome.status == "failed" and outcome.exit_code == 3
+    assert words in outcome.reason
+    assert_off(bench)
+    run = read_run(launch.run_dir)
+    assert run["status"] == "failed" and run["outputs_off_confirmed"] is True
+    assert words in run["reason"]
+    before = [(p.step, p.index) for p in read_points(launch.run_dir)]
+    assert before, "the fault came after some points"
+    assert any(e.kind == "run_finished" and e["status"] == "failed"
+               for e in read_events(launch.run_dir))
+
+    again = Launch.resume_from(launch.run_dir)
+    outcome2 = again.run()
+    assert outcome2.status == "completed", outcome2.reason
+    assert_off(bench)
+    after = [(p.step, p.index) for p in read_points(launch.run_dir)]
+    assert after[: len(before)] == before  # nothing already read was lost or rewritten
+    assert after == planned_keys(plan, launch.run_dir)  # each planned point exactly once
+    run = read_run(launch.run_dir)
+    assert run["resume_count"] == 1 and run["resumes"][0]["previous_status"] == "failed"
+
+
+def test_error_queue_entry_stops_the_run(bench, tmp_path):
+    plan, launch, outcome = run_with_fault(bench, tmp_path, "smu", "error", after=30,
+                                           code=-222, message="Data out of range")
+    assert outcome.status == "failed" and "Data out of range" in outcome.reason
+    assert_off(bench)
+
+
+def test_overflow_readings_are_kept_and_flagged(bench, tmp_path):
+    plan, launch, outcome = run_with_fault(bench, tmp_path, "smu", "overflow", after=40)
+    assert outcome.status == "completed"
+    assert_off(bench)
+    warnings = [e for e in read_events(launch.run_dir) if e.kind == "warning"
+                and "overflow" in e["message"]]
+    assert len(warnings) == 1
+    odd = [p for p in read_points(launch.run_dir)
+           if p.current_A is not None and abs(p.current_A) == float("inf")]
+    assert len(odd) == 1
+
+
+def test_compliance_storm_on_the_bench(bench, tmp_path):
+    """A 1 mA compliance meets the LH-VC510 forward current near 0.7 V (IS = 4 fA,
+    N = 1.03 in its device file): the forward step ends after three compliance readings
+    and the rest of the plan runs."""
+    plan = make_plan(bench, tmp_path, fwd_stop="1.0 V", compliance="1 mA")
+    launch = Launch.new(plan, out_dir=tmp_path / "runs")
+    outcome = launch.run()
+    assert outcome.status == "completed"
+    assert_off(bench)
+    steps = read_run(launch.run_dir)["steps"]
+    assert steps[0]["ended_by"] == "compliance_storm" and steps[0]["done"] < 40
+    assert steps[2]["status"] == "done"
+
+
+def test_identity_change_is_refused_on_resume(bench, tmp_path):
+    plan = make_plan(bench, tmp_path)
+    bench.inject("smu", "drop", after=40)
+    launch = Launch.new(plan, out_dir=tmp_path / "runs")
+    assert launch.run().status == "failed"
+    run_dir = launch.run_dir
+    doc = read_run(run_dir)
+    doc["instruments"]["smu"]["identity"] = "pnbench,simulated SMU,99999,1"
+    (run_dir / "run.json").write_text(__import__("json").dumps(doc))
+    from pnbench.modeling.errors import InstrumentError
+
+    with pytest.raises(InstrumentError, match="--force-identity"):
+        Launch.resume_from(run_dir).run()
+    assert_off(bench)
+    outcome = Launch.resume_from(run_dir, force_identity=True).run()
+    assert outcome.status == "completed"
+    assert any("force-identity" in e.get("message", "") for e in read_events(run_dir))

@@ -1,0 +1,153 @@
+"""kill -9 of a `pnbench run` process at random moments, then `pnbench resume`.
+
+The simulated bench runs in this test process with its connection watchdog off, so after
+the kill the SMU output stays on exactly as a real instrument's would, and only the resume
+can switch it off. After each resume: outputs off, every point the killed process had
+written still there byte for byte, each planned point present exactly once, and run.json
+saying what happened. The moments are drawn from a seeded generator (PNBENCH_KILL_SEED
+overrides the seed) so a failure can be replayed.
+"""
+
+from __future__ import annotations
+
+import os
+import random
+import signal
+import subprocess
+import sys
+import textwrap
+import time
+from pathlib import Path
+
+import pytest
+
+from pnbench.drivers.simbench import SimBench
+from pnbench.sweeps.store import read_events, read_points, read_run
+
+PLAN = textwrap.dedent("""\
+    [device]
+    name = "LH-ZL560"
+
+    [instruments.smu]
+    resource = "{smu}"
+
+    [instruments.lcr]
+    resource = "{lcr}"
+
+    [limits]
+    max_voltage = "2 V"
+    max_reverse_voltage = "8 V"
+    max_current = "100 mA"
+    max_power = "100 mW"
+
+    [[steps]]
+    name = "forward"
+    kind = "iv_forward"
+    source = "current"
+    start = "10 nA"
+    stop = "20 mA"
+    points_per_decade = 20
+    compliance = "2 V"
+
+    [[steps]]
+    name = "reverse"
+    kind = "iv_reverse"
+    start = "-0.1 V"
+    stop = "-8 V"
+    points = 200
+    compliance = "10 mA"
+    breakdown_guard = "5 mA"
+
+    [[steps]]
+    name = "cv"
+    kind = "cv"
+    bias_start = 0
+    bias_stop = "-4 V"
+    bias_points = 21
+    frequencies = ["100 kHz", "1 MHz"]
+    """)
+
+SEED = int(os.environ.get("PNBENCH_KILL_SEED", "5607"))
+REPETITIONS = 3
+
+
+def pnbench(*args: str) -> list[str]:
+    return [sys.executable, "-m", "pnbench.tui.cli", *args]
+
+
+def wait_for(predicate, timeout_s: float) -> bool:
+    end = time.monotonic() + timeout_s
+    while time.monotonic() < end:
+        if predicate():
+            return True
+        time.sleep(0.005)
+    return False
+
+
+def data_lines(run_dir: Path) -> int:
+    try:
+        return (run_dir / "points.csv").read_bytes().count(b"\n") - 4
+    except FileNotFoundError:
+        return 0
+
+
+@pytest.fixture(scope="module")
+def bench():
+    # a slow bench (5 % of real instrument time) so that a kill lands mid-sweep
+    sim = SimBench.start("lh-zl560", time_scale=0.05, off_on_disconnect=False)
+    yield sim
+    sim.close()
+
+
+@pytest.mark.parametrize("repetition", range(REPETITIONS))
+def test_kill_9_then_resume(bench, tmp_path, repetition):
+    rng = random.Random(SEED * 100 + repetition)
+    plan = tmp_path / "plan.toml"
+    plan.write_text(PLAN.format(smu=bench.smu_resource, lcr=bench.lcr_resource))
+    out = tmp_path / "runs"
+    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
+    proc = subprocess.Popen(pnbench("run", str(plan), "--headless", "--no-report",
+                                    "--out", str(out)),
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
+    try:
+        assert wait_for(lambda: any(out.glob("*/points.csv")), 30), "no run folder"
+        run_dir = next(out.glob("*"))
+        assert wait_for(lambda: data_lines(run_dir) > 0, 30)
+        delay = rng.uniform(0.0, 1.5)
+        time.sleep(delay)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(10)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    what = f"(seed {SEED}, repetition {repetition}, kill {delay:.3f} s after the first point)"
+    before = (run_dir / "points.csv").read_bytes()
+    before = before[: before.rfind(b"\n") + 1]
+    killed_status = read_run(run_dir)["status"]
+    print(what, killed_status, before.count(b"\n"), "lines before resume")
+    read_points(run_dir)  # parseable after the kill
+
+    done = subprocess.run(pnbench("resume", str(run_dir), "--no-report"),
+                          capture_output=True, text=True, env=env, timeout=60)
+    if killed_status == "completed":
+        assert done.returncode == 0 and "already completed" in done.stdout
+    else:
+        assert done.returncode == 0, what + done.stderr
+        assert "Traceback" not in done.stderr
+    assert bench.outputs() == {"smu_output": False, "lcr_bias": False}, what
+
+    after = (run_dir / "points.csv").read_bytes()
+    assert after.startswith(before), "a point already read was lost or rewritten " + what
+    run = read_run(run_dir)
+    assert run["status"] == "completed" and run["outputs_off_confirmed"] is True, what
+    keys = [(p.step, p.index) for p in read_points(run_dir)]
+    planned = [(s["name"], k) for s in run["steps"] for k in range(s["done"])]
+    assert keys == planned, "a point was repeated or skipped " + what
+    assert run["steps"][0]["status"] == "done" and run["steps"][2]["status"] == "done"
+    if killed_status != "completed":
+        assert run["resume_count"] == 1
+        assert run["resumes"][0]["previous_status"] == killed_status
+        assert any("ended without closing" in e.get("message", "")
+                   for e in read_events(run_dir) if e.kind == "warning"), what
+        seqs = [e.seq for e in read_events(run_dir)]
+        assert seqs == list(range(1, len(seqs) + 1)), what
