@@ -19,6 +19,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_bench_options(parser, time_scale=1.0)
     parser.add_argument("--out", default="runs", metavar="DIR",
                         help="folder in which the run folder is created (default: runs)")
+    parser.add_argument("--no-report", action="store_true",
+                        help="do not write report.html at the end")
 
 
 def bundled_plans() -> dict[str, Path]:
@@ -54,4 +56,4 @@ def run(args) -> int:
                        out_dir=args.out, autostart=True)
     launch = Launch.new(plan, simulate=simulate, time_scale=args.time_scale,
                         out_dir=args.out)
-    return run_headless(launch, plan)
+    return run_headless(launch, plan, report=not args.no_report)
