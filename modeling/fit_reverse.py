@@ -42,21 +42,27 @@ def _line(x: np.ndarray, y: np.ndarray, w: np.ndarray | None = None):
     return float(coef[0]), float(coef[1]), cov, s2
 
 
-def _breakdown(v, mag, ibv):
-    """(BV, sigma, slope of ln|I| per volt of |V|, n points) or None when not reached."""
-    order = np.argsort(-v, kind="stable")  # from 0 V towards deeper reverse bias
-    vv, ii = -v[order], mag[order]  # |V| ascending
+def _breakdown(x, mag, ibv):
+    """(BV, sigma, slope of ln I per volt, n points) where ``mag`` crosses ``ibv`` as |V|
+    (``x``) grows, or None when it never does (or the crossing is not bracketed)."""
+    order = np.argsort(x, kind="stable")
+    vv, ii = x[order], mag[order]
     above = ii >= ibv
     if not above.any():
         return None
     k = int(np.argmax(above))  # first point at or beyond IBV
-    if k == 0:
+    if k == 0 or ii[k - 1] <= 0:
         return None  # no point below IBV on the way: the crossing is not bracketed
+    def rate(a, b):  # growth of ln I per volt between points a < b
+        return math.log(ii[b] / ii[a]) / (vv[b] - vv[a]) if vv[b] > vv[a] else math.inf
+
+    b0 = rate(k - 1, k)
+    # widen over the decade either side while the current still grows exponentially
     lo = k - 1
-    while lo > 0 and ii[lo - 1] >= ibv / 10 and ii[lo - 1] < ii[lo]:
+    while lo > 0 and ibv / 10 <= ii[lo - 1] < ii[lo] and rate(lo - 1, lo) >= b0 / 3:
         lo -= 1
     hi = k
-    while hi + 1 < len(ii) and ii[hi + 1] <= ibv * 10 and ii[hi + 1] > ii[hi]:
+    while hi + 1 < len(ii) and ii[hi] < ii[hi + 1] <= ibv * 10 and rate(hi, hi + 1) >= b0 / 3:
         hi += 1
     x, y = vv[lo:hi + 1], np.log(ii[lo:hi + 1])
     if len(x) >= 4:
@@ -73,6 +79,46 @@ def _breakdown(v, mag, ibv):
     grad = np.array([-1.0 / b, -(math.log(ibv) - a) / b**2])
     var = float(grad @ cov @ grad) if np.all(np.isfinite(cov)) else math.inf
     return bv, math.sqrt(var) if var >= 0 else math.inf, b, len(x)
+
+
+def _leakage_line(x, mag, pre):
+    """Weighted straight line |I| = I0 + G*|V| (relative weights) over ``pre``."""
+    if np.count_nonzero(pre) < 3:
+        return None
+    y = mag[pre]
+    w = 1.0 / np.maximum(np.abs(y), 1e-3 * np.median(np.abs(y)) + 1e-300) ** 2
+    return _line(x[pre], y, w)
+
+
+def _analyse(x, mag, ibv, vt):
+    """Breakdown and the region before it, each refined by the other (two passes).
+
+    BV is read on the breakdown current alone (the measured current less the leakage
+    line), which is what the model card's BV means (simulator convention: the breakdown
+    term is IBV at -BV); with negligible leakage it is where the measured current
+    reaches IBV.
+    """
+    bd = _breakdown(x, mag, ibv)
+    pre = np.ones(x.size, dtype=bool)
+    line = None
+    for _ in range(2):
+        if bd is None:
+            break
+        bv, _, slope, _ = bd
+        # where the breakdown exponential, extrapolated back, is below 1e-3 of the current
+        pre = ibv * np.exp(-slope * (bv - x)) < 1e-3 * np.abs(mag)
+        line = _leakage_line(x, mag, pre & (x >= 10 * vt))
+        if line is None:
+            break
+        excess = mag - (line[0] + line[1] * x)
+        refined = _breakdown(x, excess, ibv)
+        if refined is None:
+            break
+        bd = refined
+    pre &= x >= 10 * vt
+    if line is None or bd is None:
+        line = _leakage_line(x, mag, pre)
+    return bd, pre, line
 
 
 def fit_reverse(voltage_V, current_A, *, compliance=None,
@@ -99,28 +145,22 @@ def fit_reverse(voltage_V, current_A, *, compliance=None,
     vr, mag = v[ok], -i[ok]  # reverse current as a positive magnitude where it flows
     names, values, sig, notes = [], {}, {}, []
     extras: dict = {"IBV_A": ibv}
-    bd = _breakdown(vr, mag, ibv)
+    bd, pre, line = _analyse(-vr, mag, ibv, vt)
     deepest = float(-vr.min())
     if bd is None:
         reached = float(np.max(mag))
         notes.append(f"BV not determined: the reverse current never crossed IBV = {ibv:.3g} A "
                      f"(largest {reached:.3g} A at up to {deepest:.4g} V)")
-        pre = np.ones(vr.size, dtype=bool)
     else:
         bv, bv_sd, slope, npts = bd
         names.append("BV")
         values["BV"], sig["BV"] = bv, bv_sd
         extras["BV_points"] = npts
-        # where the breakdown exponential, extrapolated back, is below 1e-3 of the current
-        i_bd = ibv * np.exp(-slope * (bv - (-vr)))
-        pre = i_bd < 1e-3 * np.abs(mag)
-    pre &= -vr >= 10 * vt
+        if not math.isfinite(bv_sd):
+            notes.append("BV read between two points only (no uncertainty)")
     used = np.zeros(n, dtype=bool)
-    pre_idx = np.flatnonzero(ok)[pre]
-    if pre.sum() >= 3:
-        x, y = -vr[pre], mag[pre]
-        w = 1.0 / np.maximum(np.abs(y), 1e-3 * np.median(np.abs(y)) + 1e-300) ** 2
-        _, g, cov, _ = _line(x, y, w)
+    if line is not None:
+        _, g, cov, _ = line
         g_sd = math.sqrt(cov[1, 1]) if np.isfinite(cov[1, 1]) and cov[1, 1] >= 0 else math.inf
         if g > 0 and g > 3 * g_sd:
             names.append("RSH")
@@ -128,7 +168,7 @@ def fit_reverse(voltage_V, current_A, *, compliance=None,
         else:
             notes.append("RSH not determined: the reverse current does not grow in "
                          "proportion to the voltage before breakdown")
-        used[pre_idx] = True
+        used[np.flatnonzero(ok)[pre]] = True
     else:
         notes.append("RSH not determined: fewer than 3 reverse points between 10 Vt and "
                      "the breakdown knee")

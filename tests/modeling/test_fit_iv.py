@@ -1,0 +1,217 @@
+"""Forward and reverse I-V fits against ngspice data of four invented devices.
+
+Reference: ngspice level-1 diode in batch mode (tests/spicehelp.py), which adds GMIN
+(1e-12 S) across the junction; where RSH is compared, the truth is the shunt with GMIN
+folded in (spicehelp.reference_params).
+"""
+
+from __future__ import annotations
+
+import math
+
+import fitdevices as fd
+import numpy as np
+import pytest
+from spicehelp import dc_sweep, reference_params
+
+from pnbench.modeling import fit_iv, junction
+from pnbench.modeling.fitresult import FitResult
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
+
+TOL = {"IS": 0.02, "N": 0.005, "RS": 0.02, "RSH": 0.05, "BV": 0.01}
+
+
+@pytest.fixture(scope="module")
+def data(ngspice):
+    return {name: fd.make(ngspice, name) for name in fd.DEVICES}
+
+
+def _rel(value: float, truth: float) -> float:
+    return abs(value / truth - 1.0)
+
+
+@pytest.mark.parametrize("name", sorted(fd.DEVICES))
+def test_forward_fit_recovers_the_card_of_each_device(data, name):
+    """Noise-free ngspice I-V: IS within 2 %, N 0.5 %, RS 2 % (and RSH 5 % where set)."""
+    d = data[name]
+    r = fit_iv.fit_forward(d.forward_v, d.forward_i)
+    assert r.success, r.message
+    truth = reference_params(d.params)
+    for key in ("IS", "N", "RS"):
+        assert _rel(r.values[key], getattr(truth, key)) < TOL[key], (key, r.values[key])
+    if math.isfinite(d.params.RSH):
+        assert _rel(r.values["RSH"], truth.RSH) < TOL["RSH"]
+    assert r.used.shape == d.forward_v.shape and r.n_used == d.forward_v.size
+
+
+def test_power_rectifier_is_series_resistance_limited_above_100mA(data):
+    """The rectifier's RS exceeds rd = N*Vt/I above 100 mA (the point of that device):
+    checked on the ngspice data with the trade rule rd = N*Vt/I (common practice, no
+    source) and the fitted RS."""
+    d = data["rec"]
+    r = fit_iv.fit_forward(d.forward_v, d.forward_i)
+    vt = junction.thermal_voltage(DEFAULT_TEMPERATURE_K)
+    rd_at_100mA = r.values["N"] * vt / 0.1
+    assert r.values["RS"] > rd_at_100mA
+    assert d.forward_i.max() > 0.5
+    assert _rel(r.values["RS"], d.params.RS) < TOL["RS"]
+
+
+def test_rs_is_absent_when_the_data_never_leave_the_exponential(data):
+    """Below 0.1 uA the sig diode's I*RS is below a microvolt: with 0.1 % of reading
+    noise RS is not reported, and the message says why."""
+    d = data["sig"]
+    low = d.forward_i < 1e-7
+    rng = np.random.default_rng(11)
+    i = fd.instrument_noise(rng, d.forward_i[low], 1e-3, 1e-13)
+    r = fit_iv.fit_forward(d.forward_v[low], i)
+    assert r.success, r.message
+    assert "RS" not in r.values and "RS" not in r.names
+    assert "RS not determined: the data never leave the exponential region" in r.message
+    assert _rel(r.values["N"], d.params.N) < TOL["N"]
+
+
+def test_shunt_is_absent_when_it_stays_under_the_measurement_floor(data):
+    """With a 1 pA floor, ngspice's GMIN shunt (pA at 0.1 V) is not visible: no RSH."""
+    d = data["sig"]
+    rng = np.random.default_rng(3)
+    i = fd.instrument_noise(rng, d.forward_i, 1e-3, 1e-12)
+    r = fit_iv.fit_forward(d.forward_v, i)
+    assert r.success
+    assert "RSH" not in r.values
+    assert "RSH not determined" in r.message
+    # floor points were dropped automatically
+    assert not r.used[d.forward_i < 1e-12].any()
+
+
+def test_points_in_compliance_are_left_out(data):
+    """A clamped reading flagged in compliance changes nothing; without the flag it would
+    distort the fit."""
+    d = data["sch"]
+    i = d.forward_i.copy()
+    clamp = i > 0.2
+    i[clamp] = 0.2  # what a source-measure unit reports at its compliance limit
+    clean = fit_iv.fit_forward(d.forward_v, d.forward_i)
+    flagged = fit_iv.fit_forward(d.forward_v, i, compliance=clamp)
+    assert not flagged.used[clamp].any()
+    assert _rel(flagged.values["RS"], clean.values["RS"]) < 0.01
+    raw = fit_iv.fit_forward(d.forward_v, i)
+    assert _rel(raw.values["RS"], d.params.RS) > 0.05
+
+
+def test_override_mask_chooses_the_points(data):
+    """The mask replaces the automatic choice: only those points enter, and a fit on the
+    top of the curve alone still finds the card."""
+    d = data["lky"]
+    use = d.forward_v > 0.7
+    r = fit_iv.fit_forward(d.forward_v, d.forward_i, use=use)
+    assert np.array_equal(r.used, use)
+    for key in ("IS", "N", "RS"):
+        assert _rel(r.values[key], getattr(d.params, key)) < TOL[key]
+
+
+def test_start_values_come_from_the_data_alone(data):
+    """Steepest ln I stretch and Cheung-Cheung line land near the truth with no guess."""
+    for name, d in data.items():
+        t = fit_iv.start_values(d.forward_v, d.forward_i, DEFAULT_TEMPERATURE_K)
+        assert abs(t[1] / d.params.N - 1) < 0.15, name
+        assert abs(t[0] - math.log(d.params.IS)) < math.log(20), name
+        assert 0.3 * d.params.RS < t[2] < 3 * d.params.RS, name
+
+
+def test_fit_result_is_frozen_and_consistent(data):
+    d = data["sig"]
+    r = fit_iv.fit_forward(d.forward_v, d.forward_i)
+    assert isinstance(r, FitResult)
+    assert set(r.names) == set(r.values) == set(r.sigmas)
+    assert r.covariance.shape == (len(r.names),) * 2
+    assert np.allclose(np.diag(r.correlation), 1.0)
+    with pytest.raises(ValueError):
+        r.used[0] = False
+    with pytest.raises(TypeError):
+        r.values["IS"] = 1.0
+    assert r.settled(0.5)["IS"] and not r.settled(1e-30)["IS"]
+    assert r.settled(0.5, names=["BV"]) == {"BV": False}
+
+
+@pytest.mark.parametrize("name", ["sig", "sch", "lky"])
+def test_breakdown_voltage_at_the_stated_ibv(data, name):
+    """BV within 1 % at the IBV reported; ngspice's breakdown current at -BV is IBV (the
+    simulator convention, Nagel 1975) up to IS*BV/Vt, negligible for these cards."""
+    d = data[name]
+    r = fit_iv.fit_reverse(d.reverse_v, d.reverse_i, ibv_A=d.params.IBV)
+    assert r.extras["IBV_A"] == d.params.IBV
+    assert _rel(r.values["BV"], d.params.BV) < TOL["BV"], r.message
+    assert r.sigmas["BV"] < 0.01 * d.params.BV
+
+
+def test_nothing_is_invented_when_breakdown_is_not_reached(data):
+    d = data["rec"]
+    r = fit_iv.fit_reverse(d.reverse_v, d.reverse_i, ibv_A=1e-5)
+    assert "BV" not in r.values
+    assert "BV not determined" in r.message and "1e-05 A" in r.message
+    assert r.success  # the leakage is still measured
+
+
+def test_reverse_shunt_and_leakage_of_the_leaky_diode(data, ngspice):
+    """RSH within 5 % from the slope before breakdown; leakage at -10 V matches an
+    ngspice point computed there to 1 %."""
+    d = data["lky"]
+    r = fit_iv.fit_reverse(d.reverse_v, d.reverse_i, reference_V=-10.0)
+    truth = reference_params(d.params)
+    assert _rel(r.values["RSH"], truth.RSH) < TOL["RSH"]
+    _, i_ref = dc_sweep(ngspice, d.params, [-10.0])
+    assert r.extras["leakage_voltage_V"] == -10.0
+    assert _rel(r.extras["leakage_A"], -i_ref[0]) < 0.01
+
+
+def test_leakage_outside_the_measured_range_is_not_made_up(data):
+    d = data["rec"]
+    r = fit_iv.fit_reverse(d.reverse_v, d.reverse_i, reference_V=-400.0)
+    assert "leakage_A" not in r.extras
+    assert "not determined" in r.message
+
+
+def _crb(v, p, rel, floor, h=1e-6):
+    """Cramér-Rao bound of (ln IS, N, RS) for Gaussian readings of sigma = rel*I + floor
+    (in quadrature): (J^T W J)^-1 at the truth (PHYSICS.md §6), J by central differences
+    of junction.current, independent of the fitter's own derivatives."""
+    base = np.array([math.log(p.IS), p.N, p.RS])
+
+    def cur(t):
+        return junction.current(v, p.with_values(IS=math.exp(t[0]), N=t[1], RS=t[2]))
+
+    cols = []
+    for k in range(3):
+        dt = np.zeros(3)
+        dt[k] = h * max(1.0, abs(base[k]))
+        cols.append((cur(base + dt) - cur(base - dt)) / (2 * dt[k]))
+    jac = np.column_stack(cols)
+    i = cur(base)
+    w = 1.0 / ((rel * i) ** 2 + floor**2)
+    return np.linalg.inv(jac.T @ (jac * w[:, None]))
+
+
+def test_monte_carlo_sigma_is_honest_and_near_the_cramer_rao_bound(ngspice):
+    """200 draws of 0.1 % of reading + 1 pA noise on ngspice data (GMIN set negligible):
+    the truth lies within 2 sigma in about 95 % of draws, the reported sigma and the
+    spread both match the Cramér-Rao bound at the truth within ~12 %."""
+    p = fd.DEVICES["sch"]
+    v = np.linspace(0.02, fd.FORWARD_TOP_V["sch"], 80)
+    v, i_true = dc_sweep(ngspice, p, v, gmin=1e-18)
+    rel, floor = 1e-3, 1e-12
+    rng = np.random.default_rng(20261201)
+    draws = fd.instrument_noise(rng, i_true, rel, floor, draws=200)
+    truth = np.array([math.log(p.IS), p.N, p.RS])
+    est, sig = [], []
+    for i in draws:
+        r = fit_iv.fit_forward(v, i)
+        assert r.success and {"IS", "N", "RS"} <= set(r.values), r.message
+        est.append([math.log(r.values["IS"]), r.values["N"], r.values["RS"]])
+        sig.append([r.sigmas["IS"] / r.values["IS"], r.sigmas["N"], r.sigmas["RS"]])
+    est, sig = np.array(est), np.array(sig)
+    bound = np.sqrt(np.diag(_crb(v, p, rel, floor)))
+    inside = np.mean(np.abs(est - truth) < 2 * sig, axis=0)
+    assert np.all((inside > 0.89) & (inside < 0.995)), inside
+    assert np.all(np.abs(sig.mean(axis=0) / bound - 1) < 0.12), sig.mean(axis=0) / bound
+    assert np.all(np.abs(est.std(axis=0) / bound - 1) < 0.15), est.std(axis=0) / bound
