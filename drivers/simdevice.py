@@ -204,8 +204,9 @@ def _diode(raw: Any, device: dict, text: str, source: str) -> DiodeParams:
             raise DeviceFileError(f"{where}: unknown model-card name; [diode] accepts "
                                   + ", ".join(UNITS))
         if isinstance(value, bool) or not isinstance(value, (int, float)) or math.isnan(value):
-            raise DeviceFileError(f"{where} = {value!r}: expected a number in "
-                                  f"{UNITS[name] or 'plain units'} (inf allowed for RSH, BV)")
+            unit = f" in {UNITS[name]}" if UNITS[name] else " (no unit)"
+            raise DeviceFileError(f"{where} = {value!r}: expected a number{unit} "
+                                  "(inf allowed for RSH and BV)")
         values[name] = float(value)
     schottky = device["junction"] == "schottky"
     values.setdefault("EG", SCHOTTKY_EG_eV if schottky else MATERIAL_EG_eV[device["material"]])
