@@ -262,9 +262,10 @@ def one_argument(command: scpi.Command) -> str:
 
 def number_argument(arg: str, low: float, high: float, default: object) -> float:
     """A number within [low, high]; MINimum, MAXimum and DEFault name the ends."""
-    for word, value in (("MINimum", low), ("MAXimum", high), ("DEFault", default)):
-        if scpi.header_matches(word, arg):
-            return float(value)  # type: ignore[arg-type]
+    if arg[:1].isalpha():
+        for word, value in (("MINimum", low), ("MAXimum", high), ("DEFault", default)):
+            if scpi.header_matches(word, arg):
+                return float(value)  # type: ignore[arg-type]
     try:
         value = scpi.parse_number(arg)
     except ValueError:
