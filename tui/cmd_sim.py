@@ -19,6 +19,12 @@ _LOOPBACK = ("127.0.0.1", "localhost", "::1")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.epilog = (
+        "Example: pnbench sim --dut lh-vc510 --time-scale 0, then point pnbench or any "
+        "VISA client (backend @py) at the two printed resources. Each instrument serves "
+        "one client at a time and turns its output off when that client disconnects; "
+        "Ctrl-C stops the bench with both outputs off and exits 0. Every key of a device "
+        "file is documented at the top of each bundled file.")
     parser.add_argument(
         "--dut", metavar="FILE",
         help="simulated-device file (TOML), or the name of a bundled device (see --list)")
@@ -45,7 +51,8 @@ def _list_devices() -> int:
 
     for name, path in bundled_devices().items():
         device = load_device(path)
-        print(f"{name:12s} {device.part:10s} {device.device['description']}")
+        print(f"{name:12s} {device.part:10s} {device.device['description']}\n"
+              f"{'':12s} {path}")
     return 0
 
 
