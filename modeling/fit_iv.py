@@ -108,7 +108,8 @@ def start_values(v: np.ndarray, i: np.ndarray, temperature_K: float,
     best = None
     if m >= w:
         slope, icpt, rms, sd = _window_sums(vv, y, w)
-        n_win = 1.0 / (slope * vt)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            n_win = 1.0 / (slope * vt)
         v_low = vv[: len(slope)]
         good = (slope > 0) & (n_win > 0.5) & (n_win < 15) & (v_low >= 4 * n_win * vt)
         for tol in (0.1, 0.3, math.inf):

@@ -130,27 +130,28 @@ def weighted_rows(model: Model, t: np.ndarray, active_idx: np.ndarray, x: np.nda
     given, so the weights stay fixed while the solver moves.
     """
     yhat, jac = model.predict(t, x, active_idx if want_jac else None)
-    ref = yhat if yhat_ref is None else yhat_ref
-    sig = noise.sigma(np.abs(ref))
-    r = np.empty_like(yhat)
-    scale = np.empty_like(yhat)
-    tiny = 1e-300
-    for c, kind in enumerate(model.channels):
-        if kind == "log":
-            pos = np.maximum(np.abs(ref[:, c]), tiny)
-            s = np.maximum(sig[:, c] / pos, 1e-15)
-            with np.errstate(divide="ignore", invalid="ignore"):
+    # rows outside ``use`` may overflow (model values far below the floor): masked out
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        ref = yhat if yhat_ref is None else yhat_ref
+        sig = noise.sigma(np.abs(ref))
+        r = np.empty_like(yhat)
+        scale = np.empty_like(yhat)
+        tiny = 1e-300
+        for c, kind in enumerate(model.channels):
+            if kind == "log":
+                pos = np.maximum(np.abs(ref[:, c]), tiny)
+                s = np.maximum(sig[:, c] / pos, 1e-15)
                 r[:, c] = (np.log(np.maximum(yhat[:, c], tiny))
                            - np.log(np.where(use[:, c], y[:, c], 1.0))) / s
-            scale[:, c] = 1.0 / (s * np.maximum(yhat[:, c], tiny))
-        else:
-            s = np.maximum(sig[:, c], 1e-300)
-            r[:, c] = (yhat[:, c] - y[:, c]) / s
-            scale[:, c] = 1.0 / s
-    rows = r[use]
-    if not want_jac:
-        return rows, None, yhat
-    return rows, (jac * scale[..., None])[use], yhat
+                scale[:, c] = 1.0 / (s * np.maximum(yhat[:, c], tiny))
+            else:
+                s = np.maximum(sig[:, c], 1e-300)
+                r[:, c] = (yhat[:, c] - y[:, c]) / s
+                scale[:, c] = 1.0 / s
+        rows = r[use]
+        if not want_jac:
+            return rows, None, yhat
+        return rows, (jac * scale[..., None])[use], yhat
 
 
 def _solve_scaled(h: np.ndarray, g: np.ndarray, lam: float) -> np.ndarray:
@@ -238,7 +239,8 @@ def covariance_t(state: FitState) -> np.ndarray:
     if w[0] <= 1e-13 * max(w[-1], 1e-300) or not math.isfinite(s2):
         cov = np.full((k, k), math.inf)
         if w[0] > 0 and math.isfinite(s2):
-            inv = (v / w) @ v.T / np.outer(d, d)
+            with np.errstate(over="ignore", invalid="ignore"):
+                inv = (v / w) @ v.T / np.outer(d, d)
             cov = np.where(np.isfinite(inv), s2 * inv, math.inf)
             cov[:, w.argmin()] = math.inf
         return cov
