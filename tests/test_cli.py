@@ -69,3 +69,20 @@ def test_unexpected_errors_are_internal_with_traceback(monkeypatch, capsys):
                         lambda: {"boom": _Raising(ZeroDivisionError("x"))})
     assert cli.main(["boom"]) == 1
     assert "Traceback" in capsys.readouterr().err
+
+
+def test_a_closed_pipe_is_not_an_error():
+    """`pnbench --help | head -1` ends quietly: no traceback, exit 0 (common practice)."""
+    talker = (
+        "import sys; from pnbench.tui import cli; "
+        "cli._available_commands = lambda: {'talk': type('T', (), {'HELP': 'x', "
+        "'add_arguments': staticmethod(lambda p: None), "
+        "'run': staticmethod(lambda a: [print('line', k) for k in range(200000)] and 0)})()}; "
+        "sys.exit(cli.main(['talk']))"
+    )
+    shell = f"{sys.executable} -c \"{talker}\" | head -1"
+    out = subprocess.run(["bash", "-c", f"set -o pipefail; {shell}"], capture_output=True,
+                         text=True)
+    assert "Traceback" not in out.stderr
+    assert out.stdout == "line 0\n"
+    assert out.returncode == 0

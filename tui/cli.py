@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 import traceback
 from importlib import metadata
@@ -81,7 +82,25 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _silence_stdout() -> None:
+    """Point stdout at the null device so Python's exit flush cannot fail again."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
+
+
 def main(argv: list[str] | None = None) -> int:
+    try:
+        return _main(argv)
+    except BrokenPipeError:
+        # The reader went away (`pnbench ... | head`): not an error of ours, no traceback.
+        _silence_stdout()
+        return 0
+
+
+def _main(argv: list[str] | None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
@@ -95,6 +114,8 @@ def main(argv: list[str] | None = None) -> int:
             traceback.print_exc()
         print(f"pnbench {args.command}: {exc}", file=sys.stderr)
         return exc.exit_code
+    except BrokenPipeError:
+        raise
     except KeyboardInterrupt:
         print(f"pnbench {args.command}: stopped by the operator (Ctrl-C)", file=sys.stderr)
         return 4
