@@ -116,6 +116,14 @@ class Bench:
                 self.sim.close()
 
 
+def prime_source(smu, source: str, level: float) -> None:
+    """Tell a freshly opened SMU role what it is sourcing (after a crash), so that
+    `safe_off` ramps down from that level instead of switching off at once."""
+    smu.source, smu.level = source, float(level)
+    if smu.limit is None:
+        smu.limit = 1e-3
+
+
 def _open_role(conn: Connection):
     from pnbench.drivers.dialect import load_dialect
     from pnbench.drivers.roles import LcrMeter, Smu
@@ -152,11 +160,13 @@ def connections_for(plan: Plan, roles: set[str], sim=None) -> dict[str, Connecti
 @contextlib.contextmanager
 def open_bench(plan: Plan, *, simulate: str | None = None, time_scale: float = 0.0,
                expected: dict | None = None, force_identity: bool = False,
-               off_on_disconnect: bool = True) -> Iterator[Bench]:
+               off_on_disconnect: bool = True,
+               prime: tuple[str, float] | None = None) -> Iterator[Bench]:
     """Connect, identify, switch everything off; on leaving, switch off and confirm.
 
     ``expected`` maps role -> identity string of a previous run (resume): a different
-    serial number raises InstrumentError unless ``force_identity``.
+    serial number raises InstrumentError unless ``force_identity``. ``prime`` is the
+    (source, level) an interrupted run left the SMU at, so the first switch-off ramps.
     """
     bench = Bench(simulated=simulate)
     try:
@@ -170,6 +180,8 @@ def open_bench(plan: Plan, *, simulate: str | None = None, time_scale: float = 0
             bench.roles[role] = _open_role(conn)
             conn.identity = bench.roles[role].identity
         _check_identities(bench, expected or {}, force_identity)
+        if prime is not None and bench.smu is not None:
+            prime_source(bench.smu, *prime)
         off = bench.safe_off()
         if not all(off.values()):
             bad = ", ".join(r for r, ok in off.items() if not ok)

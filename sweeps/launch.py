@@ -18,6 +18,7 @@ import threading
 from pathlib import Path
 
 from pnbench.modeling.errors import DataFileError, PnbenchError
+from pnbench.sweeps import guardian as guardian_mod
 from pnbench.sweeps import resume as resume_mod
 from pnbench.sweeps.bench import open_bench
 from pnbench.sweeps.events import EventBus
@@ -40,7 +41,7 @@ class Launch:
     def __init__(self, plan: Plan, *, simulate: str | None, time_scale: float,
                  out_dir: str | Path | None = None, run_dir: str | Path | None = None,
                  force_identity: bool = False, listeners=(), fit: bool = True,
-                 off_on_disconnect: bool = True) -> None:
+                 off_on_disconnect: bool = True, guardian: bool = True) -> None:
         self.plan = plan
         self.simulate = str(simulate) if simulate is not None else None
         self.time_scale = float(time_scale) if simulate is not None else 1.0
@@ -50,6 +51,7 @@ class Launch:
         self.listeners = list(listeners)
         self.fit_enabled = fit
         self.off_on_disconnect = off_on_disconnect
+        self.use_guardian = guardian
         self.run_dir: Path | None = self.resume_dir
         self.outcome: Outcome | None = None
         self.error: BaseException | None = None
@@ -154,7 +156,8 @@ class Launch:
         run = folder.run
         history = list(run.get("resumes") or [])
         history.append({"at": iso(utc_now()), "previous_status": state.previous_status,
-                        "points_on_disk": sum(state.done.values())})
+                        "points_on_disk": sum(state.done.values()),
+                        "guardian": state.guardian})
         folder.update_run(resume_count=int(run.get("resume_count", 0)) + 1, resumes=history,
                           ended=None)
         folder.log(f"resume #{len(history)}: previous status {state.previous_status!r}, "
@@ -162,20 +165,25 @@ class Launch:
         return folder, state
 
     def _run_on_bench(self, folder: RunFolder, bus: EventBus, state) -> Outcome:
-        expected = {}
+        expected, prime = {}, None
         if state is not None:
             expected = {role: (info or {}).get("identity", "")
                         for role, info in (folder.run.get("instruments") or {}).items()}
+            prime = resume_mod.last_smu_level(self.plan, state)
+        guardian = None
         try:
             with open_bench(self.plan, simulate=self.simulate, time_scale=self.time_scale,
                             expected=expected, force_identity=self.force_identity,
-                            off_on_disconnect=self.off_on_disconnect) as bench:
+                            off_on_disconnect=self.off_on_disconnect, prime=prime) as bench:
                 self.bench = bench
-                folder.update_run(instruments=bench.instruments)
+                folder.update_run(instruments=bench.instruments, guardian=None)
+                if self.simulate is None and self.use_guardian:
+                    guardian = guardian_mod.start(folder.path)
                 for change in bench.identity_changes:
                     bus.emit("warning", None, message=f"--force-identity: {change}")
                     folder.log(f"identity accepted by --force-identity: {change}")
-                if state is not None and state.previous_status == "running":
+                if state is not None and (state.previous_status == "running"
+                                          or state.guardian):
                     bus.emit("warning", None, message="the previous process ended without "
                              "closing the run (killed, crashed or power lost); continuing "
                              "after the last recorded point")
@@ -196,6 +204,8 @@ class Launch:
             raise
         finally:
             self.bench = None
+            if guardian is not None:
+                guardian_mod.release(guardian)
 
     def _record_failure(self, folder: RunFolder, bus: EventBus, exc: PnbenchError) -> None:
         status = "failed"

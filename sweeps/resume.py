@@ -34,6 +34,7 @@ class ResumeState:
     last_seq: int = 0
     started_epoch_s: float | None = None
     previous_status: str = ""
+    guardian: dict | None = None  # what the guardian did after the process died
 
     @property
     def remaining(self) -> int:
@@ -70,6 +71,7 @@ def load_state(run_dir: str | Path, plan: Plan) -> ResumeState:
                 ended_by[event.step] = str(event["ended_by"])
     state = ResumeState(done=done, statuses=statuses, ended_by=ended_by, last_seq=last_seq,
                         previous_status=str(run.get("status", "")), points=by_step,
+                        guardian=run.get("guardian") or None,
                         started_epoch_s=_epoch(run.get("started")))
     for step in plan.steps:
         if statuses[step.name] in FINISHED:
@@ -110,3 +112,13 @@ def _epoch(text: object) -> float | None:
         return datetime.fromisoformat(text.replace("Z", "+00:00")).timestamp()
     except ValueError:
         return None
+
+
+def last_smu_level(plan: Plan, state: ResumeState) -> tuple[str, float] | None:
+    """(source, level) of the SMU step that was in progress, or None."""
+    for step in plan.steps:
+        if step.instrument == "smu" and state.statuses.get(step.name) == "running":
+            done = state.done.get(step.name, 0)
+            if done > 0:
+                return step.source, step.points[done - 1].level
+    return None

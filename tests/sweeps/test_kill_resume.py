@@ -1,11 +1,12 @@
 """kill -9 of a `pnbench run` process at random moments, then `pnbench resume`.
 
 The simulated bench runs in this test process with its connection watchdog off, so after
-the kill the SMU output stays on exactly as a real instrument's would, and only the resume
-can switch it off. After each resume: outputs off, every point the killed process had
-written still there byte for byte, each planned point present exactly once, and run.json
-saying what happened. The moments are drawn from a seeded generator (PNBENCH_KILL_SEED
-overrides the seed) so a failure can be replayed.
+the kill the SMU output stays on exactly as a real instrument's would, unless pnbench's
+guardian process switches it off: the test waits for that, then resumes. After each
+resume: outputs off, every point the killed process had written still there byte for
+byte, each planned point present exactly once, and run.json saying what happened. The
+moments come from a seeded generator (PNBENCH_KILL_SEED overrides the seed) so a failure
+can be replayed.
 """
 
 from __future__ import annotations
@@ -121,6 +122,10 @@ def test_kill_9_then_resume(bench, tmp_path, repetition):
         if proc.poll() is None:
             proc.kill()
     what = f"(seed {SEED}, repetition {repetition}, kill {delay:.3f} s after the first point)"
+    # the guardian notices the death and switches the bench off, before any resume
+    assert wait_for(lambda: not any(bench.outputs().values()), 20), "outputs left on " + what
+    assert wait_for(lambda: read_run(run_dir).get("guardian") is not None
+                    or read_run(run_dir)["status"] == "completed", 20), what
     before = (run_dir / "points.csv").read_bytes()
     before = before[: before.rfind(b"\n") + 1]
     killed_status = read_run(run_dir)["status"]
@@ -145,8 +150,10 @@ def test_kill_9_then_resume(bench, tmp_path, repetition):
     assert keys == planned, "a point was repeated or skipped " + what
     assert run["steps"][0]["status"] == "done" and run["steps"][2]["status"] == "done"
     if killed_status != "completed":
+        assert killed_status == "interrupted", what  # written by the guardian
         assert run["resume_count"] == 1
-        assert run["resumes"][0]["previous_status"] == killed_status
+        assert run["resumes"][0]["previous_status"] == "interrupted"
+        assert run["resumes"][0]["guardian"]["outputs_off_confirmed"] is True, what
         assert any("ended without closing" in e.get("message", "")
                    for e in read_events(run_dir) if e.kind == "warning"), what
         seqs = [e.seq for e in read_events(run_dir)]
