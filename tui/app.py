@@ -18,8 +18,10 @@ import threading
 import time
 from pathlib import Path
 
+from rich.segment import Segment
 from textual.app import App
 from textual.binding import Binding
+from textual.filter import Monochrome, monochrome_style
 from textual.reactive import reactive
 
 from pnbench.modeling.errors import PnbenchError
@@ -28,6 +30,9 @@ from .app_bench import output_name
 from .app_folder import FolderTail, apply_batch
 from .app_live import LiveRun
 from .app_state import RunState
+
+SHORT_ADVICE = ("Quitting the app aborts it. For overnight runs use `pnbench run PLAN "
+                "--headless` and look in with `pnbench watch RUN_DIR`.")
 
 DRAIN_PERIOD_S = 0.1
 WATCH_PERIOD_S = 0.5
@@ -38,6 +43,18 @@ OVERNIGHT_ADVICE = (
     "`pnbench watch RUN_DIR`, which you can open and quit at any time without "
     "touching the acquisition."
 )
+
+
+class _Monochrome(Monochrome):
+    """Textual's monochrome filter (used under NO_COLOR) fails on a segment without a
+    style, which the plot canvas produces; this one passes such segments through."""
+
+    def apply(self, segments: list[Segment], background) -> list[Segment]:
+        return [Segment(text, None if style is None else monochrome_style(style), None)
+                for text, style, _ in segments]
+
+
+_MONOCHROME = _Monochrome()
 
 
 class PnbenchApp(App):
@@ -88,6 +105,10 @@ class PnbenchApp(App):
             self.load_plan_file(self.plan_path)
         self.available_modes = ["run"] if self.watch_dir else ["bench", "plan", "run",
                                                                "review"]
+
+    def get_line_filters(self):
+        return [_MONOCHROME if type(f) is Monochrome else f
+                for f in super().get_line_filters()]
 
     # ------------------------------------------------------------------ setup
     def on_mount(self) -> None:
@@ -177,7 +198,7 @@ class PnbenchApp(App):
             self._start_failed(str(exc))
             return
         self.status_text = "connecting"
-        self.notify(OVERNIGHT_ADVICE, title="This app owns the sweep", timeout=10)
+        self.notify(SHORT_ADVICE, title="This app owns the sweep", timeout=6)
         self.refresh_bindings()
 
     def _start_failed(self, message: str) -> None:

@@ -10,8 +10,15 @@ from pnbench.sweeps.quantities import format_quantity
 from .app_state import format_duration
 
 
-def example_plan_path() -> Path | None:
-    """The bundled example plan to start from (first of sim_configs/plans/*.toml)."""
+def example_plan_path(simulate: str | None = None) -> Path | None:
+    """The bundled plan to start from: the one written for the simulated device in use
+    (the plan `pnbench demo` runs for it), else the first of sim_configs/plans."""
+    try:
+        from pnbench.tui.cmd_demo import demo_plan
+
+        return Path(demo_plan(simulate or ""))
+    except (ImportError, KeyError, FileNotFoundError, AttributeError):
+        pass
     try:
         folder = resources.files("pnbench.sim_configs") / "plans"
         names = sorted(p.name for p in folder.iterdir() if p.name.endswith(".toml"))

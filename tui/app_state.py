@@ -35,6 +35,11 @@ LOG_TAGS = {
 #: Keys of an event that are its envelope, not its message.
 _ENVELOPE = ("seq", "time_s", "kind", "step")
 
+#: Step statuses of a step that has ended with nothing left to do (it may have ended
+#: early: a limit reached, its parameters settled); an aborted step is not among them.
+ENDED_COMPLETE = ("done", "completed", "finished", "limit", "settled", "ended_early",
+                  "skipped")
+
 #: Run statuses after which nothing more will happen.
 FINAL_STATUSES = ("completed", "aborted", "safety_stop", "failed", "interrupted")
 
@@ -66,8 +71,8 @@ class LogEntry:
     text: str
 
     def line(self) -> str:
-        where = f" {self.step}" if self.step else ""
-        return f"{_clock(self.time_s)} {self.tag:<6}{where}: {self.text}"
+        where = f"[{self.step}] " if self.step else ""
+        return f"{_clock(self.time_s)} {self.tag:<6} {where}{self.text}"
 
 
 @dataclass
@@ -249,9 +254,8 @@ class RunState:
             planned = entry.get("planned")
             if isinstance(planned, (int, float)) and planned > 0:
                 progress.planned = int(planned)
-            done = entry.get("done")
-            if isinstance(done, (int, float)) and done > progress.done:
-                progress.done = int(done)  # points we did not see (before a resume)
+            # "done" is not taken from here: every point is counted from points.csv
+            # or the point events, and run.json may lag behind or run ahead of them
             progress.status = str(entry.get("status", progress.status))
             if progress.status == "running":
                 self.current_step = name
@@ -347,8 +351,8 @@ class RunState:
         planned = sum(p.planned for p in self.steps.values())
         if planned <= 0:
             return math.nan
-        done = sum(p.planned if p.remaining_points() == 0 and p.status != "pending"
-                   else min(p.done, p.planned) for p in self.steps.values())
+        done = sum(p.planned if p.status in ENDED_COMPLETE else min(p.done, p.planned)
+                   for p in self.steps.values())
         return min(done / planned, 1.0)
 
     def elapsed_s(self) -> float:

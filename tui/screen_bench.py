@@ -44,11 +44,11 @@ class BenchScreen(Screen):
         yield SourceBanner()
         yield ScreenBar("bench", "Bench")
         with VerticalScroll(id="bench-body"):
-            yield Static("Instruments", classes="section")
-            yield Static("", id="bench-instruments")
-            yield Static("", id="bench-outputs")
-            yield Static("Resources the VISA backends list", classes="section")
-            yield Static("", id="bench-resources")
+            yield Static("Instruments", classes="section", markup=False)
+            yield Static("", id="bench-instruments", markup=False)
+            yield Static("", id="bench-outputs", markup=False)
+            yield Static("Resources the VISA backends list", classes="section", markup=False)
+            yield Static("", id="bench-resources", markup=False)
         yield Footer(compact=True)
 
     def on_mount(self) -> None:

@@ -42,9 +42,10 @@ class ConfirmDialog(ModalScreen[bool]):
 
     def compose(self) -> ComposeResult:
         with Vertical():
-            yield Static(self.title_text, classes="dialog-title")
-            yield Static(self.body)
-            yield Static("y: yes    n or Esc: no", classes="dialog-error")
+            yield Static(self.title_text, classes="dialog-title", markup=False)
+            yield Static(self.body, markup=False)
+            again = f" (or {self.yes_key} again)" if self.yes_key else ""
+            yield Static(f"y{again}: yes    n or Esc: no", classes="dialog-error", markup=False)
         yield Footer(compact=True)
 
     def on_key(self, event) -> None:
@@ -70,10 +71,10 @@ class PathDialog(ModalScreen[str | None]):
 
     def compose(self) -> ComposeResult:
         with Vertical():
-            yield Static(self.title_text, classes="dialog-title")
-            yield Static(self.hint)
+            yield Static(self.title_text, classes="dialog-title", markup=False)
+            yield Static(self.hint, markup=False)
             yield Input(self.value, id="path")
-            yield Static("", classes="dialog-error", id="path-error")
+            yield Static("", classes="dialog-error", id="path-error", markup=False)
         yield Footer(compact=True)
 
     def on_input_submitted(self, event: Input.Submitted) -> None:
@@ -103,13 +104,14 @@ class QPointDialog(ModalScreen[QChoice | None]):
         freqs = " ".join(format_quantity(f, "Hz", prec=3).replace(" ", "")
                          for f in self.choice.frequencies_Hz)
         with Vertical():
-            yield Static("Small-signal Q-point", classes="dialog-title")
-            yield Static("Bias: a terminal voltage (0.65V, -5V) or a current (1mA, 10uA)")
+            yield Static("Small-signal Q-point", classes="dialog-title", markup=False)
+            yield Static("Bias: a terminal voltage (0.65V, -5V) or a current (1mA, 10uA)",
+                         markup=False)
             yield Input(bias, id="bias")
-            yield Static("Frequencies for |Z| (1k 100k 1M)")
+            yield Static("Frequencies for |Z| (1k 100k 1M)", markup=False)
             yield Input(freqs, id="freqs")
             yield Static("Enter: accept   Tab: next field   Esc: cancel",
-                         classes="dialog-error", id="qpoint-error")
+                         classes="dialog-error", id="qpoint-error", markup=False)
         yield Footer(compact=True)
 
     def on_input_submitted(self, event: Input.Submitted) -> None:

@@ -35,11 +35,11 @@ class PlanScreen(Screen):
     def compose(self) -> ComposeResult:
         yield SourceBanner()
         yield ScreenBar("plan", "Plan")
-        yield Static("", id="plan-path")
+        yield Static("", id="plan-path", markup=False)
         with Horizontal(id="plan-body"):
             yield TextArea("", id="plan-text", show_line_numbers=True, tab_behavior="focus")
             with VerticalScroll(id="plan-report"):
-                yield Static("", id="plan-messages")
+                yield Static("", id="plan-messages", markup=False)
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
@@ -101,7 +101,7 @@ class PlanScreen(Screen):
         self._show_result()
 
     def action_example(self) -> None:
-        path = example_plan_path()
+        path = example_plan_path(self.app.simulate)
         if path is None:
             self.notify("No bundled example plan is installed.", severity="error")
             return

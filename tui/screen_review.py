@@ -57,7 +57,7 @@ class ReviewScreen(Screen):
     def compose(self) -> ComposeResult:
         yield SourceBanner()
         yield ScreenBar("review", "Review")
-        yield Static("", id="review-head")
+        yield Static("", id="review-head", markup=False)
         with Horizontal(id="review-body"):
             yield SweepPlot(id="review-plot")
             with Vertical(id="review-side"):

@@ -10,11 +10,12 @@ from __future__ import annotations
 
 import time
 
+from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
-from textual.widgets import Footer, Log, Static
+from textual.widgets import Footer, RichLog, Static
 
 from .app_plots import VIEW_OF_KIND, VIEWS, has_dc_fit, model_params, plot_data
 from .widget_banner import ScreenBar, SourceBanner
@@ -64,16 +65,16 @@ class RunScreen(Screen):
 
     def compose(self) -> ComposeResult:
         yield SourceBanner()
-        yield ScreenBar("run", "Watch" if self.read_only else "Run")
+        yield ScreenBar("run", "Watch (read-only)" if self.read_only else "Run")
         with Horizontal(id="run-body"):
             yield SweepPlot(id="run-plot")
             with Vertical(id="run-side"):
-                yield Static("", id="panel-title")
+                yield Static("", id="panel-title", markup=False)
                 yield ParamTable(id="params")
                 yield QPointPanel(id="qpoint")
-                yield Log(id="log", max_lines=2000, auto_scroll=True)
+                yield RichLog(id="log", max_lines=2000, auto_scroll=True, wrap=True)
         yield RunProgress(id="run-progress")
-        yield Static("", id="run-last")
+        yield Static("", id="run-last", markup=False)
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
@@ -91,6 +92,7 @@ class RunScreen(Screen):
         wide = width >= WIDE_COLUMNS and height >= WIDE_ROWS
         self.set_class(wide, "-wide")
         self.set_class(not wide, "-narrow")
+        self.refresh_bindings()
         table = self.query_one(ParamTable)
         if table.detailed != wide:
             table.detailed = wide
@@ -114,7 +116,8 @@ class RunScreen(Screen):
         params = model_params(state.parameters)
         self.query_one(ParamTable).show(state.parameters)
         self.query_one(QPointPanel).show(params, state.temperature_K,
-                                         has_dc_fit(state.parameters))
+                                         has_dc_fit(state.parameters),
+                                         set(state.parameters))
         self.query_one(RunProgress).show(state)
         self._append_log()
         now = time.monotonic()
@@ -147,13 +150,16 @@ class RunScreen(Screen):
         self._log_count = self.state.log_total
         if not fresh:
             return
-        self.query_one(Log).write_lines([entry.line() for entry in fresh])
+        log = self.query_one(RichLog)
+        for entry in fresh:
+            log.write(Text(entry.line()))
         important = [e for e in fresh if e.tag in ("COMPL", "LIMIT", "WARN", "ERROR")]
         if important:
             self.query_one("#run-last", Static).update("last: " + important[-1].line())
 
     def _show_panel(self) -> None:
         key, title = PANELS[self.panel_index]
+        self.set_class(key == "log", "-log-panel")
         for panel_key, _ in PANELS:
             self.query_one(f"#{panel_key}").set_class(panel_key == key, "-current")
         wide = self.has_class("-wide")
@@ -169,6 +175,8 @@ class RunScreen(Screen):
             if (action == "pause" and paused) or (action == "resume" and not paused):
                 return False  # one space key: Pause while running, Resume when paused
             return True if self.app.can_run_action(action) else None
+        if action == "next_panel":
+            return not self.has_class("-wide")  # every panel is on show already
         return True
 
     def action_start(self) -> None:

@@ -30,6 +30,9 @@ class SourceBanner(Static):
     SourceBanner.-off { text-style: dim; }
     """
 
+    def __init__(self) -> None:
+        super().__init__("", markup=False)
+
     def on_mount(self) -> None:
         self.watch(self.app, "output_text", self._show, init=True)
         self.watch(self.app, "source_on", self._show, init=False)
@@ -58,12 +61,12 @@ class ScreenBar(Horizontal):
         self.title = title
 
     def compose(self) -> ComposeResult:
-        yield Static(self.title, id="bar-name")
+        yield Static(self.title, id="bar-name", markup=False)
         modes = getattr(self.app, "available_modes", [m for m, _, _ in SCREENS])
         keys = "  ".join(f"{key} {name.lower()}" for mode, key, name in SCREENS
                          if mode in modes and mode != self.mode)
-        yield Static(keys, id="bar-keys")
-        yield Static("", id="bar-status")
+        yield Static(keys, id="bar-keys", markup=False)
+        yield Static("", id="bar-status", markup=False)
 
     def on_mount(self) -> None:
         self.watch(self.app, "status_text", self._status, init=True)

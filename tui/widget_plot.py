@@ -82,7 +82,7 @@ class SweepPlot(Vertical):
         self.current: PlotData | None = None
 
     def compose(self) -> ComposeResult:
-        yield Static("", classes="plot-title")
+        yield Static("", classes="plot-title", markup=False)
         plot = PlotWidget(allow_pan_and_zoom=False)
         plot.can_focus = False
         yield plot

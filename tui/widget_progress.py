@@ -55,8 +55,8 @@ class RunProgress(Vertical):
     def compose(self) -> ComposeResult:
         with Horizontal():
             yield ProgressBar(total=100, show_eta=False, id="progress-bar")
-            yield Static("", id="progress-summary")
-        yield Static("", id="progress-steps")
+            yield Static("", id="progress-summary", markup=False)
+        yield Static("", id="progress-steps", markup=False)
 
     def show(self, state: RunState) -> None:
         fraction = state.progress_fraction()

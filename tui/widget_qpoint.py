@@ -55,9 +55,16 @@ def parse_choice(bias_text: str, freq_text: str) -> QChoice:
     return QChoice(kind, value, freqs)
 
 
-def qpoint_rows(params: DiodeParams, choice: QChoice,
-                temperature_K: float) -> list[tuple[str, str]]:
-    """(label, value) lines of the small-signal equivalent at the chosen Q-point."""
+#: Which extracted parameter each line depends on (beyond IS and N).
+NEEDS = {"Cj": "CJO", "Cd": "TT", "RS": "RS"}
+
+
+def qpoint_rows(params: DiodeParams, choice: QChoice, temperature_K: float,
+                known: set[str] | None = None) -> list[tuple[str, str]]:
+    """(label, value) lines of the small-signal equivalent at the chosen Q-point.
+
+    `known` names the parameters actually extracted; a line that rests on one not yet
+    extracted says so instead of showing the model-card default (such as Cd = 0)."""
     if choice.kind == "current":
         q = operating_point(params, current=choice.value, temperature_K=temperature_K)
     else:
@@ -72,6 +79,9 @@ def qpoint_rows(params: DiodeParams, choice: QChoice,
         ("RS", format_value(q.rs_ohm, "ohm")),
         ("T", f"{temperature_K:.2f} K"),
     ]
+    if known is not None:
+        out = [(label, value if NEEDS.get(label, "IS") in known
+                else f"-- ({NEEDS[label]} not extracted yet)") for label, value in out]
     for f in choice.frequencies_Hz:
         z = complex(q.impedance(f))
         phase = math.degrees(math.atan2(z.imag, z.real))
@@ -84,17 +94,17 @@ class QPointPanel(Static):
     """Small-signal equivalent at the chosen Q-point (b picks another)."""
 
     def __init__(self, *, id: str | None = None):
-        super().__init__("", id=id)
+        super().__init__("", id=id, markup=False)
         self.choice = QChoice()
 
     def show(self, params: DiodeParams | None, temperature_K: float,
-             have_dc_fit: bool) -> None:
+             have_dc_fit: bool, known: set[str] | None = None) -> None:
         head = f"Q-point {self.choice.describe()}"
         if params is None or not have_dc_fit:
             self.update(f"{head}\n  waiting for an I-V fit (IS, N)")
             return
         try:
-            lines = qpoint_rows(params, self.choice, temperature_K)
+            lines = qpoint_rows(params, self.choice, temperature_K, known)
         except (ValueError, ArithmeticError) as exc:
             self.update(f"{head}\n  cannot evaluate: {exc}")
             return

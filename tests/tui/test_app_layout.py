@@ -104,13 +104,19 @@ async def test_run_screen_gives_the_plot_room_and_shows_panels_as_space_allows(
             assert screen.query_one("#progress-steps").display
 
 
-async def test_source_on_banner_reads_without_colour(app_with_run, monkeypatch):
-    """On a monochrome terminal (NO_COLOR, see no-color.org) the source-on state is
-    still plain: words, and reverse video over the whole line."""
-    monkeypatch.setenv("NO_COLOR", "1")
-    app = app_with_run
+async def test_monochrome_terminal_draws_and_the_source_on_banner_reads_without_colour(
+        tmp_path, monkeypatch):
+    """On a monochrome terminal (NO_COLOR, see no-color.org) every screen draws (plot
+    included), and the source-on state is still plain: words, and reverse video over
+    the whole line."""
+    monkeypatch.setenv("NO_COLOR", "1")  # Textual reads it when the app is made
+    run = SyntheticRun(tmp_path / "runs" / "20260101-000000_synth")
+    run.advance(1000)
+    app = PnbenchApp(watch_dir=run.folder)
+    assert app.no_color
     async with app.run_test(size=(80, 24)) as pilot:
-        app.switch_mode("run")
+        await pilot.pause(0.6)
+        assert app.state.point_count == run.total
         app.output_text = "SOURCE OUTPUT ON: SMU output (DUT terminals are live)"
         app.source_on = True
         await pilot.pause(0.2)
@@ -118,6 +124,7 @@ async def test_source_on_banner_reads_without_colour(app_with_run, monkeypatch):
         assert "SOURCE OUTPUT ON" in str(banner.render())
         assert banner.rich_style.reverse and banner.rich_style.bold
         assert banner.region.width == 80
+        app.save_screenshot(str(tmp_path / "mono.svg"))  # renders every line
         app.source_on = False
         app.output_text = "outputs off"
         await pilot.pause(0.2)

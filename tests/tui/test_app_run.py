@@ -180,3 +180,23 @@ async def test_a_finished_run_reviews_refits_and_exports_a_card(tmp_path, size):
     card = target.read_text()
     assert ".model LH-SW200-t1 D(" in card and "IS=" in card
     assert (tmp_path / "card.json").exists()  # the refit's model.json beside it
+
+
+async def test_bench_screen_identifies_the_simulated_instruments_and_lists_resources(
+        tmp_path):
+    plan = write_plan(tmp_path, points=5)
+    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("f2")
+        await pilot.pause(0.2)
+        text = str(app.screen.query_one("#bench-instruments").render())
+        assert "SMU" in text and "simulated" in text and "-- (i asks it)" in text
+        await pilot.press("i")
+        await wait_for(pilot, lambda: app.screen._identified, "the identities")
+        await pilot.pause(0.6)
+        text = str(app.screen.query_one("#bench-instruments").render())
+        assert "[answered]" in text and "simulated SMU" in text
+        assert "output    ON" not in text
+        await pilot.press("l")
+        await wait_for(pilot, lambda: app.screen.scanned is not None, "the resource list")
+    assert app.live is None  # identifying never starts a sweep

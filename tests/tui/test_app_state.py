@@ -220,6 +220,8 @@ def test_qpoint_rule_of_thumb_rd_is_26_ohm_at_1_mA():
     assert 25.0 < rd_ohm < 27.0  # the trade's "26 ohm at 1 mA"
     assert lines["RS"] == "2 Ohm"
     assert "|Z| 1 kHz" in lines and "|Z| 1 MHz" in lines
+    partial = dict(qpoint_rows(p, choice, 300.15, known={"IS", "N", "RS"}))
+    assert partial["Cd"] == "-- (TT not extracted yet)" and partial["RS"] == "2 Ohm"
 
 
 def test_qpoint_choice_rejects_bad_input_with_a_message():
@@ -241,5 +243,7 @@ def test_run_json_steps_fill_planned_counts(tmp_path):
     doc = json.loads((tmp_path / "r" / "run.json").read_text())
     state = RunState()
     state.apply_run_json(doc)
-    assert state.steps["forward"].planned == 25 and state.steps["forward"].done == 3
+    assert state.steps["forward"].planned == 25 and state.steps["forward"].done == 0
+    apply_batch(state, FolderTail(tmp_path / "r").poll())  # run.json, then 3 points
+    assert state.steps["forward"].done == 3  # counted once, from points.csv
     assert state.progress_fraction() == pytest.approx(3 / run.total)

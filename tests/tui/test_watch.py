@@ -42,6 +42,7 @@ async def test_watch_follows_a_folder_another_process_writes_and_changes_nothing
             await pilot.pause(0.6)  # one more poll after the last line
             assert app.state.status == "completed"
             assert app.state.point_count == TOTAL
+            assert all(p.done == p.planned for p in app.state.steps.values())
             assert len(set(seen)) > 3  # it grew while we watched, not all at once
             assert {"IS", "N", "CJO", "TT"} <= set(app.state.parameters)
             assert any(e.tag == "COMPL" for e in app.state.log)
