@@ -14,12 +14,12 @@ off, and record it in run.json (`outputs_off_confirmed`).
 from __future__ import annotations
 
 import math
-import threading
 import time
 from dataclasses import dataclass
 
 from pnbench.modeling.errors import InstrumentError, OperatorStop, SafetyStop
 from pnbench.modeling.smallsignal import parallel_from_admittance
+from pnbench.sweeps.control import Control
 from pnbench.sweeps.events import EventBus, finite
 from pnbench.sweeps.limits import Reading, StepGuard, Verdict
 from pnbench.sweeps.plan import Plan
@@ -68,28 +68,24 @@ class Runner:
             self.ended_by.update(resume_state.ended_by)
         self.current_step: str | None = None
         self.in_shutdown = False
-        self._pause = threading.Event()
-        self._aborted = threading.Event()
-        self._abort: tuple[str, str] | None = None
+        self.control = Control()
         self._last_refresh = 0.0
         self._last_compliance_event: dict[str, float] = {}
         self._compliance_count: dict[str, int] = {}
 
     # -- control (any thread) -----------------------------------------------------------
     def pause(self) -> None:
-        self._pause.set()
+        self.control.pause()
 
     def resume(self) -> None:
-        self._pause.clear()
+        self.control.resume()
 
     def abort(self, reason: str = "stopped by the operator", status: str = "aborted") -> None:
-        if self._abort is None:
-            self._abort = (reason, status)
-        self._aborted.set()
+        self.control.abort(reason, status)
 
     @property
     def paused(self) -> bool:
-        return self._pause.is_set()
+        return self.control.paused
 
     # -- the run --------------------------------------------------------------------------
     def run(self) -> Outcome:
@@ -101,7 +97,7 @@ class Runner:
                     continue
                 self._run_step(step)
         except OperatorStop as exc:
-            status = self._abort[1] if self._abort else "aborted"
+            status = self.control.status
             reason = str(exc)
         except SafetyStop as exc:
             status, reason = "safety_stop", str(exc)
@@ -223,38 +219,36 @@ class Runner:
         self._arm_smu(step)
         clean = False
         try:
-            if start > 0:
-                self._approach(step, start)
+            verdict = self._approach(step, start, guard) if start > 0 else None
             for planned in step.points[start:]:
+                if verdict is not None:
+                    break
                 if self._checkpoint(step):
                     self._arm_smu(step)
-                    self._approach(step, planned.index)
+                    verdict = self._approach(step, planned.index, guard)
+                    if verdict is not None:
+                        break
                 verdict = guard.before(planned.level)
                 if verdict is not None:
-                    clean = True
-                    return self._ended(step, verdict)
+                    break
                 reading = self._read_smu(step, planned.level)
-                point = Point(step.name, planned.index, "iv", self.bus.elapsed_s(),
-                              reading.voltage_V, reading.current_A,
-                              compliance=reading.compliance)
-                self._record(step, point)
+                self._record(step, Point(step.name, planned.index, "iv", self.bus.elapsed_s(),
+                                         reading.voltage_V, reading.current_A,
+                                         compliance=reading.compliance))
                 if not (math.isfinite(reading.voltage_V) and math.isfinite(reading.current_A)):
                     self.bus.emit("warning", step.name, message=f"point {planned.index}: the "
                                   "instrument answered an overflow or not-a-number marker "
                                   f"at {planned.level:g} {step.source_unit}", index=planned.index)
                 verdict = guard.after(planned.level, reading)
-                if verdict is not None and verdict.ends == "run":
-                    self.bus.emit("limit", step.name, guard=verdict.kind,
-                                  message=verdict.message, level=verdict.level)
-                    raise SafetyStop(f"step {step.name}: {verdict.message}")
-                if verdict is not None:
-                    clean = True
-                    return self._ended(step, verdict)
-                if self._settled(step):
+                if verdict is None and self._settled(step):
                     clean = True
                     return "settled", None
+            if verdict is not None and verdict.ends == "run":
+                self.bus.emit("limit", step.name, guard=verdict.kind,
+                              message=verdict.message, level=verdict.level)
+                raise SafetyStop(f"step {step.name}: {verdict.message}")
             clean = True
-            return "done", None
+            return ("done", None) if verdict is None else self._ended(step, verdict)
         finally:
             if clean:  # after a fault the shutdown's safe_off (which reconnects) does it
                 self._disarm_smu()
@@ -272,13 +266,21 @@ class Runner:
         smu.output(False)
         self.bus.emit("output", self.current_step, role="smu", on=False)
 
-    def _approach(self, step: Step, index: int) -> None:
+    def _approach(self, step: Step, index: int, guard: StepGuard) -> Verdict | None:
         """Bring the source back to the level before ``index`` through at most ten of the
-        step's earlier levels (after a pause or a resume); readings are not kept."""
+        step's earlier levels (after a pause or a resume), each checked by the guards
+        before and after like any level; the readings are not kept."""
         earlier = step.levels[:index]
         stride = max(1, len(earlier) // 10)
         for level in earlier[stride - 1::stride]:
-            self.bench.smu.apply_and_read(level)
+            verdict = guard.before(level)
+            if verdict is None:
+                r = self.bench.smu.apply_and_read(level)
+                verdict = guard.after(level, Reading(r.voltage_V, r.current_A,
+                                                     bool(r.compliance)))
+            if verdict is not None:
+                return verdict
+        return None
 
     def _read_smu(self, step: Step, level: float) -> Reading:
         smu = self.bench.smu
@@ -383,9 +385,8 @@ class Runner:
     def _checkpoint(self, step: Step) -> bool:
         """Raise OperatorStop on abort; on pause, turn the step's source off, wait, and
         return True so the caller re-arms it. False when nothing happened."""
-        if self._abort is not None:
-            raise OperatorStop(self._abort[0])
-        if not self._pause.is_set():
+        self.control.check()
+        if not self.control.paused:
             return False
         if step.instrument == "smu":
             self._disarm_smu()
@@ -395,19 +396,14 @@ class Runner:
         self.folder.update_run(status="paused", steps=self._steps_doc())
         self.bus.emit("paused", step.name, done=self.done[step.name])
         self.folder.log(f"paused in step {step.name} (outputs off)")
-        while self._pause.is_set() and self._abort is None:
-            self._aborted.wait(0.1)
-        if self._abort is not None:
-            raise OperatorStop(self._abort[0])
+        self.control.wait_while_paused()
         self.folder.update_run(status="running")
         self.bus.emit("resumed", step.name, done=self.done[step.name])
         self.folder.log(f"resumed step {step.name}")
         return True
 
     def _sleep(self, seconds: float) -> None:
-        self._aborted.wait(seconds * self.time_scale)
-        if self._abort is not None:
-            raise OperatorStop(self._abort[0])
+        self.control.sleep(seconds * self.time_scale)
 
 
 def _reading_of(point: Point) -> Reading:
