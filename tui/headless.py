@@ -148,7 +148,9 @@ class Progress:
         return sum(i["done"] for i in self.steps.values())
 
     def total_planned(self) -> int:
-        return sum(i["planned"] for i in self.steps.values())
+        """Planned points, counting a step that ended early (limit, settled) as done."""
+        return sum(i["done"] if i["status"] in ("done", "limit", "settled") else i["planned"]
+                   for i in self.steps.values())
 
     def eta_s(self) -> float:
         if self._t0 is None:
