@@ -38,7 +38,7 @@ name = "reverse"
 kind = "iv_reverse"
 start = "0 V"
 stop = "-5 V"
-points = 11
+points = {reverse_points}
 compliance = "1 mA"
 breakdown_guard = "100 uA"
 """
@@ -47,9 +47,10 @@ breakdown_guard = "100 uA"
 PATIENCE_S = 60.0
 
 
-def write_plan(folder: Path, points: int) -> Path:
+def write_plan(folder: Path, points: int, reverse_points: int = 11) -> Path:
     path = folder / "plan.toml"
-    path.write_text(PLAN.format(points=points), encoding="utf-8")
+    path.write_text(PLAN.format(points=points, reverse_points=reverse_points),
+                    encoding="utf-8")
     return path
 
 
@@ -69,7 +70,8 @@ def run_doc(app: PnbenchApp) -> dict:
 
 async def test_start_see_points_and_parameters_pause_then_abort_leaves_outputs_off(
         tmp_path):
-    plan = write_plan(tmp_path, points=400)
+    # long enough that the abort comes before the end, whenever the first fit arrives
+    plan = write_plan(tmp_path, points=300, reverse_points=600)
     app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.3, out_dir=tmp_path / "runs")
     async with app.run_test(size=(80, 24)) as pilot:
         assert app.current_mode == "run" and app.plan is not None
@@ -97,7 +99,7 @@ async def test_start_see_points_and_parameters_pause_then_abort_leaves_outputs_o
         assert not app.source_on and "outputs off" in app.output_text
         doc = run_doc(app)
         assert doc["status"] == "aborted" and doc["outputs_off_confirmed"] is True
-        assert app.state.point_count < 411  # it did stop early
+        assert app.state.point_count < 900  # it did stop early
         # the points the screen showed are the points on disk
         rows = [line for line in (app.last_run_dir / "points.csv").read_text().splitlines()
                 if line and not line.startswith(("#", "step,"))]
@@ -131,7 +133,7 @@ async def test_quitting_during_a_run_asks_then_aborts_safely(tmp_path):
 
 async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts(tmp_path):
     plan = tmp_path / "bad.toml"
-    plan.write_text(PLAN.format(points=0), encoding="utf-8")
+    plan.write_text(PLAN.format(points=0, reverse_points=11), encoding="utf-8")
     app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs",
                      autostart=True)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -140,7 +142,7 @@ async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts
         messages = str(app.screen.query_one("#plan-messages").render())
         assert "CHECK FAILED" in messages and "line" in messages and "points" in messages
         editor = app.screen.query_one("TextArea")
-        editor.load_text(PLAN.format(points=5))
+        editor.load_text(PLAN.format(points=5, reverse_points=11))
         await pilot.press("ctrl+t")
         await pilot.pause(0.1)
         assert app.plan is not None
