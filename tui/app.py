@@ -423,11 +423,27 @@ def run_app(plan_path: str | Path | None = None, simulate: str | None = None,
             app.live.close()
         for sig, handler in previous.items():
             signal.signal(sig, handler)
+    return exit_code(app, code)
+
+
+def exit_code(app: PnbenchApp, code: object = 0) -> int:
+    """The exit code of DESIGN.md for the last sweep the app owned (as `pnbench run`
+    gives it), or the app's own code when it ran none."""
+    live = app.live
+    if live is not None:
+        outcome = getattr(live.launch, "outcome", None)
+        if outcome is not None:
+            return int(outcome.exit_code)
+        error = getattr(live.launch, "error", None)
+        if isinstance(error, PnbenchError):
+            return int(error.exit_code)
+        if error is not None:
+            return 1
     if app.state.status in ("aborted", "safety_stop", "interrupted"):
         return 4
     if app.state.status == "failed":
         return 3
-    return int(code or 0)
+    return int(code or 0) if isinstance(code, int) else 0
 
 
 def run_watch(run_dir: str | Path) -> int:

@@ -6,9 +6,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-import pytest
-
-from pnbench.tui.app import PnbenchApp
+from pnbench.tui.app import PnbenchApp, exit_code
 
 PLAN = """
 [plan]
@@ -129,6 +127,7 @@ async def test_quitting_during_a_run_asks_then_aborts_safely(tmp_path):
     assert app.live.outputs() == {"smu_output": False, "lcr_bias": False}
     doc = run_doc(app)
     assert doc["status"] == "aborted" and doc["outputs_off_confirmed"] is True
+    assert exit_code(app) == 4  # stopped by the operator, as DESIGN.md says
 
 
 async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts(tmp_path):
@@ -146,16 +145,24 @@ async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts
         await pilot.press("ctrl+t")
         await pilot.pause(0.1)
         assert app.plan is not None
-        assert "CHECK PASSED" in str(app.screen.query_one("#plan-messages").render())
-    assert not (tmp_path / "runs").exists()  # checking never starts anything
+        messages = str(app.screen.query_one("#plan-messages").render())
+        assert "CHECK PASSED" in messages and "estimated" in messages
+        await pilot.press("ctrl+s")  # save as: asks where
+        await wait_for(pilot, lambda: app.screen.__class__.__name__ == "PathDialog",
+                       "the save dialog")
+        app.screen.query_one("Input").value = str(tmp_path / "fixed.toml")
+        await pilot.press("enter")
+        await wait_for(pilot, (tmp_path / "fixed.toml").exists, "the saved plan")
+        assert app.plan_path == tmp_path / "fixed.toml"
+    assert "points = 5" in (tmp_path / "fixed.toml").read_text()
+    assert not (tmp_path / "runs").exists()  # checking and saving never start anything
 
 
-@pytest.mark.parametrize("size", [(80, 24), (200, 60)])
-async def test_a_finished_run_reviews_refits_and_exports_a_card(tmp_path, size):
+async def test_a_finished_run_reviews_refits_and_exports_a_card_and_report(tmp_path):
     plan = write_plan(tmp_path, points=25)
     app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs",
                      autostart=True)
-    async with app.run_test(size=size) as pilot:
+    async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(pilot, lambda: app.state.finished and not app.live.running,
                        "the end of the run")
         await pilot.press("f5")
@@ -179,6 +186,12 @@ async def test_a_finished_run_reviews_refits_and_exports_a_card(tmp_path, size):
         dialog_input.value = str(target)
         await pilot.press("enter")
         await wait_for(pilot, target.exists, "the card file")
+        await pilot.press("e")
+        report = app.last_run_dir / "report.html"
+        await wait_for(pilot, lambda: report.exists() or "failed" in app.screen._busy,
+                       "the report")
+        assert report.exists(), app.screen._busy
+    assert exit_code(app) == 0
     card = target.read_text()
     assert ".model LH-SW200-t1 D(" in card and "IS=" in card
     assert (tmp_path / "card.json").exists()  # the refit's model.json beside it
