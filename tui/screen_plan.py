@@ -7,6 +7,7 @@ with the steps and the estimated duration. Save (Ctrl+S) writes the text as it i
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 from textual.app import ComposeResult
@@ -18,6 +19,12 @@ from textual.widgets import Footer, Static, TextArea
 from .app_plan import example_plan_path, plan_summary
 from .screen_dialogs import PathDialog
 from .widget_banner import ScreenBar, SourceBanner
+
+
+def first_line_number(message: str) -> int | None:
+    """The first 'line N' an engine message names (1-based), if any."""
+    found = re.search(r"\bline (\d+)", message or "")
+    return int(found.group(1)) if found else None
 
 
 class PlanScreen(Screen):
@@ -78,9 +85,12 @@ class PlanScreen(Screen):
 
     # ------------------------------------------------------------------ actions
     def action_check(self) -> None:
-        text = self.query_one(TextArea).text
-        ok = self.app.check_plan_text(text)
+        editor = self.query_one(TextArea)
+        ok = self.app.check_plan_text(editor.text)
         self._show_result()
+        line = first_line_number(self.app.plan_error) if not ok else None
+        if line is not None and 0 < line <= editor.document.line_count:
+            editor.move_cursor((line - 1, 0), center=True)  # to the first problem
         self.notify("Plan checked: it can run." if ok else "Plan has problems; see the "
                     "messages.", severity="information" if ok else "error", timeout=4)
 

@@ -120,6 +120,7 @@ class RunScreen(Screen):
                                          set(state.parameters))
         self.query_one(RunProgress).show(state)
         self._append_log()
+        self._show_hint()
         now = time.monotonic()
         if force or now - self._plot_drawn_at >= PLOT_PERIOD_S:  # throttled
             self._draw_plot()
@@ -156,6 +157,22 @@ class RunScreen(Screen):
         important = [e for e in fresh if e.tag in ("COMPL", "LIMIT", "WARN", "ERROR")]
         if important:
             self.query_one("#run-last", Static).update("last: " + important[-1].line())
+
+    def _show_hint(self) -> None:
+        """Before any sweep: what s would start, or where to get a plan."""
+        app = self.app
+        if self.read_only or app.live is not None:
+            return
+        if app.plan is None:
+            text = "no plan to run: F3 opens the Plan screen (open, or start from an example)"
+        else:
+            plan = app.plan
+            where = (f"the simulated bench ({app.simulate})" if app.simulate
+                     else "the plan's instruments")
+            name = plan.title or plan.device.name
+            text = (f"ready: s starts '{name}' ({len(plan.steps)} steps, "
+                    f"{plan.total_points} points) on {where}")
+        self.query_one("#run-last", Static).update(text)
 
     def _show_panel(self) -> None:
         key, title = PANELS[self.panel_index]

@@ -7,6 +7,7 @@ import json
 from pathlib import Path
 
 from pnbench.tui.app import PnbenchApp, exit_code
+from pnbench.tui.screen_plan import first_line_number
 
 PLAN = """
 [plan]
@@ -141,6 +142,11 @@ async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts
         messages = str(app.screen.query_one("#plan-messages").render())
         assert "CHECK FAILED" in messages and "line" in messages and "points" in messages
         editor = app.screen.query_one("TextArea")
+        await pilot.press("ctrl+t")  # check again: the cursor goes to the problem
+        await pilot.pause(0.1)
+        named = first_line_number(app.plan_error)
+        assert named is not None and editor.cursor_location[0] == named - 1
+        assert "points" in editor.document.get_line(named - 1)
         editor.load_text(PLAN.format(points=5, reverse_points=11))
         await pilot.press("ctrl+t")
         await pilot.pause(0.1)
