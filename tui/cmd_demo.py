@@ -44,9 +44,9 @@ def run(args) -> int:
 
     simulate = args.simulate or DEFAULT_DEVICE
     args.simulate = simulate
-    check_bench_options(args)
     plan_path = demo_plan(simulate)
     plan = load_plan(plan_path)
+    check_bench_options(args, plan)
     print(f"demo: plan {plan_path.name} on the simulated bench with {simulate} "
           f"(time scale {args.time_scale:g})", file=sys.stderr)
     if not args.headless and sys.stdout.isatty() and app_available():

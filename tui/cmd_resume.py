@@ -22,19 +22,20 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args) -> int:
-    from pnbench.sweeps.launch import Launch
+    from pnbench.sweeps.launch import Launch, plan_of_run
     from pnbench.sweeps.store import read_run
     from pnbench.tui.headless import run_headless
 
-    check_bench_options(args)
     run_doc = read_run(args.run_dir)
     if run_doc.get("status") == "completed":
         print(f"{args.run_dir}: the run is already completed; nothing to resume")
         return 0
+    if args.simulate is None and run_doc.get("simulated"):
+        args.simulate = str(run_doc["simulated"])
+        print(f"simulated run: using the simulated bench with {args.simulate}",
+              file=sys.stderr)
+    check_bench_options(args, plan_of_run(args.run_dir, run_doc) if args.simulate else None)
     launch = Launch.resume_from(args.run_dir, simulate=args.simulate,
                                 time_scale=args.time_scale,
                                 force_identity=args.force_identity)
-    if launch.simulate and args.simulate is None:
-        print(f"simulated run: using the simulated bench with {launch.simulate}",
-              file=sys.stderr)
     return run_headless(launch, launch.plan, report=not args.no_report)

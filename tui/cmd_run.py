@@ -22,25 +22,35 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def add_bench_options(parser: argparse.ArgumentParser, time_scale: float = 1.0) -> None:
+    parser.set_defaults(default_time_scale=time_scale)
     parser.add_argument("--simulate", metavar="DUT.toml",
                         help="use the simulated bench with this device file (or the name "
                         "of a bundled one, e.g. lh-sw200) instead of the plan's instruments")
-    parser.add_argument("--time-scale", type=float, default=time_scale, metavar="X",
+    parser.add_argument("--time-scale", type=float, default=None, metavar="X",
                         help="with --simulate: 0 = as fast as possible, 1 = the "
                         f"instruments' real time (default: {time_scale:g})")
 
 
-def check_bench_options(args) -> None:
-    """Bad --simulate or --time-scale values exit 2 before anything is created."""
+def check_bench_options(args, plan=None) -> None:
+    """Bad --simulate or --time-scale values exit 2 before anything is created; with a
+    plan, its limits and levels are checked against the simulated instruments."""
     from pnbench.modeling.errors import BadInput
 
+    if args.time_scale is not None and args.simulate is None:
+        print("note: --time-scale only applies with --simulate; ignored", file=sys.stderr)
+    if args.time_scale is None:
+        args.time_scale = args.default_time_scale
     if args.time_scale < 0 or args.time_scale != args.time_scale:
         raise BadInput(f"--time-scale {args.time_scale}: expected a number >= 0 (0 = as fast "
                        "as possible, 1 = real instrument time)")
     if args.simulate is not None:
         from pnbench.drivers.simdevice import resolve_device
 
-        resolve_device(args.simulate)  # DeviceFileError names the file and key
+        device = resolve_device(args.simulate)  # DeviceFileError names the file and key
+        if plan is not None:
+            from pnbench.sweeps.ratings import check_simulated
+
+            check_simulated(plan, device)
 
 
 def run(args) -> int:
@@ -49,9 +59,7 @@ def run(args) -> int:
     from pnbench.tui.headless import app_available, run_headless
 
     plan = load_plan(args.plan)
-    check_bench_options(args)
-    if args.simulate is None and "--time-scale" in sys.argv:
-        print("note: --time-scale only applies with --simulate; ignored", file=sys.stderr)
+    check_bench_options(args, plan)
     if not args.headless and sys.stdout.isatty() and app_available():
         from pnbench.tui.app import run_app
 

@@ -121,6 +121,24 @@ def test_bad_simulated_device_and_time_scale_exit_2(tmp_path, capsys):
     assert not (tmp_path / "runs").exists()
 
 
+def test_plan_beyond_the_simulated_instruments_exits_2(tmp_path, capsys):
+    """The bundled LH-ZL560 device file keeps the simulated LCR meter's defaults: 20 Hz
+    to 2 MHz."""
+    text = GOOD.format(smu="TCPIP0::192.0.2.1::5025::SOCKET", points=5) + textwrap.dedent("""
+        [[steps]]
+        name = "cv"
+        kind = "cv"
+        bias = [0, -1]
+        frequency = "5 MHz"
+        """)
+    plan = write(tmp_path, text)
+    assert main(["run", plan, "--simulate", "lh-zl560", "--headless",
+                 "--out", str(tmp_path / "runs")]) == 2
+    err = capsys.readouterr().err
+    assert "simulated bench" in err and "2e+06 Hz" in err and "Traceback" not in err
+    assert not (tmp_path / "runs").exists()
+
+
 def test_check_lists_steps_duration_and_power(tmp_path, capsys):
     plan = write(tmp_path, GOOD.format(smu="TCPIP0::192.0.2.1::5025::SOCKET", points=56))
     assert main(["check", plan]) == 0
@@ -218,3 +236,24 @@ def test_signals_stop_gracefully_with_outputs_off(slow_bench, tmp_path, signum, 
     assert slow_bench.outputs() == {"smu_output": False, "lcr_bias": False}
     assert f"run folder: {run_dir}" in stdout
     assert 0 < run["steps"][0]["done"] < 400
+
+
+def test_resume_of_a_simulated_run_uses_its_device(tmp_path, capsys):
+    import threading
+
+    from pnbench.sweeps.launch import Launch
+    from pnbench.sweeps.plan import load_plan
+
+    plan = load_plan(write(tmp_path, GOOD.format(smu="TCPIP0::192.0.2.1::5025::SOCKET",
+                                                 points=40)))
+    launch = Launch.new(plan, simulate="lh-zl560", time_scale=0.0, out_dir=tmp_path / "runs")
+
+    def listener(event):
+        if event.kind == "point" and event["index"] == 15:
+            threading.Thread(target=launch.abort).start()
+
+    launch.listeners.append(listener)
+    assert launch.run().status == "aborted"
+    assert main(["resume", str(launch.run_dir), "--time-scale", "0", "--no-report"]) == 0
+    assert "simulated bench with lh-zl560" in capsys.readouterr().err
+    assert [p.index for p in read_points(launch.run_dir)] == list(range(40))
