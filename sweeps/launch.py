@@ -233,7 +233,7 @@ class Launch:
     def _run_doc(self) -> dict:
         plan = self.plan
         return {
-            "status": "starting", "reason": "", "device": plan.device.to_json_dict(),
+            "status": "running", "reason": "", "device": plan.device.to_json_dict(),
             "instruments": {}, "software_version": _version(), "ended": None,
             "limits": plan.limits.to_json_dict(),
             "steps": [{"name": s.name, "kind": s.kind, "planned": s.planned, "done": 0,
