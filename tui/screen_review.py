@@ -30,6 +30,9 @@ from .widget_params import ParamTable
 from .widget_plot import SweepPlot
 
 REDRAW_S = 0.3
+#: The point table fills this many rows per tick of FILL_PERIOD_S.
+FILL_ROWS = 400
+FILL_PERIOD_S = 0.03
 COLUMNS = ("#", "use", "step", "kind", "V", "reading", "f [Hz]", "compl")
 
 
@@ -53,6 +56,9 @@ class ReviewScreen(Screen):
         self.view_index = 0
         self._dirty = False
         self._busy = ""
+        self._filled = 0
+        self._fill_timer = None
+        self._pending_cursor: int | None = None
 
     def compose(self) -> ComposeResult:
         yield SourceBanner()
@@ -95,12 +101,28 @@ class ReviewScreen(Screen):
         self.query_one("#review-head", Static).update(text)
 
     def _fill_table(self) -> None:
+        """Refill the point table a chunk at a time, so a long run never holds the keys."""
         table = self.query_one("#review-points", DataTable)
         table.clear()
-        if self.review is None:
+        self._filled = 0
+        if self.review is not None and self._fill_timer is None:
+            self._fill_timer = self.set_interval(FILL_PERIOD_S, self._fill_chunk)
+
+    def _fill_chunk(self) -> None:
+        review = self.review
+        table = self.query_one("#review-points", DataTable)
+        if review is None or self._filled >= len(review.points):
+            if self._fill_timer is not None:
+                self._fill_timer.stop()
+                self._fill_timer = None
             return
-        for n, (point, used) in enumerate(zip(self.review.points, self.review.used, strict=True)):
-            table.add_row(*point_row(n, point, bool(used)), key=str(n))
+        start, stop = self._filled, min(self._filled + FILL_ROWS, len(review.points))
+        for n in range(start, stop):
+            table.add_row(*point_row(n, review.points[n], bool(review.used[n])), key=str(n))
+        self._filled = stop
+        if self._pending_cursor is not None and self._pending_cursor < stop:
+            table.move_cursor(row=self._pending_cursor)  # back where the user was
+            self._pending_cursor = None
 
     def _redraw_if_dirty(self) -> None:
         if self._dirty and self.review is not None:
@@ -108,11 +130,23 @@ class ReviewScreen(Screen):
             self._redraw()
 
     def _redraw(self) -> None:
-        state = review_state(self.review, only_used=True)
-        self.query_one(ParamTable).show(state.parameters)
-        key = VIEWS[self.view_index][0]
-        self.query_one(SweepPlot).show(plot_data(key, state),
-                                       f"{self.view_index + 1}/{len(VIEWS)}")
+        """Rebuild the plot and table from the points in use, off the UI thread."""
+        review, key = self.review, VIEWS[self.view_index][0]
+        position = f"{self.view_index + 1}/{len(VIEWS)}"
+
+        def work() -> None:
+            state = review_state(review, only_used=True)
+            data = plot_data(key, state)
+            self.app.call_from_thread(self._show_drawn, review, state.parameters, data,
+                                      position)
+
+        self.run_worker(work, thread=True, exclusive=True, group="review-draw")
+
+    def _show_drawn(self, review, parameters, data, position: str) -> None:
+        if review is not self.review:
+            return  # another folder was opened meanwhile
+        self.query_one(ParamTable).show(parameters)
+        self.query_one(SweepPlot).show(data, position)
         self._show_head()
 
     # ------------------------------------------------------------------ actions
@@ -123,12 +157,29 @@ class ReviewScreen(Screen):
         return True
 
     def open_folder(self, path: Path) -> None:
-        try:
-            self.review = load_review(path)
-        except PnbenchError as exc:
-            self.notify(str(exc), title="Cannot open the run folder", severity="error",
-                        timeout=10)
-            return
+        """Read the folder on a worker thread (a night's run is large), then show it."""
+        self._busy = f"reading {path}..."
+        self._show_head()
+
+        def work() -> None:
+            try:
+                review = load_review(path)
+            except PnbenchError as exc:
+                self.app.call_from_thread(self._open_failed, str(exc))
+                return
+            self.app.call_from_thread(self._opened, review)
+
+        self.run_worker(work, thread=True, exclusive=True, group="review-open")
+
+    def _open_failed(self, message: str) -> None:
+        self._busy = ""
+        self._show_head()
+        self.notify(message, title="Cannot open the run folder", severity="error",
+                    timeout=10)
+
+    def _opened(self, review: Review) -> None:
+        self.review = review
+        self._busy = ""
         self._fill_table()
         self._redraw()
         self.refresh_bindings()
@@ -147,10 +198,18 @@ class ReviewScreen(Screen):
         return table.cursor_row
 
     def _mark_rows(self, indices) -> None:
+        indices = list(indices)
+        self._dirty = True
+        if len(indices) > FILL_ROWS:  # many rows: refilling in chunks is quicker
+            self._pending_cursor = self._cursor_index() or 0
+            self._fill_table()
+            return
         table = self.query_one("#review-points", DataTable)
         for n in indices:
-            table.update_cell(str(n), "use", "yes" if self.review.used[n] else "no")
-        self._dirty = True
+            if n < self._filled:
+                table.update_cell(str(n), "use", "yes" if self.review.used[n] else "no")
+
+
 
     def action_toggle(self) -> None:
         n = self._cursor_index()
