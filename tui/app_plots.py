@@ -17,7 +17,7 @@ from pnbench.modeling import junction, smallsignal
 from pnbench.modeling.params import DiodeParams
 from pnbench.sweeps.quantities import format_quantity
 
-from .app_state import Estimate, RunState
+from .app_state import Estimate, RunState, Snapshot
 
 #: (key, title) of every view, in the order the view key cycles through them.
 VIEWS: tuple[tuple[str, str], ...] = (
@@ -140,9 +140,7 @@ def _grid(values: np.ndarray, count: int = 160) -> np.ndarray:
 
 def _admittance_split(state: RunState) -> tuple[np.ndarray, np.ndarray]:
     """Boolean masks over state.cv: (C-V points, admittance-vs-frequency points)."""
-    steps = state.cv.steps
-    kinds = [state.step_kind(step).lower() for step in steps]
-    adm = np.array(["adm" in kind for kind in kinds], dtype=bool)
+    adm = state.cv.step_mask(lambda step: "adm" in state.step_kind(step).lower())
     if adm.any():
         return ~adm, adm
     # No step says which is which: biases measured at 3 or more frequencies are
@@ -157,8 +155,9 @@ def _admittance_split(state: RunState) -> tuple[np.ndarray, np.ndarray]:
     return np.ones(len(v), dtype=bool), multi
 
 
-def plot_data(view: str, state: RunState) -> PlotData:
-    """The series of one view (see VIEWS) for the run as it stands."""
+def plot_data(view: str, state: RunState | Snapshot) -> PlotData:
+    """The series of one view (see VIEWS) for the run as it stands (a RunState on the
+    UI thread, or a Snapshot of one on any thread)."""
     params = model_params(state.parameters)
     builder = {"fwd": _iv, "rev": _iv, "resid": _residual, "cv": _cv, "mott": _mott,
                "yc": _admittance, "yg": _admittance}[view]
@@ -167,10 +166,9 @@ def plot_data(view: str, state: RunState) -> PlotData:
 
 def _reverse_mask(state: RunState) -> np.ndarray:
     """I-V points of reverse steps (by step kind; by the sign of V when unknown)."""
-    kinds = [state.step_kind(step).lower() for step in state.iv.steps]
     v = state.iv.column("voltage_V")
-    known = np.array([k.startswith("iv_") for k in kinds], dtype=bool)
-    by_kind = np.array([k == "iv_reverse" for k in kinds], dtype=bool)
+    known = state.iv.step_mask(lambda step: state.step_kind(step).startswith("iv_"))
+    by_kind = state.iv.step_mask(lambda step: state.step_kind(step) == "iv_reverse")
     return np.where(known, by_kind, v < 0)
 
 

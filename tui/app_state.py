@@ -99,23 +99,79 @@ class StepProgress:
 
 
 class _Columns:
-    """Growing float columns in compact arrays (a night of points stays small)."""
+    """Growing float columns in compact arrays (a night of points stays small); the
+    step of each point is kept as a number into `step_names`."""
 
     def __init__(self, names: tuple[str, ...]):
         self.names = names
         self.data = {name: array("d") for name in names}
-        self.steps: list[str] = []
+        self.step_ids = array("i")
+        self.step_names: list[str] = []
+        self._ids: dict[str, int] = {}
 
     def append(self, values: dict[str, float], step: str) -> None:
         for name in self.names:
             self.data[name].append(values.get(name, math.nan))
-        self.steps.append(step)
+        number = self._ids.get(step)
+        if number is None:
+            number = self._ids[step] = len(self.step_names)
+            self.step_names.append(step)
+        self.step_ids.append(number)
 
     def __len__(self) -> int:
-        return len(self.steps)
+        return len(self.step_ids)
 
     def column(self, name: str) -> np.ndarray:
-        return np.frombuffer(self.data[name], dtype=float).copy()
+        return np.array(self.data[name], dtype=float)
+
+    def step_of(self, index: int) -> str:
+        return self.step_names[self.step_ids[index]]
+
+    def step_mask(self, wanted) -> np.ndarray:
+        """Boolean mask of the points whose step name satisfies `wanted(name)`."""
+        table = np.array([bool(wanted(name)) for name in self.step_names], dtype=bool)
+        ids = np.array(self.step_ids, dtype=np.int64)
+        return table[ids] if len(table) else np.zeros(len(ids), dtype=bool)
+
+
+class _FrozenColumns:
+    """A copy of _Columns at one moment, safe to read on another thread."""
+
+    def __init__(self, columns: _Columns):
+        self.names = columns.names
+        self.data = {name: np.array(values, dtype=float)
+                     for name, values in columns.data.items()}
+        self.step_ids = np.array(columns.step_ids, dtype=np.int64)
+        self.step_names = list(columns.step_names)
+
+    def __len__(self) -> int:
+        return len(self.step_ids)
+
+    def column(self, name: str) -> np.ndarray:
+        return self.data[name]
+
+    def step_of(self, index: int) -> str:
+        return self.step_names[self.step_ids[index]]
+
+    def step_mask(self, wanted) -> np.ndarray:
+        table = np.array([bool(wanted(name)) for name in self.step_names], dtype=bool)
+        return table[self.step_ids] if len(table) else np.zeros(len(self), dtype=bool)
+
+
+@dataclass(frozen=True)
+class Snapshot:
+    """What the plots need of a RunState, copied on the UI thread so the plot data can
+    be computed on a worker thread while points keep arriving."""
+
+    iv: _FrozenColumns
+    cv: _FrozenColumns
+    parameters: dict
+    step_kinds: dict
+    temperature_K: float
+    version: int
+
+    def step_kind(self, name: str) -> str:
+        return self.step_kinds.get(name, "")
 
 
 def _clock(seconds: float) -> str:
@@ -313,6 +369,12 @@ class RunState:
     def step_kind(self, name: str) -> str:
         progress = self.steps.get(name)
         return progress.kind if progress else ""
+
+    def snapshot(self) -> Snapshot:
+        return Snapshot(_FrozenColumns(self.iv), _FrozenColumns(self.cv),
+                        dict(self.parameters),
+                        {name: p.kind for name, p in self.steps.items()},
+                        self.temperature_K, self.version)
 
     def eta_s(self) -> tuple[float, float]:
         """Seconds left in the current step and in the whole run (NaN when unknown).

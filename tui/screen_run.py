@@ -140,11 +140,22 @@ class RunScreen(Screen):
             self._draw_plot()
 
     def _draw_plot(self) -> None:
+        """Copy the state here (cheap), compute the view on a worker thread (the costly
+        part on a long run), and draw the result back on the UI thread."""
         key = VIEWS[self.view_index][0]
-        data = plot_data(key, self.state)
-        self.query_one(SweepPlot).show(data, f"{self.view_index + 1}/{len(VIEWS)}")
-        self._plot_version = self.state.version
+        position = f"{self.view_index + 1}/{len(VIEWS)}"
+        snapshot = self.state.snapshot()
+        self._plot_version = snapshot.version
         self._plot_drawn_at = time.monotonic()
+
+        def work() -> None:
+            data = plot_data(key, snapshot)
+            self.app.call_from_thread(self._show_plot, data, position)
+
+        self.run_worker(work, thread=True, exclusive=True, group="plot")
+
+    def _show_plot(self, data, position: str) -> None:
+        self.query_one(SweepPlot).show(data, position)
 
     def _append_log(self) -> None:
         fresh = self.state.new_log_entries(self._log_count)

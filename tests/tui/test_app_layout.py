@@ -117,15 +117,14 @@ async def test_monochrome_terminal_draws_and_the_source_on_banner_reads_without_
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause(0.6)
         assert app.state.point_count == run.total
-        app.output_text = "SOURCE OUTPUT ON: SMU output (DUT terminals are live)"
-        app.source_on = True
-        await pilot.pause(0.2)
+        app.state.outputs["smu"] = True  # as an output event would set it
+        await pilot.pause(0.7)  # the next poll of the folder
         banner = app.screen.query_one(SourceBanner)
         assert "SOURCE OUTPUT ON" in str(banner.render())
         assert banner.rich_style.reverse and banner.rich_style.bold
         assert banner.region.width == 80
         app.save_screenshot(str(tmp_path / "mono.svg"))  # renders every line
-        app.source_on = False
-        app.output_text = "outputs off"
-        await pilot.pause(0.2)
+        app.state.outputs["smu"] = False
+        await pilot.pause(0.7)
         assert not banner.rich_style.reverse
+        assert "outputs off" in str(banner.render())

@@ -158,7 +158,7 @@ def test_semilog_view_holds_log10_of_current_and_the_admittance_view_splits_bias
     measured = data.series[0]
     v = finished_state.iv.column("voltage_V")
     i = np.abs(finished_state.iv.column("current_A"))
-    forward = np.array([s == "forward" for s in finished_state.iv.steps])
+    forward = finished_state.iv.step_mask(lambda step: step == "forward")
     assert np.array_equal(measured.x, v[forward])
     assert np.allclose(10 ** measured.y, i[forward])
     reverse = plot_data("rev", finished_state).series[0]
