@@ -57,6 +57,10 @@ async def test_every_screen_fits_with_banner_on_top_and_footer_at_the_bottom(
             app.switch_mode(mode)
             await pilot.pause(0.3)
             screen = app.screen
+            for _ in range(100):  # the footer is rebuilt a moment after the switch
+                if screen.query(FooterKey):
+                    break
+                await pilot.pause(0.05)
             assert screen.query_one(SourceBanner).region.y == 0, mode
             assert screen.query_one(SourceBanner).region.width == width
             assert screen.query_one(ScreenBar).region.y == 1, mode

@@ -5,7 +5,6 @@ from __future__ import annotations
 import hashlib
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 from test_app_synth import STEPS
@@ -24,15 +23,14 @@ def fingerprint(folder: Path) -> dict[str, str]:
 
 async def test_watch_follows_a_folder_another_process_writes_and_changes_nothing(tmp_path):
     folder = tmp_path / "run"
-    writer = subprocess.Popen([sys.executable, str(WRITER), str(folder), "0.05"],
-                              stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    folder.mkdir()  # the watch starts first and waits for the files
+    app = PnbenchApp(watch_dir=folder)
+    writer = None
     try:
-        for _ in range(400):  # the writer makes the folder first
-            if (folder / "run.json").exists() or writer.poll() is not None:
-                break
-            time.sleep(0.05)
-        app = PnbenchApp(watch_dir=folder)
         async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause(0.2)
+            writer = subprocess.Popen([sys.executable, str(WRITER), str(folder), "0.08"],
+                                      stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
             seen = []
             for _ in range(1200):
                 await pilot.pause(0.05)
@@ -57,7 +55,8 @@ async def test_watch_follows_a_folder_another_process_writes_and_changes_nothing
             await pilot.pause(0.1)
         assert fingerprint(folder) == before
     finally:
-        writer.wait(30)
+        if writer is not None:
+            writer.wait(30)
     assert writer.returncode == 0, writer.stderr.read().decode()
 
 
