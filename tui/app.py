@@ -10,12 +10,8 @@ and waits for that before returning.
 
 from __future__ import annotations
 
-import contextlib
 import math
-import os
 import signal
-import threading
-import time
 from pathlib import Path
 
 from rich.segment import Segment
@@ -27,6 +23,7 @@ from textual.reactive import reactive
 from pnbench.modeling.errors import PnbenchError
 
 from .app_bench import output_name
+from .app_exit import exit_code, safe_exit_on_signals
 from .app_folder import FolderTail, apply_batch
 from .app_live import LiveRun
 from .app_state import RunState
@@ -359,55 +356,6 @@ class PnbenchApp(App):
         self.call_from_thread(self.exit, 0)
 
 
-#: Seconds the hang-up guard waits for the sweep's ramp-down and off check, then for the
-#: app's own exit, before it ends the process itself.
-HANGUP_RUN_WAIT_S = 120.0
-HANGUP_EXIT_WAIT_S = 3.0
-
-
-def _safe_exit_on_signals(app: PnbenchApp) -> dict:
-    """On SIGHUP (the SSH link dropped) and SIGTERM: abort the sweep this app owns (the
-    runner ramps down and turns every output off) and end the app.
-
-    A dropped terminal can leave Textual's main thread blocked writing to it, so the
-    handler does not rely on the app: it tells the runner to abort (a flag, returns at
-    once) and starts a guard thread that waits for the runner to confirm the outputs
-    off, gives the app a moment to exit normally, and otherwise ends the process.
-    Returns the previous handlers."""
-    previous = {}
-
-    def handler(signum, _frame) -> None:
-        if app._closing:
-            return
-        app._closing = True
-        live = app.live
-        if live is not None and live.running:
-            live.abort(f"the app got {signal.Signals(signum).name} (terminal hung up or "
-                       "asked to stop)")
-        threading.Thread(target=_hangup_guard, args=(app, live), daemon=True,
-                         name="pnbench-hangup").start()
-        with contextlib.suppress(Exception):
-            app.call_later(app.exit, None, 4)
-
-    for sig in (signal.SIGHUP, signal.SIGTERM):
-        try:
-            previous[sig] = signal.signal(sig, handler)
-        except (ValueError, OSError):  # not the main thread
-            pass
-    return previous
-
-
-def _hangup_guard(app: PnbenchApp, live) -> None:
-    if live is not None:
-        live.wait(HANGUP_RUN_WAIT_S)  # the runner's ramp-down, outputs off, files closed
-    deadline = time.monotonic() + HANGUP_EXIT_WAIT_S
-    while time.monotonic() < deadline:
-        if not app.is_running:
-            return  # the app ended by itself; run_app finishes the job
-        time.sleep(0.05)
-    os._exit(4)  # the terminal is gone and the app cannot draw its way out
-
-
 def run_app(plan_path: str | Path | None = None, simulate: str | None = None,
             time_scale: float = 1.0, out_dir: str | Path = "runs",
             autostart: bool = False) -> int:
@@ -415,7 +363,7 @@ def run_app(plan_path: str | Path | None = None, simulate: str | None = None,
     a sweep this app owned ended in an abort or a safety stop."""
     app = PnbenchApp(plan_path, simulate=simulate, time_scale=time_scale, out_dir=out_dir,
                      autostart=autostart)
-    previous = _safe_exit_on_signals(app)
+    previous = safe_exit_on_signals(app)
     try:
         code = app.run()
     finally:
@@ -424,26 +372,6 @@ def run_app(plan_path: str | Path | None = None, simulate: str | None = None,
         for sig, handler in previous.items():
             signal.signal(sig, handler)
     return exit_code(app, code)
-
-
-def exit_code(app: PnbenchApp, code: object = 0) -> int:
-    """The exit code of DESIGN.md for the last sweep the app owned (as `pnbench run`
-    gives it), or the app's own code when it ran none."""
-    live = app.live
-    if live is not None:
-        outcome = getattr(live.launch, "outcome", None)
-        if outcome is not None:
-            return int(outcome.exit_code)
-        error = getattr(live.launch, "error", None)
-        if isinstance(error, PnbenchError):
-            return int(error.exit_code)
-        if error is not None:
-            return 1
-    if app.state.status in ("aborted", "safety_stop", "interrupted"):
-        return 4
-    if app.state.status == "failed":
-        return 3
-    return int(code or 0) if isinstance(code, int) else 0
 
 
 def run_watch(run_dir: str | Path) -> int:

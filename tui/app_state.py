@@ -11,29 +11,16 @@ from __future__ import annotations
 
 import math
 import time
-from array import array
 from collections import deque
 from dataclasses import dataclass, field
 
 import numpy as np
 
-#: Event kinds that go to the log, with the tag that marks them without colour.
-LOG_TAGS = {
-    "compliance": "COMPL",
-    "limit": "LIMIT",
-    "warning": "WARN",
-    "error": "ERROR",
-    "paused": "PAUSE",
-    "resumed": "RESUME",
-    "output": "OUTPUT",
-    "step_started": "STEP",
-    "step_finished": "STEP",
-    "run_started": "RUN",
-    "run_finished": "RUN",
-}
+from .app_columns import Columns, FrozenColumns, Snapshot, to_number
+from .app_events import LOG_TAGS, LogEntry, describe, format_duration
 
-#: Keys of an event that are its envelope, not its message.
-_ENVELOPE = ("seq", "time_s", "kind", "step")
+__all__ = ["ENDED_COMPLETE", "FINAL_STATUSES", "Estimate", "LogEntry", "RunState",
+           "Snapshot", "StepProgress", "describe", "format_duration"]
 
 #: Step statuses of a step that has ended with nothing left to do (it may have ended
 #: early: a limit reached, its parameters settled); an aborted step is not among them.
@@ -44,16 +31,6 @@ ENDED_COMPLETE = ("done", "completed", "finished", "limit", "settled", "ended_ea
 FINAL_STATUSES = ("completed", "aborted", "safety_stop", "failed", "interrupted")
 
 
-def _num(value: object) -> float:
-    """A float from a CSV cell or a JSON value; empty or missing is NaN."""
-    if value is None or value == "":
-        return math.nan
-    try:
-        return float(value)  # type: ignore[arg-type]
-    except (TypeError, ValueError):
-        return math.nan
-
-
 @dataclass
 class Estimate:
     """One fitted parameter as the last `fit` event gave it."""
@@ -61,18 +38,6 @@ class Estimate:
     value: float
     sigma: float | None
     settled: bool
-
-
-@dataclass
-class LogEntry:
-    time_s: float
-    tag: str
-    step: str | None
-    text: str
-
-    def line(self) -> str:
-        where = f"[{self.step}] " if self.step else ""
-        return f"{_clock(self.time_s)} {self.tag:<6} {where}{self.text}"
 
 
 @dataclass
@@ -98,106 +63,13 @@ class StepProgress:
         return max(self.planned - self.done, 0)
 
 
-class _Columns:
-    """Growing float columns in compact arrays (a night of points stays small); the
-    step of each point is kept as a number into `step_names`."""
-
-    def __init__(self, names: tuple[str, ...]):
-        self.names = names
-        self.data = {name: array("d") for name in names}
-        self.step_ids = array("i")
-        self.step_names: list[str] = []
-        self._ids: dict[str, int] = {}
-
-    def append(self, values: dict[str, float], step: str) -> None:
-        for name in self.names:
-            self.data[name].append(values.get(name, math.nan))
-        number = self._ids.get(step)
-        if number is None:
-            number = self._ids[step] = len(self.step_names)
-            self.step_names.append(step)
-        self.step_ids.append(number)
-
-    def __len__(self) -> int:
-        return len(self.step_ids)
-
-    def column(self, name: str) -> np.ndarray:
-        return np.array(self.data[name], dtype=float)
-
-    def step_of(self, index: int) -> str:
-        return self.step_names[self.step_ids[index]]
-
-    def step_mask(self, wanted) -> np.ndarray:
-        """Boolean mask of the points whose step name satisfies `wanted(name)`."""
-        table = np.array([bool(wanted(name)) for name in self.step_names], dtype=bool)
-        ids = np.array(self.step_ids, dtype=np.int64)
-        return table[ids] if len(table) else np.zeros(len(ids), dtype=bool)
-
-
-class _FrozenColumns:
-    """A copy of _Columns at one moment, safe to read on another thread."""
-
-    def __init__(self, columns: _Columns):
-        self.names = columns.names
-        self.data = {name: np.array(values, dtype=float)
-                     for name, values in columns.data.items()}
-        self.step_ids = np.array(columns.step_ids, dtype=np.int64)
-        self.step_names = list(columns.step_names)
-
-    def __len__(self) -> int:
-        return len(self.step_ids)
-
-    def column(self, name: str) -> np.ndarray:
-        return self.data[name]
-
-    def step_of(self, index: int) -> str:
-        return self.step_names[self.step_ids[index]]
-
-    def step_mask(self, wanted) -> np.ndarray:
-        table = np.array([bool(wanted(name)) for name in self.step_names], dtype=bool)
-        return table[self.step_ids] if len(table) else np.zeros(len(self), dtype=bool)
-
-
-@dataclass(frozen=True)
-class Snapshot:
-    """What the plots need of a RunState, copied on the UI thread so the plot data can
-    be computed on a worker thread while points keep arriving."""
-
-    iv: _FrozenColumns
-    cv: _FrozenColumns
-    parameters: dict
-    step_kinds: dict
-    temperature_K: float
-    version: int
-
-    def step_kind(self, name: str) -> str:
-        return self.step_kinds.get(name, "")
-
-
-def _clock(seconds: float) -> str:
-    if not math.isfinite(seconds):
-        return "--:--:--"
-    seconds = max(int(seconds), 0)
-    return f"{seconds // 3600:02d}:{seconds // 60 % 60:02d}:{seconds % 60:02d}"
-
-
-def format_duration(seconds: float) -> str:
-    """'1:02:03' style for ETAs; '--' when unknown."""
-    if not math.isfinite(seconds):
-        return "--"
-    seconds = max(int(round(seconds)), 0)
-    h, rest = divmod(seconds, 3600)
-    m, s = divmod(rest, 60)
-    return f"{h}:{m:02d}:{s:02d}" if h else f"{m}:{s:02d}"
-
-
 @dataclass
 class RunState:
     """Everything a run screen shows, built from points, events and run.json."""
 
-    iv: _Columns = field(default_factory=lambda: _Columns(
+    iv: Columns = field(default_factory=lambda: Columns(
         ("voltage_V", "current_A", "time_s", "compliance")))
-    cv: _Columns = field(default_factory=lambda: _Columns(
+    cv: Columns = field(default_factory=lambda: Columns(
         ("voltage_V", "frequency_Hz", "capacitance_F", "conductance_S", "time_s")))
     parameters: dict[str, Estimate] = field(default_factory=dict)
     log: deque = field(default_factory=lambda: deque(maxlen=2000))
@@ -225,7 +97,7 @@ class RunState:
         if kind not in ("iv", "cv"):
             kind = ""
         step = str(row.get("step", "") or "")
-        values = {key: _num(row.get(key)) for key in (
+        values = {key: to_number(row.get(key)) for key in (
             "voltage_V", "current_A", "time_s", "frequency_Hz", "capacitance_F",
             "conductance_S")}
         values["compliance"] = 1.0 if str(row.get("compliance", "")).strip().lower() in (
@@ -250,7 +122,7 @@ class RunState:
         """One event of the stream (a dict as in events.jsonl)."""
         kind = str(event.get("kind", ""))
         step = event.get("step")
-        t = _num(event.get("time_s"))
+        t = to_number(event.get("time_s"))
         if kind == "point":
             self.add_point(event)
             return
@@ -261,8 +133,8 @@ class RunState:
                 if isinstance(entry, dict):
                     sigma = entry.get("sigma")
                     self.parameters[name] = Estimate(
-                        _num(entry.get("value")),
-                        None if sigma is None else _num(sigma),
+                        to_number(entry.get("value")),
+                        None if sigma is None else to_number(sigma),
                         bool(entry.get("settled", False)))
         elif kind == "step_started" and step:
             progress = self._step(step)
@@ -298,7 +170,7 @@ class RunState:
         self.device = dict(doc.get("device") or {})
         self.instruments = dict(doc.get("instruments") or {})
         self.outputs_off_confirmed = bool(doc.get("outputs_off_confirmed", False))
-        temperature = _num(self.device.get("temperature_K"))
+        temperature = to_number(self.device.get("temperature_K"))
         if math.isfinite(temperature) and temperature > 0:
             self.temperature_K = temperature
         for entry in doc.get("steps") or []:
@@ -371,7 +243,7 @@ class RunState:
         return progress.kind if progress else ""
 
     def snapshot(self) -> Snapshot:
-        return Snapshot(_FrozenColumns(self.iv), _FrozenColumns(self.cv),
+        return Snapshot(FrozenColumns(self.iv), FrozenColumns(self.cv),
                         dict(self.parameters),
                         {name: p.kind for name, p in self.steps.items()},
                         self.temperature_K, self.version)
@@ -441,44 +313,3 @@ def _family(kind: str) -> str:
     return "cv" if ("cv" in kind or "c-v" in kind or "adm" in kind) else "iv"
 
 
-def describe(event: dict) -> str:
-    """A one-line human description of an event (its message first, where it has one)."""
-    kind = str(event.get("kind", ""))
-    message = event.get("message") or event.get("text")
-    if kind == "output":
-        state = "ON" if event.get("on") else "off"
-        confirmed = " (confirmed)" if event.get("confirmed") else ""
-        return f"{str(event.get('role', 'source')).upper()} output {state}{confirmed}"
-    if kind == "run_finished":
-        reason = event.get("reason")
-        return f"run {event.get('status', '?')}" + (f": {reason}" if reason else "")
-    if kind == "run_started":
-        planned = event.get("planned")
-        again = " again (resumed)" if event.get("resumed") else ""
-        return f"run started{again}" + (f", {planned} points planned" if planned else "")
-    if kind == "step_started":
-        return (f"step started ({event.get('step_kind', '?')}, "
-                f"{event.get('planned', '?')} points)")
-    if kind == "step_finished":
-        ended = event.get("ended_by")
-        text = (f"step {event.get('status', 'finished')}: {event.get('done', '?')}/"
-                f"{event.get('planned', '?')} points")
-        return text + (f", ended by {ended}" if ended else "")
-    if kind == "compliance":
-        v = event.get("voltage_V")
-        i = event.get("current_A")
-        where = f" at {_short(v)} V, {_short(i)} A" if v is not None and i is not None else ""
-        return (message or "reading in compliance") + where
-    if kind in ("paused", "resumed"):
-        return f"{kind} after {event.get('done', '?')} points of the step"
-    extras = [f"{key}={_short(value)}" for key, value in event.items()
-              if key not in _ENVELOPE and key not in ("message", "text")
-              and not isinstance(value, (dict, list)) and value is not None]
-    body = str(message) if message else kind.replace("_", " ")
-    return body + (f" ({', '.join(extras)})" if extras and not message else "")
-
-
-def _short(value: object) -> str:
-    if isinstance(value, float):
-        return f"{value:.4g}"
-    return str(value)
