@@ -207,23 +207,33 @@ def _clip_decades(data: PlotData) -> None:
         series.y = np.where(series.y >= floor, series.y, np.nan)
 
 
-def iv_residuals(state: RunState, params: DiodeParams) -> tuple[np.ndarray, np.ndarray]:
-    """(V, log10(|I measured| / |I fit|)) for the points both are nonzero at."""
+def iv_residuals(state: RunState | Snapshot, params: DiodeParams,
+                 reverse: bool | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """(V, log10(|I measured| / |I fit|)) for the points both are nonzero at; only the
+    forward (False) or reverse (True) points when `reverse` says which."""
     v, i = state.iv.column("voltage_V"), state.iv.column("current_A")
     fit = np.asarray(junction.current(v, params, state.temperature_K), dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         r = np.log10(np.abs(i) / np.abs(fit))
     keep = np.isfinite(r) & (state.iv.column("compliance") == 0)
+    if reverse is not None:
+        keep &= _reverse_mask(state) == reverse
     return v[keep], r[keep]
 
 
 def _residual(view: str, state: RunState, params: DiodeParams | None) -> PlotData:
+    """Forward points against the fit; reverse points too once the fit has a reverse
+    part (RSH or BV): before that the model cannot be expected to meet them."""
     data = PlotData(view, dict(VIEWS)[view], "V", "log10(I/Ifit)", "V", "dec")
     if params is None or not has_dc_fit(state.parameters) or len(state.iv) == 0:
         data.note = "needs I-V points and an I-V fit"
         return data
-    v, r = iv_residuals(state, params)
-    data.series.append(Series(*_thin(v, r), "residual", marker="o"))
+    v, r = iv_residuals(state, params, reverse=False)
+    data.series.append(Series(*_thin(v, r), "forward", marker="o"))
+    if {"RSH", "BV"} & set(state.parameters):
+        v_rev, r_rev = iv_residuals(state, params, reverse=True)
+        data.series.append(Series(*_thin(v_rev, r_rev), "reverse", marker="+"))
+        v, r = np.concatenate([v, v_rev]), np.concatenate([r, r_rev])
     if len(v):
         data.series.append(Series(np.array([v.min(), v.max()]), np.zeros(2), "zero",
                                   line=True))

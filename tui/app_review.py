@@ -17,7 +17,7 @@ from types import SimpleNamespace
 
 import numpy as np
 
-from pnbench.modeling.errors import DataFileError
+from pnbench.modeling.errors import DataFileError, PnbenchError
 
 from .app_state import Estimate, RunState
 
@@ -67,7 +67,8 @@ def load_review(run_dir: str | Path) -> Review:
             model_doc = json.loads(model_path.read_text(encoding="utf-8"))
         except (OSError, ValueError) as exc:
             raise DataFileError(f"{model_path}: cannot read it ({exc})") from None
-    used = np.array([not p.compliance for p in points], dtype=bool)
+    # every point starts in use: the fitters treat compliance points themselves
+    used = np.ones(len(points), dtype=bool)
     return Review(run_dir, run_doc, points, used, events, model_doc)
 
 
@@ -121,15 +122,30 @@ def refit(review: Review):
     if not chosen:
         raise DataFileError(f"{review.run_dir}: no point is in use; keep some points "
                             "(space toggles one, t a step, a all) before refitting")
+    planned = _plan_steps(review.run_dir)
     kinds = review.step_kinds()
-    steps = {name: SimpleNamespace(name=name, kind=kinds.get(name) or _guess_kind(name,
-             chosen)) for name in {p.step for p in chosen}}
-    model = run_model(steps, chosen, {}, review.temperature_K)
+    steps = {name: planned.get(name) or SimpleNamespace(
+                 name=name, kind=kinds.get(name) or _guess_kind(name, chosen),
+                 breakdown_guard_A=None)
+             for name in {p.step for p in chosen}}
+    area = (review.run_doc.get("device") or {}).get("area_m2")
+    model = run_model(steps, chosen, {}, review.temperature_K,
+                      area_m2=area if isinstance(area, (int, float)) else None)
     if model is None:
         raise DataFileError(f"{review.run_dir}: the points in use give nothing to fit")
     review.refit_model = model
     review.refit_doc = model.to_json_dict()
     return model
+
+
+def _plan_steps(run_dir: Path) -> dict:
+    """The run's own steps (from its plan.toml: kinds, breakdown guard), when readable."""
+    from pnbench.sweeps.launch import plan_of_run
+
+    try:
+        return {step.name: step for step in plan_of_run(run_dir).steps}
+    except PnbenchError:
+        return {}
 
 
 def _guess_kind(step: str, points: list) -> str:

@@ -184,6 +184,9 @@ async def test_a_finished_run_reviews_refits_and_exports_a_card_and_report(tmp_p
         await wait_for(pilot, lambda: review.refit_doc is not None
                        or "failed" in app.screen._busy, "the refit")
         assert review.refit_doc is not None, app.screen._busy
+        # with every point in use the refit finds what the run itself found
+        run_model = json.loads((app.last_run_dir / "model.json").read_text())
+        assert set(review.refit_doc["parameters"]) == set(run_model["parameters"])
         assert "IS" in review.refit_doc["parameters"]
         await pilot.press("c")
         await pilot.pause(0.1)
