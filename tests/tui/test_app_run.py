@@ -224,3 +224,21 @@ async def test_bench_screen_identifies_the_simulated_instruments_and_lists_resou
         await pilot.press("l")
         await wait_for(pilot, lambda: app.screen.scanned is not None, "the resource list")
     assert app.live is None  # identifying never starts a sweep
+
+
+async def test_an_instrument_that_is_not_there_is_reported_and_the_app_stays_up(tmp_path):
+    plan = tmp_path / "plan.toml"
+    text = PLAN.format(points=5, reverse_points=11).replace(
+        "[limits]", '[instruments.smu]\nrole = "smu"\n'
+        'resource = "TCPIP0::127.0.0.1::9::SOCKET"\ntimeout = "0.5 s"\n\n[limits]')
+    plan.write_text(text, encoding="utf-8")
+    app = PnbenchApp(plan, out_dir=tmp_path / "runs", autostart=True)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(pilot, lambda: app.state.status == "failed", "the failure")
+        await wait_for(pilot, lambda: not app.live.running, "the run thread to end")
+        assert "127.0.0.1::9" in app.state.reason  # the message names the instrument
+        assert not app.source_on
+        await pilot.press("f2")  # the app is still there to be used
+        await pilot.pause(0.2)
+        assert app.current_mode == "bench"
+    assert exit_code(app) == 3  # instrument or connection error
