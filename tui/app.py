@@ -24,7 +24,7 @@ from pnbench.modeling.errors import PnbenchError
 
 from .app_bench import output_name
 from .app_exit import exit_code, safe_exit_on_signals
-from .app_folder import FolderTail, apply_batch
+from .app_folder import FolderTail, apply_batch, check_run_folder
 from .app_live import LiveRun
 from .app_state import RunState
 
@@ -375,13 +375,7 @@ def run_app(plan_path: str | Path | None = None, simulate: str | None = None,
 
 
 def run_watch(run_dir: str | Path) -> int:
-    """Follow a run folder read-only until the user quits (q or Ctrl+Q)."""
-    tail = FolderTail(run_dir)  # raises DataFileError for a missing folder
-    if not tail.looks_like_run():
-        from pnbench.modeling.errors import DataFileError
-
-        raise DataFileError(
-            f"{run_dir}: holds no run.json, points.csv or events.jsonl yet; give the "
-            "folder of a run (named like 20250101-120000_device under --out)")
+    """Follow a run folder read-only until the user quits (Ctrl+Q)."""
+    check_run_folder(run_dir)
     app = PnbenchApp(watch_dir=run_dir)
     return int(app.run() or 0)

@@ -186,14 +186,21 @@ def apply_batch(state: RunState, batch: Batch) -> None:
         state.apply_run_json(batch.run)
 
 
-def read_run_folder(run_dir: str | os.PathLike) -> tuple[RunState, FolderTail]:
-    """The whole folder read once (the review screen); raises DataFileError when the
-    folder holds none of run.json, points.csv, events.jsonl."""
+def check_run_folder(run_dir: str | os.PathLike) -> FolderTail:
+    """A tail of `run_dir`, or DataFileError when it is no folder or holds none of the
+    run files yet."""
     tail = FolderTail(run_dir)
     if not tail.looks_like_run():
         raise DataFileError(
-            f"{tail.run_dir}: holds no run.json, points.csv or events.jsonl; expected a "
-            "run folder as `pnbench run` writes it")
+            f"{tail.run_dir}: holds no run.json, points.csv or events.jsonl; give the "
+            "folder of a run (named like 20250101-120000_device under --out)")
+    return tail
+
+
+def read_run_folder(run_dir: str | os.PathLike) -> tuple[RunState, FolderTail]:
+    """The whole folder read once (the review screen); raises DataFileError when the
+    folder holds none of run.json, points.csv, events.jsonl."""
+    tail = check_run_folder(run_dir)
     state = RunState()
     while True:
         batch = tail.poll()

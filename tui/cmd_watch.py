@@ -14,6 +14,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from pnbench.tui.app import run_watch
+    import sys
 
+    from pnbench.modeling.errors import BadInput
+    from pnbench.tui.app import run_watch
+    from pnbench.tui.app_folder import check_run_folder
+
+    check_run_folder(args.run_dir)  # no run folder is bad input, terminal or not
+    if not (sys.stdin.isatty() and sys.stdout.isatty()):
+        raise BadInput("pnbench watch needs a terminal (stdin and stdout); without one, "
+                       f"read {args.run_dir}/run.log or run.json")
     return run_watch(args.run_dir)

@@ -83,4 +83,4 @@ def test_watch_of_a_missing_folder_is_bad_input(tmp_path, capsys):
     assert "nowhere" in capsys.readouterr().err
     (tmp_path / "empty").mkdir()
     assert main(["watch", str(tmp_path / "empty")]) == 2
-    assert "run.json" in capsys.readouterr().err
+    assert "holds no run.json" in capsys.readouterr().err
