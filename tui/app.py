@@ -175,6 +175,30 @@ class PnbenchApp(App):
             return not self.live_active and self.plan is not None
         return self.live_active
 
+    def ask_start(self, key: str = "s") -> None:
+        """Ask before switching a source on: a stray key must not energize the DUT."""
+        from .screen_dialogs import ConfirmDialog
+
+        if self.plan is None or self.live_active:
+            self.start_run()  # says why it cannot
+            return
+        plan = self.plan
+        where = (f"the simulated bench ({self.simulate})" if self.simulate
+                 else ", ".join(f"{role.upper()} at {inst.resource}"
+                                for role, inst in sorted(self.plan.instruments.items())))
+        text = (f"'{plan.title or plan.device.name}': {len(plan.steps)} steps, "
+                f"{plan.total_points} points on {where}. Sources switch on at the "
+                f"device's terminals; limits: {plan.limits.max_voltage_V:g} V forward, "
+                f"{plan.limits.max_reverse_voltage_V:g} V reverse, "
+                f"{plan.limits.max_current_A:g} A.")
+
+        def answered(yes: bool | None) -> None:
+            if yes:
+                self.switch_mode("run")
+                self.start_run()
+
+        self.push_screen(ConfirmDialog("Start the sweep?", text, yes_key=key), answered)
+
     def start_run(self) -> None:
         if self.live_active:
             self.notify("A sweep is already running.", severity="warning")

@@ -150,8 +150,7 @@ class PlanScreen(Screen):
             self.notify("The plan does not check; fix the problems first.", severity="error")
             return
         self._show_result()
-        self.app.switch_mode("run")
-        self.app.start_run()
+        self.app.ask_start("ctrl+r")
 
     def action_leave_editor(self) -> None:
         self.query_one("#plan-report").focus()

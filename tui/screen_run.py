@@ -208,7 +208,7 @@ class RunScreen(Screen):
         return True
 
     def action_start(self) -> None:
-        self.app.start_run()
+        self.app.ask_start("s")
 
     def action_pause(self) -> None:
         self.app.toggle_pause()

@@ -89,7 +89,7 @@ async def main() -> dict:
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause(0.5)
             idle, _ = await latencies(app, pilot, running=False)
-            await pilot.press("s")
+            await pilot.press("s", "y")  # start, and confirm
             while app.state.point_count < 50:
                 await pilot.pause(0.02)
             busy, streamed = await latencies(app, pilot, running=True)

@@ -74,7 +74,11 @@ async def test_start_see_points_and_parameters_pause_then_abort_leaves_outputs_o
     app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.3, out_dir=tmp_path / "runs")
     async with app.run_test(size=(80, 24)) as pilot:
         assert app.current_mode == "run" and app.plan is not None
-        await pilot.press("s")
+        await pilot.press("s")  # asks first: a stray key must not switch a source on
+        await wait_for(pilot, lambda: app.screen.__class__.__name__ == "ConfirmDialog",
+                       "the start question")
+        assert app.live is None
+        await pilot.press("s")  # the same key again starts
         await wait_for(pilot, lambda: len(app.state.iv) >= 10, "the first points")
         await wait_for(pilot, lambda: app.source_on, "the source-on banner")
         assert "SOURCE OUTPUT ON" in app.output_text
