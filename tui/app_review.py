@@ -11,6 +11,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import SimpleNamespace
@@ -168,7 +169,14 @@ def card_text(review: Review) -> str:
             raise DataFileError(f"{review.run_dir}: no model.json and no refit yet; "
                                 "refit (r) first")
         model = ModelSet.from_json_dict(review.model_doc)
-    return model.card_text(review.device_name)
+    return model.card_text(card_name(review.device_name))
+
+
+def card_name(device_name: str) -> str:
+    """A model name simulators accept (letters, digits, _ . + -, a letter first) for a
+    device name that may hold spaces or other signs ("LH-SW200 sample 3")."""
+    name = re.sub(r"[^A-Za-z0-9_.+-]+", "_", device_name.strip()) or "device"
+    return name if name[0].isalpha() else f"D{name}"
 
 
 def export_card(review: Review, path: str | Path) -> Path:

@@ -271,7 +271,7 @@ class ReviewScreen(Screen):
                 return
             try:
                 written = export_card(review, path)
-            except (PnbenchError, OSError) as exc:
+            except (PnbenchError, OSError, ValueError) as exc:
                 self.notify(str(exc), title="Card not written", severity="error", timeout=10)
                 return
             self.notify(f"Model card written: {written}", timeout=6)

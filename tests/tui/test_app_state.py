@@ -247,3 +247,11 @@ def test_run_json_steps_fill_planned_counts(tmp_path):
     apply_batch(state, FolderTail(tmp_path / "r").poll())  # run.json, then 3 points
     assert state.steps["forward"].done == 3  # counted once, from points.csv
     assert state.progress_fraction() == pytest.approx(3 / run.total)
+
+
+def test_card_names_are_ones_a_simulator_accepts():
+    from pnbench.tui.app_review import card_name
+
+    assert card_name("LH-SW200 sample 3") == "LH-SW200_sample_3"
+    assert card_name("3rd part") == "D3rd_part"
+    assert card_name("  ") == "device"
