@@ -18,6 +18,7 @@ import threading
 from pathlib import Path
 
 from pnbench.modeling.errors import DataFileError, PnbenchError
+from pnbench.modeling.modelset import card_name
 from pnbench.sweeps import guardian as guardian_mod
 from pnbench.sweeps import resume as resume_mod
 from pnbench.sweeps.bench import open_bench
@@ -218,8 +219,8 @@ class Launch:
 
     def _fit_worker(self, folder: RunFolder, bus: EventBus, state) -> FitWorker:
         def write_model(model) -> None:
-            folder.write_model(model.to_json_dict(), model.card_text(self.plan.device.name),
-                               self.plan.device.name)
+            name = card_name(self.plan.device.name)
+            folder.write_model(model.to_json_dict(), model.card_text(name), name)
 
         worker = FitWorker(self.plan.steps, bus, temperature_K=self.plan.device.temperature_K,
                            write_model=write_model, load_points=lambda: read_points(folder.path),

@@ -11,7 +11,6 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
-import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import SimpleNamespace
@@ -19,6 +18,7 @@ from types import SimpleNamespace
 import numpy as np
 
 from pnbench.modeling.errors import DataFileError, PnbenchError
+from pnbench.modeling.modelset import card_name
 
 from .app_state import Estimate, RunState
 
@@ -172,11 +172,6 @@ def card_text(review: Review) -> str:
     return model.card_text(card_name(review.device_name))
 
 
-def card_name(device_name: str) -> str:
-    """A model name simulators accept (letters, digits, _ . + -, a letter first) for a
-    device name that may hold spaces or other signs ("LH-SW200 sample 3")."""
-    name = re.sub(r"[^A-Za-z0-9_.+-]+", "_", device_name.strip()) or "device"
-    return name if name[0].isalpha() else f"D{name}"
 
 
 def export_card(review: Review, path: str | Path) -> Path:

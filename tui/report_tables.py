@@ -13,6 +13,7 @@ import re
 
 from quantiphy import Quantity
 
+from pnbench.modeling.modelset import card_name
 from pnbench.modeling.params import UNITS
 
 from .report_analysis import Analysis
@@ -204,9 +205,6 @@ def area_text(area_m2: float) -> str:
     return f"{area_m2 * 1e12:.4g} \u00b5m\u00b2 ({area_m2:.4g} m\u00b2)"
 
 
-def card_name(name: str) -> str:
-    clean = re.sub(r"[^A-Za-z0-9_.+\-]", "_", name) or "dut"
-    return clean if clean[0].isalpha() else "d" + clean
 
 
 def qpoints(an: Analysis) -> str:
