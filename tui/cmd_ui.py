@@ -26,6 +26,17 @@ def run(args: argparse.Namespace) -> int:
     from pnbench.tui.cmd_run import check_bench_options
 
     check_bench_options(args)
+    if args.plan is not None:
+        from pathlib import Path
+
+        plan = Path(args.plan)
+        if not plan.is_file():
+            raise BadInput(f"{plan}: no such plan file (give a TOML plan, or no PLAN to "
+                           "start from the Plan screen)")
+        try:
+            plan.read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise BadInput(f"{plan}: cannot be read as a UTF-8 text plan ({exc})") from None
     if not (sys.stdin.isatty() and sys.stdout.isatty()):
         raise BadInput("pnbench ui needs a terminal (stdin and stdout); without one, run "
                        "a plan with `pnbench run PLAN --headless` and follow it with "
