@@ -40,10 +40,10 @@ def _params(fixture: bool, with_dc: bool) -> tuple[lsq.Param, ...]:
         out += [
             lsq.Param("IS", "log", lower=math.log(1e-40), upper=math.log(10.0)),
             lsq.Param("N", "lin", lower=0.3, upper=20.0),
-            lsq.Param("RS", "lin", lower=0.0, optional=True, step=1e-9,
+            lsq.Param("RS", "lin", lower=0.0, upper=1e9, optional=True, step=1e-9,
                       absent_reason="RS not determined: the conductance never bends "
                                     "away from the exponential"),
-            lsq.Param("RSH", "inv", lower=0.0, optional=True, step=1e-18,
+            lsq.Param("RSH", "inv", lower=0.0, upper=1e3, optional=True, step=1e-18,
                       absent_reason="RSH not determined: no shunt conductance shows"),
         ]
     out += [
@@ -52,11 +52,11 @@ def _params(fixture: bool, with_dc: bool) -> tuple[lsq.Param, ...]:
         lsq.Param("M", "lin", lower=0.01, upper=3.0),
     ]
     if with_dc:
-        out.append(lsq.Param("TT", "lin", lower=0.0, optional=True, step=1e-16,
+        out.append(lsq.Param("TT", "lin", lower=0.0, upper=1.0, optional=True, step=1e-16,
                              absent_reason="TT not determined: the diffusion capacitance "
                                            "never shows above the depletion capacitance"))
     if fixture:
-        out.append(lsq.Param("CFIX", "lin", lower=0.0, optional=True, step=1e-18,
+        out.append(lsq.Param("CFIX", "lin", lower=0.0, upper=1.0, optional=True, step=1e-18,
                              absent_reason="fixture capacitance not determined"))
     return tuple(out)
 
@@ -271,6 +271,7 @@ def admittance_state(model: AdmittanceModel, x, y, elig, start=None, fixed=None,
         t0[k["TT"]] = float(np.median(extra[big] / y[big, 1])) if big.any() else 0.0
     else:
         t0[k["IS"]], t0[k["N"]] = math.log(_TINY_IS), 1.0
+    t0 = np.where(np.isfinite(t0), t0, 0.0)
     if start is not None:
         t0 = np.where(np.isfinite(start), start, t0)
     active = np.ones(len(model.params), dtype=bool)

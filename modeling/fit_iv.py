@@ -43,8 +43,8 @@ class ForwardModel:
         self.params = (
             lsq.Param("IS", "log", lower=math.log(1e-40), upper=math.log(10.0)),
             lsq.Param("N", "lin", lower=0.3, upper=20.0),
-            lsq.Param("RS", "lin", lower=0.0, optional=True, absent_reason=RS_ABSENT),
-            lsq.Param("RSH", "inv", lower=0.0, optional=True, absent_reason=RSH_ABSENT),
+            lsq.Param("RS", "lin", lower=0.0, upper=1e9, optional=True, absent_reason=RS_ABSENT),
+            lsq.Param("RSH", "inv", lower=0.0, upper=1e3, optional=True, absent_reason=RSH_ABSENT),
         )
 
     def diode(self, t: np.ndarray) -> DiodeParams:
@@ -137,7 +137,9 @@ def start_values(v: np.ndarray, i: np.ndarray, temperature_K: float,
         share = excess / ii[below]
         if np.median(share) > 0.3:
             g0 = float(np.median(excess[share > 0.3] / vv[below][share > 0.3]))
-    return np.array([math.log(max(is0, 1e-40)), n0, rs0, max(g0, 0.0)])
+    t = np.array([math.log(max(is0, 1e-40)) if is0 > 0 else math.nan, n0, rs0, max(g0, 0.0)])
+    fallback = np.array([math.log(1e-14), 1.5, 0.0, 0.0])  # only for degenerate data
+    return np.where(np.isfinite(t), t, fallback)
 
 
 def _cheung_rs(v: np.ndarray, i: np.ndarray, a: float, is0: float) -> float:

@@ -37,7 +37,7 @@ def _noise_newton(q, e2, y2, lo, hi, iterations: int = 40):
 
     def parts(q):
         a, b = math.exp(q[0]), math.exp(q[1])
-        s2 = a * y2 + b
+        s2 = np.maximum(a * y2 + b, 1e-300)
         f = float(np.sum(np.log(s2) + e2 / s2))
         u = 1.0 / s2 - e2 / s2**2  # df/ds2
         v = -1.0 / s2**2 + 2 * e2 / s2**3  # d2f/ds2^2
@@ -87,16 +87,21 @@ def estimate_noise(model, y: np.ndarray, yhat: np.ndarray,
             continue
         e2 = (y[ok, c] - yhat[ok, c]) ** 2
         y2 = yhat[ok, c] ** 2
-        top = math.sqrt(float(np.max(y2))) or 1.0
+        top = math.sqrt(float(np.max(y2)))
+        if not 1e-100 < top < 1e100:
+            continue  # a model of (almost) nothing: keep the previous noise model
         big = y2 >= np.median(y2)
         a0 = math.sqrt(max(float(np.median(e2[big] / np.maximum(y2[big], 1e-300))), 1e-30))
         b0 = math.sqrt(max(float(np.median(e2[~big])) if np.any(~big) else 0.0,
                            (1e-12 * top) ** 2))
-        lo = np.array([math.log(1e-15), math.log(1e-15 * top)])
-        hi = np.array([math.log(10.0), math.log(top)])
-        q = np.clip(np.log([a0, b0]), lo, hi)
-        q = _noise_newton(2 * q, e2, y2, 2 * lo, 2 * hi) / 2
-        rel[c], floor[c] = math.exp(q[0]), math.exp(q[1])
+        # in units of the largest value, so the likelihood's powers stay in range
+        lo = np.array([math.log(1e-15), math.log(1e-15)])
+        hi = np.array([math.log(10.0), 0.0])
+        q = np.clip(np.log([a0, b0 / top]), lo, hi)
+        with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
+            q = _noise_newton(2 * q, np.minimum(e2 / top**2, 1e100), y2 / top**2,
+                              2 * lo, 2 * hi) / 2
+        rel[c], floor[c] = math.exp(q[0]), math.exp(q[1]) * top
     return Noise(tuple(rel), tuple(floor), estimated=True)
 
 

@@ -119,7 +119,10 @@ class _LsqStream:
             if moved > RELINEARIZE_CHI2 or not np.isfinite(moved):
                 t = self.state.t.copy()
                 t[idx] = self._clipped(t[idx] + step, idx)
-                self._relinearize(t)
+                try:
+                    self._relinearize(t)
+                except (ValueError, ArithmeticError):  # the step left the model's domain
+                    self._full_refit()
 
     def _s2(self, step: np.ndarray) -> float:
         dof = self.rows - len(step)
@@ -322,7 +325,7 @@ class IncrementalFitter:
         comp = np.full(n, bool(comp[0])) if comp.size == 1 else comp
         if comp.size != n:
             raise ValueError(f"compliance has {comp.size} values, voltage_V has {n}")
-        with self._lock:
+        with self._lock, np.errstate(all="ignore"):
             self._cache = None
             if self.kind == "iv":
                 fwd = v > 0
@@ -341,7 +344,7 @@ class IncrementalFitter:
 
     def snapshot(self) -> FitResult:
         """The current estimate as a frozen FitResult (cheap; cached until the next add)."""
-        with self._lock:
+        with self._lock, np.errstate(all="ignore"):
             if self._cache is None:
                 self._cache = self._snapshot()
             return self._cache

@@ -83,6 +83,13 @@ def fit_all(data: Mapping[str, Mapping[str, Any]], *,
     All I–V kinds are pooled (forward and reverse split by the sign of V), as are the
     C–V kinds.
     """
+    with np.errstate(all="ignore"):  # extreme trial points inside the solvers are expected
+        return _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture,
+                        semiconductor, extras)
+
+
+def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, semiconductor,
+             extras) -> JointFit:
     from . import fit_iv
 
     results: dict[str, FitResult] = {}

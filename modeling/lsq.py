@@ -182,6 +182,9 @@ def levenberg(model: Model, t0: np.ndarray, active: np.ndarray, x: np.ndarray,
     for _ in range(max_iter):
         h = jac.T @ jac
         g = jac.T @ r
+        if not (np.all(np.isfinite(h)) and np.all(np.isfinite(g))):
+            converged = False  # the data overwhelm double precision here: stop, say so
+            break
         # a parameter on a bound that the gradient pushes outward stays put this step
         free = ~(((t[idx] <= lower) & (g > 0)) | ((t[idx] >= upper) & (g < 0)))
         improved = False
@@ -189,11 +192,19 @@ def levenberg(model: Model, t0: np.ndarray, active: np.ndarray, x: np.ndarray,
             step = np.zeros(len(idx))
             if np.any(free):
                 step[free] = _solve_scaled(h[np.ix_(free, free)], g[free], lam)
+            if not np.all(np.isfinite(step)):
+                lam *= 6.0
+                continue
             t_new = t.copy()
             t_new[idx] = np.clip(t[idx] + step, lower, upper)
-            r_new, jac_new, _ = weighted_rows(model, t_new, idx, x, y, use, noise,
-                                              yhat_ref=yhat_ref)
-            chi2_new = float(r_new @ r_new)
+            try:
+                r_new, jac_new, _ = weighted_rows(model, t_new, idx, x, y, use, noise,
+                                                  yhat_ref=yhat_ref)
+            except (ValueError, ArithmeticError):  # a trial point the model cannot take
+                lam *= 6.0
+                continue
+            with np.errstate(over="ignore", invalid="ignore"):
+                chi2_new = float(r_new @ r_new)
             if np.isfinite(chi2_new) and chi2_new <= chi2:
                 actual = t_new[idx] - t[idx]
                 gain = float(actual @ h @ actual)
@@ -232,6 +243,8 @@ def covariance_t(state: FitState) -> np.ndarray:
     k = h.shape[0]
     if k == 0:
         return np.zeros((0, 0))
+    if not np.all(np.isfinite(h)):
+        return np.full((k, k), math.inf)
     d = np.sqrt(np.maximum(np.diag(h), 1e-300))
     hs = h / np.outer(d, d)
     w, v = np.linalg.eigh(hs)
@@ -264,7 +277,16 @@ def significance(model: Model, state: FitState) -> dict[int, float]:
 def fit(model: Model, x: np.ndarray, y: np.ndarray, eligible: np.ndarray, t0: np.ndarray,
         active: np.ndarray, noise: Noise | None = None, forced_use: bool = False,
         rounds: int = 3, max_iter: int = 60) -> FitState:
-    """Reweighted fit with selection of the optional parameters the data determine."""
+    """Reweighted fit with selection of the optional parameters the data determine.
+
+    Floating-point warnings from trial points far from the data are expected and
+    handled (such steps are rejected), so they are silenced here.
+    """
+    with np.errstate(all="ignore"):
+        return _fit(model, x, y, eligible, t0, active, noise, forced_use, rounds, max_iter)
+
+
+def _fit(model, x, y, eligible, t0, active, noise, forced_use, rounds, max_iter):
     estimate = noise is None or noise.estimated
     if noise is None:
         noise = initial_noise(model, y, eligible)
