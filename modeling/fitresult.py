@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 
 #: The kinds of fit the project knows.
-KINDS = ("iv_forward", "iv_reverse", "cv", "admittance", "joint")
+KINDS = ("iv", "iv_forward", "iv_reverse", "cv", "admittance", "joint")
 
 
 def _frozen_array(a: Any, dtype=float) -> np.ndarray:

@@ -109,7 +109,7 @@ def format_table(result, data, temperature, notes, math) -> str:
         if sigma is None:
             sig, rel = "stated" if name == "IBV" else "-", ""
         else:
-            sig = format_quantity(sigma, unit) if unit else f"{sigma:.3g}"
+            sig = format_quantity(sigma, unit, prec=2) if unit else f"{sigma:.3g}"
             rel = f"{100 * sigma / abs(value):.3g} %" if value else ""
         lines.append(f"  {name:<10}{val:>16}{sig:>16}{rel:>12}")
     extras = model.extras
