@@ -73,24 +73,37 @@ def _flag(session: Session, reply: str, message: str) -> bool:
                               f"{message!r}, got {reply!r}") from None
 
 
-class Smu:
-    """A source-measure unit: source voltage or current, limit the other, read both."""
+class _Role:
+    """What every instrument role shares: its session, dialect and identity."""
+
+    role = ""
 
     def __init__(self, session: Session, dialect: Dialect | None = None) -> None:
         self.session = session
         self.dialect = dialect or session.dialect
-        self.commands: SmuCommands = self.dialect.require("smu")
-        self.source: str | None = None
-        self.limit: float | None = None
-        self.level: float | None = None
-        self._output_on = False
+        self.commands = self.dialect.require(self.role)
         self._identity: str | None = None
 
     @property
     def identity(self) -> str:
+        """The instrument's *IDN? reply, asked once."""
         if self._identity is None:
             self._identity = self.session.identify()
         return self._identity
+
+
+class Smu(_Role):
+    """A source-measure unit: source voltage or current, limit the other, read both."""
+
+    role = "smu"
+    commands: SmuCommands
+
+    def __init__(self, session: Session, dialect: Dialect | None = None) -> None:
+        super().__init__(session, dialect)
+        self.source: str | None = None
+        self.limit: float | None = None
+        self.level: float | None = None
+        self._output_on = False
 
     def _set_command(self, level: float) -> str:
         template = self.commands.set_voltage if self.source == "voltage" else (
@@ -271,23 +284,17 @@ def admittance_from_reading(form: str, primary: float, secondary: float,
     return complex(y)
 
 
-class LcrMeter:
+class LcrMeter(_Role):
     """An LCR meter: AC level, frequency, DC bias, corrections; reads admittance."""
 
+    role = "lcr"
+    commands: LcrCommands
+
     def __init__(self, session: Session, dialect: Dialect | None = None) -> None:
-        self.session = session
-        self.dialect = dialect or session.dialect
-        self.commands: LcrCommands = self.dialect.require("lcr")
+        super().__init__(session, dialect)
         self.form = self.commands.form
         self.ac_level_V: float | None = None
         self._bias_on = False
-        self._identity: str | None = None
-
-    @property
-    def identity(self) -> str:
-        if self._identity is None:
-            self._identity = self.session.identify()
-        return self._identity
 
     def configure(self, ac_level_V: float) -> None:
         """Select the dialect's reading form, set the AC level; DC bias to zero and off."""
