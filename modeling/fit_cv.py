@@ -296,7 +296,10 @@ def fit_admittance(voltage_V, frequency_Hz, capacitance_F, conductance_S, *,
                    fc: float = 0.5) -> FitResult:
     """The whole small-signal model from C and G against bias (parallel readings).
 
-    ``fixed`` holds model-card values (IS, N, RS, RSH from an I–V fit) instead of fitting.
+    ``fixed`` holds model-card values instead of fitting them: IS, N, RS, RSH from an I–V
+    fit (``joint.dc_holds``; RS = 0 and RSH = inf hold them absent), and CJO, VJ, M from
+    a C–V fit where the admittance points alone cannot pin the depletion curve (forward
+    bias only).
     """
     x, y, elig = _cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                             compliance, use)
@@ -304,9 +307,22 @@ def fit_admittance(voltage_V, frequency_Hz, capacitance_F, conductance_S, *,
     state = admittance_state(model, x, y, elig, fixed=fixed)
     if isinstance(state, str):
         return empty_result("admittance", len(x), state)
-    extras = {"fixed": dict(fixed)} if fixed else {}
-    return lsq.to_result(model, state, "admittance", len(x), extras=extras,
+    return lsq.to_result(model, state, "admittance", len(x), extras=held_extras(model, fixed),
                          min_rows=MIN_CV_POINTS)
+
+
+def held_extras(model: AdmittanceModel, fixed: dict[str, float] | None) -> dict:
+    """The held values for a FitResult's extras: ``fixed`` (values held) and
+    ``held_absent`` (optional parameters held at none, e.g. RSH = inf: no shunt)."""
+    if not fixed:
+        return {}
+    params = {p.name: p for p in model.params}
+    absent = [k for k, v in fixed.items() if k in params and params[k].optional
+              and params[k].to_t(v) == params[k].null]
+    out: dict = {"fixed": {k: float(v) for k, v in fixed.items() if k not in absent}}
+    if absent:
+        out["held_absent"] = absent
+    return out
 
 
 def fit_cv_data(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
@@ -386,7 +402,7 @@ class StreamSpec:
         return out
 
     def extras(self) -> dict:
-        return {"fixed": dict(self.fixed)} if self.fixed else {}
+        return held_extras(self.model, self.fixed) if self.kind == "admittance" else {}
 
 
 def stream_spec(kind: str, temperature_K: float, *, with_fixture: bool = False,

@@ -5,10 +5,12 @@ Order of work (each stage uses the one before):
 1. Forward I–V (V > 0): IS, N, RS, RSH (fit_iv.fit_forward).
 2. Reverse I–V (V < 0): BV at IBV, RSH, leakage (fit_reverse.fit_reverse).
 3. C–V / admittance: with a conductance column and forward points the whole small-signal
-   model is fitted in complex admittance (fit_cv.fit_admittance), holding IS, N, RS (and
-   RSH) at the I–V values when the run has I–V data (DC data pin them far more tightly;
-   their uncertainty is left out of TT's sigma); without I–V the conductance against bias
-   supplies IS, N, RS. Without conductance, CJO, VJ, M from the C–V points alone.
+   model is fitted in complex admittance (fit_cv.fit_admittance), holding IS, N, RS and
+   RSH as the I–V fits found them when the run has I–V data (``dc_holds``: DC data pin
+   them far more tightly, and a series resistance or shunt the I–V fits did not see is
+   held absent; their uncertainty is left out of TT's sigma); without I–V the
+   conductance against bias supplies IS, N, RS. Without conductance, CJO, VJ, M from the
+   C–V points alone.
 4. Mott–Schottky doping when the device area is known (depletion module).
 
 The model.json document carries the values with sigmas and, under "fits", one
@@ -18,7 +20,7 @@ FitResult.summary() per stage (message, points used, reduced chi-square, correla
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -35,6 +37,12 @@ PRIORITY = {
     "BV": ("iv_reverse",), "CJO": ("admittance", "cv"), "VJ": ("admittance", "cv"),
     "M": ("admittance", "cv"), "TT": ("admittance",),
 }
+#: The I–V fits that speak for a DC parameter. When one of them succeeded, the parameter
+#: comes from I–V or not at all: an admittance fit supplies it only without such
+#: evidence (a conductance read by an LCR meter also carries dielectric and fixture
+#: losses, which a shunt fitted to it would mistake for a DC path).
+IV_EVIDENCE = {"IS": ("iv_forward",), "N": ("iv_forward",), "RS": ("iv_forward",),
+               "RSH": ("iv_forward", "iv_reverse")}
 _IV_KINDS = ("iv", "iv_forward", "iv_reverse")
 _CV_KINDS = ("cv", "admittance")
 
@@ -107,10 +115,7 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
     if cv is not None:
         from . import fit_cv
 
-        fixed = {}
-        fwd = results.get("iv_forward")
-        if fwd is not None and fwd.success:
-            fixed = {k: fwd.values[k] for k in ("IS", "N", "RS", "RSH") if k in fwd.values}
+        fixed = dc_holds(results.values())
         results.update(fit_cv.fit_cv_data(
             cv["voltage_V"], cv["frequency_Hz"], cv["capacitance_F"], cv["conductance_S"],
             compliance=cv["compliance"], temperature_K=temperature_K,
@@ -134,13 +139,50 @@ def fit_run(data: Mapping[str, Mapping[str, Any]], **options: Any) -> ModelSet:
     return fit_all(data, **options).model
 
 
+def dc_holds(results: Iterable[FitResult]) -> dict[str, float]:
+    """IS, N, RS, RSH for an admittance fit to hold, from the I–V fits among ``results``.
+
+    A successful forward fit gives IS and N, and RS (0, i.e. none, when it found none);
+    RSH comes from the forward fit, else from a reverse fit that determined it, else it
+    is held absent (inf) when a successful I–V fit looked for a shunt and found none.
+    Nothing is held without a successful I–V fit (the admittance fit then supplies them).
+    """
+    results = [r for r in results if r is not None and r.success]
+    out: dict[str, float] = {}
+    fwd = [r for r in results if r.kind == "iv_forward"]
+    if fwd:
+        f = fwd[-1]
+        out.update({k: f.values[k] for k in ("IS", "N") if k in f.values})
+        out["RS"] = f.values.get("RS", 0.0)
+    # as in the model: the forward fit's shunt first, else the best reverse one
+    shunts = ([f] if fwd and "RSH" in f.values else
+              sorted((r for r in results if r.kind == "iv_reverse" and "RSH" in r.values),
+                     key=lambda r: r.relative_sigma("RSH")))
+    if shunts:
+        out["RSH"] = shunts[0].values["RSH"]
+    elif any(r.kind in IV_EVIDENCE["RSH"] for r in results):
+        out["RSH"] = math.inf
+    return out
+
+
+def _sources(name: str, results: Mapping[str, FitResult]) -> tuple[str, ...]:
+    """PRIORITY's sources of a parameter, less the admittance fit where I–V speaks."""
+    sources = PRIORITY[name]
+    evidence = IV_EVIDENCE.get(name, ())
+    if any((r := results.get(k)) is not None and r.success for k in evidence):
+        sources = tuple(k for k in sources if k != "admittance")
+    return sources
+
+
 def model_from_results(results: Mapping[str, FitResult], temperature_K: float,
                        extras: Mapping[str, Any] | None = None) -> ModelSet:
-    """One ModelSet from fits of several kinds (PRIORITY decides who supplies what)."""
+    """One ModelSet from fits of several kinds: PRIORITY decides who supplies what, and
+    for IS, N, RS and RSH a successful I–V fit (IV_EVIDENCE) excludes the admittance fit,
+    also where the I–V fit found the parameter not determined."""
     values: dict[str, float] = {}
     sigmas: dict[str, float | None] = {}
-    for name, sources in PRIORITY.items():
-        for kind in sources:
+    for name in PRIORITY:
+        for kind in _sources(name, results):
             r = results.get(kind)
             if r is not None and r.success and name in r.values:
                 values[name] = r.values[name]

@@ -102,3 +102,85 @@ def test_merge_keeps_the_better_of_two_estimates(data):
     assert merged.n_points == n_f + n_r and merged.used.size == n_f + n_r
     k = merged.names.index("BV")
     assert math.isclose(merged.covariance[k, k], rev.sigmas["BV"] ** 2)
+
+
+def _result(kind: str, success: bool = True, **values: float):
+    """A FitResult by hand: each value with a 1 % sigma."""
+    from pnbench.modeling.fitresult import FitResult
+
+    names = tuple(values)
+    sig = {k: abs(v) * 0.01 for k, v in values.items()}
+    cov = np.diag([sig[k] ** 2 for k in names])
+    return FitResult(kind=kind, names=names, values=values, sigmas=sig, covariance=cov,
+                     correlation=np.eye(len(names)), used=np.ones(10, bool), n_points=10,
+                     reduced_chi2=1.0, success=success, message="by hand",
+                     extras={"IBV_A": 1e-5} if kind == "iv_reverse" else {})
+
+
+ADMITTANCE = {"IS": 3e-9, "N": 1.9, "RS": 0.5, "RSH": 1.2e5, "CJO": 2e-12, "VJ": 0.6,
+              "M": 0.36, "TT": 4e-9}
+
+
+def test_iv_evidence_wins_for_is_n_rs_rsh():
+    """Both I-V fits looked for a shunt and found none: RSH stays out of the model even
+    though the admittance fit (whose conductance also carries meter and fixture losses)
+    has one; IS, N, RS come from I-V, the small-signal values from the admittance."""
+    results = {"iv_forward": _result("iv_forward", IS=2.9e-9, N=1.82, RS=0.62),
+               "iv_reverse": _result("iv_reverse", BV=105.0),
+               "admittance": _result("admittance", **ADMITTANCE)}
+    m = joint.model_from_results(results, 300.0)
+    assert "RSH" not in m.values
+    assert (m.values["IS"], m.values["N"], m.values["RS"]) == (2.9e-9, 1.82, 0.62)
+    assert m.values["TT"] == 4e-9 and m.values["CJO"] == 2e-12
+    # an I-V fit without RS keeps the admittance's RS out too
+    results["iv_forward"] = _result("iv_forward", IS=2.9e-9, N=1.82)
+    assert "RS" not in joint.model_from_results(results, 300.0).values
+    # a shunt found by the reverse fit is used
+    results["iv_reverse"] = _result("iv_reverse", BV=105.0, RSH=3e9)
+    assert joint.model_from_results(results, 300.0).values["RSH"] == 3e9
+
+
+def test_admittance_supplies_dc_parameters_only_without_iv_evidence():
+    """Without I-V data the admittance fit's IS, N, RS, RSH are the model's; a forward
+    I-V fit that failed is no evidence, while a reverse fit still rules on RSH."""
+    adm = _result("admittance", **ADMITTANCE)
+    m = joint.model_from_results({"admittance": adm}, 300.0)
+    assert {k: m.values[k] for k in ADMITTANCE} == ADMITTANCE
+    m = joint.model_from_results({"iv_forward": _result("iv_forward", False, IS=1.0, N=9.0),
+                                  "iv_reverse": _result("iv_reverse", BV=105.0),
+                                  "admittance": adm}, 300.0)
+    assert m.values["IS"] == ADMITTANCE["IS"] and "RSH" not in m.values
+
+
+def test_dc_holds_of_the_iv_fits():
+    """What an admittance fit holds: the I-V values, a series resistance or shunt the
+    I-V fits did not find held absent (RS = 0, RSH = inf), nothing without I-V."""
+    fwd = _result("iv_forward", IS=2.9e-9, N=1.82)
+    assert joint.dc_holds([fwd]) == {"IS": 2.9e-9, "N": 1.82, "RS": 0.0, "RSH": math.inf}
+    rev = _result("iv_reverse", RSH=3e9)
+    assert joint.dc_holds([fwd, rev])["RSH"] == 3e9
+    assert joint.dc_holds([rev]) == {"RSH": 3e9}
+    assert joint.dc_holds([_result("iv_forward", False, IS=1.0)]) == {}
+    assert joint.dc_holds([_result("admittance", **ADMITTANCE)]) == {}
+
+
+def test_admittance_fit_holds_no_shunt_when_iv_sees_none(data):
+    """The sig diode's forward I-V from 0.35 V (where the simulator's GMIN shunt is below
+    the 0.1 % reading noise added) and its admittance with 1 uS of meter loss added to G:
+    the admittance fit holds RSH absent instead of turning the loss into a shunt, the
+    model has no RSH, and TT stays within 2 % (reference: ngspice DC and AC analysis,
+    tests/spicehelp.py)."""
+    d = data["sig"]
+    up = d.forward_v >= 0.35
+    rng = np.random.default_rng(7)
+    i = fd.instrument_noise(rng, d.forward_i[up], 1e-3, 1e-13)
+    out = joint.fit_all({"iv_forward": {"voltage_V": d.forward_v[up], "current_A": i},
+                         "admittance": {"voltage_V": d.cv_v, "frequency_Hz": d.cv_f,
+                                        "capacitance_F": d.cv_c,
+                                        "conductance_S": d.cv_g + 1e-6}})
+    adm = out.results["admittance"]
+    assert "RSH" not in out.results["iv_forward"].values
+    assert adm.extras["held_absent"] == ["RSH"] and "RSH" not in adm.values
+    assert "RSH" not in out.model.values
+    assert abs(out.model.values["TT"] / d.params.TT - 1) < 0.02
+    json.dumps(out.model.to_json_dict(), allow_nan=False)

@@ -78,3 +78,6 @@ def test_bundled_plan_recovers_the_device(device, tmp_path):
         assert math.isfinite(target)
         assert abs(value - target) <= TOL_REL[name] * abs(target) + 4 * sigma, (
             f"{device} {name}: fit {value:.5g} +- {sigma:.2g}, true {target:.5g}")
+    if math.isinf(true.RSH):
+        # the I-V fits see no shunt, so none may come in from the admittance fit
+        assert "RSH" not in model, f"{device}: RSH {model.get('RSH')} on a device without"
