@@ -44,6 +44,14 @@ class AcLevelCheck:
     message: str
 
 
+def worst_case_error(level_V_rms: float, n_vt_V: float) -> tuple[float, float]:
+    """(conductance reading error, second-order distortion) of an rms test level applied
+    straight to an exponential junction with N*Vt = n_vt_V (no RS divider, no shunt):
+    the safe-side estimate when the device is not yet known."""
+    x = math.sqrt(2.0) * level_V_rms / n_vt_V
+    return x * x / 8.0, 0.5 * x
+
+
 def check_ac_level(params: DiodeParams, level_V_rms: float, *,
                    bias_voltage_V: float | None = None, bias_current_A: float | None = None,
                    frequency_Hz: float | None = None,

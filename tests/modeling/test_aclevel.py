@@ -75,3 +75,16 @@ def test_bad_levels_are_refused():
     with pytest.raises(ValueError):
         aclevel.fundamental_conductance(P, 0.5, 0.0)
     assert np.isfinite(aclevel.fundamental_conductance(P, 0.5, 5 * A))
+
+
+def test_worst_case_error_is_the_full_check_for_a_bare_exponential_junction():
+    """Without RS or shunt and well into forward bias (share of exponential conductance
+    ~1), the plan-time estimate equals the full check at that bias."""
+    from pnbench.modeling.aclevel import worst_case_error
+    from pnbench.modeling.junction import thermal_voltage
+
+    p = DiodeParams(IS=1e-14, N=1.0)
+    full = aclevel.check_ac_level(p, 0.02, bias_voltage_V=0.6)
+    error, distortion = worst_case_error(0.02, thermal_voltage())
+    assert error == pytest.approx(full.conductance_error, rel=1e-9)
+    assert distortion == pytest.approx(full.distortion, rel=1e-9)

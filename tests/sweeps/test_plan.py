@@ -268,3 +268,14 @@ def test_random_plan_tables_give_plan_or_plan_error(step, limits):
         assert "random.toml" in str(exc)
         return
     assert all(math.isfinite(x) for s in plan.steps for x in s.levels)
+
+
+def test_large_ac_level_at_forward_bias_is_warned_with_the_reading_error():
+    """The reading error of the fundamental is x**2/8 with x = peak/(N*Vt) (series of
+    exp(x cos wt), see modeling/aclevel.py): 20 mV rms on a junction at N = 1 is
+    x = 1.09, about 15 %; 5 mV rms stays under 1 %."""
+    quiet = parse_plan(GOOD, "t.toml")
+    assert not any("ac_level" in w for w in quiet.warnings)
+    loud = parse_plan(replace(GOOD, 'ac_level = "5 mV"', 'ac_level = "20 mV"'), "t.toml")
+    (warning,) = [w for w in loud.warnings if "ac_level" in w]
+    assert "'adm'" in warning and "14.9%" in warning and "under 1 %" in warning
