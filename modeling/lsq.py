@@ -368,7 +368,10 @@ def to_result(model, state: FitState, kind: str, n_points: int,
     if at_bound:
         parts.append(f"{', '.join(at_bound)} at the edge of the allowed range")
         ok = False
-    noise_extras = {}
+    # every active parameter on a bound (optional ones too): a value the bounds chose
+    edge = [model.params[k].name for k in idx
+            if state.t[k] <= model.params[k].lower or state.t[k] >= model.params[k].upper]
+    noise_extras: dict = {"at_bound": edge} if edge else {}
     for c, ch in enumerate(model.channels):
         key = f"noise_{c}" if len(model.channels) > 1 else "noise"
         noise_extras[key] = {"relative": state.noise.rel[c], "floor": state.noise.floor[c],

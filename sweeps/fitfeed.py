@@ -8,6 +8,13 @@ thread in between), takes a snapshot (also when the step ends), emits a
 ``fit`` event, flags a step whose parameters have settled to the step's target, and after
 each step writes model.json and the model card through the run folder.
 
+A fit event publishes estimates only (`estimates`): a value its fitter's bounds chose, or
+one with a relative standard error beyond MAX_REL_SIGMA, goes under ``not_determined``
+with the reason instead of ``parameters``, so the app's table and the headless lines
+never show it. A live admittance fit holds what earlier steps of the run extracted
+(`fitmodel.admittance_holds`: CJO, VJ, M from C-V; IS, N, RS, RSH from I-V), since a
+forward-bias admittance step alone cannot determine them.
+
 Fitting never stops a run: a fitter that raises is reported once as a ``warning`` event
 and that step goes on without live estimates.
 """
@@ -28,6 +35,31 @@ from pnbench.sweeps.store import Point
 _STOP = object()
 #: Most points taken off the queue at once (added to a fitter as one batch).
 MAX_BATCH = 200_000
+#: The largest relative standard error of a value a fit event publishes as an estimate.
+MAX_REL_SIGMA = 1.0
+
+
+def estimates(result) -> tuple[list[str], dict[str, str]]:
+    """The parameters of a fit that a ``fit`` event may publish as estimates, and the
+    others with the reason (a value the fitter's bounds chose, or one whose relative
+    standard error exceeds MAX_REL_SIGMA, is no estimate: the app and the headless
+    printer show whatever the event carries). A failed fit publishes none; a successful
+    one may state a value without an uncertainty (BV read between two points)."""
+    shown, dropped = [], {}
+    edge = set(result.extras.get("at_bound", ()))
+    for n in result.names:
+        value, sigma = result.values[n], result.sigmas.get(n, math.inf)
+        if not result.success:
+            dropped[n] = "the fit failed"
+        elif n in edge:
+            dropped[n] = "at the edge of the allowed range"
+        elif not math.isfinite(value):
+            dropped[n] = "no finite value"
+        elif math.isfinite(sigma) and sigma > MAX_REL_SIGMA * abs(value):
+            dropped[n] = f"uncertainty {sigma / abs(value):.0%} of the value"
+        else:
+            shown.append(n)
+    return shown, dropped
 
 
 class FitWorker:
@@ -151,8 +183,9 @@ class FitWorker:
         try:
             fitter = self._fitters.get(name)
             if fitter is None:
-                fitter = fitmodel.new_fitter(step.kind, self.temperature_K,
-                                             self._dc_values(),
+                held = (fitmodel.admittance_holds(self.latest.values())
+                        if step.kind == "admittance" else None)
+                fitter = fitmodel.new_fitter(step.kind, self.temperature_K, held,
                                              fitmodel.breakdown_current_A(
                                                  self.steps.values()))
                 self._fitters[name] = fitter
@@ -162,13 +195,6 @@ class FitWorker:
             return
         self._counts[name] = self._counts.get(name, 0) + len(points)
         self._dirty.add(name)
-
-    def _dc_values(self) -> dict:
-        """IS, N, RS of the latest successful forward I-V fit (for the admittance fit)."""
-        for name, result in self.latest.items():
-            if self.steps[name].kind == "iv_forward" and result.success:
-                return {k: result.values[k] for k in ("IS", "N", "RS") if k in result.values}
-        return {}
 
     def _snapshot_dirty(self) -> None:
         for name in list(self._dirty):
@@ -192,13 +218,14 @@ class FitWorker:
         if (target and result.success and result.names and all(settled.values())
                 and self._counts.get(name, 0) >= step.min_points):
             self._settled.add(name)
+        shown, not_determined = estimates(result)
         self.bus.emit("fit", name, fit_kind=result.kind, success=bool(result.success),
                       message=str(result.message), n_points=int(result.n_points),
                       parameters={
-                          n: {"value": finite(result.values[n]),
-                              "sigma": finite(result.sigmas.get(n, math.inf)),
+                          n: {"value": result.values[n], "sigma": finite(result.sigmas[n]),
                               "settled": bool(settled.get(n, False))}
-                          for n in result.names})
+                          for n in shown},
+                      not_determined=not_determined)
 
     def _write_model(self) -> None:
         if self.write_model is None:

@@ -27,7 +27,7 @@ def available() -> bool:
 def new_fitter(step_kind: str, temperature_K: float, fixed: dict | None = None,
                ibv_A: float | None = None):
     """An incremental fitter for a step. ``fixed`` holds model-card values from earlier
-    steps (IS, N, RS of the forward I-V) for the admittance fit to keep."""
+    steps for the admittance fit to keep (see `admittance_holds`)."""
     from pnbench.modeling.incremental import IncrementalFitter
 
     if step_kind == "admittance" and fixed:
@@ -35,6 +35,25 @@ def new_fitter(step_kind: str, temperature_K: float, fixed: dict | None = None,
     if step_kind == "iv_reverse" and ibv_A is not None:
         return IncrementalFitter("iv_reverse", temperature_K=temperature_K, ibv_A=ibv_A)
     return IncrementalFitter(FIT_KIND[step_kind], temperature_K=temperature_K)
+
+
+def admittance_holds(results) -> dict[str, float]:
+    """What a live admittance fit holds, from the fits of the run's earlier steps
+    (FitResults of any kind, in step order).
+
+    A forward-bias admittance step alone cannot pin the depletion curve nor, beside TT,
+    the DC parameters: CJO, VJ, M come from the latest successful C-V fit, and IS, N, RS,
+    RSH as the I-V fits found them (absent ones held absent, `joint.dc_holds`). The
+    run's model.json is still fitted from every point together.
+    """
+    from pnbench.modeling.joint import dc_holds
+
+    results = [r for r in results if r is not None]
+    held = dc_holds(results)
+    cv = [r for r in results if r.kind == "cv" and r.success]
+    if cv and all(n in cv[-1].values for n in ("CJO", "VJ", "M")):
+        held.update({n: cv[-1].values[n] for n in ("CJO", "VJ", "M")})
+    return held
 
 
 def breakdown_current_A(steps) -> float | None:

@@ -81,3 +81,23 @@ def test_bundled_plan_recovers_the_device(device, tmp_path):
     if math.isinf(true.RSH):
         # the I-V fits see no shunt, so none may come in from the admittance fit
         assert "RSH" not in model, f"{device}: RSH {model.get('RSH')} on a device without"
+    check_live_fits(launch.run_dir, plan)
+
+
+def check_live_fits(run_dir: Path, plan) -> None:
+    """What the fit events publish while the run goes on: estimates only (none with a
+    relative sigma beyond 100 %; values on a bound of their fitter come with such a
+    sigma, or none), and the final fit of a forward admittance step (after the C-V and
+    I-V steps) gives TT."""
+    events = [json.loads(line) for line in (run_dir / "events.jsonl").read_text()
+              .splitlines()]
+    fits = [e for e in events if e["kind"] == "fit"]
+    assert fits
+    for e in fits:
+        for name, p in e["parameters"].items():
+            assert p["value"] is not None, (e["step"], name)
+            assert p["sigma"] is None or abs(p["sigma"]) <= abs(p["value"]), (e["step"], p)
+    kinds = {s.name: s.kind for s in plan.steps}
+    for step in (s for s, k in kinds.items() if k == "admittance"):
+        last = [e for e in fits if e["step"] == step][-1]
+        assert "TT" in last["parameters"], last["message"]

@@ -1,0 +1,158 @@
+"""The fit worker between the runner and the fitters: what its ``fit`` events publish, what
+the live admittance fit takes from the run's earlier steps, and when a step has settled.
+
+Data: a tuning varactor (the LH-VC510 of the bundled simulated devices) computed by
+pnbench's own exact DC model and small-signal model (both checked against ngspice in
+tests/modeling), with Gaussian reading noise of a fixed seed.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from pnbench.modeling import junction
+from pnbench.modeling.fitresult import FitResult
+from pnbench.modeling.params import DiodeParams
+from pnbench.modeling.smallsignal import device_admittance, parallel_from_admittance
+from pnbench.sweeps.events import EventBus
+from pnbench.sweeps.fitfeed import MAX_REL_SIGMA, FitWorker, estimates
+from pnbench.sweeps.plan import parse_plan
+from pnbench.sweeps.store import Point
+
+T_K = 300.15
+TRUE = DiodeParams(IS=4e-15, N=1.03, RS=0.42, CJO=3.2e-11, VJ=0.72, M=0.5, TT=2e-9)
+HEAD = """
+[device]
+name = "LH-VC510"
+[limits]
+max_voltage = "2 V"
+max_reverse_voltage = "40 V"
+max_current = "100 mA"
+max_power = "150 mW"
+"""
+STEPS = {
+    "forward": """
+[[steps]]
+name = "forward"
+kind = "iv_forward"
+start = "0.3 V"
+stop = "0.85 V"
+points = 56
+compliance = "100 mA"
+""",
+    "cv": """
+[[steps]]
+name = "cv"
+kind = "cv"
+bias_start = "0 V"
+bias_stop = "-30 V"
+bias_points = 31
+frequencies = ["100 kHz", "1 MHz"]
+""",
+    "admittance": """
+[[steps]]
+name = "admittance"
+kind = "admittance"
+bias = ["0.55 V", "0.6 V", "0.63 V", "0.66 V", "0.68 V", "0.70 V", "0.72 V"]
+frequencies = ["100 kHz", "300 kHz", "1 MHz", "2 MHz"]
+""",
+}
+
+
+def iv_points(step: str, v: np.ndarray, rng, rel=1e-3) -> list[Point]:
+    i = np.asarray(junction.current(v, TRUE, T_K), dtype=float)
+    i = i * (1 + rel * rng.standard_normal(i.size))
+    return [Point(step, k, "iv", 0.0, voltage_V=float(a), current_A=float(b))
+            for k, (a, b) in enumerate(zip(v, i, strict=True))]
+
+
+def lcr_points(step: str, v: np.ndarray, f: np.ndarray, rng, rel=2e-3) -> list[Point]:
+    vv, ff = np.repeat(v, f.size), np.tile(f, v.size)
+    c, g = parallel_from_admittance(device_admittance(vv, ff, TRUE, T_K), ff)
+    c = np.asarray(c) * (1 + rel * rng.standard_normal(vv.size))
+    g = np.asarray(g) * (1 + rel * rng.standard_normal(vv.size))
+    return [Point(step, k, "cv", 0.0, voltage_V=float(a), frequency_Hz=float(b),
+                  capacitance_F=float(x), conductance_S=float(y))
+            for k, (a, b, x, y) in enumerate(zip(vv, ff, c, g, strict=True))]
+
+
+def step_points(name: str, rng) -> list[Point]:
+    if name == "forward":
+        return iv_points(name, np.linspace(0.3, 0.85, 56), rng)
+    if name == "cv":
+        return lcr_points(name, np.linspace(0.0, -30.0, 31), np.array([1e5, 1e6]), rng)
+    return lcr_points(name, np.array([0.55, 0.6, 0.63, 0.66, 0.68, 0.70, 0.72]),
+                      np.array([1e5, 3e5, 1e6, 2e6]), rng)
+
+
+def run_steps(names, extra: str = "", points=None) -> list:
+    """Feed each step's points through a started FitWorker as the runner does (submit,
+    then step_done) and return the fit events."""
+    plan = parse_plan(HEAD + "".join(STEPS[n].rstrip() + "\n" + extra for n in names))
+    bus = EventBus()
+    seen = []
+    bus.add_listener(seen.append)
+    worker = FitWorker(plan.steps, bus, temperature_K=T_K, snapshot_interval_s=0.01)
+    worker.start()
+    rng = np.random.default_rng(510)
+    for step in plan.steps:
+        for p in (points or {}).get(step.name) or step_points(step.name, rng):
+            worker.submit(step, p)
+        worker.step_done(step.name)
+    worker.finish()
+    return [e for e in seen if e.kind == "fit"]
+
+
+def final(fits, step):
+    return [e for e in fits if e.step == step][-1].data
+
+
+def test_live_admittance_takes_cv_and_iv_values_and_gives_tt():
+    """After the I-V and C-V steps, a forward-bias admittance step yields TT (within
+    5 %); CJO, VJ, M and IS, N, RS are held from those steps, not refitted from forward
+    points that cannot pin them."""
+    fits = run_steps(["forward", "cv", "admittance"])
+    adm = final(fits, "admittance")
+    assert set(adm["parameters"]) == {"TT"}, adm["message"]
+    tt = adm["parameters"]["TT"]
+    assert abs(tt["value"] / TRUE.TT - 1) < 0.05 and tt["sigma"] < 0.05 * tt["value"]
+    cv = final(fits, "cv")["parameters"]
+    assert abs(cv["CJO"]["value"] / TRUE.CJO - 1) < 0.02
+
+
+def test_forward_admittance_alone_publishes_no_bound_or_vague_values():
+    """Without earlier steps, forward-bias points alone leave CJO, VJ, M undetermined:
+    no fit event shows them as estimates (nothing at a bound of the fitter, nothing
+    with a relative sigma beyond MAX_REL_SIGMA); they are listed as not determined."""
+    fits = run_steps(["admittance"])
+    assert fits
+    for e in fits:
+        for name, p in e.data["parameters"].items():
+            assert p["sigma"] is None or p["sigma"] <= MAX_REL_SIGMA * abs(p["value"]), name
+            assert name != "CJO" or p["value"] < 1e-6, p  # CJO's upper bound is 1 F
+    last = final(fits, "admittance")
+    assert "CJO" not in last["parameters"] or "VJ" not in last["parameters"]
+    assert set(last["not_determined"]) & {"CJO", "VJ", "M"}
+
+
+def _result(success=True, extras=None, **values):
+    names = tuple(values)
+    sig = {k: s for k, (_, s) in values.items()}
+    return FitResult(kind="admittance", names=names,
+                     values={k: v for k, (v, _) in values.items()}, sigmas=sig,
+                     covariance=np.diag([s * s for s in sig.values()]),
+                     correlation=np.eye(len(names)), used=np.ones(4, bool), n_points=4,
+                     reduced_chi2=1.0, success=success, message="by hand",
+                     extras=extras or {})
+
+
+def test_estimates_leave_out_bound_vague_and_failed_values():
+    r = _result(extras={"at_bound": ["CJO"]}, CJO=(1.0, 1e-3), VJ=(5.0, 25.0),
+                M=(0.5, 0.4), BV=(34.0, math.inf))
+    shown, dropped = estimates(r)
+    assert shown == ["M", "BV"]
+    assert "edge" in dropped["CJO"] and "500%" in dropped["VJ"]
+    shown, dropped = estimates(_result(False, M=(0.5, 0.01)))
+    assert shown == [] and dropped == {"M": "the fit failed"}
