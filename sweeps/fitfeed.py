@@ -4,9 +4,10 @@ The runner hands each point to `FitWorker.submit` (a queue put, microseconds) an
 to the next bias point. The worker thread wakes at most every `snapshot_interval_s`, adds
 the points gathered meanwhile to one `IncrementalFitter` per step as one batch (far
 cheaper per point than one by one, and it leaves the interpreter to the acquisition
-thread in between), takes a snapshot (also when the step ends), emits a
-``fit`` event, flags a step whose parameters have settled to the step's target, and after
-each step writes model.json and the model card through the run folder.
+thread in between), takes a snapshot (also when the step ends: that event says
+``final``), emits a ``fit`` event (with the reverse fit's ``leakage`` and ``ibv_A``),
+flags a step whose parameters have settled to the step's target, and after each step
+writes model.json and the model card through the run folder.
 
 A fit event publishes estimates only (`estimates`): a value its fitter's bounds chose, or
 one with a relative standard error beyond MAX_REL_SIGMA, goes under ``not_determined``
@@ -60,6 +61,21 @@ def estimates(result) -> tuple[list[str], dict[str, str]]:
         else:
             shown.append(n)
     return shown, dropped
+
+
+def figures(result) -> dict:
+    """Figures of a fit that are not model-card parameters, for its event: the reverse
+    fit's leakage at its reference voltage and the current at which BV is stated."""
+    out: dict = {}
+    extras = result.extras
+    if "IBV_A" in extras:
+        out["ibv_A"] = finite(extras["IBV_A"])
+    if "leakage_A" in extras:
+        sigma = extras.get("leakage_sigma_A")
+        out["leakage"] = {"voltage_V": finite(extras["leakage_voltage_V"]),
+                          "current_A": finite(extras["leakage_A"]),
+                          "sigma_A": None if sigma is None else finite(sigma)}
+    return out
 
 
 class FitWorker:
@@ -170,7 +186,7 @@ class FitWorker:
                 return True
             name, point = item
             if point is None:
-                self._snapshot(name)
+                self._snapshot(name, final=True)
                 self._write_model()
             else:
                 run, run_step = [point], name
@@ -201,7 +217,7 @@ class FitWorker:
             self._snapshot(name)
         self._last_snapshot = time.monotonic()
 
-    def _snapshot(self, name: str) -> None:
+    def _snapshot(self, name: str, final: bool = False) -> None:
         self._dirty.discard(name)
         fitter = self._fitters.get(name)
         if fitter is None or name in self._broken:
@@ -225,7 +241,7 @@ class FitWorker:
                           n: {"value": result.values[n], "sigma": finite(result.sigmas[n]),
                               "settled": bool(settled.get(n, False))}
                           for n in shown},
-                      not_determined=not_determined)
+                      not_determined=not_determined, final=final, **figures(result))
 
     def _write_model(self) -> None:
         if self.write_model is None:

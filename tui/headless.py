@@ -44,6 +44,31 @@ def format_parameter(name: str, entry: dict) -> str:
     return f"{name} = {text}{' ✓' if entry.get('settled') else ''}"
 
 
+def first_clause(message: str) -> str:
+    """A fit message up to its first "; " outside parentheses (the short reason)."""
+    depth = 0
+    for k, ch in enumerate(message):
+        depth += {"(": 1, ")": -1}.get(ch, 0)
+        if depth == 0 and message.startswith("; ", k):
+            return message[:k]
+    return message
+
+
+def leakage_text(leak: dict) -> str:
+    """'leakage 1.2 pA ±3.0% at -5 V', or an upper bound when the reading is within two
+    standard errors of zero (the current is below what the instrument resolves)."""
+    value, sigma, volts = leak.get("current_A"), leak.get("sigma_A"), leak.get("voltage_V")
+    at = f" at {format_quantity(volts, 'V', 3)}" if volts is not None else ""
+    if value is None:
+        return "leakage not determined"
+    if sigma is not None and abs(value) <= 2 * sigma:
+        return f"leakage below {format_quantity(abs(value) + 2 * sigma, 'A', 2)}{at}"
+    text = f"leakage {format_quantity(value, 'A', 3)}"
+    if sigma is not None and value:
+        text += f" ±{abs(sigma / value):.1%}"
+    return text + at
+
+
 def bar(done: int, planned: int, width: int = BAR) -> str:
     frac = 0.0 if planned <= 0 else min(1.0, done / planned)
     full = int(round(frac * width))
@@ -58,6 +83,7 @@ class Progress:
         self.steps = {s.name: {"kind": s.kind, "planned": s.planned, "done": 0,
                                "status": "pending"} for s in plan.steps}
         self.params: dict[str, dict] = {}
+        self.fits: dict[str, object] = {}  # step -> its latest fit event
         self._queue: collections.deque = collections.deque()
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
@@ -127,10 +153,11 @@ class Progress:
             why = f", ended by {e.get('ended_by')}" if e.get("ended_by") else ""
             self.say(f"step {step} finished ({e.get('status')}{why}): "
                      f"{e.get('done')}/{e.get('planned')} points")
-            if step in self.params and not self.tty:
-                self.say(f"fit {step}: " + self.param_text(step))
         elif kind == "fit":
             self.params[step] = e.get("parameters") or {}
+            self.fits[step] = e
+            if e.get("final"):  # the step's last fit comes after its step_finished
+                self.say(f"fit {step}: " + self.param_text(step))
         elif kind in ("limit", "warning", "error"):
             self.say(f"{kind}{' in ' + step if step else ''}: {e.get('message')}")
         elif kind == "compliance":
@@ -164,7 +191,25 @@ class Progress:
         return left / rate
 
     def param_text(self, step: str) -> str:
-        return "  ".join(format_parameter(n, p) for n, p in self.params.get(step, {}).items())
+        """The step's latest fit in one line: its estimates, then what else it found or
+        why it found nothing (a reverse step: leakage, and BV's current or no breakdown)."""
+        e = self.fits.get(step)
+        params = self.params.get(step, {})
+        reverse = e is not None and e.get("fit_kind") == "iv_reverse"
+        ibv = e.get("ibv_A") if reverse else None
+        ibv_text = f"IBV = {format_quantity(ibv, 'A', 3)}" if ibv else ""
+        shown = [format_parameter(n, p) + (f" at {ibv_text}" if n == "BV" and ibv else "")
+                 for n, p in params.items()]
+        notes = []
+        if reverse and "BV" not in params:
+            notes.append("no breakdown" + (f" ({ibv_text} not reached)" if ibv else ""))
+        if reverse and e.get("leakage"):
+            notes.append(leakage_text(e.get("leakage")))
+        if e is not None and e.get("not_determined"):
+            notes.append(f"{', '.join(e.get('not_determined'))} not determined")
+        if e is not None and not shown and not notes:
+            notes.append(first_clause(str(e.get("message") or "nothing determined yet")))
+        return "; ".join(filter(None, ["  ".join(shown), *notes]))
 
     def say(self, text: str) -> None:
         stamp = time.strftime("%H:%M:%S")

@@ -181,6 +181,19 @@ def test_demo_headless_ends_in_a_model_card(tmp_path, capsys):
     assert ".model LH-VC510 D(" in card and "TT=" in card and "BV=" in card
     steps = {s["kind"] for s in read_run(run_dir)["steps"]}
     assert steps == {"iv_forward", "iv_reverse", "cv", "admittance"}
+    # one line per step with the step's final fit, even when the fit comes in after the
+    # step has ended (time scale 0): what each kind of step found, or why not
+    fits = {line.split("fit ", 1)[1].split(":", 1)[0]: line.split(": ", 1)[1]
+            for line in capsys.readouterr().out.splitlines() if " fit " in line}
+    assert set(fits) == {"forward", "reverse", "breakdown", "cv", "admittance"}
+    assert all(name + " = " in fits["forward"] for name in ("IS", "N", "RS"))
+    assert fits["reverse"].startswith("no breakdown (IBV = 10 uA not reached); leakage")
+    assert fits["breakdown"].startswith("BV = 34.") and "at IBV = 10 uA" in fits["breakdown"]
+    assert all(name + " = " in fits["cv"] for name in ("CJO", "VJ", "M"))
+    # the device's TT is 2 ns (sim_configs/lh-vc510.toml)
+    assert fits["admittance"].startswith("TT = ") and "CJO" not in fits["admittance"]
+    tt_ns = float(fits["admittance"].split()[2])
+    assert fits["admittance"].split()[3] == "ns" and abs(tt_ns - 2.0) < 0.2
 
 
 def test_report_failure_is_a_warning_not_a_lost_run(tmp_path, capsys, monkeypatch):

@@ -8,7 +8,7 @@ import time
 
 from pnbench.sweeps.events import Event
 from pnbench.sweeps.plan import parse_plan
-from pnbench.tui.headless import Progress, bar, format_duration, format_parameter
+from pnbench.tui.headless import Progress, bar, format_duration, format_parameter, leakage_text
 
 PLAN = parse_plan("""
 [device]
@@ -56,11 +56,14 @@ def test_plain_lines_when_not_a_terminal():
     feed(p, [ev("run_started", planned=40, progress={}),
              ev("step_started", "forward", step_kind="iv_forward", planned=10, done=0),
              *[ev("point", "forward", index=k) for k in range(10)],
-             ev("fit", "forward", parameters={"N": {"value": 1.05, "sigma": 0.01,
+             ev("fit", "forward", parameters={"N": {"value": 1.07, "sigma": 0.01,
                                                     "settled": False}}),
              ev("limit", "forward", message="power guard"),
              ev("step_finished", "forward", status="limit", done=10, planned=10,
                 ended_by="power"),
+             # the fit worker's last fit of a step comes after the step has ended
+             ev("fit", "forward", parameters={"N": {"value": 1.05, "sigma": 0.01,
+                                                    "settled": False}}, final=True),
              ev("run_finished", status="completed", reason="all steps finished",
                 outputs_off_confirmed=True)])
     text = out.getvalue()
@@ -69,8 +72,43 @@ def test_plain_lines_when_not_a_terminal():
     assert any("step forward (iv_forward): 10 points" in x for x in lines)
     assert any("limit in forward: power guard" in x for x in lines)
     assert any("ended by power" in x for x in lines)
-    assert any(x.endswith("fit forward: N = 1.05 ±1.0%") for x in lines)
+    assert [x.split(" ", 1)[1] for x in lines if " fit " in x] == [
+        "fit forward: N = 1.05 ±1.0%"]
     assert "outputs off confirmed: yes" in lines[-1]
+
+
+def fit_line(event) -> str:
+    out = io.StringIO()
+    p = Progress(PLAN, stream=out, tty=False)
+    feed(p, [event])
+    return out.getvalue().split(" ", 1)[1].rstrip("\n")
+
+
+def test_reverse_fit_line_says_what_it_found_or_why_not():
+    """A reverse step's fit has no model-card parameter until breakdown: its line gives
+    the leakage at the reference voltage and says that IBV was not reached."""
+    leak = {"voltage_V": -5.0, "current_A": 1.2e-12, "sigma_A": 3e-14}
+    assert fit_line(ev("fit", "forward", fit_kind="iv_reverse", parameters={},
+                       not_determined={}, final=True, ibv_A=1e-5, leakage=leak,
+                       message="leakage only from 33 reverse points; BV not ...")) == (
+        "fit forward: no breakdown (IBV = 10 uA not reached); leakage 1.2 pA ±2.5% at -5 V")
+    bv = {"BV": {"value": 34.19, "sigma": 0.01, "settled": True}}
+    assert fit_line(ev("fit", "forward", fit_kind="iv_reverse", parameters=bv,
+                       final=True, ibv_A=1e-5)) == (
+        "fit forward: BV = 34.19 V ±0.0% ✓ at IBV = 10 uA")
+    # within two standard errors of zero: below what the instrument resolves
+    assert leakage_text({"voltage_V": -32.0, "current_A": -5e-13, "sigma_A": 3e-13}) == (
+        "leakage below 1.1 pA at -32 V")
+
+
+def test_fit_line_names_what_was_not_determined_or_why_nothing():
+    line = fit_line(ev("fit", "forward", fit_kind="admittance",
+                       parameters={"TT": {"value": 2e-9, "sigma": 3e-11, "settled": False}},
+                       not_determined={"VJ": "x", "M": "y"}, final=True))
+    assert line == "fit forward: TT = 2 ns ±1.5%; VJ, M not determined"
+    line = fit_line(ev("fit", "forward", fit_kind="iv_forward", parameters={},
+                       message="too few forward points (3; need 4); more", final=True))
+    assert line == "fit forward: too few forward points (3; need 4)"
 
 
 def test_terminal_bars_with_eta_and_parameters():
