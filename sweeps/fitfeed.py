@@ -6,8 +6,9 @@ the points gathered meanwhile to one `IncrementalFitter` per step as one batch (
 cheaper per point than one by one, and it leaves the interpreter to the acquisition
 thread in between), takes a snapshot (also when the step ends: that event says
 ``final``), emits a ``fit`` event (with the reverse fit's ``leakage`` and ``ibv_A``),
-flags a step whose parameters have settled to the step's target, and after each step
-writes model.json and the model card through the run folder.
+flags a step whose target parameters (`settle_targets`) have settled to the step's
+``end_when_settled``, and after each step writes model.json and the model card through
+the run folder.
 
 A fit event publishes estimates only (`estimates`): a value its fitter's bounds chose, or
 one with a relative standard error beyond MAX_REL_SIGMA, goes under ``not_determined``
@@ -38,6 +39,11 @@ _STOP = object()
 MAX_BATCH = 200_000
 #: The largest relative standard error of a value a fit event publishes as an estimate.
 MAX_REL_SIGMA = 1.0
+#: What a step of each kind is for: a step with ``end_when_settled`` ends when these
+#: have settled (``OPTIONAL_TARGETS`` count only where the fit determines them).
+SETTLE_TARGETS = {"iv_forward": ("IS", "N", "RS"), "cv": ("CJO", "VJ", "M"),
+                  "admittance": ("TT",), "iv_reverse": ()}
+OPTIONAL_TARGETS = frozenset({"RS"})
 
 
 def estimates(result) -> tuple[list[str], dict[str, str]]:
@@ -61,6 +67,16 @@ def estimates(result) -> tuple[list[str], dict[str, str]]:
         else:
             shown.append(n)
     return shown, dropped
+
+
+def settle_targets(step_kind: str, shown: list[str]) -> tuple[str, ...]:
+    """The parameters whose uncertainty decides that a step of this kind has settled
+    (SETTLE_TARGETS; RS only where the fit determines it). An optional parameter the
+    step is not for, such as a shunt just past the 3-sigma mark, never holds a step up.
+    A reverse step has none: its figures (BV, leakage at the deepest bias) are only
+    known at its end, so it runs to its stop or its breakdown guard."""
+    return tuple(n for n in SETTLE_TARGETS.get(step_kind, ())
+                 if n not in OPTIONAL_TARGETS or n in shown)
 
 
 def figures(result) -> dict:
@@ -231,10 +247,11 @@ class FitWorker:
         self.latest[name] = result
         target = step.end_when_settled
         settled = result.settled(target) if target else result.settled(0.01)
-        if (target and result.success and result.names and all(settled.values())
+        shown, not_determined = estimates(result)
+        aims = settle_targets(step.kind, shown)
+        if (target and result.success and aims and all(result.settled(target, aims).values())
                 and self._counts.get(name, 0) >= step.min_points):
             self._settled.add(name)
-        shown, not_determined = estimates(result)
         self.bus.emit("fit", name, fit_kind=result.kind, success=bool(result.success),
                       message=str(result.message), n_points=int(result.n_points),
                       parameters={
