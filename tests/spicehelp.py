@@ -17,6 +17,17 @@ What the runner does and what a comparison must account for:
   any list of voltages works in one ngspice run (~20 ms). Results come back through
   ``write`` in ASCII raw format (16 significant digits).
 * Tight options by default: reltol 1e-9, abstol 1e-18 A, vntol 1e-12 V, chgtol 1e-20 C.
+* Every ngspice run has a time limit (``timeout_s``; by default TIMEOUT_BASE_S plus
+  TIMEOUT_PER_POINT_S per bias point, far above the ~20 ms a run takes): beyond it the
+  process is killed and ``SpiceTimeout`` says what was being solved. ngspice 39 can cycle
+  without end at reltol 1e-9 on a bias point just short of a breakdown knee (e.g. the
+  card IS=2.5e-15 N=1.06 BV=72 IBV=1e-4 at -71.8868 V), and a run of many points can
+  fail with NaN instead.
+* Fallback (``fallback=True``, the default): when the run of all points fails or times
+  out, each point is solved in a run of its own at the same options; a point that still
+  fails is solved once more at reltol FALLBACK_RELTOL (1e-7), which is still a thousand
+  times below the tightest tolerance a test here asserts (1e-4). Pass a list as
+  ``fallback_log`` to learn which voltages needed it; ``fallback=False`` raises instead.
 * ngspice adds GMIN (``gmin`` here, 1e-12 S as in ngspice by default) across every
   junction: a shunt inside RS. ``reference_params(p, gmin)`` gives the DiodeParams whose
   RSH includes it; compare the project's model with that.
@@ -55,6 +66,20 @@ TIGHT_OPTIONS = {"reltol": 1e-9, "abstol": 1e-18, "vntol": 1e-12, "chgtol": 1e-2
 
 #: ngspice's GMIN default [S].
 NGSPICE_GMIN = 1e-12
+
+#: Time limit of one ngspice run: a base and a share per bias point [s].
+TIMEOUT_BASE_S = 5.0
+TIMEOUT_PER_POINT_S = 0.05
+#: reltol for a bias point ngspice cannot solve at TIGHT_OPTIONS' reltol.
+FALLBACK_RELTOL = 1e-7
+
+
+class SpiceError(RuntimeError):
+    """ngspice ended without the results asked for."""
+
+
+class SpiceTimeout(SpiceError):
+    """ngspice did not finish within its time limit (it was killed)."""
 
 _ZERO_C_K = 273.15
 _MODEL_NAME = "DREF"
@@ -107,15 +132,26 @@ def _netlist(model, voltages, temperature_C, tnom_C, gmin, options, ac: bool,
     return "\n".join(lines) + "\n"
 
 
-def _run(ngspice: str, netlist: str, outputs: list[str]) -> list[dict[str, np.ndarray]]:
+def _run(ngspice: str, netlist: str, outputs: list[str],
+         timeout_s: float) -> list[dict[str, np.ndarray]]:
     with tempfile.TemporaryDirectory(prefix="pnbench-spice-") as tmp:
         folder = Path(tmp)
         (folder / "ref.cir").write_text(netlist)
-        proc = subprocess.run([ngspice, "-b", "ref.cir"], cwd=folder, capture_output=True,
-                              text=True, timeout=120)
+        try:
+            proc = subprocess.run([ngspice, "-b", "ref.cir"], cwd=folder,
+                                  capture_output=True, text=True, timeout=timeout_s)
+        except subprocess.TimeoutExpired as exc:
+            options = next((ln for ln in netlist.splitlines() if ln.startswith(".options")),
+                           "")
+            raise SpiceTimeout(
+                f"ngspice did not finish within {timeout_s:g} s and was stopped "
+                f"({netlist.count(chr(10) + 'V')} bias points; {options}); at reltol 1e-9 "
+                f"ngspice 39 can cycle without end just short of a breakdown knee: use "
+                f"fallback=True (spicehelp's docstring)\n--- netlist ---\n{netlist}"
+            ) from exc
         missing = [name for name in outputs if not (folder / name).exists()]
         if proc.returncode != 0 or missing:
-            raise RuntimeError(
+            raise SpiceError(
                 f"ngspice failed (exit {proc.returncode}, missing {missing}):\n"
                 f"{proc.stdout[-3000:]}\n{proc.stderr[-3000:]}\n--- netlist ---\n{netlist}"
             )
@@ -154,39 +190,91 @@ def parse_ascii_raw(text: str) -> dict[str, np.ndarray]:
     return {name: data[:, j] for j, name in enumerate(names)}
 
 
+def _timeout(n_points: int, timeout_s: float | None) -> float:
+    return timeout_s if timeout_s is not None else (TIMEOUT_BASE_S
+                                                    + TIMEOUT_PER_POINT_S * n_points)
+
+
+def _robust(solve, v: np.ndarray, options: dict | None, fallback: bool,
+            fallback_log: list | None) -> np.ndarray:
+    """solve(voltages, options) -> rows for those voltages, for all points at once; on
+    failure, point by point, and at FALLBACK_RELTOL where the options' reltol fails."""
+    try:
+        return solve(v, options)
+    except SpiceError as exc:
+        if not fallback or v.size == 0:
+            raise
+        first = exc
+    reltol = {**TIGHT_OPTIONS, **(options or {})}["reltol"]
+    rows = []
+    for x in v:
+        try:
+            if v.size == 1:  # that run has just failed
+                raise first
+            rows.append(solve(np.array([x]), options)[0])
+            continue
+        except SpiceError as exc:
+            if reltol >= FALLBACK_RELTOL:
+                raise
+            first = exc
+        try:
+            rows.append(solve(np.array([x]), {**(options or {}),
+                                              "reltol": FALLBACK_RELTOL})[0])
+        except SpiceError as exc:
+            raise SpiceError(f"ngspice cannot solve {x!r} V at reltol {reltol:g} "
+                             f"({str(first).splitlines()[0]}) nor at the fallback "
+                             f"reltol {FALLBACK_RELTOL:g}: {exc}") from exc
+        if fallback_log is not None:
+            fallback_log.append(float(x))
+    return np.array(rows)
+
+
 def dc_sweep(ngspice: str, model, voltages: Sequence[float], temperature_C: float = 27.0,
              *, tnom_C: float = 27.0, gmin: float = NGSPICE_GMIN,
-             options: dict[str, float] | None = None) -> tuple[np.ndarray, np.ndarray]:
+             options: dict[str, float] | None = None, timeout_s: float | None = None,
+             fallback: bool = True,
+             fallback_log: list | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Terminal voltages [V] and diode currents [A] (anode to cathode) from ngspice.
 
     ``model`` is card text, DiodeParams or a ModelSet; ``options`` override or add
     ``.options`` entries (e.g. {"gmin": 1e-15}; prefer the ``gmin`` argument).
+    ``timeout_s``, ``fallback`` and ``fallback_log``: see the module notes.
     """
     v = np.asarray(voltages, dtype=float).ravel()
-    netlist = _netlist(model, v, temperature_C, tnom_C, gmin, options, False,
-                       ["op", "write op.raw"])
-    (vectors,) = _run(ngspice, netlist, ["op.raw"])
-    i = np.array([-vectors[f"i(v{k})"][0] for k in range(v.size)])
-    return v, i
+
+    def solve(vs, opts):
+        netlist = _netlist(model, vs, temperature_C, tnom_C, gmin, opts, False,
+                           ["op", "write op.raw"])
+        (vectors,) = _run(ngspice, netlist, ["op.raw"], _timeout(vs.size, timeout_s))
+        return np.array([-vectors[f"i(v{k})"][0] for k in range(vs.size)])
+
+    return v, _robust(solve, v, options, fallback, fallback_log)
 
 
 def ac_admittance(ngspice: str, model, bias_voltages: Sequence[float],
                   frequencies: Sequence[float], temperature_C: float = 27.0, *,
                   tnom_C: float = 27.0, gmin: float = NGSPICE_GMIN,
-                  options: dict[str, float] | None = None) -> np.ndarray:
+                  options: dict[str, float] | None = None, timeout_s: float | None = None,
+                  fallback: bool = True, fallback_log: list | None = None) -> np.ndarray:
     """Small-signal admittance [S] of the whole device (RS included), shape [bias, freq].
 
     Real part: conductance; imaginary part / (2*pi*f): parallel capacitance.
+    ``timeout_s``, ``fallback`` and ``fallback_log``: see the module notes.
     """
     v = np.asarray(bias_voltages, dtype=float).ravel()
     f = np.asarray(frequencies, dtype=float).ravel()
     control = []
     for k, freq in enumerate(f):
         control += [f"ac lin 1 {float(freq)!r} {float(freq)!r}", f"write ac{k}.raw"]
-    netlist = _netlist(model, v, temperature_C, tnom_C, gmin, options, True, control)
-    plots = _run(ngspice, netlist, [f"ac{k}.raw" for k in range(f.size)])
-    y = np.empty((v.size, f.size), dtype=complex)
-    for kf, vectors in enumerate(plots):
-        for kv in range(v.size):
-            y[kv, kf] = -vectors[f"i(v{kv})"][0]
-    return y
+
+    def solve(vs, opts):
+        netlist = _netlist(model, vs, temperature_C, tnom_C, gmin, opts, True, control)
+        plots = _run(ngspice, netlist, [f"ac{k}.raw" for k in range(f.size)],
+                     _timeout(vs.size * f.size, timeout_s))
+        y = np.empty((vs.size, f.size), dtype=complex)
+        for kf, vectors in enumerate(plots):
+            for kv in range(vs.size):
+                y[kv, kf] = -vectors[f"i(v{kv})"][0]
+        return y
+
+    return _robust(solve, v, options, fallback, fallback_log)
