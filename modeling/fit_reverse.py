@@ -56,13 +56,21 @@ def _breakdown(x, mag, ibv):
     def rate(a, b):  # growth of ln I per volt between points a < b
         return math.log(ii[b] / ii[a]) / (vv[b] - vv[a]) if vv[b] > vv[a] else math.inf
 
+    # The growth rate at the crossing, from a line through up to two points either side
+    # within the decade (measured voltages scatter: two close points alone may give any
+    # rate); then widen over the decade either side while the current still grows
+    # exponentially, judged over the span to the crossing, which noise upsets far less
+    # than the step between neighbours (a leakage plateau still stops it).
+    near = [j for j in range(max(k - 2, 0), min(k + 2, len(ii)))
+            if ibv / 10 <= ii[j] <= ibv * 10 or j in (k - 1, k)]
     b0 = rate(k - 1, k)
-    # widen over the decade either side while the current still grows exponentially
+    if len(near) >= 3 and np.ptp(vv[near]) > 0:
+        b0 = float(np.polyfit(vv[near], np.log(ii[near]), 1)[0])
     lo = k - 1
-    while lo > 0 and ibv / 10 <= ii[lo - 1] < ii[lo] and rate(lo - 1, lo) >= b0 / 3:
+    while lo > 0 and ibv / 10 <= ii[lo - 1] < ibv and rate(lo - 1, k) >= b0 / 3:
         lo -= 1
     hi = k
-    while hi + 1 < len(ii) and ii[hi] < ii[hi + 1] <= ibv * 10 and rate(hi, hi + 1) >= b0 / 3:
+    while hi + 1 < len(ii) and ibv <= ii[hi + 1] <= ibv * 10 and rate(k - 1, hi + 1) >= b0 / 3:
         hi += 1
     x, y = vv[lo:hi + 1], np.log(ii[lo:hi + 1])
     if len(x) >= 4:

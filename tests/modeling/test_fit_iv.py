@@ -16,7 +16,7 @@ from spicehelp import dc_sweep, reference_params
 
 from pnbench.modeling import fit_iv, junction
 from pnbench.modeling.fitresult import FitResult
-from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
 
 TOL = {"IS": 0.02, "N": 0.005, "RS": 0.02, "RSH": 0.05, "BV": 0.01}
 
@@ -143,6 +143,27 @@ def test_breakdown_voltage_at_the_stated_ibv(data, name):
     assert r.extras["IBV_A"] == d.params.IBV
     assert _rel(r.values["BV"], d.params.BV) < TOL["BV"], r.message
     assert r.sigmas["BV"] < 0.01 * d.params.BV
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_breakdown_through_scattered_voltage_readings(seed):
+    """A sweep through a soft knee (N = 1.82) in 20 mV steps, stopped at the 10 uA guard,
+    with 8 mV of scatter on the measured voltages: BV is read over several points with
+    a finite sigma and lies within four of them of the true voltage at 10 uA (the
+    breakdown term is IBV at -BV, the simulator convention, PHYSICS.md §2); the leakage
+    is read before the knee, where the reverse current is IS (Sze & Ng, ch. 2)."""
+    p = DiodeParams(IS=2.9e-9, N=1.82, RS=0.62, BV=105.0, IBV=1e-7)
+    rng = np.random.default_rng(seed)
+    applied = np.arange(-100.0, -106.0, -0.02)
+    i = np.asarray(junction.current(applied, p, DEFAULT_TEMPERATURE_K), dtype=float)
+    stop = int(np.argmax(-i >= 1e-5)) + 1
+    measured = applied[:stop] + 0.008 * rng.standard_normal(stop)
+    i = i[:stop] * (1 + 1e-3 * rng.standard_normal(stop))
+    r = fit_iv.fit_reverse(measured, i, ibv_A=1e-5)
+    truth = -float(junction.voltage(-1e-5, p, DEFAULT_TEMPERATURE_K))
+    assert r.extras["BV_points"] >= 4 and math.isfinite(r.sigmas["BV"]), r.message
+    assert abs(r.values["BV"] - truth) < 4 * r.sigmas["BV"]
+    assert _rel(r.extras["leakage_A"], p.IS) < 0.02, r.extras
 
 
 def test_nothing_is_invented_when_breakdown_is_not_reached(data):
