@@ -329,16 +329,26 @@ def fit_cv_data(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
                 compliance=None, temperature_K: float = DEFAULT_TEMPERATURE_K,
                 with_fixture: bool = False,
                 fixed: dict[str, float] | None = None) -> dict[str, FitResult]:
-    """The depletion fit and, when forward conductance is present, the admittance fit."""
+    """The depletion fit and, when forward conductance is present, the admittance fit.
+
+    The admittance fit holds CJO, VJ and M as the depletion fit found them when it
+    succeeded: the reverse and low-forward capacitance pin the depletion curve far more
+    tightly than forward admittance, where diffusion capacitance and the test signal's
+    distortion dominate, and TT is then stated against the same CJO, VJ, M as the card.
+    """
     out = {"cv": fit_cv(voltage_V, frequency_Hz, capacitance_F, compliance=compliance,
                         temperature_K=temperature_K, with_fixture=with_fixture)}
     v = np.asarray(voltage_V, dtype=float).ravel()
     if conductance_S is not None:
         g = np.asarray(conductance_S, dtype=float).ravel()
         if np.count_nonzero(np.isfinite(g) & (g > 0) & (v > 0)) >= 4:
+            held = dict(fixed or {})
+            depl = out["cv"]
+            if depl.success and all(n in depl.values for n in ("CJO", "VJ", "M")):
+                held.update({n: depl.values[n] for n in ("CJO", "VJ", "M")})
             out["admittance"] = fit_admittance(
                 voltage_V, frequency_Hz, capacitance_F, g, compliance=compliance,
-                temperature_K=temperature_K, with_fixture=with_fixture, fixed=fixed)
+                temperature_K=temperature_K, with_fixture=with_fixture, fixed=held or None)
     return out
 
 

@@ -34,8 +34,8 @@ from .params import DEFAULT_TEMPERATURE_K
 PRIORITY = {
     "IS": ("iv_forward", "admittance"), "N": ("iv_forward", "admittance"),
     "RS": ("iv_forward", "admittance"), "RSH": ("iv_forward", "iv_reverse", "admittance"),
-    "BV": ("iv_reverse",), "CJO": ("admittance", "cv"), "VJ": ("admittance", "cv"),
-    "M": ("admittance", "cv"), "TT": ("admittance",),
+    "BV": ("iv_reverse",), "CJO": ("cv", "admittance"), "VJ": ("cv", "admittance"),
+    "M": ("cv", "admittance"), "TT": ("admittance",),
 }
 #: The I–V fits that speak for a DC parameter. When one of them succeeded, the parameter
 #: comes from I–V or not at all: an admittance fit supplies it only without such
