@@ -124,6 +124,11 @@ class Runner:
                                 for n in self.done})
         self.folder.log(("resumed" if resumed else "started") + f": {self.plan.total_points} "
                         f"points planned in {len(self.plan.steps)} steps")
+        if not resumed:
+            # The plan's own warnings (a large AC level, ...) belong in the run's record,
+            # where the app, watch and the report show them.
+            for warning in self.plan.warnings:
+                self.bus.emit("warning", None, message=f"plan: {warning}")
         for name, status, message in (self.state.newly_finished if resumed else []):
             if message:
                 self.bus.emit("limit", name, guard=self.ended_by.get(name), message=message,

@@ -65,8 +65,6 @@ def run(args) -> int:
 
         return run_app(plan_path=args.plan, simulate=args.simulate,
                        time_scale=args.time_scale, out_dir=args.out, autostart=True)
-    for warning in plan.warnings:
-        print(f"warning: {warning}", file=sys.stderr)
     launch = Launch.new(plan, simulate=args.simulate, time_scale=args.time_scale,
                         out_dir=args.out)
     return run_headless(launch, plan, report=not args.no_report)

@@ -283,3 +283,15 @@ def test_run_json_is_valid_json_at_every_state_change(tmp_path):
         json.loads((rig.folder.path / "run.json").read_text())["status"]))
     rig.run()
     assert set(snapshots) >= {"running", "completed"}
+
+
+def test_plan_warnings_are_recorded_as_run_events(tmp_path):
+    """A plan warning (here a 20 mV rms test level at forward bias) reaches events.jsonl,
+    where the app, watch and the report show it, not only the terminal that started it."""
+    loud = CV.replace('name = "cv"', 'name = "adm"').replace(
+        "bias = [0, -1, -2]", "bias = [0.5, 0.6]\nac_level = \"20 mV\"")
+    rig = Rig(tmp_path, make_plan(loud))
+    assert rig.plan.warnings
+    rig.run()
+    warned = [e for e in read_events(rig.folder.path) if e.kind == "warning"]
+    assert any("ac_level 20 mV" in e["message"] for e in warned)
