@@ -88,6 +88,10 @@ def read_step(t: TableReader, limits: Limits | None, instruments: dict,
         "end_when_settled": t.number("end_when_settled", None, 1e-6, 0.999),
         "min_points": t.integer("min_points", 8, 2, MAX_POINTS_PER_STEP),
     }
+    if kind == "iv_reverse" and common["end_when_settled"] is not None:
+        warnings.append(f"step {name!r}: end_when_settled has no effect on a reverse step, "
+                        "which runs to its stop or its breakdown guard (its leakage and BV "
+                        "are only known at the end)")
     if common["settle_s"] is not None and common["settle_s"] > 3600:
         t.problem("settle", f"{common['settle_s']:g} s is more than an hour per point")
     step = None

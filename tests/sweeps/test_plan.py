@@ -279,3 +279,9 @@ def test_large_ac_level_at_forward_bias_is_warned_with_the_reading_error():
     loud = parse_plan(replace(GOOD, 'ac_level = "5 mV"', 'ac_level = "20 mV"'), "t.toml")
     (warning,) = [w for w in loud.warnings if "ac_level" in w]
     assert "'adm'" in warning and "14.9%" in warning and "under 1 %" in warning
+
+
+def test_early_end_on_a_reverse_step_is_warned_as_without_effect():
+    plan = parse_plan(replace(GOOD, 'breakdown_guard = "100 uA"',
+                              'breakdown_guard = "100 uA"\nend_when_settled = 0.05'), "t.toml")
+    assert any("'rev'" in w and "no effect" in w for w in plan.warnings)
