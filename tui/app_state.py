@@ -202,7 +202,9 @@ class RunState:
 
     def apply_model_json(self, doc: dict) -> None:
         """The run's model.json (the fit of every point, written after each step and at
-        the end): its values replace the live estimates of the same names."""
+        the end) replaces the live estimates: a name it leaves out (say RS, once all the
+        data show no series resistance) is no longer shown."""
+        self.parameters.clear()
         for name, entry in (doc.get("parameters") or {}).items():
             if not isinstance(entry, dict) or not isinstance(entry.get("value"),
                                                                (int, float)):

@@ -255,3 +255,17 @@ def test_card_names_are_ones_a_simulator_accepts():
     assert card_name("LH-SW200 sample 3") == "LH-SW200_sample_3"
     assert card_name("3rd part") == "D3rd_part"
     assert card_name("  ") == "device"
+
+
+def test_model_json_replaces_live_estimates_and_drops_what_it_leaves_out():
+    """A live estimate of RS from early points must not outlive a model.json whose fit of
+    every point found no series resistance."""
+    state = RunState()
+    state.apply_event({"seq": 1, "time_s": 1.0, "kind": "fit", "step": "fwd",
+                       "parameters": {"IS": {"value": 1e-14, "sigma": 1e-16},
+                                      "RS": {"value": 0.4, "sigma": 0.3}}})
+    assert "RS" in state.parameters
+    state.apply_model_json({"parameters": {"IS": {"value": 1.1e-14, "sigma": 2e-17,
+                                                  "unit": "A"}}, "temperature_K": 300.15})
+    assert set(state.parameters) == {"IS"}
+    assert state.parameters["IS"] == Estimate(1.1e-14, 2e-17, True)
