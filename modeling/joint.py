@@ -128,6 +128,13 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
                                temperature_K=temperature_K, semiconductor=semiconductor,
                                compliance=cv["compliance"])
         if doping is not None:
+            depl = results.get("cv")
+            m = depl.values.get("M") if depl is not None and depl.success else None
+            if m is not None and "doping_per_m3" in doping and abs(m - 0.5) > 0.05:
+                doping["note"] = (
+                    f"the C-V fit gives M = {m:.3g}, not 0.5: 1/C^2 is not a straight line, "
+                    "and the Mott-Schottky doping and built-in voltage, which assume an "
+                    "abrupt one-sided junction, describe only an average (see N(W))")
             more["doping"] = doping
     if area_m2 is not None:
         more["area_m2"] = float(area_m2)

@@ -64,6 +64,8 @@ def run(args) -> int:
     ibv = parse_quantity(args.ibv, "A", what="--ibv") if args.ibv else None
     if ibv is not None and not ibv > 0:
         raise DataFileError(f"--ibv must be > 0 A, got {args.ibv!r}")
+    if ibv is None:
+        ibv = _run_breakdown_current(args.source, notes)
     leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at")
             if args.leakage_at else None)
     kinds = data.kinds if args.kind == "auto" else (args.kind,)
@@ -79,6 +81,30 @@ def run(args) -> int:
         return 0
     print(format_table(result, data, temperature, notes, math))
     return 0
+
+
+def _run_breakdown_current(source: str, notes: list[str]) -> float | None:
+    """For a run folder, the current its plan states BV at (the breakdown guard), so a
+    refit agrees with the run's own model.json; None elsewhere (the fitter's 1 mA)."""
+    from pathlib import Path
+
+    from pnbench.modeling.errors import PlanError
+    from pnbench.sweeps.fitmodel import breakdown_current_A
+    from pnbench.sweeps.plan import load_plan
+
+    plan_path = Path(source) / "plan.toml"
+    if not plan_path.is_file():
+        return None
+    try:
+        plan = load_plan(plan_path)
+    except PlanError as exc:
+        notes.append(f"{plan_path} does not load ({exc}); BV is stated at 1 mA")
+        return None
+    ibv = breakdown_current_A(plan.steps)
+    if ibv is not None:
+        notes.append(f"BV is stated at IBV = {ibv:.3g} A, the run's breakdown guard "
+                     "(--ibv sets another)")
+    return ibv
 
 
 def _json_default(value):
@@ -131,6 +157,8 @@ def format_table(result, data, temperature, notes, math) -> str:
                          f"area {doping['area_m2']:.4g} m^2)")
         else:
             lines.append(f"  {doping.get('message')}")
+        if doping.get("note"):
+            lines.append(f"  caution: {doping['note']}")
     lines.append("")
     for kind, r in result.results.items():
         chi = (f", reduced chi-square {r.reduced_chi2:.3g}"

@@ -184,3 +184,22 @@ def test_admittance_fit_holds_no_shunt_when_iv_sees_none(data):
     assert "RSH" not in out.model.values
     assert abs(out.model.values["TT"] / d.params.TT - 1) < 0.02
     json.dumps(out.model.to_json_dict(), allow_nan=False)
+
+
+@pytest.mark.parametrize(("m", "cautioned"), [(0.5, False), (0.33, True)])
+def test_mott_schottky_doping_carries_a_caution_when_the_junction_is_not_abrupt(m, cautioned):
+    """1/C^2 is linear in V only for M = 1/2 (abrupt junction, Sze & Ng ch. 2): with a
+    graded junction (M = 1/3) the doping and Vbi it gives are only an average, and the
+    model says so."""
+    from pnbench.modeling import smallsignal
+    from pnbench.modeling.params import DiodeParams
+
+    p = DiodeParams(IS=1e-14, CJO=5e-12, VJ=0.7, M=m)
+    v = np.linspace(-10.0, 0.2, 42)
+    f = np.full_like(v, 1e6)
+    c, _ = smallsignal.parallel_from_admittance(smallsignal.device_admittance(v, f, p), f)
+    fit = joint.fit_all({"cv": {"voltage_V": v, "frequency_Hz": f, "capacitance_F": c}},
+                        area_m2=1e-8)
+    doping = fit.model.extras["doping"]
+    assert "doping_per_m3" in doping
+    assert ("note" in doping) is cautioned

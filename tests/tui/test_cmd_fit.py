@@ -103,3 +103,42 @@ def test_random_bytes_and_bad_options_exit_2(tmp_path, capsys):
     good = _iv_file(tmp_path / "ok.csv", np.array([0.1, 0.2]), np.array([1e-9, 2e-9]))
     assert cli.main(["fit", str(good), "--temperature", "hot"]) == 2
     assert "--temperature" in capsys.readouterr().err
+
+
+RUN_PLAN = """\
+[device]
+name = "hr-sw-101"
+
+[limits]
+max_voltage = "2 V"
+max_reverse_voltage = "80 V"
+max_current = "100 mA"
+max_power = "500 mW"
+acknowledge_hazardous_voltage = "80 V"
+
+[[steps]]
+name = "reverse_iv"
+kind = "iv_reverse"
+start = "0 V"
+stop = "-80 V"
+points = 81
+compliance = "1 mA"
+breakdown_guard = "5 uA"
+"""
+
+
+def test_run_folder_states_bv_at_the_plans_breakdown_guard(tmp_path, capsys):
+    """A refit of a run folder states BV at the current the run stopped at (its breakdown
+    guard, as the run's own model.json does), not at the fitter's 1 mA default; the
+    synthetic device has BV = 60 V at 10 uA, so 5 uA flows about N*Vt*ln 2 short of it
+    (simulator breakdown convention, PHYSICS.md §2)."""
+    from report_runs import make_run
+
+    run_dir = make_run(tmp_path, parts=("forward", "reverse"))
+    (run_dir / "plan.toml").write_text(RUN_PLAN, encoding="utf-8")
+    assert cli.main(["fit", str(run_dir), "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["parameters"]["IBV"]["value"] == pytest.approx(5e-6)
+    assert doc["parameters"]["BV"]["value"] == pytest.approx(60.0, rel=0.01)
+    assert cli.main(["fit", str(run_dir), "--json", "--ibv", "1m"]) == 0
+    assert "BV" not in json.loads(capsys.readouterr().out)["parameters"]
