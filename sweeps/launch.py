@@ -21,7 +21,7 @@ from pnbench.modeling.errors import DataFileError, PnbenchError
 from pnbench.modeling.modelset import card_name
 from pnbench.sweeps import guardian as guardian_mod
 from pnbench.sweeps import resume as resume_mod
-from pnbench.sweeps.bench import open_bench
+from pnbench.sweeps.bench import connections_for, open_bench
 from pnbench.sweeps.events import EventBus
 from pnbench.sweeps.fitfeed import FitWorker
 from pnbench.sweeps.plan import Plan, parse_plan
@@ -43,6 +43,10 @@ class Launch:
                  out_dir: str | Path | None = None, run_dir: str | Path | None = None,
                  force_identity: bool = False, listeners=(), fit: bool = True,
                  off_on_disconnect: bool = True, guardian: bool = True) -> None:
+        if simulate is None:
+            # A plan that names no instrument for a role it needs is bad input: say so
+            # before a run folder exists (nothing is connected here).
+            connections_for(plan, plan.roles_needed)
         self.plan = plan
         self.simulate = str(simulate) if simulate is not None else None
         self.time_scale = float(time_scale) if simulate is not None else 1.0

@@ -270,3 +270,16 @@ def test_resume_of_a_simulated_run_uses_its_device(tmp_path, capsys):
     assert main(["resume", str(launch.run_dir), "--time-scale", "0", "--no-report"]) == 0
     assert "simulated bench with lh-zl560" in capsys.readouterr().err
     assert [p.index for p in read_points(launch.run_dir)] == list(range(40))
+
+
+def test_plan_without_the_instruments_it_needs_exits_2_before_any_run_folder(tmp_path,
+                                                                              capsys):
+    """No --simulate and no [instruments] entry for a needed role: bad input, said before
+    a run folder is made (no failed run left behind, no instrument involved)."""
+    from importlib import resources
+
+    plan = resources.files("pnbench.sim_configs").joinpath("plans/lh-sw200.toml")
+    out = tmp_path / "runs"
+    assert main(["run", str(plan), "--headless", "--out", str(out)]) == 2
+    assert "has no 'lcr' entry" in capsys.readouterr().err
+    assert not out.exists()
