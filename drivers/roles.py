@@ -91,6 +91,30 @@ class _Role:
             self._identity = self.session.identify()
         return self._identity
 
+    def _switch_off(self, message: str, is_on, what: str, problems: list[str]) -> bool | None:
+        """Send the off message, then ask whether ``what`` is still on.
+
+        Appends what went wrong to ``problems``; raises InstrumentError when the state
+        cannot be read back or is still on. Returns the state read (None when the dialect
+        has no query for it).
+        """
+        try:
+            self.session.write(message)
+        except Exception as exc:  # noqa: BLE001 - go on to the confirmation
+            problems.append(f"{what} off command failed: {exc}")
+        try:
+            still_on = is_on()
+        except Exception as exc:  # noqa: BLE001
+            problems.append(f"{what} state query failed: {exc}")
+            raise InstrumentError(f"{self.session.resource_name}: {what} could not be "
+                                  "confirmed off; CHECK THE INSTRUMENT: "
+                                  + "; ".join(problems)) from None
+        if still_on:
+            raise InstrumentError(f"{self.session.resource_name}: {what} is still ON after "
+                                  "the off command; CHECK THE INSTRUMENT"
+                                  + ("" if not problems else ": " + "; ".join(problems)))
+        return still_on
+
 
 class Smu(_Role):
     """A source-measure unit: source voltage or current, limit the other, read both."""
@@ -231,21 +255,8 @@ class Smu(_Role):
             problems.append("ramp to zero interrupted by the operator; output turned off")
         except Exception as exc:  # noqa: BLE001 - keep going: the output must go off
             problems.append(f"ramp to zero failed: {exc}")
-        try:
-            self.session.write(self.dialect.fill(self.commands.output, state=False))
-        except Exception as exc:  # noqa: BLE001
-            problems.append(f"output off command failed: {exc}")
-        try:
-            still_on = self.output_is_on()
-        except Exception as exc:  # noqa: BLE001
-            problems.append(f"output state query failed: {exc}")
-            raise InstrumentError(f"{self.session.resource_name}: SMU output could not be "
-                                  "confirmed off; CHECK THE INSTRUMENT: "
-                                  + "; ".join(problems)) from None
-        if still_on:
-            raise InstrumentError(f"{self.session.resource_name}: SMU output is still ON after "
-                                  "the off command; CHECK THE INSTRUMENT"
-                                  + ("" if not problems else ": " + "; ".join(problems)))
+        self._switch_off(self.dialect.fill(self.commands.output, state=False),
+                         self.output_is_on, "SMU output", problems)
         self._output_on = False
         if interrupted:
             raise KeyboardInterrupt
@@ -373,20 +384,7 @@ class LcrMeter(_Role):
         problems: list[str] = []
         message = self.dialect.join([self.dialect.fill(c.bias_level, value=0.0),
                                      self.dialect.fill(c.bias_state, state=False)])
-        try:
-            self.session.write(message)
-        except Exception as exc:  # noqa: BLE001 - go on to the confirmation
-            problems.append(f"bias off command failed: {exc}")
-        try:
-            still_on = self.bias_is_on()
-        except Exception as exc:  # noqa: BLE001
-            problems.append(f"bias state query failed: {exc}")
-            raise InstrumentError(f"{self.session.resource_name}: LCR DC bias could not be "
-                                  "confirmed off; CHECK THE INSTRUMENT: "
-                                  + "; ".join(problems)) from None
-        if still_on:
-            raise InstrumentError(f"{self.session.resource_name}: LCR DC bias is still ON "
-                                  "after the off command; CHECK THE INSTRUMENT")
+        still_on = self._switch_off(message, self.bias_is_on, "LCR DC bias", problems)
         if still_on is None:
             if problems:
                 raise InstrumentError(f"{self.session.resource_name}: LCR DC bias could not "
