@@ -60,6 +60,11 @@ class DeviceData:
     cv_g: np.ndarray
 
 
+def rel(value: float, truth: float) -> float:
+    """Relative difference of a fitted value from the truth."""
+    return abs(value / truth - 1.0)
+
+
 def forward_voltages(name: str) -> np.ndarray:
     return np.linspace(0.02, FORWARD_TOP_V[name], 120)
 

@@ -20,13 +20,6 @@ from pnbench.modeling.params import DiodeParams
 TOL = {"IS": 0.02, "N": 0.005, "RS": 0.02, "CJO": 0.02, "VJ": 0.05, "M": 0.03, "TT": 0.05}
 
 
-@pytest.fixture(scope="module")
-def data(ngspice):
-    return {name: fd.make(ngspice, name) for name in fd.DEVICES}
-
-
-def _rel(value: float, truth: float) -> float:
-    return abs(value / truth - 1.0)
 
 
 @pytest.mark.parametrize("name", sorted(fd.DEVICES))
@@ -37,7 +30,7 @@ def test_depletion_fit_recovers_cjo_vj_m(data, name):
     r = fit_cv.fit_cv(d.cv_v, d.cv_f, d.cv_c)
     assert r.success, r.message
     for key in ("CJO", "VJ", "M"):
-        assert _rel(r.values[key], getattr(d.params, key)) < TOL[key], (key, r.values[key])
+        assert fd.rel(r.values[key], getattr(d.params, key)) < TOL[key], (key, r.values[key])
     q = [smallsignal.operating_point(d.params, voltage=v) for v in d.cv_v]
     cd_over_cj = np.array([x.cd_F / x.cj_F for x in q])
     assert not r.used[cd_over_cj > 1e-2].any()
@@ -52,7 +45,7 @@ def test_admittance_alone_yields_tt_with_is_n_rs(data, name):
     r = fit_cv.fit_admittance(d.cv_v, d.cv_f, d.cv_c, d.cv_g)
     assert r.success, r.message
     for key in ("IS", "N", "RS", "CJO", "VJ", "M", "TT"):
-        assert _rel(r.values[key], getattr(d.params, key)) < TOL[key], (key, r.values[key])
+        assert fd.rel(r.values[key], getattr(d.params, key)) < TOL[key], (key, r.values[key])
 
 
 def test_tt_holds_where_the_diffusion_capacitance_dominates(data):
@@ -65,11 +58,11 @@ def test_tt_holds_where_the_diffusion_capacitance_dominates(data):
     ratio = np.array([x.cd_F / x.cj_F for x in q])
     assert ratio.max() > 10
     r = fit_cv.fit_admittance(d.cv_v, d.cv_f, d.cv_c, d.cv_g)
-    assert _rel(r.values["TT"], p.TT) < TOL["TT"]
+    assert fd.rel(r.values["TT"], p.TT) < TOL["TT"]
     top = np.argmax(ratio)
     cj = smallsignal.depletion_capacitance(d.cv_v[top], p)
     naive = (d.cv_c[top] - cj) / d.cv_g[top]
-    assert _rel(naive, p.TT) > 0.2
+    assert fd.rel(naive, p.TT) > 0.2
 
 
 def test_fixed_dc_parameters_are_held(data):
@@ -78,7 +71,7 @@ def test_fixed_dc_parameters_are_held(data):
     fixed = {"IS": d.params.IS, "N": d.params.N, "RS": d.params.RS}
     r = fit_cv.fit_admittance(d.cv_v, d.cv_f, d.cv_c, d.cv_g, fixed=fixed)
     assert set(r.values) >= {"CJO", "VJ", "M", "TT"} and not set(fixed) & set(r.values)
-    assert _rel(r.values["TT"], d.params.TT) < TOL["TT"]
+    assert fd.rel(r.values["TT"], d.params.TT) < TOL["TT"]
     assert r.extras["fixed"] == fixed
 
 
@@ -88,8 +81,8 @@ def test_parallel_fixture_capacitance_when_asked(data):
     d = data["sig"]
     c = d.cv_c + 0.8e-12
     r = fit_cv.fit_cv(d.cv_v, d.cv_f, c, with_fixture=True)
-    assert _rel(r.values["CFIX"], 0.8e-12) < 0.02
-    assert _rel(r.values["CJO"], d.params.CJO) < TOL["CJO"]
+    assert fd.rel(r.values["CFIX"], 0.8e-12) < 0.02
+    assert fd.rel(r.values["CJO"], d.params.CJO) < TOL["CJO"]
     plain = fit_cv.fit_cv(d.cv_v, d.cv_f, c)
     assert "CFIX" not in plain.values
 
@@ -107,8 +100,8 @@ def test_mott_schottky_doping_of_an_abrupt_junction(ngspice):
     out = joint.fit_all({"cv": {"voltage_V": v, "frequency_Hz": np.full(v.size, 1e6),
                                 "capacitance_F": c}}, area_m2=area)
     dop = out.model.extras["doping"]
-    assert _rel(dop["doping_per_m3"], doping) < 0.02
-    assert _rel(out.model.values["M"], 0.5) < 0.03
+    assert fd.rel(dop["doping_per_m3"], doping) < 0.02
+    assert fd.rel(out.model.values["M"], 0.5) < 0.03
 
 
 def _crb_cv(v, p, rel, floor, h=1e-6):

@@ -21,13 +21,6 @@ from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
 TOL = {"IS": 0.02, "N": 0.005, "RS": 0.02, "RSH": 0.05, "BV": 0.01}
 
 
-@pytest.fixture(scope="module")
-def data(ngspice):
-    return {name: fd.make(ngspice, name) for name in fd.DEVICES}
-
-
-def _rel(value: float, truth: float) -> float:
-    return abs(value / truth - 1.0)
 
 
 @pytest.mark.parametrize("name", sorted(fd.DEVICES))
@@ -38,9 +31,9 @@ def test_forward_fit_recovers_the_card_of_each_device(data, name):
     assert r.success, r.message
     truth = reference_params(d.params)
     for key in ("IS", "N", "RS"):
-        assert _rel(r.values[key], getattr(truth, key)) < TOL[key], (key, r.values[key])
+        assert fd.rel(r.values[key], getattr(truth, key)) < TOL[key], (key, r.values[key])
     if math.isfinite(d.params.RSH):
-        assert _rel(r.values["RSH"], truth.RSH) < TOL["RSH"]
+        assert fd.rel(r.values["RSH"], truth.RSH) < TOL["RSH"]
     assert r.used.shape == d.forward_v.shape and r.n_used == d.forward_v.size
 
 
@@ -54,7 +47,7 @@ def test_power_rectifier_is_series_resistance_limited_above_100mA(data):
     rd_at_100mA = r.values["N"] * vt / 0.1
     assert r.values["RS"] > rd_at_100mA
     assert d.forward_i.max() > 0.5
-    assert _rel(r.values["RS"], d.params.RS) < TOL["RS"]
+    assert fd.rel(r.values["RS"], d.params.RS) < TOL["RS"]
 
 
 def test_rs_is_absent_when_the_data_never_leave_the_exponential(data):
@@ -68,7 +61,7 @@ def test_rs_is_absent_when_the_data_never_leave_the_exponential(data):
     assert r.success, r.message
     assert "RS" not in r.values and "RS" not in r.names
     assert "RS not determined: the data never leave the exponential region" in r.message
-    assert _rel(r.values["N"], d.params.N) < TOL["N"]
+    assert fd.rel(r.values["N"], d.params.N) < TOL["N"]
 
 
 def test_shunt_is_absent_when_it_stays_under_the_measurement_floor(data):
@@ -94,9 +87,9 @@ def test_points_in_compliance_are_left_out(data):
     clean = fit_iv.fit_forward(d.forward_v, d.forward_i)
     flagged = fit_iv.fit_forward(d.forward_v, i, compliance=clamp)
     assert not flagged.used[clamp].any()
-    assert _rel(flagged.values["RS"], clean.values["RS"]) < 0.01
+    assert fd.rel(flagged.values["RS"], clean.values["RS"]) < 0.01
     raw = fit_iv.fit_forward(d.forward_v, i)
-    assert _rel(raw.values["RS"], d.params.RS) > 0.05
+    assert fd.rel(raw.values["RS"], d.params.RS) > 0.05
 
 
 def test_override_mask_chooses_the_points(data):
@@ -107,7 +100,7 @@ def test_override_mask_chooses_the_points(data):
     r = fit_iv.fit_forward(d.forward_v, d.forward_i, use=use)
     assert np.array_equal(r.used, use)
     for key in ("IS", "N", "RS"):
-        assert _rel(r.values[key], getattr(d.params, key)) < TOL[key]
+        assert fd.rel(r.values[key], getattr(d.params, key)) < TOL[key]
 
 
 def test_start_values_come_from_the_data_alone(data):
@@ -141,7 +134,7 @@ def test_breakdown_voltage_at_the_stated_ibv(data, name):
     d = data[name]
     r = fit_iv.fit_reverse(d.reverse_v, d.reverse_i, ibv_A=d.params.IBV)
     assert r.extras["IBV_A"] == d.params.IBV
-    assert _rel(r.values["BV"], d.params.BV) < TOL["BV"], r.message
+    assert fd.rel(r.values["BV"], d.params.BV) < TOL["BV"], r.message
     assert r.sigmas["BV"] < 0.01 * d.params.BV
 
 
@@ -163,7 +156,7 @@ def test_breakdown_through_scattered_voltage_readings(seed):
     truth = -float(junction.voltage(-1e-5, p, DEFAULT_TEMPERATURE_K))
     assert r.extras["BV_points"] >= 4 and math.isfinite(r.sigmas["BV"]), r.message
     assert abs(r.values["BV"] - truth) < 4 * r.sigmas["BV"]
-    assert _rel(r.extras["leakage_A"], p.IS) < 0.02, r.extras
+    assert fd.rel(r.extras["leakage_A"], p.IS) < 0.02, r.extras
 
 
 def test_nothing_is_invented_when_breakdown_is_not_reached(data):
@@ -180,10 +173,10 @@ def test_reverse_shunt_and_leakage_of_the_leaky_diode(data, ngspice):
     d = data["lky"]
     r = fit_iv.fit_reverse(d.reverse_v, d.reverse_i, reference_V=-10.0)
     truth = reference_params(d.params)
-    assert _rel(r.values["RSH"], truth.RSH) < TOL["RSH"]
+    assert fd.rel(r.values["RSH"], truth.RSH) < TOL["RSH"]
     _, i_ref = dc_sweep(ngspice, d.params, [-10.0])
     assert r.extras["leakage_voltage_V"] == -10.0
-    assert _rel(r.extras["leakage_A"], -i_ref[0]) < 0.01
+    assert fd.rel(r.extras["leakage_A"], -i_ref[0]) < 0.01
 
 
 def test_leakage_outside_the_measured_range_is_not_made_up(data):

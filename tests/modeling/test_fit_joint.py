@@ -18,11 +18,6 @@ from pnbench.modeling import joint
 from pnbench.modeling.modelset import ModelSet
 
 
-@pytest.fixture(scope="module")
-def data(ngspice):
-    return {name: fd.make(ngspice, name) for name in ("sig", "rec", "lky")}
-
-
 def _run_data(d):
     return {
         "iv_forward": {"voltage_V": d.forward_v, "current_A": d.forward_i},
