@@ -242,6 +242,19 @@ class SimInstrument:
 
 # --- arguments ---------------------------------------------------------------------------
 
+def remembered(cache: dict, key: tuple, compute: Callable[[], object],
+               limit: int = 4096) -> object:
+    """``cache[key]``, computed once: instrument physics is a root find per state, and a
+    sweep revisits states (repeated reads, averaging). The cache empties past ``limit``."""
+    value = cache.get(key)
+    if value is None:
+        value = compute()
+        if len(cache) >= limit:
+            cache.clear()
+        cache[key] = value
+    return value
+
+
 def scpi_short(mnemonic: str) -> str:
     """The short form of a mnemonic ("VOLTage" -> "VOLT")."""
     return "".join(ch for ch in mnemonic if not ch.islower())

@@ -36,6 +36,7 @@ from .siminstrument import (
     no_arguments,
     number_argument,
     one_argument,
+    remembered,
 )
 
 #: Called as on_output(instrument, state, cause) whenever an output changes;
@@ -186,19 +187,15 @@ class SimSmu(SimInstrumentWithOutput):
             return 0.0, 0.0, False
         key = (self.mode, self.voltage_level_V, self.current_level_A, self.current_limit_A,
                self.voltage_limit_V, self.remote_sense)
-        point = self._points.get(key)
-        if point is None:
-            params = self.params_4w if self.remote_sense else self.params_2w
-            if self.mode == "VOLTage":
-                point = simphysics.source_point(params, self.temperature_K, "voltage",
-                                                self.voltage_level_V, self.current_limit_A)
-            else:
-                point = simphysics.source_point(params, self.temperature_K, "current",
-                                                self.current_level_A, self.voltage_limit_V)
-            if len(self._points) > 4096:
-                self._points.clear()
-            self._points[key] = point
-        return point
+        return remembered(self._points, key, self._source_point)
+
+    def _source_point(self) -> tuple[float, float, bool]:
+        params = self.params_4w if self.remote_sense else self.params_2w
+        if self.mode == "VOLTage":
+            return simphysics.source_point(params, self.temperature_K, "voltage",
+                                           self.voltage_level_V, self.current_limit_A)
+        return simphysics.source_point(params, self.temperature_K, "current",
+                                       self.current_level_A, self.voltage_limit_V)
 
     def _read(self, command: scpi.Command) -> str:
         no_arguments(command)
@@ -294,21 +291,19 @@ class SimLcr(SimInstrumentWithOutput):
         """The admittance between the meter's terminals now, before noise and gain."""
         key = (self.bias_V if self.output else 0.0, self.frequency_Hz, self.ac_level_V,
                self.open_corrected, self.short_corrected)
-        y = self._admittances.get(key)
-        if y is None:
-            spec = self.spec
-            bias, _ = simphysics.bias_point(self.params, self.temperature_K, key[0],
-                                            spec["bias_current_limit_A"])
-            y = simphysics.fundamental_admittance(bias, self.frequency_Hz, self.ac_level_V,
-                                                  self.params, self.temperature_K)
-            w = 2.0 * math.pi * self.frequency_Hz
-            if not self.open_corrected:
-                y += 1j * w * spec["fixture_capacitance_F"]
-            if not self.short_corrected and spec["fixture_resistance_ohm"] > 0:
-                y = y / (1.0 + spec["fixture_resistance_ohm"] * y)
-            if len(self._admittances) > 4096:
-                self._admittances.clear()
-            self._admittances[key] = y
+        return remembered(self._admittances, key, lambda: self._terminal_admittance(key[0]))
+
+    def _terminal_admittance(self, bias_V: float) -> complex:
+        spec = self.spec
+        bias, _ = simphysics.bias_point(self.params, self.temperature_K, bias_V,
+                                        spec["bias_current_limit_A"])
+        y = simphysics.fundamental_admittance(bias, self.frequency_Hz, self.ac_level_V,
+                                              self.params, self.temperature_K)
+        w = 2.0 * math.pi * self.frequency_Hz
+        if not self.open_corrected:
+            y += 1j * w * spec["fixture_capacitance_F"]
+        if not self.short_corrected and spec["fixture_resistance_ohm"] > 0:
+            y = y / (1.0 + spec["fixture_resistance_ohm"] * y)
         return y
 
     def _read(self, command: scpi.Command) -> str:
