@@ -22,35 +22,13 @@ from pathlib import Path
 
 from textual import events
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+from appplans import sweep_plan  # noqa: E402
+
 from pnbench.tui.app import PnbenchApp
 
-PLAN = """
-[plan]
-format = 1
-title = "key latency benchmark"
-[device]
-name = "LH-SW200-bench"
-[limits]
-max_voltage = "1 V"
-max_reverse_voltage = "20 V"
-max_current = "50 mA"
-max_power = "50 mW"
-[[steps]]
-name = "forward"
-kind = "iv_forward"
-start = "0.3 V"
-stop = "0.65 V"
-points = 4000
-compliance = "20 mA"
-[[steps]]
-name = "reverse"
-kind = "iv_reverse"
-start = "0 V"
-stop = "-10 V"
-points = 4000
-compliance = "1 mA"
-breakdown_guard = "100 uA"
-"""
+PLAN = sweep_plan("LH-SW200-bench", 4000, 4000, reverse_stop="-10 V",
+                  title="key latency benchmark")
 
 PRESSES = 40
 GAP_S = 0.05

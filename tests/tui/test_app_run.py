@@ -6,41 +6,10 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+from appplans import sweep_plan
+
 from pnbench.tui.app import PnbenchApp, exit_code
 from pnbench.tui.screen_plan import first_line_number
-
-PLAN = """
-[plan]
-format = 1
-title = "app test plan"
-
-[device]
-name = "LH-SW200-t1"
-temperature = "300.15 K"
-
-[limits]
-max_voltage = "1 V"
-max_reverse_voltage = "20 V"
-max_current = "50 mA"
-max_power = "50 mW"
-
-[[steps]]
-name = "forward"
-kind = "iv_forward"
-start = "0.3 V"
-stop = "0.65 V"
-points = {points}
-compliance = "20 mA"
-
-[[steps]]
-name = "reverse"
-kind = "iv_reverse"
-start = "0 V"
-stop = "-5 V"
-points = {reverse_points}
-compliance = "1 mA"
-breakdown_guard = "100 uA"
-"""
 
 #: Longest wait for something the run should do (generous: the machine is shared).
 PATIENCE_S = 60.0
@@ -48,7 +17,7 @@ PATIENCE_S = 60.0
 
 def write_plan(folder: Path, points: int, reverse_points: int = 11) -> Path:
     path = folder / "plan.toml"
-    path.write_text(PLAN.format(points=points, reverse_points=reverse_points),
+    path.write_text(sweep_plan("LH-SW200-t1", points, reverse_points),
                     encoding="utf-8")
     return path
 
@@ -137,7 +106,7 @@ async def test_quitting_during_a_run_asks_then_aborts_safely(tmp_path):
 
 async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts(tmp_path):
     plan = tmp_path / "bad.toml"
-    plan.write_text(PLAN.format(points=0, reverse_points=11), encoding="utf-8")
+    plan.write_text(sweep_plan("LH-SW200-t1", 0, 11), encoding="utf-8")
     app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs",
                      autostart=True)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -151,7 +120,7 @@ async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts
         named = first_line_number(app.plan_error)
         assert named is not None and editor.cursor_location[0] == named - 1
         assert "points" in editor.document.get_line(named - 1)
-        editor.load_text(PLAN.format(points=5, reverse_points=11))
+        editor.load_text(sweep_plan("LH-SW200-t1", 5, 11))
         await pilot.press("ctrl+t")
         await pilot.pause(0.1)
         assert app.plan is not None
@@ -232,7 +201,7 @@ async def test_bench_screen_identifies_the_simulated_instruments_and_lists_resou
 
 async def test_an_instrument_that_is_not_there_is_reported_and_the_app_stays_up(tmp_path):
     plan = tmp_path / "plan.toml"
-    text = PLAN.format(points=5, reverse_points=11).replace(
+    text = sweep_plan("LH-SW200-t1", 5, 11).replace(
         "[limits]", '[instruments.smu]\nrole = "smu"\n'
         'resource = "TCPIP0::127.0.0.1::9::SOCKET"\ntimeout = "0.5 s"\n\n[limits]')
     plan.write_text(text, encoding="utf-8")

@@ -13,25 +13,9 @@ import time
 from pathlib import Path
 
 import pytest
+from appplans import sweep_plan
 
-PLAN = """
-[plan]
-format = 1
-[device]
-name = "LH-SW200-hup"
-[limits]
-max_voltage = "1 V"
-max_reverse_voltage = "20 V"
-max_current = "50 mA"
-max_power = "50 mW"
-[[steps]]
-name = "forward"
-kind = "iv_forward"
-start = "0.3 V"
-stop = "0.65 V"
-points = 2000
-compliance = "20 mA"
-"""
+PLAN = sweep_plan("LH-SW200-hup", 2000)
 
 PATIENCE_S = 90.0
 
