@@ -4,7 +4,7 @@ source-output banner on a monochrome terminal."""
 from __future__ import annotations
 
 import pytest
-from test_app_run import PLAN
+from appplans import sweep_plan
 from test_app_synth import SyntheticRun
 from textual.containers import ScrollableContainer
 from textual.widgets import Footer
@@ -21,7 +21,7 @@ MODES = ["bench", "plan", "run", "review"]
 @pytest.fixture
 def app_with_run(tmp_path):
     plan = tmp_path / "plan.toml"
-    plan.write_text(PLAN.format(points=10, reverse_points=11), encoding="utf-8")
+    plan.write_text(sweep_plan("LH-SW200-t1", 10, 11), encoding="utf-8")
     run = SyntheticRun(tmp_path / "runs" / "20260101-000000_synth")
     run.advance(1000)
     app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs")
