@@ -17,7 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from pnbench.drivers import scpi
-from pnbench.modeling.errors import DialectError
+from pnbench.errors import DialectError
 
 #: The two-element forms an LCR meter may report, and what they mean.
 LCR_FORMS = {

@@ -14,8 +14,8 @@ from dataclasses import dataclass
 from pnbench.drivers import scpi
 from pnbench.drivers.dialect import Dialect, LcrCommands, SmuCommands
 from pnbench.drivers.session import Session
+from pnbench.errors import BadInput, DialectError, InstrumentError
 from pnbench.modeling import smallsignal
-from pnbench.modeling.errors import BadInput, DialectError, InstrumentError
 
 #: A reading within this fraction of the limit counts as compliance when the dialect
 #: has no status query for it.

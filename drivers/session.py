@@ -23,7 +23,7 @@ from pathlib import Path
 
 from pnbench.drivers import scpi
 from pnbench.drivers.dialect import Dialect, load_dialect
-from pnbench.modeling.errors import BadInput, InstrumentError
+from pnbench.errors import BadInput, InstrumentError
 
 #: Most entries read from an error queue before giving up on it emptying.
 MAX_ERROR_ENTRIES = 64

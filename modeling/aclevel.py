@@ -23,8 +23,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import junction, smallsignal
-from .params import DEFAULT_TEMPERATURE_K, DiodeParams
+from pnbench.modeling import junction, smallsignal
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
 
 
 @dataclass(frozen=True)

@@ -25,9 +25,9 @@ __all__ = [
     "mott_schottky", "mott_schottky_line", "permittivity", "step_junction_built_in_voltage",
 ]
 
-from .errors import BadInput
-from .junction import thermal_voltage
-from .materials import TABLE_TEMPERATURE_K, Material, material, permittivity
+from pnbench.errors import BadInput
+from pnbench.modeling.junction import thermal_voltage
+from pnbench.modeling.materials import TABLE_TEMPERATURE_K, Material, material, permittivity
 
 _Q = constants.e
 

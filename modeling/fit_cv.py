@@ -20,13 +20,13 @@ import math
 
 import numpy as np
 
-from . import depletion, lsq
-from .errors import BadInput
-from .fit_iv import start_values as iv_start_values
-from .fitresult import FitResult, empty_result
-from .junction import thermal_voltage
-from .params import DEFAULT_TEMPERATURE_K, DiodeParams
-from .smallsignal import depletion_capacitance, device_admittance
+from pnbench.errors import BadInput
+from pnbench.modeling import depletion, lsq
+from pnbench.modeling.fit_iv import start_values as iv_start_values
+from pnbench.modeling.fitresult import FitResult, empty_result
+from pnbench.modeling.junction import thermal_voltage
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
+from pnbench.modeling.smallsignal import depletion_capacitance, device_admittance
 
 MIN_CV_POINTS = 4
 #: Forward points join a depletion fit while within this many standard errors.

@@ -17,12 +17,12 @@ import math
 
 import numpy as np
 
-from . import lsq
-from .fit_reverse import fit_reverse  # noqa: F401  (part of this module's API)
-from .fitresult import FitResult, empty_result
-from .junction import _EXP_CAP, thermal_voltage
-from .junction import current as junction_current_total
-from .params import DEFAULT_TEMPERATURE_K, DiodeParams
+from pnbench.modeling import lsq
+from pnbench.modeling.fit_reverse import fit_reverse  # noqa: F401  (part of this module's API)
+from pnbench.modeling.fitresult import FitResult, empty_result
+from pnbench.modeling.junction import _EXP_CAP, thermal_voltage
+from pnbench.modeling.junction import current as junction_current_total
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
 
 #: Names of the forward fit, in the order of the fitted vector.
 FORWARD_NAMES = ("IS", "N", "RS", "RSH")

@@ -19,9 +19,9 @@ import math
 
 import numpy as np
 
-from .fitresult import FitResult, correlation_from_covariance, empty_result
-from .junction import thermal_voltage
-from .params import DEFAULT_TEMPERATURE_K
+from pnbench.modeling.fitresult import FitResult, correlation_from_covariance, empty_result
+from pnbench.modeling.junction import thermal_voltage
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
 
 #: IBV when the caller states none (the common simulator default, 1 mA).
 DEFAULT_IBV_A = 1e-3

@@ -33,10 +33,10 @@ from dataclasses import replace
 
 import numpy as np
 
-from . import fit_iv, lsq
-from .fitresult import FitResult, empty_result
-from .joint import merge_results
-from .params import DEFAULT_TEMPERATURE_K
+from pnbench.modeling import fit_iv, lsq
+from pnbench.modeling.fitresult import FitResult, empty_result
+from pnbench.modeling.joint import merge_results
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
 
 #: What an IncrementalFitter can be asked to fit.
 FITTER_KINDS = ("iv", "iv_forward", "iv_reverse", "cv", "admittance")
@@ -299,7 +299,7 @@ class IncrementalFitter:
         if kind in ("iv", "iv_reverse"):
             self._reverse = _ReverseStream(self.temperature_K, reference_V, ibv_A)
         if kind in ("cv", "admittance"):
-            from . import fit_cv
+            from pnbench.modeling import fit_cv
 
             spec = fit_cv.stream_spec(kind, self.temperature_K, with_fixture=with_fixture,
                                       fixed=fixed)

@@ -26,9 +26,9 @@ from typing import Any
 
 import numpy as np
 
-from .fitresult import FitResult, correlation_from_covariance, empty_result
-from .modelset import ModelSet
-from .params import DEFAULT_TEMPERATURE_K
+from pnbench.modeling.fitresult import FitResult, correlation_from_covariance, empty_result
+from pnbench.modeling.modelset import ModelSet
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
 
 #: Which fit supplies each model-card parameter first (later ones fill gaps).
 PRIORITY = {
@@ -98,7 +98,7 @@ def fit_all(data: Mapping[str, Mapping[str, Any]], *,
 
 def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, semiconductor,
              extras) -> JointFit:
-    from . import fit_iv
+    from pnbench.modeling import fit_iv
 
     results: dict[str, FitResult] = {}
     iv = _pool(data, _IV_KINDS)
@@ -113,7 +113,7 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
                                                        reference_V=reference_V, ibv_A=ibv_A)
     cv = _pool(data, _CV_KINDS)
     if cv is not None:
-        from . import fit_cv
+        from pnbench.modeling import fit_cv
 
         fixed = dc_holds(results.values())
         results.update(fit_cv.fit_cv_data(
@@ -122,7 +122,7 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
             with_fixture=with_fixture, fixed=fixed or None))
     more = dict(extras or {})
     if cv is not None and area_m2 is not None:
-        from . import fit_cv
+        from pnbench.modeling import fit_cv
 
         doping = fit_cv.doping(cv["voltage_V"], cv["capacitance_F"], area_m2=area_m2,
                                temperature_K=temperature_K, semiconductor=semiconductor,

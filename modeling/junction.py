@@ -26,7 +26,7 @@ import numpy as np
 from scipy import constants
 from scipy.special import wrightomega
 
-from .params import DEFAULT_TEMPERATURE_K, DiodeParams
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
 
 _EPS = float(np.finfo(float).eps)
 

@@ -27,8 +27,8 @@ from typing import Protocol
 
 import numpy as np
 
-from .fitnoise import FLOOR_FACTOR, Noise, estimate_noise, initial_noise
-from .fitresult import FitResult, correlation_from_covariance
+from pnbench.modeling.fitnoise import FLOOR_FACTOR, Noise, estimate_noise, initial_noise
+from pnbench.modeling.fitresult import FitResult, correlation_from_covariance
 
 #: An optional parameter is kept only when it is this many sigmas away from its null.
 Z_KEEP = 3.0

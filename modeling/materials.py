@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 from scipy import constants
 
-from .errors import BadInput
+from pnbench.errors import BadInput
 
 _SZE = "Sze & Ng, Physics of Semiconductor Devices, 3rd ed. (2007), appendix, from memory"
 _APPROX = "approximate: varies with polytype/orientation and between sources; from memory"

@@ -22,8 +22,8 @@ import re
 from dataclasses import dataclass, field
 from typing import Any
 
-from .errors import DataFileError
-from .params import DEFAULT_TEMPERATURE_K, UNITS, DiodeParams
+from pnbench.errors import DataFileError
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, UNITS, DiodeParams
 
 #: Offset between kelvin and degrees Celsius.
 _ZERO_C_K = 273.15

@@ -17,8 +17,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import junction
-from .params import DEFAULT_TEMPERATURE_K, DiodeParams
+from pnbench.modeling import junction
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
 
 
 def depletion_capacitance(vd, params: DiodeParams):

@@ -19,7 +19,7 @@ import contextlib
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 
-from pnbench.modeling.errors import BadInput, InstrumentError
+from pnbench.errors import BadInput, InstrumentError
 from pnbench.sweeps.plan import Plan
 
 
@@ -171,7 +171,7 @@ def open_bench(plan: Plan, *, simulate: str | None = None, time_scale: float = 0
     bench = Bench(simulated=simulate)
     try:
         if simulate is not None:
-            from pnbench.drivers.simbench import SimBench
+            from pnbench.drivers.sim.bench import SimBench
 
             bench.sim = SimBench.start(simulate, time_scale=time_scale,
                                        off_on_disconnect=off_on_disconnect)

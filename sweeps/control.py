@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import threading
 
-from pnbench.modeling.errors import OperatorStop
+from pnbench.errors import OperatorStop
 
 
 class Control:

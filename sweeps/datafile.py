@@ -25,9 +25,8 @@ from pathlib import Path
 
 import numpy as np
 
-from pnbench.modeling.errors import BadInput, DataFileError
-
-from .quantities import parse_quantity
+from pnbench.errors import BadInput, DataFileError
+from pnbench.sweeps.quantities import parse_quantity
 
 IV_COLUMNS = ("voltage_V", "current_A")
 CV_COLUMNS = ("voltage_V", "frequency_Hz", "capacitance_F")

@@ -56,7 +56,7 @@ def rescue(run_dir: Path, lock_timeout_s: float = 30.0) -> int:
     needed or all went off, 3 when an output could not be confirmed off."""
     import time
 
-    from pnbench.modeling.errors import PnbenchError
+    from pnbench.errors import PnbenchError
     from pnbench.sweeps.store import RunFolder, iso, utc_now
 
     end = time.monotonic() + lock_timeout_s

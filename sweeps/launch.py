@@ -17,7 +17,8 @@ from __future__ import annotations
 import threading
 from pathlib import Path
 
-from pnbench.modeling.errors import DataFileError, PnbenchError
+from pnbench import version
+from pnbench.errors import DataFileError, PnbenchError
 from pnbench.modeling.modelset import card_name
 from pnbench.sweeps import guardian as guardian_mod
 from pnbench.sweeps import resume as resume_mod
@@ -27,15 +28,6 @@ from pnbench.sweeps.fitfeed import FitWorker
 from pnbench.sweeps.plan import Plan, parse_plan
 from pnbench.sweeps.runner import Outcome, Runner
 from pnbench.sweeps.store import RunFolder, iso, read_points, read_run, utc_now
-
-
-def _version() -> str:
-    from importlib import metadata
-
-    try:
-        return metadata.version("pnbench")
-    except metadata.PackageNotFoundError:
-        return "0+unknown"
 
 
 class Launch:
@@ -239,7 +231,7 @@ class Launch:
         plan = self.plan
         return {
             "status": "running", "reason": "", "device": plan.device.to_json_dict(),
-            "instruments": {}, "software_version": _version(), "ended": None,
+            "instruments": {}, "software_version": version(), "ended": None,
             "limits": plan.limits.to_json_dict(),
             "steps": [{"name": s.name, "kind": s.kind, "planned": s.planned, "done": 0,
                        "status": "pending", "ended_by": None} for s in plan.steps],

@@ -11,7 +11,7 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from pnbench.modeling.errors import PlanError
+from pnbench.errors import PlanError
 from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V, Limits
 from pnbench.sweeps.planread import Problems, TableReader
 from pnbench.sweeps.planstep import Step, read_step

@@ -13,7 +13,7 @@ import difflib
 import math
 import re
 
-from pnbench.modeling.errors import BadInput
+from pnbench.errors import BadInput
 from pnbench.sweeps.quantities import parse_quantity
 from pnbench.sweeps.tomllines import KeyPath, describe, line_of
 

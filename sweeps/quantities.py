@@ -17,7 +17,7 @@ import math
 
 from quantiphy import InvalidNumber, Quantity
 
-from pnbench.modeling.errors import BadInput
+from pnbench.errors import BadInput
 
 #: Other spellings accepted for a unit.
 _ALIASES = {"ohm": ("ohm", "Ohm", "Ω", "ohms"), "S": ("S",), "Hz": ("Hz",)}

@@ -9,7 +9,7 @@ instrument would refuse them.
 
 from __future__ import annotations
 
-from pnbench.modeling.errors import PlanError
+from pnbench.errors import PlanError
 from pnbench.sweeps.plan import Plan
 
 

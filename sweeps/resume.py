@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 
-from pnbench.modeling.errors import DataFileError, SafetyStop
+from pnbench.errors import DataFileError, SafetyStop
 from pnbench.sweeps.limits import Reading, StepGuard
 from pnbench.sweeps.plan import Plan
 from pnbench.sweeps.store import Point, read_events, read_points, read_run

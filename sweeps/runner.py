@@ -17,7 +17,7 @@ import math
 import time
 from dataclasses import dataclass
 
-from pnbench.modeling.errors import InstrumentError, OperatorStop, SafetyStop
+from pnbench.errors import InstrumentError, OperatorStop, SafetyStop
 from pnbench.modeling.smallsignal import parallel_from_admittance
 from pnbench.sweeps.control import Control
 from pnbench.sweeps.events import EventBus, finite

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
-from pnbench.modeling.errors import BadInput, DataFileError
+from pnbench.errors import BadInput, DataFileError
 from pnbench.sweeps.events import Event
 
 RUN_FORMAT = 1

@@ -12,7 +12,7 @@ import time
 from dataclasses import dataclass, field
 
 from pnbench.drivers.roles import LcrReading, SmuReading
-from pnbench.modeling.errors import InstrumentError
+from pnbench.errors import InstrumentError
 from pnbench.modeling.params import DiodeParams
 from pnbench.modeling.smallsignal import device_admittance
 

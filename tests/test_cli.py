@@ -7,7 +7,7 @@ import sys
 
 import pytest
 
-from pnbench.modeling.errors import DataFileError, InstrumentError, OperatorStop
+from pnbench.errors import DataFileError, InstrumentError, OperatorStop
 from pnbench.tui import cli
 
 

@@ -17,9 +17,9 @@ import importlib
 import os
 import sys
 import traceback
-from importlib import metadata
 
-from pnbench.modeling.errors import PnbenchError
+from pnbench import version
+from pnbench.errors import PnbenchError
 
 #: Subcommands in the order `--help` lists them.
 COMMANDS = (
@@ -37,20 +37,14 @@ COMMANDS = (
 )
 
 
-def version() -> str:
-    try:
-        return metadata.version("pnbench")
-    except metadata.PackageNotFoundError:  # running from a source tree without install
-        return "0+unknown"
-
 
 def _available_commands() -> dict[str, object]:
     found = {}
     for name in COMMANDS:
         try:
-            found[name] = importlib.import_module(f"pnbench.tui.cmd_{name}")
+            found[name] = importlib.import_module(f"pnbench.tui.commands.{name}")
         except ModuleNotFoundError as exc:
-            if exc.name != f"pnbench.tui.cmd_{name}":
+            if exc.name != f"pnbench.tui.commands.{name}":
                 raise
     return found
 

@@ -302,7 +302,7 @@ def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
 
 def app_available() -> bool:
     try:
-        from pnbench.tui.app import run_app  # noqa: F401
+        from pnbench.tui.app.application import run_app  # noqa: F401
     except ImportError:
         return False
     return True

@@ -25,7 +25,7 @@ from textual import events
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from appplans import sweep_plan  # noqa: E402
 
-from pnbench.tui.app import PnbenchApp
+from pnbench.tui.app.application import PnbenchApp
 
 PLAN = sweep_plan("LH-SW200-bench", 4000, 4000, reverse_stop="-10 V",
                   title="key latency benchmark")

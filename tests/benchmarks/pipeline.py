@@ -34,7 +34,7 @@ from sweepfake import FakeBench, FakeSmu  # noqa: E402
 from pnbench.drivers.dialect import load_dialect  # noqa: E402
 from pnbench.drivers.roles import Smu  # noqa: E402
 from pnbench.drivers.session import open_session  # noqa: E402
-from pnbench.drivers.simbench import SimBench  # noqa: E402
+from pnbench.drivers.sim.bench import SimBench  # noqa: E402
 from pnbench.sweeps.events import EventBus  # noqa: E402
 from pnbench.sweeps.launch import Launch  # noqa: E402
 from pnbench.sweeps.plan import parse_plan  # noqa: E402

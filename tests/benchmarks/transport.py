@@ -32,8 +32,8 @@ import pyvisa
 
 from pnbench.drivers.roles import Smu
 from pnbench.drivers.session import open_session
-from pnbench.drivers.simbench import SimBench
-from pnbench.drivers.siminstruments import SimSmu
+from pnbench.drivers.sim.bench import SimBench
+from pnbench.drivers.sim.instruments import SimSmu
 
 DEVICE = "lh-sw200"
 

@@ -9,7 +9,7 @@ import tomli_w
 
 from pnbench.drivers import dialect as dl
 from pnbench.drivers import scpi
-from pnbench.modeling.errors import DialectError
+from pnbench.errors import DialectError
 
 
 def default_data() -> dict:

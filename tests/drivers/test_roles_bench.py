@@ -16,9 +16,9 @@ import pytest
 from pnbench.drivers import dialect as dl
 from pnbench.drivers.roles import LcrMeter, Smu
 from pnbench.drivers.session import open_session
-from pnbench.drivers.simbench import SimBench
+from pnbench.drivers.sim.bench import SimBench
+from pnbench.errors import InstrumentError
 from pnbench.modeling import smallsignal
-from pnbench.modeling.errors import InstrumentError
 
 
 @pytest.fixture

@@ -11,7 +11,7 @@ from sim_resources import BROKEN_SMU, LCR, SMU
 from pnbench.drivers import dialect as dl
 from pnbench.drivers.roles import LcrMeter, Smu
 from pnbench.drivers.session import open_session
-from pnbench.modeling.errors import BadInput, DialectError, InstrumentError
+from pnbench.errors import BadInput, DialectError, InstrumentError
 
 
 @pytest.fixture

@@ -6,7 +6,7 @@ import pytest
 from sim_resources import BROKEN_SMU, LCR, SMU
 
 from pnbench.drivers.session import count_queries, open_session, resolve_backend
-from pnbench.modeling.errors import BadInput, InstrumentError
+from pnbench.errors import BadInput, InstrumentError
 
 
 def test_identify_and_common_commands(sim_backend):

@@ -9,7 +9,7 @@ import pytest
 from loopback_instrument import LoopbackInstrument
 
 from pnbench.drivers.session import open_session
-from pnbench.modeling.errors import InstrumentError
+from pnbench.errors import InstrumentError
 
 
 @pytest.fixture

@@ -17,9 +17,9 @@ import pytest
 
 from pnbench.drivers.roles import LcrMeter, Smu
 from pnbench.drivers.session import open_session
-from pnbench.drivers.simbench import SimBench
-from pnbench.drivers.siminstrument import ERROR_QUEUE_LENGTH
-from pnbench.modeling.errors import BadInput, DeviceFileError, InstrumentError
+from pnbench.drivers.sim.bench import SimBench
+from pnbench.drivers.sim.instrument import ERROR_QUEUE_LENGTH
+from pnbench.errors import BadInput, DeviceFileError, InstrumentError
 
 
 @pytest.fixture
@@ -248,7 +248,7 @@ def test_a_port_in_use_is_an_instrument_error():
 
 
 def test_faults_from_the_device_file(tmp_path):
-    from pnbench.drivers.simdevice import bundled_device
+    from pnbench.drivers.sim.device import bundled_device
 
     text = bundled_device("lh-sw200").read_text()
     path = tmp_path / "flaky.toml"

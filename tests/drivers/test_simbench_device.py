@@ -7,16 +7,16 @@ from dataclasses import fields
 
 import pytest
 
-from pnbench.drivers.simdevice import (
+from pnbench.drivers.sim.device import (
     bundled_device,
     bundled_devices,
     load_device,
     parse_device,
     resolve_device,
 )
-from pnbench.drivers.simdevicekeys import FAULT_KEYS, KEYS
+from pnbench.drivers.sim.devicekeys import FAULT_KEYS, KEYS
+from pnbench.errors import DeviceFileError
 from pnbench.modeling import junction
-from pnbench.modeling.errors import DeviceFileError
 from pnbench.modeling.params import DiodeParams
 
 BUNDLED = ("lh-sk340", "lh-sw200", "lh-vc510", "lh-vh720", "lh-zl560")

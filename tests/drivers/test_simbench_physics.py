@@ -11,9 +11,9 @@ import pytest
 from scipy.special import i1
 from spicehelp import parse_ascii_raw
 
-from pnbench.drivers import simphysics
-from pnbench.drivers.simdevice import parse_device
-from pnbench.drivers.siminstruments import SimLcr, SimSmu
+from pnbench.drivers.sim import physics as simphysics
+from pnbench.drivers.sim.device import parse_device
+from pnbench.drivers.sim.instruments import SimLcr, SimSmu
 from pnbench.modeling import aclevel, junction, smallsignal
 from pnbench.modeling.modelset import ModelSet
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams

@@ -14,11 +14,11 @@ import pytest
 from scipy.special import i1
 from spicehelp import ac_admittance
 
-from pnbench.drivers import simphysics
 from pnbench.drivers.roles import LcrMeter, Smu
 from pnbench.drivers.session import open_session
-from pnbench.drivers.simbench import SimBench
-from pnbench.drivers.simdevice import parse_device
+from pnbench.drivers.sim import physics as simphysics
+from pnbench.drivers.sim.bench import SimBench
+from pnbench.drivers.sim.device import parse_device
 from pnbench.modeling import junction, smallsignal
 
 NOISY = """

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from scipy import constants
 
+from pnbench.errors import BadInput
 from pnbench.modeling import depletion, materials
-from pnbench.modeling.errors import BadInput
 
 Q, EPS0 = constants.e, constants.epsilon_0
 AREA = 0.25e-6                        # 0.5 mm x 0.5 mm, an invented test structure

@@ -7,7 +7,7 @@ import math
 
 import pytest
 
-from pnbench.modeling.errors import DataFileError
+from pnbench.errors import DataFileError
 from pnbench.modeling.modelset import OTHER_CARD_PARAMETERS, ModelSet
 from pnbench.modeling.params import DiodeParams
 

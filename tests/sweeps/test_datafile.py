@@ -7,7 +7,7 @@ import json
 import numpy as np
 import pytest
 
-from pnbench.modeling.errors import DataFileError
+from pnbench.errors import DataFileError
 from pnbench.sweeps import store
 from pnbench.sweeps.datafile import read_data, read_data_file
 

@@ -24,7 +24,7 @@ from pathlib import Path
 
 import pytest
 
-from pnbench.drivers.simdevice import resolve_device
+from pnbench.drivers.sim.device import resolve_device
 from pnbench.modeling.junction import voltage
 from pnbench.sweeps.launch import Launch
 from pnbench.sweeps.plan import load_plan

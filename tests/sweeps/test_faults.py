@@ -9,7 +9,7 @@ import textwrap
 
 import pytest
 
-from pnbench.drivers.simbench import SimBench
+from pnbench.drivers.sim.bench import SimBench
 from pnbench.sweeps.launch import Launch
 from pnbench.sweeps.plan import parse_plan
 from pnbench.sweeps.store import read_events, read_points, read_run
@@ -163,7 +163,7 @@ def test_identity_change_is_refused_on_resume(bench, tmp_path):
     doc = read_run(run_dir)
     doc["instruments"]["smu"]["identity"] = "pnbench,simulated SMU,99999,1"
     (run_dir / "run.json").write_text(__import__("json").dumps(doc))
-    from pnbench.modeling.errors import InstrumentError
+    from pnbench.errors import InstrumentError
 
     with pytest.raises(InstrumentError, match="--force-identity"):
         Launch.resume_from(run_dir).run()

@@ -22,7 +22,7 @@ from pathlib import Path
 
 import pytest
 
-from pnbench.drivers.simbench import SimBench
+from pnbench.drivers.sim.bench import SimBench
 from pnbench.sweeps.store import read_events, read_points, read_run
 
 PLAN = textwrap.dedent("""\

@@ -13,7 +13,7 @@ import tomli_w
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from pnbench.modeling.errors import PlanError
+from pnbench.errors import PlanError
 from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V
 from pnbench.sweeps.plan import load_plan, parse_plan
 from pnbench.sweeps.tomllines import key_lines

@@ -6,7 +6,7 @@ import math
 
 import pytest
 
-from pnbench.modeling.errors import BadInput
+from pnbench.errors import BadInput
 from pnbench.sweeps.quantities import format_quantity, parse_quantity
 
 

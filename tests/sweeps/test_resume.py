@@ -9,7 +9,7 @@ import pytest
 from sweepfake import FakeBench, FakeLcr, FakeSmu
 from test_runner import CV, REV, fwd, make_plan
 
-from pnbench.modeling.errors import DataFileError
+from pnbench.errors import DataFileError
 from pnbench.sweeps.events import EventBus
 from pnbench.sweeps.resume import last_smu_level, load_state
 from pnbench.sweeps.runner import Runner

@@ -12,7 +12,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from pnbench.modeling.errors import BadInput, DataFileError
+from pnbench.errors import BadInput, DataFileError
 from pnbench.sweeps.events import Event, EventBus
 from pnbench.sweeps.store import (
     HEADER,

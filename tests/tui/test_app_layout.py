@@ -10,9 +10,9 @@ from textual.containers import ScrollableContainer
 from textual.widgets import Footer
 from textual.widgets._footer import FooterKey
 
-from pnbench.tui.app import PnbenchApp
-from pnbench.tui.app_folder import read_run_folder
-from pnbench.tui.widget_banner import ScreenBar, SourceBanner
+from pnbench.tui.app.application import PnbenchApp
+from pnbench.tui.app.folder import read_run_folder
+from pnbench.tui.app.widgets.banner import ScreenBar, SourceBanner
 
 SIZES = [(80, 24), (200, 60)]
 MODES = ["bench", "plan", "run", "review"]

@@ -8,8 +8,8 @@ from pathlib import Path
 
 from appplans import sweep_plan
 
-from pnbench.tui.app import PnbenchApp, exit_code
-from pnbench.tui.screen_plan import first_line_number
+from pnbench.tui.app.application import PnbenchApp, exit_code
+from pnbench.tui.app.screens.plan import first_line_number
 
 #: Longest wait for something the run should do (generous: the machine is shared).
 PATIENCE_S = 60.0

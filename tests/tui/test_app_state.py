@@ -10,14 +10,14 @@ import numpy as np
 import pytest
 from test_app_synth import TRUE, SyntheticRun
 
-from pnbench.modeling.errors import BadInput, DataFileError
+from pnbench.errors import BadInput, DataFileError
 from pnbench.modeling.params import DiodeParams
-from pnbench.tui.app_folder import FolderTail, apply_batch, read_run_folder
-from pnbench.tui.app_plots import VIEWS, iv_residuals, model_params, plot_data
-from pnbench.tui.app_state import Estimate, RunState, describe, format_duration
-from pnbench.tui.widget_params import rows
-from pnbench.tui.widget_plot import DecadeFormatter
-from pnbench.tui.widget_qpoint import QChoice, parse_choice, qpoint_rows
+from pnbench.tui.app.folder import FolderTail, apply_batch, read_run_folder
+from pnbench.tui.app.plots import VIEWS, iv_residuals, model_params, plot_data
+from pnbench.tui.app.state import Estimate, RunState, describe, format_duration
+from pnbench.tui.app.widgets.params import rows
+from pnbench.tui.app.widgets.plot import DecadeFormatter
+from pnbench.tui.app.widgets.qpoint import QChoice, parse_choice, qpoint_rows
 
 
 def test_events_drive_status_outputs_parameters_and_log():
@@ -250,7 +250,7 @@ def test_run_json_steps_fill_planned_counts(tmp_path):
 
 
 def test_card_names_are_ones_a_simulator_accepts():
-    from pnbench.tui.app_review import card_name
+    from pnbench.tui.app.review import card_name
 
     assert card_name("LH-SW200 sample 3") == "LH-SW200_sample_3"
     assert card_name("3rd part") == "D3rd_part"

@@ -15,7 +15,7 @@ import time
 
 import pytest
 
-from pnbench.drivers.simbench import SimBench
+from pnbench.drivers.sim.bench import SimBench
 from pnbench.sweeps.store import read_points, read_run
 from pnbench.tui.cli import main
 

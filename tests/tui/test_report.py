@@ -15,7 +15,7 @@ from report_runs import check_png, scan
 
 from pnbench.tui import cli
 from pnbench.tui.report import build_report, write_report
-from pnbench.tui.report_figures import FIGURE_NAMES
+from pnbench.tui.report.figures import FIGURE_NAMES
 
 
 @pytest.fixture(scope="module")
@@ -155,7 +155,7 @@ def test_command_prints_json_and_exits_0(tmp_path, capsys):
 
 
 def test_the_command_module_does_not_import_matplotlib():
-    code = ("import sys, pnbench.tui.cmd_report, pnbench.tui.report; "
+    code = ("import sys, pnbench.tui.commands.report, pnbench.tui.report; "
             "print('matplotlib' in sys.modules)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True)
@@ -191,7 +191,7 @@ def test_meter_readings_without_conductance_still_draw(tmp_path):
 
 
 def report_analysis_of(run_dir):
-    from pnbench.tui.report_analysis import analyze
-    from pnbench.tui.report_data import load_run
+    from pnbench.tui.report.analysis import analyze
+    from pnbench.tui.report.data import load_run
 
     return analyze(load_run(run_dir))

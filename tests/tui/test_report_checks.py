@@ -11,10 +11,10 @@ import report_runs
 from scipy import constants
 from spicehelp import ac_admittance
 
-from pnbench.tui.report_analysis import BV_REACHED_FRACTION, analyze
-from pnbench.tui.report_data import load_run
-from pnbench.tui.report_plotstyle import decade_limits, prefix_scale
-from pnbench.tui.report_tables import qty
+from pnbench.tui.report.analysis import BV_REACHED_FRACTION, analyze
+from pnbench.tui.report.data import load_run
+from pnbench.tui.report.plotstyle import decade_limits, prefix_scale
+from pnbench.tui.report.tables import qty
 
 T = report_runs.TRUE
 

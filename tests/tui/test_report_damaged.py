@@ -8,9 +8,9 @@ import shutil
 import pytest
 import report_runs
 
-from pnbench.modeling.errors import DataFileError
+from pnbench.errors import DataFileError
 from pnbench.tui import cli
-from pnbench.tui.report_data import load_run
+from pnbench.tui.report.data import load_run
 
 
 @pytest.fixture(scope="module")

@@ -14,7 +14,7 @@ import pytest
 from report_runs import check_png, scan
 
 from pnbench.tui.report import build_report
-from pnbench.tui.report_figures import FIGURE_NAMES
+from pnbench.tui.report.figures import FIGURE_NAMES
 
 launch = pytest.importorskip("pnbench.sweeps.launch")
 

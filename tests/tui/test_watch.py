@@ -9,7 +9,7 @@ from pathlib import Path
 
 from test_app_synth import STEPS
 
-from pnbench.tui.app import PnbenchApp
+from pnbench.tui.app.application import PnbenchApp
 from pnbench.tui.cli import main
 
 WRITER = Path(__file__).with_name("test_app_synth.py")

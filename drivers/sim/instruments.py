@@ -1,0 +1,334 @@
+"""The simulated source-measure unit and LCR meter: default-dialect commands over a diode.
+
+Both answer the commands of `drivers/dialects/default.toml` (and the query form of every
+setting), from the device's physics (`simphysics`), with noise from a seeded generator
+that `*RST` does not reseed, so the same command sequence gives the same readings.
+
+SMU after *RST: sourcing voltage, levels 0, current limit 100 uA, voltage limit 20 V,
+both ranges on auto, 1 NPLC, 2-wire sensing, output off. A reading with the output off
+answers the not-a-number marker in both fields and queues -221. Noise is specified at
+1 NPLC and scales with 1/sqrt(NPLC). Setting a range rounds up to the next range of the
+device file and turns autorange off; a reading beyond a fixed range (by more than 5 %)
+answers the overflow marker.
+
+LCR meter after *RST: 1 kHz, 1 V rms, bias 0 V and off, form CPGP; open and short
+corrections are kept (they live in the meter's memory, not in its settings). The AC level
+is the rms voltage across the device. The bias source sags to hold its current limit.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+
+import numpy as np
+
+from pnbench.drivers import scpi
+from pnbench.drivers.sim import physics as simphysics
+from pnbench.drivers.sim.device import SimDevice
+from pnbench.drivers.sim.instrument import (
+    CommandError,
+    Handler,
+    Setting,
+    SimInstrument,
+    bool_argument,
+    no_arguments,
+    number_argument,
+    one_argument,
+    remembered,
+)
+from pnbench.modeling import smallsignal
+
+#: Called as on_output(instrument, state, cause) whenever an output changes;
+#: cause is "command", "reset", "disconnect" or "close".
+OutputHook = Callable[[str, bool, str], None]
+NOT_A_NUMBER = scpi.format_value(math.nan)
+
+
+def _max_v(smu: SimSmu) -> tuple[float, float]:
+    top = smu.voltage_ranges[-1]
+    return -top, top
+
+
+def _max_i(smu: SimSmu) -> tuple[float, float]:
+    top = smu.current_ranges[-1]
+    return -top, top
+
+
+class SimInstrumentWithOutput(SimInstrument):
+    """An instrument with one output that the bench watches."""
+
+    name = "instrument"
+
+    def __init__(self, identity: str, command_s: float, on_output: OutputHook | None) -> None:
+        self._output = False
+        self.on_output = on_output
+        self.overflow_pending = 0
+        super().__init__(identity, command_s)
+
+    @property
+    def output(self) -> bool:
+        return self._output
+
+    def set_output(self, state: bool, cause: str = "command") -> None:
+        if state != self._output:
+            self.unsettled = True
+            self._output = state
+            if self.on_output:
+                self.on_output(self.name, state, cause)
+
+    def _output_commands(self, pattern: str) -> list[tuple[str, bool, Handler]]:
+        def write(command: scpi.Command) -> None:
+            self.set_output(bool_argument(one_argument(command)))
+
+        def read(command: scpi.Command) -> str:
+            no_arguments(command)
+            return "1" if self.output else "0"
+
+        return [(pattern, False, write), (pattern, True, read)]
+
+    def take_overflow(self) -> bool:
+        """Whether an injected overflow fault claims this reading."""
+        if self.overflow_pending:
+            self.overflow_pending -= 1
+            return True
+        return False
+
+    def reset(self) -> None:
+        super().reset()
+        self.set_output(False, "reset")
+
+
+class SimSmu(SimInstrumentWithOutput):
+    """A source-measure unit with the diode on its terminals."""
+
+    name = "smu"
+    SETTINGS = (
+        Setting(":SOURce:FUNCtion[:MODE]", "mode", "choice", choices=("VOLTage", "CURRent"),
+                settles=True),
+        Setting(":SOURce:VOLTage[:LEVel][:IMMediate][:AMPLitude]", "voltage_level_V",
+                "number", _max_v, settles=True),
+        Setting(":SOURce:CURRent[:LEVel][:IMMediate][:AMPLitude]", "current_level_A",
+                "number", _max_i, settles=True),
+        Setting(":SENSe:CURRent[:DC]:PROTection[:LEVel]", "current_limit_A", "number",
+                lambda s: (s.current_ranges[0] / 100, s.current_ranges[-1]), settles=True),
+        Setting(":SENSe:VOLTage[:DC]:PROTection[:LEVel]", "voltage_limit_V", "number",
+                lambda s: (s.voltage_ranges[0] / 100, s.voltage_ranges[-1]), settles=True),
+        Setting(":SENSe:CURRent[:DC]:RANGe:AUTO", "current_autorange", "bool"),
+        Setting(":SENSe:VOLTage[:DC]:RANGe:AUTO", "voltage_autorange", "bool"),
+        Setting(":SENSe:CURRent[:DC]:NPLCycles", "nplc", "number", lambda s: (0.01, 10.0)),
+        Setting(":SENSe:VOLTage[:DC]:NPLCycles", "nplc", "number", lambda s: (0.01, 10.0)),
+        Setting(":SYSTem:RSENse", "remote_sense", "bool", settles=True),
+    )
+
+    def __init__(self, device: SimDevice, on_output: OutputHook | None = None) -> None:
+        spec = device.smu
+        self.spec, self.timing = spec, device.timing
+        self.voltage_ranges = tuple(spec["voltage_ranges_V"])
+        self.current_ranges = tuple(spec["current_ranges_A"])
+        self.temperature_K = device.temperature_K
+        params = device.params
+        self.params_4w = params
+        self.params_2w = params.with_values(RS=params.RS + spec["lead_resistance_ohm"])
+        self.rng = np.random.default_rng(spec["seed"])
+        self.defaults = {
+            "mode": "VOLTage", "voltage_level_V": 0.0, "current_level_A": 0.0,
+            "current_limit_A": min(1e-4, self.current_ranges[-1]),
+            "voltage_limit_V": min(20.0, self.voltage_ranges[-1]),
+            "current_autorange": True, "voltage_autorange": True, "nplc": 1.0,
+            "remote_sense": False,
+        }
+        self.current_range_A = self.current_ranges[-1]
+        self.voltage_range_V = self.voltage_ranges[-1]
+        self.tripped = False
+        self.last_reading: str | None = None
+        self._points: dict[tuple, tuple[float, float, bool]] = {}
+        super().__init__(spec["identity"], device.timing["command_s"], on_output)
+        self.reset()
+
+    def commands(self) -> list[tuple[str, bool, Handler]]:
+        return [
+            *self._output_commands(":OUTPut[:STATe]"),
+            *self._range_commands(":SENSe:CURRent[:DC]:RANGe[:UPPer]", "current"),
+            *self._range_commands(":SENSe:VOLTage[:DC]:RANGe[:UPPer]", "voltage"),
+            (":READ", True, self._read),
+            (":FETCh", True, self._fetch),
+            (":SENSe:CURRent[:DC]:PROTection:TRIPped", True,
+             lambda c: "1" if self.mode == "VOLTage" and self._now()[2] else "0"),
+            (":SENSe:VOLTage[:DC]:PROTection:TRIPped", True,
+             lambda c: "1" if self.mode == "CURRent" and self._now()[2] else "0"),
+        ]
+
+    def reset(self) -> None:
+        super().reset()
+        self.current_range_A = self.current_ranges[-1]
+        self.voltage_range_V = self.voltage_ranges[-1]
+        self.tripped = False
+
+    def _range_commands(self, pattern: str, quantity: str) -> list[tuple[str, bool, Handler]]:
+        ranges = self.current_ranges if quantity == "current" else self.voltage_ranges
+        attr = f"{quantity}_range_{'A' if quantity == 'current' else 'V'}"
+
+        def write(command: scpi.Command) -> None:
+            wanted = abs(number_argument(one_argument(command), -ranges[-1], ranges[-1],
+                                         ranges[-1]))
+            setattr(self, attr, next(r for r in ranges if r >= wanted * (1 - 1e-9)))
+            setattr(self, f"{quantity}_autorange", False)
+
+        def read(command: scpi.Command) -> float:
+            no_arguments(command)
+            return float(getattr(self, attr))
+
+        return [(pattern, False, write), (pattern, True, read)]
+
+    def _now(self) -> tuple[float, float, bool]:
+        """(voltage, current, in compliance) on the device now; zeros with output off."""
+        if not self.output:
+            return 0.0, 0.0, False
+        key = (self.mode, self.voltage_level_V, self.current_level_A, self.current_limit_A,
+               self.voltage_limit_V, self.remote_sense)
+        return remembered(self._points, key, self._source_point)
+
+    def _source_point(self) -> tuple[float, float, bool]:
+        params = self.params_4w if self.remote_sense else self.params_2w
+        if self.mode == "VOLTage":
+            return simphysics.source_point(params, self.temperature_K, "voltage",
+                                           self.voltage_level_V, self.current_limit_A)
+        return simphysics.source_point(params, self.temperature_K, "current",
+                                       self.current_level_A, self.voltage_limit_V)
+
+    def _read(self, command: scpi.Command) -> str:
+        no_arguments(command)
+        settle = self.timing["smu_settling_s"] if self.unsettled else 0.0
+        self.add_busy(settle + self.nplc / self.timing["line_frequency_Hz"])
+        self.unsettled = False
+        if not self.output:
+            self.tripped = False
+            self.push_error(-221, "output is off; no reading")
+            self.last_reading = f"{NOT_A_NUMBER},{NOT_A_NUMBER}"
+            return self.last_reading
+        v, i, self.tripped = self._now()
+        spec, scale = self.spec, 1.0 / math.sqrt(self.nplc)
+        v_range = simphysics.choose_range(
+            v, self.voltage_ranges, None if self.voltage_autorange else self.voltage_range_V)
+        i_range = simphysics.choose_range(
+            i, self.current_ranges, None if self.current_autorange else self.current_range_A)
+        if v_range:
+            self.voltage_range_V = v_range
+        if i_range:
+            self.current_range_A = i_range
+        mv = simphysics.measured(v, v_range, spec["voltage_noise_percent_of_reading"],
+                                 spec["voltage_noise_percent_of_range"],
+                                 spec["voltage_gain_error_percent"], scale, self.rng)
+        mi = simphysics.measured(i, i_range, spec["current_noise_percent_of_reading"],
+                                 spec["current_noise_percent_of_range"],
+                                 spec["current_gain_error_percent"], scale, self.rng)
+        if self.take_overflow():
+            if self.mode == "VOLTage":
+                mi = math.copysign(math.inf, i or 1.0)
+            else:
+                mv = math.copysign(math.inf, v or 1.0)
+        self.last_reading = f"{scpi.format_value(mv)},{scpi.format_value(mi)}"
+        return self.last_reading
+
+    def _fetch(self, command: scpi.Command) -> str:
+        no_arguments(command)
+        if self.last_reading is None:
+            raise CommandError(-230, "no reading taken yet")
+        return self.last_reading
+
+
+class SimLcr(SimInstrumentWithOutput):
+    """An LCR meter with its DC bias source, measuring the diode."""
+
+    name = "lcr"
+    FORMS = ("CPGP", "CSRS")
+
+    def __init__(self, device: SimDevice, on_output: OutputHook | None = None) -> None:
+        spec = device.lcr
+        self.spec, self.timing = spec, device.timing
+        self.params = device.params
+        self.temperature_K = device.temperature_K
+        self.rng = np.random.default_rng(spec["seed"])
+        self.SETTINGS = (
+            Setting(":SOURce:FREQuency[:CW]", "frequency_Hz", "number",
+                    lambda s: (spec["frequency_min_Hz"], spec["frequency_max_Hz"]),
+                    settles=True),
+            Setting(":SOURce:VOLTage[:LEVel]", "ac_level_V", "number",
+                    lambda s: (spec["ac_level_min_V"], spec["ac_level_max_V"]), settles=True),
+            Setting(":SOURce:BIAS:VOLTage[:LEVel]", "bias_V", "number",
+                    lambda s: (-spec["bias_max_V"], spec["bias_max_V"]), settles=True),
+            Setting(":SENSe:IMPedance:MODel", "form", "choice", choices=self.FORMS),
+        )
+        self.defaults = {"frequency_Hz": min(max(1e3, spec["frequency_min_Hz"]),
+                                             spec["frequency_max_Hz"]),
+                         "ac_level_V": min(1.0, spec["ac_level_max_V"]), "bias_V": 0.0,
+                         "form": "CPGP"}
+        self.open_corrected = False
+        self.short_corrected = False
+        self.last_reading: str | None = None
+        self._admittances: dict[tuple, complex] = {}
+        super().__init__(spec["identity"], device.timing["command_s"], on_output)
+        self.reset()
+
+    def commands(self) -> list[tuple[str, bool, Handler]]:
+        def correction(attr: str) -> Handler:
+            def run(command: scpi.Command) -> None:
+                no_arguments(command)
+                self.add_busy(10 * self.timing["lcr_measurement_s"])
+                setattr(self, attr, True)
+            return run
+
+        return [
+            *self._output_commands(":SOURce:BIAS:STATe"),
+            (":SENSe:CORRection:OPEN[:EXECute]", False, correction("open_corrected")),
+            (":SENSe:CORRection:SHORt[:EXECute]", False, correction("short_corrected")),
+            (":READ:IMPedance", True, self._read),
+            (":FETCh:IMPedance", True, self._fetch),
+        ]
+
+    def admittance(self) -> complex:
+        """The admittance between the meter's terminals now, before noise and gain."""
+        key = (self.bias_V if self.output else 0.0, self.frequency_Hz, self.ac_level_V,
+               self.open_corrected, self.short_corrected)
+        return remembered(self._admittances, key, lambda: self._terminal_admittance(key[0]))
+
+    def _terminal_admittance(self, bias_V: float) -> complex:
+        spec = self.spec
+        bias, _ = simphysics.bias_point(self.params, self.temperature_K, bias_V,
+                                        spec["bias_current_limit_A"])
+        y = simphysics.fundamental_admittance(bias, self.frequency_Hz, self.ac_level_V,
+                                              self.params, self.temperature_K)
+        w = 2.0 * math.pi * self.frequency_Hz
+        if not self.open_corrected:
+            y += 1j * w * spec["fixture_capacitance_F"]
+        if not self.short_corrected and spec["fixture_resistance_ohm"] > 0:
+            y = y / (1.0 + spec["fixture_resistance_ohm"] * y)
+        return y
+
+    def _read(self, command: scpi.Command) -> str:
+        no_arguments(command)
+        settle = self.timing["lcr_settling_s"] if self.unsettled else 0.0
+        self.add_busy(settle + self.timing["lcr_measurement_s"])
+        self.unsettled = False
+        spec = self.spec
+        y = self.admittance() * (1.0 + spec["gain_error_percent"] / 100.0)
+        w = 2.0 * math.pi * self.frequency_Hz
+        sigma = spec["noise_percent_of_reading"] / 100.0 * abs(y) + w * spec["noise_floor_F"]
+        if sigma > 0:
+            y += sigma * complex(*self.rng.normal(0.0, 1.0, 2))
+        if self.form == "CPGP":
+            primary, secondary = smallsignal.parallel_from_admittance(y, self.frequency_Hz)
+        else:
+            primary, secondary = smallsignal.series_from_admittance(y, self.frequency_Hz)
+        primary, secondary = float(primary), float(secondary)
+        if self.take_overflow():
+            primary = secondary = math.inf
+        self.last_reading = f"{scpi.format_value(primary)},{scpi.format_value(secondary)}"
+        return self.last_reading
+
+    def _fetch(self, command: scpi.Command) -> str:
+        no_arguments(command)
+        if self.last_reading is None:
+            raise CommandError(-230, "no reading taken yet")
+        return self.last_reading

@@ -1,0 +1,80 @@
+"""How the app ends: the exit code of the sweep it owned, and what happens when the
+terminal goes away (SIGHUP when an SSH link drops, or SIGTERM) in the middle of a sweep.
+
+A dropped terminal can leave Textual's main thread blocked writing to it, so the signal
+handler does not rely on the app: it tells the runner to abort (a flag, returns at once)
+and starts a guard thread that waits for the runner to ramp down and confirm the outputs
+off, gives the app a moment to exit normally, and otherwise ends the process itself.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import signal
+import threading
+import time
+
+from pnbench.errors import PnbenchError
+
+#: Seconds the hang-up guard waits for the sweep's ramp-down and off check, then for the
+#: app's own exit, before it ends the process itself.
+HANGUP_RUN_WAIT_S = 120.0
+HANGUP_EXIT_WAIT_S = 3.0
+
+
+def safe_exit_on_signals(app) -> dict:
+    """On SIGHUP and SIGTERM: abort the sweep this app owns (the runner ramps down and
+    turns every output off) and end the app. Returns the previous handlers."""
+    previous = {}
+
+    def handler(signum, _frame) -> None:
+        if app._closing:
+            return
+        app._closing = True
+        live = app.live
+        if live is not None and live.running:
+            live.abort(f"the app got {signal.Signals(signum).name} (terminal hung up or "
+                       "asked to stop)")
+        threading.Thread(target=_hangup_guard, args=(app, live), daemon=True,
+                         name="pnbench-hangup").start()
+        with contextlib.suppress(Exception):
+            app.call_later(app.exit, None, 4)
+
+    for sig in (signal.SIGHUP, signal.SIGTERM):
+        try:
+            previous[sig] = signal.signal(sig, handler)
+        except (ValueError, OSError):  # not the main thread
+            pass
+    return previous
+
+
+def _hangup_guard(app, live) -> None:
+    if live is not None:
+        live.wait(HANGUP_RUN_WAIT_S)  # the runner's ramp-down, outputs off, files closed
+    deadline = time.monotonic() + HANGUP_EXIT_WAIT_S
+    while time.monotonic() < deadline:
+        if not app.is_running:
+            return  # the app ended by itself; run_app finishes the job
+        time.sleep(0.05)
+    os._exit(4)  # the terminal is gone and the app cannot draw its way out
+
+
+def exit_code(app, code: object = 0) -> int:
+    """The exit code of DESIGN.md for the last sweep the app owned (as `pnbench run`
+    gives it), or the app's own code when it ran none."""
+    live = app.live
+    if live is not None:
+        outcome = getattr(live.launch, "outcome", None)
+        if outcome is not None:
+            return int(outcome.exit_code)
+        error = getattr(live.launch, "error", None)
+        if isinstance(error, PnbenchError):
+            return int(error.exit_code)
+        if error is not None:
+            return 1
+    if app.state.status in ("aborted", "safety_stop", "interrupted"):
+        return 4
+    if app.state.status == "failed":
+        return 3
+    return int(code or 0) if isinstance(code, int) else 0

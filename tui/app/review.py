@@ -1,0 +1,196 @@
+"""Reviewing a finished run folder: its points, which of them a refit uses, the refit.
+
+The folder is read with the engine's own readers (`sweeps.store`); the refit goes
+through the same seam the runner uses (`sweeps.fitmodel.run_model` over
+`modeling.joint.fit_run`), with only the points the user kept. Blocking calls (reading,
+refitting) run on worker threads; everything here returns values.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import SimpleNamespace
+
+import numpy as np
+
+from pnbench.errors import DataFileError, PnbenchError
+from pnbench.modeling.modelset import card_name
+from pnbench.tui.app.state import Estimate, RunState
+
+
+@dataclass
+class Review:
+    """A run folder opened for review."""
+
+    run_dir: Path
+    run_doc: dict
+    points: list  # sweeps.store.Point, in the order taken
+    used: np.ndarray  # bool per point
+    events: list[dict] = field(default_factory=list)
+    model_doc: dict | None = None  # model.json as the run wrote it
+    refit_doc: dict | None = None  # model.json document of the last refit
+    refit_model: object | None = None  # its ModelSet
+
+    @property
+    def device_name(self) -> str:
+        return str((self.run_doc.get("device") or {}).get("name") or "device")
+
+    @property
+    def temperature_K(self) -> float:
+        value = (self.run_doc.get("device") or {}).get("temperature_K")
+        return float(value) if isinstance(value, (int, float)) and value > 0 else 300.15
+
+    def step_kinds(self) -> dict[str, str]:
+        return {str(s.get("name")): str(s.get("kind", "")) for s in
+                self.run_doc.get("steps") or [] if s.get("name")}
+
+
+def load_review(run_dir: str | Path) -> Review:
+    """Read a run folder (raises DataFileError naming what is missing)."""
+    from pnbench.sweeps import store
+
+    run_dir = Path(run_dir).expanduser()
+    if not run_dir.is_dir():
+        raise DataFileError(f"{run_dir}: no such folder; give a run folder (named like "
+                            "20250101-120000_device under the runs folder)")
+    run_doc = store.read_run(run_dir)
+    points = store.read_points(run_dir)
+    events = [e.to_json_dict() for e in store.read_events(run_dir)]
+    model_doc = None
+    model_path = run_dir / "model.json"
+    if model_path.exists():
+        try:
+            model_doc = json.loads(model_path.read_text(encoding="utf-8"))
+        except (OSError, ValueError) as exc:
+            raise DataFileError(f"{model_path}: cannot read it ({exc})") from None
+    # every point starts in use: the fitters treat compliance points themselves
+    used = np.ones(len(points), dtype=bool)
+    return Review(run_dir, run_doc, points, used, events, model_doc)
+
+
+def estimates(model_doc: dict | None) -> dict[str, Estimate]:
+    """Parameter estimates of a model.json document (settled: it is a final fit)."""
+    out = {}
+    for name, entry in ((model_doc or {}).get("parameters") or {}).items():
+        if not isinstance(entry, dict):
+            continue
+        value = entry.get("value")
+        if not isinstance(value, (int, float)):
+            continue
+        sigma = entry.get("sigma")
+        out[name] = Estimate(float(value), float(sigma) if isinstance(
+            sigma, (int, float)) else None, True)
+    return out
+
+
+def review_state(review: Review, only_used: bool = False) -> RunState:
+    """A RunState of the review for the plots and tables (refit estimates if any)."""
+    state = RunState()
+    state.apply_run_json(review.run_doc)
+    for point, used in zip(review.points, review.used, strict=True):
+        if only_used and not used:
+            continue
+        state.add_point(dataclasses.asdict(point))
+    for event in review.events:
+        if event.get("kind") not in ("fit", "point"):
+            state.apply_event(event)
+    state.apply_run_json(review.run_doc)
+    state.parameters = estimates(review.refit_doc or review.model_doc)
+    return state
+
+
+def toggle(review: Review, index: int) -> None:
+    review.used[index] = not review.used[index]
+
+
+def set_step(review: Review, step: str, used: bool) -> None:
+    for n, point in enumerate(review.points):
+        if point.step == step:
+            review.used[n] = used
+
+
+def refit(review: Review):
+    """Fit the whole model again from the points in use; returns the ModelSet (or
+    raises DataFileError when no point is left). Blocking: call on a worker thread."""
+    from pnbench.sweeps.fitmodel import run_model
+
+    chosen = [p for p, used in zip(review.points, review.used, strict=True) if used]
+    if not chosen:
+        raise DataFileError(f"{review.run_dir}: no point is in use; keep some points "
+                            "(space toggles one, t a step, a all) before refitting")
+    planned = _plan_steps(review.run_dir)
+    kinds = review.step_kinds()
+    steps = {name: planned.get(name) or SimpleNamespace(
+                 name=name, kind=kinds.get(name) or _guess_kind(name, chosen),
+                 breakdown_guard_A=None)
+             for name in {p.step for p in chosen}}
+    area = (review.run_doc.get("device") or {}).get("area_m2")
+    model = run_model(steps, chosen, {}, review.temperature_K,
+                      area_m2=area if isinstance(area, (int, float)) else None)
+    if model is None:
+        raise DataFileError(f"{review.run_dir}: the points in use give nothing to fit")
+    review.refit_model = model
+    review.refit_doc = model.to_json_dict()
+    return model
+
+
+def _plan_steps(run_dir: Path) -> dict:
+    """The run's own steps (from its plan.toml: kinds, breakdown guard), when readable."""
+    from pnbench.sweeps.launch import plan_of_run
+
+    try:
+        return {step.name: step for step in plan_of_run(run_dir).steps}
+    except PnbenchError:
+        return {}
+
+
+def _guess_kind(step: str, points: list) -> str:
+    """A step without a kind in run.json: I-V points forward or reverse by sign."""
+    mine = [p for p in points if p.step == step]
+    if mine and mine[0].kind == "cv":
+        return "cv"
+    volts = [p.voltage_V for p in mine if p.voltage_V is not None and math.isfinite(
+        p.voltage_V)]
+    return "iv_reverse" if volts and np.median(volts) < 0 else "iv_forward"
+
+
+def card_text(review: Review) -> str:
+    """The model card of the refit (or of the run's own model.json)."""
+    from pnbench.modeling.modelset import ModelSet
+
+    model = review.refit_model
+    if model is None:
+        if review.model_doc is None:
+            raise DataFileError(f"{review.run_dir}: no model.json and no refit yet; "
+                                "refit (r) first")
+        model = ModelSet.from_json_dict(review.model_doc)
+    return model.card_text(card_name(review.device_name))
+
+
+
+
+def export_card(review: Review, path: str | Path) -> Path:
+    """Write the model card (and, for a refit, model.json beside it as NAME.json)."""
+    target = Path(path).expanduser()
+    target.parent.mkdir(parents=True, exist_ok=True)
+    target.write_text(card_text(review), encoding="utf-8")
+    if review.refit_doc is not None:
+        target.with_suffix(".json").write_text(json.dumps(review.refit_doc, indent=2) + "\n",
+                                               encoding="utf-8")
+    return target
+
+
+def point_row(n: int, point, used: bool) -> tuple[str, ...]:
+    """One row of the review's point table."""
+    def num(value: float | None, digits: int = 4) -> str:
+        return "" if value is None else f"{value:.{digits}g}"
+
+    reading = (f"I={num(point.current_A)}" if point.kind == "iv"
+               else f"C={num(point.capacitance_F)} G={num(point.conductance_S, 3)}")
+    freq = num(point.frequency_Hz, 3)
+    return (str(n + 1), "yes" if used else "no", point.step, point.kind,
+            num(point.voltage_V), reading, freq, "!" if point.compliance else "")

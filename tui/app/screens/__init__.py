@@ -1,0 +1,1 @@
+"""The app's screens: Bench, Plan, Run, Review and dialogs."""

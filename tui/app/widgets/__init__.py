@@ -1,0 +1,1 @@
+"""Widgets the screens compose; they receive data and post messages."""

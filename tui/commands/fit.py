@@ -1,0 +1,168 @@
+"""`pnbench fit`: extract the diode model from a data file or a run folder.
+
+    pnbench fit FILE_OR_RUN_DIR [--kind iv|cv|auto] [--temperature K] [--area M2]
+                [--ibv A] [--leakage-at V] [--fixture] [--json]
+
+The file holds the CSV columns of DESIGN.md (``voltage_V,current_A`` for I–V;
+``voltage_V,frequency_Hz,capacitance_F[,conductance_S]`` for C–V); ``# key = value``
+comment lines carry metadata such as ``temperature_K`` and ``area_m2``. A run folder is
+fitted jointly (I–V, C–V and admittance). Prints a table of parameters with their
+one-sigma uncertainties and what each fit could and could not determine, or with
+``--json`` the model.json document.
+"""
+
+from __future__ import annotations
+
+HELP = "fit the diode model (IS N RS RSH BV CJO VJ M TT) to a data file or a run folder"
+
+
+def add_arguments(parser) -> None:
+    parser.add_argument("source", metavar="FILE_OR_RUN_DIR",
+                        help="CSV data file or run folder (its points.csv)")
+    parser.add_argument("--kind", choices=("iv", "cv", "auto"), default="auto",
+                        help="which data to fit (default: whatever the columns hold)")
+    parser.add_argument("--temperature", metavar="K",
+                        help="device temperature in kelvin (default: the file's "
+                             "temperature_K, the run's, else 300.15 K)")
+    parser.add_argument("--area", metavar="M2",
+                        help="junction area in m^2 for the Mott-Schottky doping, e.g. 1e-6")
+    parser.add_argument("--ibv", metavar="A",
+                        help="reverse current at which BV is read (default 1 mA), e.g. 10u")
+    parser.add_argument("--leakage-at", metavar="V",
+                        help="reverse voltage for the leakage figure (default: the deepest "
+                             "bias before breakdown), e.g. 20 or 20V")
+    parser.add_argument("--fixture", action="store_true",
+                        help="also fit a fixed parallel (fixture) capacitance in C-V data")
+    parser.add_argument("--json", action="store_true",
+                        help="print the model.json document instead of the table")
+
+
+def run(args) -> int:
+    import json
+    import math
+
+    from pnbench.errors import DataFileError
+    from pnbench.modeling import joint
+    from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
+    from pnbench.sweeps.datafile import read_data
+    from pnbench.sweeps.quantities import parse_quantity
+
+    data = read_data(args.source, args.kind)
+    notes = list(data.notes)
+    if args.temperature is not None:
+        temperature = parse_quantity(args.temperature, "K", what="--temperature")
+    elif data.temperature_K is not None:
+        temperature = data.temperature_K
+    else:
+        temperature = DEFAULT_TEMPERATURE_K
+        notes.append(f"no temperature in the file or options: assumed {temperature} K (27 C)")
+    if not temperature > 0:
+        raise DataFileError(f"--temperature must be > 0 K, got {args.temperature!r}")
+    area = parse_quantity(args.area, "m2", what="--area") if args.area else data.area_m2
+    if area is not None and not area > 0:
+        raise DataFileError(f"--area must be > 0 m^2, got {args.area!r}")
+    ibv = parse_quantity(args.ibv, "A", what="--ibv") if args.ibv else None
+    if ibv is not None and not ibv > 0:
+        raise DataFileError(f"--ibv must be > 0 A, got {args.ibv!r}")
+    if ibv is None:
+        ibv = _run_breakdown_current(args.source, notes)
+    leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at")
+            if args.leakage_at else None)
+    kinds = data.kinds if args.kind == "auto" else (args.kind,)
+    fit_data = {k: data.select(k) for k in kinds if data.select(k) is not None}
+    result = joint.fit_all(fit_data, temperature_K=temperature, area_m2=area,
+                           reference_V=leak, ibv_A=ibv, with_fixture=args.fixture,
+                           extras={"source": str(data.path)})
+    if not any(r.success for r in result.results.values()):
+        reasons = "; ".join(f"{k}: {r.message}" for k, r in result.results.items())
+        raise DataFileError(f"{data.path}: nothing could be fitted ({reasons})")
+    if args.json:
+        print(json.dumps(result.model.to_json_dict(), indent=2, default=_json_default))
+        return 0
+    print(format_table(result, data, temperature, notes, math))
+    return 0
+
+
+def _run_breakdown_current(source: str, notes: list[str]) -> float | None:
+    """For a run folder, the current its plan states BV at (the breakdown guard), so a
+    refit agrees with the run's own model.json; None elsewhere (the fitter's 1 mA)."""
+    from pathlib import Path
+
+    from pnbench.errors import PlanError
+    from pnbench.sweeps.fitmodel import breakdown_current_A
+    from pnbench.sweeps.plan import load_plan
+
+    plan_path = Path(source) / "plan.toml"
+    if not plan_path.is_file():
+        return None
+    try:
+        plan = load_plan(plan_path)
+    except PlanError as exc:
+        notes.append(f"{plan_path} does not load ({exc}); BV is stated at 1 mA")
+        return None
+    ibv = breakdown_current_A(plan.steps)
+    if ibv is not None:
+        notes.append(f"BV is stated at IBV = {ibv:.3g} A, the run's breakdown guard "
+                     "(--ibv sets another)")
+    return ibv
+
+
+def _json_default(value):
+    import numpy as np
+
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    raise TypeError(f"not JSON-able: {type(value).__name__}")
+
+
+def format_table(result, data, temperature, notes, math) -> str:
+    """The human-readable report: one line per parameter, then what each fit said."""
+    from pnbench.modeling.params import UNITS
+    from pnbench.sweeps.quantities import format_quantity
+
+    counts = ", ".join(f"{int((data.row_kind == k).sum())} {k.upper()} points"
+                       for k in data.kinds)
+    lines = [f"{data.path}: {counts}, {temperature:.6g} K", ""]
+    lines.append(f"  {'parameter':<10}{'value':>16}{'sigma':>16}{'rel. sigma':>12}")
+    model = result.model
+    for name in UNITS:
+        if name not in model.values:
+            continue
+        value, sigma, unit = model.values[name], model.sigma(name), UNITS[name]
+        val = format_quantity(value, unit) if unit else f"{value:.6g}"
+        if sigma is None:
+            sig, rel = "stated" if name == "IBV" else "-", ""
+        else:
+            sig = format_quantity(sigma, unit, prec=2) if unit else f"{sigma:.3g}"
+            rel = f"{100 * sigma / abs(value):.3g} %" if value else ""
+        lines.append(f"  {name:<10}{val:>16}{sig:>16}{rel:>12}")
+    extras = model.extras
+    if "leakage" in extras:
+        leak = extras["leakage"]
+        sd = leak.get("sigma_A")
+        lines.append(f"  leakage at {leak['voltage_V']:.4g} V: "
+                     f"{format_quantity(leak['current_A'], 'A')}"
+                     + (f" +- {format_quantity(sd, 'A')}" if sd is not None else ""))
+    if "fixture_capacitance_F" in extras:
+        fx = extras["fixture_capacitance_F"]
+        lines.append(f"  fixture capacitance: {format_quantity(fx['value'], 'F')}")
+    doping = extras.get("doping")
+    if isinstance(doping, dict):
+        if "doping_per_m3" in doping:
+            lines.append(f"  Mott-Schottky: doping {doping['doping_per_m3'] * 1e-6:.4g} cm^-3 "
+                         f"+- {doping['doping_sigma_per_m3'] * 1e-6:.2g}, built-in voltage "
+                         f"{doping['built_in_voltage_V']:.4g} V ({doping['material']}, "
+                         f"area {doping['area_m2']:.4g} m^2)")
+        else:
+            lines.append(f"  {doping.get('message')}")
+        if doping.get("note"):
+            lines.append(f"  caution: {doping['note']}")
+    lines.append("")
+    for kind, r in result.results.items():
+        chi = (f", reduced chi-square {r.reduced_chi2:.3g}"
+               if math.isfinite(r.reduced_chi2) else "")
+        lines.append(f"  {kind}: {r.message}{chi}")
+    lines += [f"  note: {n}" for n in notes]
+    return "\n".join(lines)

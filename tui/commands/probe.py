@@ -1,0 +1,177 @@
+"""`pnbench probe`: find instruments, identify one, check it understands a dialect.
+
+Without RESOURCE it lists the VISA resources the backend can see, each with its reply to
+the identification query (short timeout each). With RESOURCE it identifies that
+instrument; with --role it also sends the dialect's configuration commands for that role
+and checks the instrument's error queue stays empty, without turning any output on. An
+instrument whose output (or DC bias) is already on is left untouched.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import json
+
+from pnbench.errors import BadInput, InstrumentError, SafetyStop
+
+HELP = "list visible instruments, or identify one and check it accepts a dialect"
+
+#: Per-resource timeout when listing: a silent port must not hold the list up.
+LIST_TIMEOUT_MS = 500
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("resource", nargs="?", metavar="RESOURCE",
+                        help="VISA resource to probe, e.g. TCPIP0::192.0.2.20::5025::SOCKET "
+                             "(default: list every visible resource)")
+    parser.add_argument("--role", choices=("smu", "lcr"),
+                        help="also check the dialect's configuration commands for this role")
+    parser.add_argument("--dialect", metavar="FILE",
+                        help="dialect file (TOML) to check (default: the built-in SCPI dialect)")
+    parser.add_argument("--backend", default="@py", metavar="B",
+                        help="VISA backend: @py (default), the path of a VISA library, or "
+                             "FILE.yaml@sim for pyvisa-sim")
+    parser.add_argument("--timeout-ms", type=int, default=2000, metavar="MS",
+                        help="reply timeout for RESOURCE (default 2000)")
+    parser.add_argument("--simulate", metavar="DUT.toml",
+                        help="probe the simulated bench with this device instead (RESOURCE "
+                             "is then the role's simulated instrument)")
+    parser.add_argument("--time-scale", type=float, default=0.0, metavar="X",
+                        help="with --simulate: instrument time factor (default 0)")
+    parser.add_argument("--json", action="store_true", help="print one JSON object")
+
+
+def _list(backend: str, dialect) -> dict:
+    from pnbench.drivers.session import list_visible, open_manager, open_session
+
+    rows = []
+    for name in list_visible(open_manager(backend)):
+        row = {"resource": name}
+        try:
+            with open_session(name, backend, LIST_TIMEOUT_MS, dialect) as session:
+                row["identity"] = session.identify()
+        except InstrumentError as exc:
+            row["error"] = str(exc)
+        rows.append(row)
+    return {"backend": backend, "resources": rows}
+
+
+def _check_smu(session, dialect, report: dict) -> None:
+    from pnbench.drivers.roles import Smu
+
+    smu = Smu(session, dialect)
+    if smu.output_is_on():
+        raise SafetyStop(f"{session.resource_name}: the SMU output is ON; probe changes no "
+                         "settings of an instrument that is sourcing. Turn it off first.")
+    try:
+        smu.configure("current", limit=1.0)
+        smu.configure("voltage", limit=1e-4)
+        c = smu.commands
+        for key in ("tripped_sourcing_voltage", "tripped_sourcing_current"):
+            query = getattr(c, key)
+            if query:
+                report["checks"][key] = session.query(query)
+        session.drain_errors(context="the compliance status queries")
+    except BaseException:
+        with contextlib.suppress(InstrumentError):  # it was off; the first fault matters
+            smu.safe_off()
+        raise
+    report["safe_off_notes"] = smu.safe_off()
+    report["checks"]["configuration"] = "accepted (voltage and current sourcing)"
+    report["checks"]["output"] = "off"
+
+
+def _check_lcr(session, dialect, report: dict) -> None:
+    from pnbench.drivers.roles import LcrMeter
+
+    lcr = LcrMeter(session, dialect)
+    if lcr.bias_is_on():
+        raise SafetyStop(f"{session.resource_name}: the LCR meter's DC bias is ON; probe "
+                         "changes no settings of an instrument that is biasing a device.")
+    try:
+        lcr.configure(0.02)
+        reading = lcr.apply_and_read(0.0, 1000.0)  # bias level 0 with the bias off
+        session.drain_errors(context="a reading at 1 kHz")
+    except BaseException:
+        with contextlib.suppress(InstrumentError):
+            lcr.safe_off()
+        raise
+    report["safe_off_notes"] = lcr.safe_off()
+    report["checks"]["configuration"] = f"accepted (form {lcr.form}, AC level 20 mV)"
+    report["checks"]["reading_1kHz"] = {"primary": reading.primary,
+                                        "secondary": reading.secondary}
+    report["checks"]["bias"] = "off"
+
+
+def _probe_one(resource: str, backend: str, timeout_ms: int, dialect, role: str | None) -> dict:
+    from pnbench.drivers.session import open_session
+
+    report: dict = {"resource": resource, "backend": backend, "dialect": dialect.source,
+                    "role": role, "checks": {}}
+    with open_session(resource, backend, timeout_ms, dialect) as session:
+        report["identity"] = session.identify()
+        report["nodelay"] = session.nodelay
+        leftover = session.drain_errors(check=False)
+        if leftover:
+            report["errors_before_probe"] = [list(e) for e in leftover]
+        if role == "smu":
+            _check_smu(session, dialect, report)
+        elif role == "lcr":
+            _check_lcr(session, dialect, report)
+    return report
+
+
+def _print(report: dict) -> None:
+    if "resources" in report:
+        rows = report["resources"]
+        if not rows:
+            print(f"no VISA resources visible through backend {report['backend']}. Raw TCP "
+                  "socket instruments are never listed; probe one by name, e.g.\n"
+                  "  pnbench probe TCPIP0::192.0.2.20::5025::SOCKET --role smu")
+        for row in rows:
+            print(f"{row['resource']}  {row.get('identity') or '(no answer)'}")
+        return
+    print(f"{report['resource']}  {report['identity']}")
+    for code, message in report.get("errors_before_probe", []):
+        print(f"  note: error queue held {code},\"{message}\" before the probe")
+    for key, value in report["checks"].items():
+        print(f"  {key}: {value}")
+    for note in report.get("safe_off_notes", []):
+        print(f"  note: {note}")
+    if report["role"]:
+        print(f"  dialect {report['dialect']} works for the {report['role'].upper()} role")
+
+
+def run(args: argparse.Namespace) -> int:
+    from pnbench.drivers.dialect import load_dialect
+
+    if args.role and not (args.resource or args.simulate):
+        raise BadInput("--role needs a RESOURCE (or --simulate) to check; "
+                       "without one probe only lists the visible instruments")
+    if args.resource and args.simulate:
+        raise BadInput("give RESOURCE or --simulate, not both (with "
+                       "--simulate the role's simulated instrument is probed)")
+    dialect = load_dialect(args.dialect)
+    if args.role:
+        dialect.require(args.role)
+    if args.simulate:
+        from pnbench.drivers.sim.bench import SimBench
+
+        with SimBench.start(args.simulate, time_scale=args.time_scale) as bench:
+            roles = [args.role] if args.role else ["smu", "lcr"]
+            reports = [_probe_one(getattr(bench, f"{r}_resource"), "@py", args.timeout_ms,
+                                  dialect, r if args.role else None) for r in roles]
+        report = reports[0] if args.role else {
+            "backend": "simulated bench",
+            "resources": [{"resource": r["resource"], "identity": r["identity"]}
+                          for r in reports]}
+    elif args.resource:
+        report = _probe_one(args.resource, args.backend, args.timeout_ms, dialect, args.role)
+    else:
+        report = _list(args.backend, dialect)
+    if args.json:
+        print(json.dumps(report))
+    else:
+        _print(report)
+    return 0

@@ -1,0 +1,41 @@
+"""`pnbench resume RUN_DIR`: finish an interrupted run where it stopped."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from pnbench.tui.commands.run import add_bench_options, check_bench_options
+
+HELP = "continue an interrupted run at its next point (same instruments, same plan)"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("run_dir", metavar="RUN_DIR", help="the run folder to continue")
+    add_bench_options(parser)
+    parser.add_argument("--no-report", action="store_true",
+                        help="do not write report.html at the end (`pnbench report RUN_DIR` "
+                        "makes it later)")
+    parser.add_argument("--force-identity", action="store_true",
+                        help="continue even if an instrument answers with another serial "
+                        "number than the run recorded")
+
+
+def run(args) -> int:
+    from pnbench.sweeps.launch import Launch, plan_of_run
+    from pnbench.sweeps.store import read_run
+    from pnbench.tui.headless import run_headless
+
+    run_doc = read_run(args.run_dir)
+    if run_doc.get("status") == "completed":
+        print(f"{args.run_dir}: the run is already completed; nothing to resume")
+        return 0
+    if args.simulate is None and run_doc.get("simulated"):
+        args.simulate = str(run_doc["simulated"])
+        print(f"simulated run: using the simulated bench with {args.simulate}",
+              file=sys.stderr)
+    check_bench_options(args, plan_of_run(args.run_dir, run_doc) if args.simulate else None)
+    launch = Launch.resume_from(args.run_dir, simulate=args.simulate,
+                                time_scale=args.time_scale,
+                                force_identity=args.force_identity)
+    return run_headless(launch, launch.plan, report=not args.no_report)

@@ -1,0 +1,70 @@
+"""`pnbench run PLAN`: run a plan file on the instruments or the simulated bench."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+HELP = "run a plan on the instruments (or rehearse it with --simulate DEVICE)"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("plan", help="plan file (TOML); see `pnbench check PLAN`")
+    add_bench_options(parser)
+    parser.add_argument("--no-report", action="store_true",
+                        help="do not write report.html at the end (`pnbench report RUN_DIR` "
+                        "makes it later)")
+    parser.add_argument("--out", default="runs", metavar="DIR",
+                        help="folder in which the run folder is created (default: runs)")
+    parser.add_argument("--headless", action="store_true",
+                        help="progress on the terminal (or plain lines in a log) instead "
+                        "of the app")
+
+
+def add_bench_options(parser: argparse.ArgumentParser, time_scale: float = 1.0) -> None:
+    parser.set_defaults(default_time_scale=time_scale)
+    parser.add_argument("--simulate", metavar="DUT.toml",
+                        help="use the simulated bench with this device file (or the name "
+                        "of a bundled one, e.g. lh-sw200) instead of the plan's instruments")
+    parser.add_argument("--time-scale", type=float, default=None, metavar="X",
+                        help="with --simulate: 0 = as fast as possible, 1 = the "
+                        f"instruments' real time (default: {time_scale:g})")
+
+
+def check_bench_options(args, plan=None) -> None:
+    """Bad --simulate or --time-scale values exit 2 before anything is created; with a
+    plan, its limits and levels are checked against the simulated instruments."""
+    from pnbench.errors import BadInput
+
+    if args.time_scale is not None and args.simulate is None:
+        print("note: --time-scale only applies with --simulate; ignored", file=sys.stderr)
+    if args.time_scale is None:
+        args.time_scale = args.default_time_scale
+    if args.time_scale < 0 or args.time_scale != args.time_scale:
+        raise BadInput(f"--time-scale {args.time_scale}: expected a number >= 0 (0 = as fast "
+                       "as possible, 1 = real instrument time)")
+    if args.simulate is not None:
+        from pnbench.drivers.sim.device import resolve_device
+
+        device = resolve_device(args.simulate)  # DeviceFileError names the file and key
+        if plan is not None:
+            from pnbench.sweeps.ratings import check_simulated
+
+            check_simulated(plan, device)
+
+
+def run(args) -> int:
+    from pnbench.sweeps.launch import Launch
+    from pnbench.sweeps.plan import load_plan
+    from pnbench.tui.headless import app_available, run_headless
+
+    plan = load_plan(args.plan)
+    check_bench_options(args, plan)
+    if not args.headless and sys.stdout.isatty() and app_available():
+        from pnbench.tui.app.application import run_app
+
+        return run_app(plan_path=args.plan, simulate=args.simulate,
+                       time_scale=args.time_scale, out_dir=args.out, autostart=True)
+    launch = Launch.new(plan, simulate=args.simulate, time_scale=args.time_scale,
+                        out_dir=args.out)
+    return run_headless(launch, plan, report=not args.no_report)
