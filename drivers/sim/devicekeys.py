@@ -11,14 +11,25 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
+from pnbench.modeling.materials import (
+    ALIASES,
+    MATERIALS,
+    PN_CARD_XTI,
+    SCHOTTKY_CARD_EG,
+    SCHOTTKY_CARD_XTI,
+)
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
 
-#: Band gap [eV] by material, the EG default of a pn junction (Sze & Ng, 3rd ed., appendix;
-#: from memory, as PHYSICS.md section 5 lists them).
-MATERIAL_EG_eV = {"Si": 1.11, "Ge": 0.67, "GaAs": 1.42, "SiC": 3.26, "GaN": 3.4}
-#: EG [eV] and XTI of a Schottky barrier, the common simulator practice (from memory).
-SCHOTTKY_EG_eV, SCHOTTKY_XTI = 0.69, 2.0
-PN_XTI = 3.0
+#: EG [eV] a pn junction's card takes by default, by material name (the materials table's
+#: card_eg_eV, docs/physics.md §8; its aliases accepted too).
+MATERIAL_EG_eV = {
+    **{name: m.default_card_eg_eV for name, m in MATERIALS.items()},
+    **{alias: MATERIALS[key].default_card_eg_eV for alias, key in ALIASES.items()},
+}
+#: EG [eV] and XTI of a Schottky barrier, and XTI of a pn junction, by default (SPICE2's
+#: parameter table, from memory; the materials module keeps them with their source).
+SCHOTTKY_EG_eV, SCHOTTKY_XTI = SCHOTTKY_CARD_EG.value, SCHOTTKY_CARD_XTI.value
+PN_XTI = PN_CARD_XTI.value
 
 FAULT_KINDS = ("drop", "stall", "garbage", "error", "overflow")
 INSTRUMENTS = ("smu", "lcr")
