@@ -1,10 +1,10 @@
-"""Is an LCR meter's AC test level small enough at this bias? (PHYSICS.md §3)
+"""Is an LCR meter's AC test level small enough at this bias? (docs/physics.md §6)
 
 A test voltage of peak x*N*Vt across the junction, on top of the bias, drives the
 exponential current exp(x*cos(wt)) = 1 + x*cos + (x*cos)**2/2 + (x*cos)**3/6 + ...
 
 * The second-order term, x/2 of the linear one at the peak, is the distortion
-  (a DC shift and a second harmonic, each x/4 of the fundamental): PHYSICS.md §3's
+  (a DC shift and a second harmonic, each x/4 of the fundamental): docs/physics.md §6:
   "about vd/(2*N*Vt)".
 * A meter reads the fundamental. Its error comes from the third-order term,
   3/4 * x**3/6 = x**3/8, i.e. a relative conductance error of x**2/8 (exactly

@@ -1,6 +1,6 @@
 """Depletion capacitance and doping: Mott-Schottky line, doping profile, built-in voltage.
 
-One-sided abrupt junction or Schottky barrier of area A, permittivity eps (PHYSICS.md §5,
+One-sided abrupt junction or Schottky barrier of area A, permittivity eps (docs/physics.md §7,
 after Sze & Ng, *Physics of Semiconductor Devices*, 3rd ed., 2007, ch. 2-3):
 
     C/A     = sqrt(q*eps*N / (2*(Vbi - V - kT/q)))

@@ -1,11 +1,11 @@
 """C–V and admittance fits: CJO, VJ, M (and a fixture capacitance), and TT with IS, N, RS.
 
 * ``fit_cv``: the depletion capacitance Cj(V) = CJO/(1 - V/VJ)**M (with the simulator's
-  linear continuation above FC*VJ, PHYSICS.md §3) fitted to reverse and low-forward
+  linear continuation above FC*VJ, docs/physics.md §4) fitted to reverse and low-forward
   points. Forward points are taken in, lowest bias first, only while they agree with
   the depletion curve extrapolated from the points before them (to within four standard
   errors of the prediction and the noise), so the diffusion capacitance never biases it.
-* ``fit_admittance``: the whole small-signal model of PHYSICS.md §3, RS in series with
+* ``fit_admittance``: the whole small-signal model of docs/physics.md §4, RS in series with
   gd + 1/RSH + j*w*(Cj + TT*gd), fitted in complex admittance: the capacitance channel
   (Im Y / w) and the conductance channel (Re Y, residuals in its logarithm, forward
   points only) together. The conductance against bias carries IS, N and RS, so C–V data

@@ -1,6 +1,6 @@
 """Forward I–V fit of IS, N, RS (and RSH when the data show a shunt) on the exact model.
 
-The model is the explicit Lambert-W solution of junction.current (PHYSICS.md §2); the
+The model is the explicit Lambert-W solution of junction.current (docs/physics.md §2); the
 residuals are in log current, so every decade of current counts by its relative error,
 and IS is fitted as ln IS. Start values come from the data alone (no guess from the
 user): the steepest straight stretch of ln I against V gives N and IS, the Cheung–Cheung

@@ -1,7 +1,7 @@
 """Reverse I–V: leakage at a reference voltage, the shunt RSH, and BV at a stated IBV.
 
 * BV: the voltage at which the reverse current reaches IBV (the simulator convention,
-  PHYSICS.md §2), read where the data cross IBV by a straight line through ln|I| against
+  docs/physics.md §2), read where the data cross IBV by a straight line through ln|I| against
   V over the points within a decade either side (the breakdown current is exponential in
   V, so the line is the right interpolant); with only the two bracketing points, the line
   through them. If the data never reach IBV, BV is absent and the message says how far

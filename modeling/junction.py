@@ -1,6 +1,6 @@
 """DC model of a junction diode: thermal voltage, I(V) and V(I).
 
-Model (see PHYSICS.md §2): junction current
+Model (see docs/physics.md §2): junction current
 
     Ij(Vd) = IS*(exp(Vd/a) - 1) + Vd/RSH - K*(exp(-Vd/a) - 1),   a = N*Vt,
     K = IBV*exp(-BV/a)
@@ -43,7 +43,7 @@ def thermal_voltage(temperature_K: float = DEFAULT_TEMPERATURE_K) -> float:
 
 def saturation_current(params: DiodeParams, temperature_K: float,
                        nominal_K: float = DEFAULT_TEMPERATURE_K) -> float:
-    """IS [A] at temperature_K of a model whose values hold at nominal_K (PHYSICS.md §7):
+    """IS [A] at temperature_K of a model whose values hold at nominal_K (docs/physics.md §3):
 
         IS(T) = IS * (T/Tn)**(XTI/N) * exp((EG*q/(N*k)) * (1/Tn - 1/T))
 

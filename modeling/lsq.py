@@ -9,11 +9,11 @@ decades; ``"lin"``: plain residual, for capacitances). Each channel has a noise 
 
 either given by the caller or estimated from the residuals (iteratively reweighted).
 Residuals are divided by sigma, so for Gaussian noise of that size the weighted sum of
-squares is a chi-square and cov = s**2 (J^T W J)^-1 (PHYSICS.md §6) is the Cramér–Rao
-bound at the optimum. Points whose model value lies below ``FLOOR_FACTOR`` times the
-floor carry almost no information and are left out of log channels (the log of a
-reading at the floor is meaningless); the choice uses the model value, not the reading,
-so it does not bias the fit.
+squares is a chi-square and cov = s**2 (J^T W J)^-1 is the Cramér–Rao bound at the
+optimum (docs/physics.md §9; Kay, Estimation Theory, 1993, ch. 3). Points whose model
+value lies below ``FLOOR_FACTOR`` times the floor carry almost no information and are
+left out of log channels (the log of a reading at the floor is meaningless); the choice
+uses the model value, not the reading, so it does not bias the fit.
 
 The solver is a small Levenberg–Marquardt with Marquardt scaling and bounds by
 projection: a handful of parameters, many points, no scipy call overhead.

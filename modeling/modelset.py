@@ -2,7 +2,7 @@
 
 Two text forms, both pure (strings and dicts in, strings and dicts out; no files here):
 
-* the model.json document of DESIGN.md::
+* the model.json document (docs/run-folder.md)::
 
       {"parameters": {"IS": {"value": 1e-14, "sigma": 2e-16, "unit": "A"}, ...},
        "temperature_K": 300.15, ...extras}

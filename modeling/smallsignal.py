@@ -1,12 +1,12 @@
 """Small-signal equivalent of a diode at a quiescent point, and LCR-meter conversions.
 
-Equivalent circuit (PHYSICS.md §3): RS in series with the parallel combination of the
+Equivalent circuit (docs/physics.md §4): RS in series with the parallel combination of the
 junction conductance gd (plus the shunt 1/RSH), the depletion capacitance Cj and the
 diffusion capacitance Cd = TT*gd. Admittance at angular frequency w:
 
     Yj = gd + 1/RSH + j*w*(Cj + Cd),   Z = RS + 1/Yj,   Y = 1/Z
 
-Meter readings (PHYSICS.md §4): parallel Y = Gp + j*w*Cp; series Z = Rser + 1/(j*w*Cs);
+Meter readings (docs/physics.md §5): parallel Y = Gp + j*w*Cp; series Z = Rser + 1/(j*w*Cs);
 D = Gp/(w*Cp) = w*Cs*Rser.
 """
 

@@ -1,4 +1,4 @@
-"""Reading measured data for fits: CSV files of the DESIGN.md columns and run folders.
+"""Reading measured data for fits: CSV files (columns as in docs/run-folder.md) and run folders.
 
 Columns (header row; extra columns are kept and ignored by the fits):
 

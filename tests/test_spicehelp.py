@@ -3,7 +3,7 @@ cycles without end at reltol 1e-9 ends in a clear failure or, by default, in the
 documented fallback, without loosening what the comparisons assert.
 
 Reference: ngspice's level-1 diode in batch mode; the project's exact DC model
-(PHYSICS.md §2) with GMIN folded in, compared at the junction tests' 1e-4.
+(docs/physics.md §2) with GMIN folded in, compared at the junction tests' 1e-4.
 """
 
 from __future__ import annotations

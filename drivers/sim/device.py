@@ -1,6 +1,6 @@
 """Simulated-device files: the diode on the simulated bench and how its instruments behave.
 
-A device file is TOML. `[diode]` holds model-card names in SI units (DESIGN.md); the other
+A device file is TOML. `[diode]` holds model-card names in SI units (docs/physics.md); the other
 tables are pnbench's own and every key has a documented default (`KEYS`, also printed in
 each bundled file's header):
 
@@ -15,7 +15,7 @@ each bundled file's header):
 
 The device on the bench is the card scaled by `area` (IS, IBV and CJO times area; RS and
 RSH divided by it, as simulators treat their AREA factor) and IS moved from `tnom_K` to
-`temperature_K` with the simulator law of PHYSICS.md section 7
+`temperature_K` with the simulator law of docs/physics.md §3
 (`junction.params_at_temperature`). Other parameters do not
 change with temperature here. Anything wrong raises DeviceFileError naming the file and key.
 """

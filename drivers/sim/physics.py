@@ -6,7 +6,7 @@
 - `fundamental_admittance`: what an LCR meter reads at a DC bias and an AC level: the
   fundamental of the large-signal current, so a test signal that is large against N*Vt
   reads a larger conductance and diffusion capacitance than the small-signal model (the
-  distortion of PHYSICS.md section 3). The junction is treated as a memoryless nonlinear
+  distortion of docs/physics.md §6). The junction is treated as a memoryless nonlinear
   conductance and charge, driven by a sinusoid of amplitude a; the fundamental of each is
   the describing function
 

@@ -9,7 +9,8 @@ Run: python tests/benchmarks/fit_stream.py [--quick]
   exact model), measured in the same run.
 * efficiency: over Monte Carlo draws of instrument-like noise (0.1 % of reading + 1 pA),
   the spread of each estimate divided by the Cramér–Rao bound at the truth
-  ((J^T W J)^-1, PHYSICS.md §6; 1.0 is the best any unbiased estimator can do). The
+  ((J^T W J)^-1, docs/physics.md §9; Kay, 1993, ch. 3; 1.0 is the best any unbiased
+  estimator can do). The
   same figure for a textbook two-region method (slope of ln I over the decades
   1 nA to 10 uA for N and IS, then RS from the excess voltage above 10 mA) shows the gain.
 

@@ -11,7 +11,8 @@ the same socket and in the same run):
     role and the three-unit message add to a round trip.
 (b) write_then_query: the level in one write, the reading in a second message, on a plain
     pyvisa-py socket (Nagle's algorithm on, as pyvisa-py leaves it) and on the session's
-    socket (TCP_NODELAY on). The first is the trap DESIGN.md measured (~44 ms a pair).
+    socket (TCP_NODELAY on). The first is the Nagle/delayed-ACK trap the README warns
+    about (tens of ms a pair).
 (c) sweep: points per second of a 200-point forward and reverse sweep through the Smu
     role at time scale 0 (every point a new level, so the physics is solved each time),
     against bare round trips per second.

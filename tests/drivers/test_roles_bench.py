@@ -111,7 +111,8 @@ def test_overflow_marker_reads_as_infinite(bench, smu):
 
 
 def test_reverse_bias_capacitance_matches_the_model(bench, lcr):
-    """C(V) = CJO/(1 - V/VJ)^M for reverse bias (the SPICE depletion law, PHYSICS.md)."""
+    """C(V) = CJO/(1 - V/VJ)^M for reverse bias (the SPICE depletion law, Nagel 1975;
+    docs/physics.md §4)."""
     lcr.configure(0.02)
     lcr.bias(True)
     params = bench.device.params

@@ -59,7 +59,7 @@ def test_missing_keys_take_documented_defaults():
 
 def test_schottky_junction_and_material_set_eg_xti_defaults():
     """EG 0.69 eV and XTI 2 for Schottky barriers, XTI 3 for pn junctions: common
-    simulator defaults (from memory); band gaps as PHYSICS.md section 5 lists them."""
+    simulator defaults (from memory); band gaps from the materials table (docs/physics.md §8)."""
     schottky = parse_device('[device]\njunction = "schottky"\n').card
     assert (schottky.EG, schottky.XTI) == (0.69, 2.0)
     ge = parse_device('[device]\nmaterial = "Ge"\n').card

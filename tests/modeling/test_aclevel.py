@@ -17,7 +17,7 @@ A = junction.thermal_voltage()
 
 @pytest.mark.parametrize("x", [0.02, 0.1, 0.3, 0.5])
 def test_error_estimate_matches_the_computed_large_signal_fundamental(x):
-    """The estimate x^2/8 (third-order term of the exp series, PHYSICS.md §3 expanded)
+    """The estimate x^2/8 (third-order term of the exp series, docs/physics.md §6; DLMF §10.25(ii))
     matches the fundamental of Ij(Vd + x*N*Vt*cos) computed numerically to within
     about x^2/24 of itself (the next term of the series, x^4/192)."""
     vd = 0.62
@@ -52,7 +52,7 @@ def test_five_millivolt_rms_at_one_milliamp_is_just_acceptable_ten_is_not():
 
 def test_series_resistance_divides_the_level():
     """At high current RS takes most of the test signal: the junction sees
-    |1/(1 + RS*Yj)| of it (PHYSICS.md §3 equivalent circuit)."""
+    |1/(1 + RS*Yj)| of it (docs/physics.md §4 equivalent circuit)."""
     p = DiodeParams(IS=1e-14, N=1.0, RS=5.0)
     check = aclevel.check_ac_level(p, 10e-3, bias_current_A=20e-3)
     gd = (20e-3 + 1e-14) / A

@@ -25,7 +25,7 @@ def test_mott_schottky_recovers_doping_and_vbi_of_synthetic_cv():
     """Doping within 0.1 % and Vbi within 2 mV from C-V with 0.05 % noise.
 
     Source: Sze & Ng, Physics of Semiconductor Devices, 3rd ed., ch. 2-3 (Mott-Schottky
-    relation with the kT/q term, PHYSICS.md §5).
+    relation with the kT/q term, docs/physics.md §7).
     """
     rng = np.random.default_rng(7)
     doping, vbi = 3.0e21, 0.78       # 3e15 cm^-3
@@ -68,7 +68,7 @@ def _profile_cv(depth_edges, dopings, w):
 
 
 def test_doping_profile_recovers_a_step_in_doping():
-    """N(W) = -2/(q*eps*A^2*d(1/C^2)/dV) at W = eps*A/C (PHYSICS.md §5) follows a step
+    """N(W) = -2/(q*eps*A^2*d(1/C^2)/dV) at W = eps*A/C (docs/physics.md §7) follows a step
     from 1e16 to 4e16 cm^-3 at 1 um, away from the step, to 0.5 %."""
     w = np.linspace(0.2e-6, 2.0e-6, 4001)
     v, c = _profile_cv([1.0e-6], [1e22, 4e22], w)
@@ -148,7 +148,7 @@ def test_materials_table_names_a_source_for_every_value():
 
 
 def test_material_constants_agree_with_physics_md():
-    """PHYSICS.md §5 (Sze & Ng, 3rd ed., appendix, from memory): Si 11.7, 1.12 eV,
+    """Sze & Ng, 3rd ed., appendix, from memory (docs/physics.md §8): Si 11.7, 1.12 eV,
     9.65e9 cm^-3; Ge 16.0, 0.66 eV, 2.33e13; GaAs 12.9, 1.42 eV, 2.1e6."""
     expect = {"Si": (11.7, 1.12, 9.65e9), "Ge": (16.0, 0.66, 2.33e13),
               "GaAs": (12.9, 1.42, 2.1e6)}

@@ -2,7 +2,8 @@
 
 Reference: ngspice level-1 diode, AC analysis in batch mode (tests/spicehelp.py); the
 capacitance read from it is Im(Y)/w of the whole device, RS included, and its depletion
-capacitance uses the same linear continuation above FC*VJ (FC = 0.5) as PHYSICS.md §3.
+capacitance uses the same linear continuation above FC*VJ (FC = 0.5) as docs/physics.md §4
+(Nagel, SPICE2, 1975).
 """
 
 from __future__ import annotations
@@ -106,7 +107,8 @@ def test_mott_schottky_doping_of_an_abrupt_junction(ngspice):
 
 def _crb_cv(v, p, rel, floor, h=1e-6):
     """Cramér-Rao bound of (ln CJO, VJ, M) for Gaussian C readings: (J^T W J)^-1 at the
-    truth (PHYSICS.md §6), J by central differences of smallsignal.depletion_capacitance."""
+    truth (docs/physics.md §9; Kay, 1993, ch. 3), J by central differences of
+    smallsignal.depletion_capacitance."""
     base = np.array([math.log(p.CJO), p.VJ, p.M])
 
     def cap(t):

@@ -143,7 +143,7 @@ def test_breakdown_through_scattered_voltage_readings(seed):
     """A sweep through a soft knee (N = 1.82) in 20 mV steps, stopped at the 10 uA guard,
     with 8 mV of scatter on the measured voltages: BV is read over several points with
     a finite sigma and lies within four of them of the true voltage at 10 uA (the
-    breakdown term is IBV at -BV, the simulator convention, PHYSICS.md §2); the leakage
+    breakdown term is IBV at -BV, the simulator convention, docs/physics.md §2); the leakage
     is read before the knee, where the reverse current is IS (Sze & Ng, ch. 2)."""
     p = DiodeParams(IS=2.9e-9, N=1.82, RS=0.62, BV=105.0, IBV=1e-7)
     rng = np.random.default_rng(seed)
@@ -188,8 +188,8 @@ def test_leakage_outside_the_measured_range_is_not_made_up(data):
 
 def _crb(v, p, rel, floor, h=1e-6):
     """Cramér-Rao bound of (ln IS, N, RS) for Gaussian readings of sigma = rel*I + floor
-    (in quadrature): (J^T W J)^-1 at the truth (PHYSICS.md §6), J by central differences
-    of junction.current, independent of the fitter's own derivatives."""
+    (in quadrature): (J^T W J)^-1 at the truth (docs/physics.md §9; Kay, 1993, ch. 3), J by
+    central differences of junction.current, independent of the fitter's own derivatives."""
     base = np.array([math.log(p.IS), p.N, p.RS])
 
     def cur(t):

@@ -17,7 +17,7 @@ from pnbench.modeling.params import DiodeParams
 def test_thermal_voltage_at_27_celsius_from_scipy_constants():
     """Vt(300.15 K) = 25.865 mV; Vt(300 K) = 25.852 mV.
 
-    Source: scipy.constants (CODATA 2018, k and e exact since the 2019 SI); PHYSICS.md §1.
+    Source: scipy.constants (CODATA 2018, k and e exact since the 2019 SI); docs/physics.md §1.
     """
     assert junction.thermal_voltage(300.15) == pytest.approx(25.865e-3, abs=0.5e-6)
     assert junction.thermal_voltage(300.0) == pytest.approx(25.852e-3, abs=0.5e-6)
@@ -85,7 +85,7 @@ def test_scalar_in_scalar_out_and_shapes_kept():
 
 
 def test_saturation_current_follows_the_simulator_temperature_law():
-    """IS(T) = IS*(T/Tn)**(XTI/N)*exp(EG/(N*k/q)*(1/Tn - 1/T)) (PHYSICS.md §7, Antognetti &
+    """IS(T) = IS*(T/Tn)**(XTI/N)*exp(EG/(N*k/q)*(1/Tn - 1/T)) (docs/physics.md §3, Antognetti &
     Massobrio 1988); silicon IS roughly doubles every 5 K near room temperature
     (common practice, no source): here within 4.5-5.5 K per doubling."""
     p = DiodeParams(IS=1e-14, N=1.0, EG=1.11, XTI=3.0)

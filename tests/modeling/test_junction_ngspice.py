@@ -71,7 +71,7 @@ def test_dc_current_matches_ngspice(ngspice, name):
 
 
 def test_dc_current_matches_ngspice_away_from_nominal_temperature(ngspice):
-    """IS moved with EG and XTI (PHYSICS.md §7) agrees with ngspice at -20 °C and 85 °C.
+    """IS moved with EG and XTI (docs/physics.md §3) agrees with ngspice at -20 °C and 85 °C.
 
     Source: ngspice level-1 diode with TNOM 27 °C and .temp set; forward region only
     (ngspice also moves VJ and CJO, which DC does not see).

@@ -31,8 +31,8 @@ def test_json_round_trip_through_text():
 
 
 def test_json_document_has_the_design_shape():
-    """DESIGN.md: {"parameters": {NAME: {"value", "sigma", "unit"}}, "temperature_K", ...};
-    a parameter not extracted is absent."""
+    """model.json (docs/run-folder.md): {"parameters": {NAME: {"value", "sigma", "unit"}},
+    "temperature_K", ...}; a parameter not extracted is absent."""
     doc = ModelSet(values={"IS": 1e-14, "N": 1.0}, sigmas={"IS": 1e-16}).to_json_dict()
     assert doc == {
         "parameters": {"IS": {"value": 1e-14, "sigma": 1e-16, "unit": "A"},

@@ -29,7 +29,7 @@ def test_abrupt_junction_capacitance_scales_as_inverse_square_root():
 
 def test_linearization_above_fc_vj_is_continuous_with_matching_slope():
     """Above FC*VJ the simulator's straight line continues Cj with value and slope
-    (Nagel, SPICE2, 1975; PHYSICS.md §3)."""
+    (Nagel, SPICE2, 1975; docs/physics.md §4)."""
     p = DiodeParams(CJO=5e-12, VJ=0.7, M=0.4, FC=0.5)
     knee = p.FC * p.VJ
     h = 1e-7
@@ -44,7 +44,7 @@ def test_linearization_above_fc_vj_is_continuous_with_matching_slope():
 
 def test_rd_is_about_26_ohm_at_1_mA_and_gd_is_current_over_n_vt():
     """rd ~ 26 ohm at 1 mA for N = 1 (common practice, no source); gd = (I + IS)/(N*Vt)
-    exactly (PHYSICS.md §3)."""
+    exactly (docs/physics.md §4)."""
     p = DiodeParams(IS=1e-14, N=1.0, RS=3.0, TT=4e-9)
     q = smallsignal.operating_point(p, current=1e-3)
     assert q.rd_ohm == pytest.approx(26.0, abs=0.3)
@@ -64,7 +64,7 @@ def test_operating_point_by_voltage_and_by_current_agree():
 
 
 def test_admittance_is_rs_in_series_with_the_junction():
-    """Z = RS + 1/(gd + 1/RSH + j*w*(Cj + Cd)) (PHYSICS.md §3), at the QPoint and in
+    """Z = RS + 1/(gd + 1/RSH + j*w*(Cj + Cd)) (docs/physics.md §4), at the QPoint and in
     device_admittance alike."""
     p = DiodeParams(IS=1e-13, N=1.2, RS=2.5, RSH=2e6, CJO=20e-12, VJ=0.7, M=0.33, TT=5e-9)
     f = np.array([1e2, 1e5, 1e8])
@@ -78,7 +78,7 @@ def test_admittance_is_rs_in_series_with_the_junction():
 
 def test_meter_conversions_round_trip_and_follow_the_textbook_relations():
     """Cs = Cp*(1 + D^2), Rser = Gp/(Gp^2 + w^2*Cp^2), D = Gp/(w*Cp) = w*Cs*Rser
-    (PHYSICS.md §4; these follow from Z = 1/Y)."""
+    (docs/physics.md §5; these follow from Z = 1/Y)."""
     f = np.array([1e3, 1e6])
     w = 2 * np.pi * f
     cp, gp = 47e-12, np.array([3e-6, 2e-4])

@@ -39,7 +39,7 @@ def test_ramp_levels_step_at_most_max():
 
 
 def test_power_prediction_follows_the_exponential():
-    """Forward current of a junction grows e-fold per N*Vt (Shockley; PHYSICS.md 2): the
+    """Forward current of a junction grows e-fold per N*Vt (Shockley 1949; docs/physics.md §2): the
     guard extrapolates log I linearly, so it stops before the level that would exceed
     max_power, where a straight-line extrapolation would not."""
     p = DiodeParams(IS=1e-14, N=1.0)
@@ -90,7 +90,7 @@ def test_overshoot_beyond_compliance_ends_the_run():
 
 
 def test_current_forced_prediction_follows_the_junction_law():
-    """V = N Vt ln(I/IS) + I RS for a forced current (PHYSICS.md 2, RS in series): three
+    """V = N Vt ln(I/IS) + I RS for a forced current (docs/physics.md §2, RS in series): three
     readings determine the next voltage exactly, two give the ideal-diode estimate."""
     p = DiodeParams(IS=1e-14, N=1.05, RS=2.0)
     vt = 0.025865 * p.N

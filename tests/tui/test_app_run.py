@@ -101,7 +101,7 @@ async def test_quitting_during_a_run_asks_then_aborts_safely(tmp_path):
     assert app.live.outputs() == {"smu_output": False, "lcr_bias": False}
     doc = run_doc(app)
     assert doc["status"] == "aborted" and doc["outputs_off_confirmed"] is True
-    assert exit_code(app) == 4  # stopped by the operator, as DESIGN.md says
+    assert exit_code(app) == 4  # stopped by the operator, as the README's exit codes say
 
 
 async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts(tmp_path):

@@ -131,7 +131,7 @@ def test_run_folder_states_bv_at_the_plans_breakdown_guard(tmp_path, capsys):
     """A refit of a run folder states BV at the current the run stopped at (its breakdown
     guard, as the run's own model.json does), not at the fitter's 1 mA default; the
     synthetic device has BV = 60 V at 10 uA, so 5 uA flows about N*Vt*ln 2 short of it
-    (simulator breakdown convention, PHYSICS.md §2)."""
+    (simulator breakdown convention, Nagel, SPICE2, 1975; docs/physics.md §2)."""
     from report_runs import make_run
 
     run_dir = make_run(tmp_path, parts=("forward", "reverse"))

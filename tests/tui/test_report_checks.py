@@ -25,7 +25,7 @@ def full(tmp_path_factory):
 
 
 def test_doping_and_built_in_voltage_follow_the_mott_schottky_formula(full):
-    """PHYSICS.md section 5 (Sze & Ng, 3rd ed., ch. 2): for C = CJO/sqrt(1 - V/VJ),
+    """Sze & Ng, 3rd ed., ch. 2 (docs/physics.md §7): for C = CJO/sqrt(1 - V/VJ),
     1/C^2 = (1 - V/VJ)/CJO^2, so N = 2*VJ*CJO^2/(q*eps*A^2) and the intercept is VJ;
     Vbi = intercept + kT/q. q, eps0, k from scipy.constants; eps_r(Si) = 11.7 (Sze & Ng
     appendix, from memory)."""
@@ -55,7 +55,7 @@ def test_without_an_area_the_line_stays_and_the_doping_goes(tmp_path):
 
 def test_qpoint_rd_at_one_milliampere_is_the_trade_rule(tmp_path):
     """rd = N*Vt/I: "26 ohm at 1 mA" for N = 1 (common practice, no source); Vt from
-    scipy.constants at 300.15 K (PHYSICS.md section 1)."""
+    scipy.constants at 300.15 K (docs/physics.md §1)."""
     an = analyze(load_run(report_runs.make_run(tmp_path, parts=("forward",))))
     rows = {round(r.point.bias_current_A, 9): r for r in an.qrows}
     row = rows[1e-3]

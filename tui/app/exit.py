@@ -61,7 +61,7 @@ def _hangup_guard(app, live) -> None:
 
 
 def exit_code(app, code: object = 0) -> int:
-    """The exit code of DESIGN.md for the last sweep the app owned (as `pnbench run`
+    """The exit code (README, "Commands") for the last sweep the app owned (as `pnbench run`
     gives it), or the app's own code when it ran none."""
     live = app.live
     if live is not None:

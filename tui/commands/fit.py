@@ -3,7 +3,7 @@
     pnbench fit FILE_OR_RUN_DIR [--kind iv|cv|auto] [--temperature K] [--area M2]
                 [--ibv A] [--leakage-at V] [--fixture] [--json]
 
-The file holds the CSV columns of DESIGN.md (``voltage_V,current_A`` for I–V;
+The file holds the CSV columns of docs/run-folder.md (``voltage_V,current_A`` for I–V;
 ``voltage_V,frequency_Hz,capacitance_F[,conductance_S]`` for C–V); ``# key = value``
 comment lines carry metadata such as ``temperature_K`` and ``area_m2``. A run folder is
 fitted jointly (I–V, C–V and admittance). Prints a table of parameters with their

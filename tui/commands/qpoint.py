@@ -7,7 +7,7 @@ MODEL is a model.json, a model-card file (``.model NAME D(...)``) or a run folde
 holds model.json. Quantities take SI prefixes and an optional unit ("650m", "2.5mA",
 "1MHz", "300 K"; a negative value with a prefix as ``--bias-voltage=-500m``, since
 argparse takes "-500m" for an option). The temperature defaults to the model's; away
-from it IS moves with EG and XTI (PHYSICS.md §7) and the other values stay as they are.
+from it IS moves with EG and XTI (docs/physics.md §3) and the other values stay as they are.
 """
 
 from __future__ import annotations

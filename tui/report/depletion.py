@@ -2,7 +2,7 @@
 
 Takes the C-V curve with the most biases, keeps its reverse and zero-bias points (forward
 bias adds diffusion capacitance), and hands them to `pnbench.modeling.depletion`
-(PHYSICS.md section 5). Doping and N(W) need the junction area and the material's
+(docs/physics.md §7). Doping and N(W) need the junction area and the material's
 permittivity; without them the line and the built-in voltage are still shown (they do
 not depend on either) and the report says what is missing.
 """
