@@ -277,6 +277,8 @@ def finish_report(run_dir, stream=None) -> None:
 def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
                  report: bool = True) -> int:
     """Run `launch` on this thread with progress output; signals stop it gracefully.
+    The signal handlers stay until the report is written: a SIGTERM or SIGHUP in the end
+    work is reported, the folder is finished, and the exit code is 4.
     Returns the exit code; connection errors before the first point propagate."""
     from pnbench.sweeps.stopsignals import stop_on_signals
 
@@ -284,20 +286,24 @@ def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
     launch.listeners.append(progress.listener)
     progress.start()
     outcome = None
-    try:
-        with stop_on_signals(launch):
+    with stop_on_signals(launch) as signals:
+        try:
             outcome = launch.run()
-    finally:
-        progress.stop()
-        if launch.run_dir is not None:
-            print(f"run folder: {launch.run_dir}", file=progress.stream)
-    if report:
-        finish_report(launch.run_dir)
+        finally:
+            signals.end_work()
+            progress.stop()
+            if launch.run_dir is not None:
+                print(f"run folder: {launch.run_dir}", file=progress.stream)
+        if report:
+            finish_report(launch.run_dir)
     if outcome.exit_code != 0:
         print(f"pnbench: run {outcome.status}: {outcome.reason}"
               + ("" if outcome.outputs_off_confirmed else
                  "; OUTPUTS NOT CONFIRMED OFF: check the instruments"), file=sys.stderr)
-    return outcome.exit_code
+    elif signals.late:
+        print(f"pnbench: the run had ended when {', '.join(signals.late)} came; its folder "
+              "is complete", file=sys.stderr)
+    return signals.exit_code(outcome.exit_code)
 
 
 def app_available() -> bool:

@@ -25,11 +25,15 @@ HANGUP_EXIT_WAIT_S = 3.0
 
 def safe_exit_on_signals(app) -> dict:
     """On SIGHUP and SIGTERM: abort the sweep this app owns (the runner ramps down and
-    turns every output off) and end the app. Returns the previous handlers."""
+    turns every output off) and end the app. A signal ignored on entry (SIGHUP under
+    nohup) stays ignored. Returns the previous handlers."""
     previous = {}
 
     def handler(signum, _frame) -> None:
         if app._closing:
+            with contextlib.suppress(OSError):  # not print: the handler may interrupt it
+                os.write(2, f"pnbench: got {signal.Signals(signum).name} again; the sweep "
+                         "is already ending with its outputs off\n".encode())
             return
         app._closing = True
         live = app.live
@@ -42,6 +46,8 @@ def safe_exit_on_signals(app) -> dict:
             app.call_later(app.exit, None, 4)
 
     for sig in (signal.SIGHUP, signal.SIGTERM):
+        if signal.getsignal(sig) == signal.SIG_IGN:
+            continue  # nohup: a hang-up must not end the sweep
         try:
             previous[sig] = signal.signal(sig, handler)
         except (ValueError, OSError):  # not the main thread
