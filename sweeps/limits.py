@@ -59,8 +59,9 @@ class Limits:
 class Verdict:
     """Why a step (or the run) has to end. ``kind`` names the guard that fired:
     ``voltage``, ``current``, ``power``, ``breakdown_guard``, ``compliance_storm``,
-    ``overflow`` (readings that are SCPI overflow or not-a-number markers) or
-    ``overshoot``; ``ends`` is ``"step"`` or ``"run"``."""
+    ``overflow`` (a reading that is not a finite number: the SCPI overflow or
+    not-a-number marker, which no guard can judge) or ``overshoot``; ``ends`` is
+    ``"step"`` or ``"run"``."""
 
     kind: str
     message: str
@@ -128,7 +129,6 @@ class StepGuard:
         self.breakdown_guard_A = breakdown_guard_A
         self.history: deque = deque(maxlen=3)  # (source level, measured other quantity)
         self.consecutive_compliance = 0
-        self.consecutive_overflow = 0
 
     def predicted_power_W(self, level: float) -> float:
         """Power the device would take at ``level``, from the last two readings."""
@@ -167,12 +167,8 @@ class StepGuard:
         lim = self.limits
         v, i = reading.voltage_V, reading.current_A
         if not (math.isfinite(v) and math.isfinite(i)):
-            self.consecutive_overflow += 1
-            if self.consecutive_overflow >= COMPLIANCE_STORM_COUNT:
-                return Verdict("overflow", f"{self.consecutive_overflow} readings in a row "
-                               "were overflow or not-a-number markers", level=level)
-            return None
-        self.consecutive_overflow = 0
+            return Verdict("overflow", f"reading {v!r} V, {i!r} A is not a finite number: "
+                           "the guards cannot judge it", "run", level)
         other = i if self.source == "voltage" else v
         self.history.append((level, other))
         i_cap, v_cap = lim.max_current_A, None
@@ -201,3 +197,16 @@ class StepGuard:
         else:
             self.consecutive_compliance = 0
         return None
+
+
+def not_finite(step: str, instrument: str, where: str, values: tuple[float, ...]
+               ) -> str | None:
+    """Why a reading cannot be judged (None when every value is a finite number). The
+    SCPI overflow (9.9E37) and not-a-number (9.91E37) markers read as inf and NaN: no
+    guard can say whether the next level is safe after them, so the run must end."""
+    if all(math.isfinite(x) for x in values):
+        return None
+    shown = ", ".join(repr(float(x)) for x in values)
+    return (f"step {step}, {where}: the {instrument.upper()} answered a reading that is "
+            f"not a finite number ({shown}; an overflow or not-a-number marker); the safety "
+            "checks cannot judge it, so the source was ramped down and the run ended")

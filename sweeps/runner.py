@@ -13,7 +13,6 @@ off, and record it in run.json (`outputs_off_confirmed`).
 
 from __future__ import annotations
 
-import math
 import time
 from dataclasses import dataclass
 
@@ -21,7 +20,7 @@ from pnbench.errors import InstrumentError, OperatorStop, SafetyStop
 from pnbench.modeling.smallsignal import parallel_from_admittance
 from pnbench.sweeps.control import Control
 from pnbench.sweeps.events import EventBus, finite
-from pnbench.sweeps.limits import Reading, StepGuard, Verdict
+from pnbench.sweeps.limits import Reading, StepGuard, Verdict, not_finite
 from pnbench.sweeps.plan import Plan
 from pnbench.sweeps.planstep import Step
 from pnbench.sweeps.store import Point, RunFolder, iso, utc_now
@@ -67,6 +66,7 @@ class Runner:
             self.step_status.update(resume_state.statuses)
             self.ended_by.update(resume_state.ended_by)
         self.current_step: str | None = None
+        self.step_failed = False  # the step in hand ended by an instrument fault
         self.in_shutdown = False
         self.control = Control()
         self._last_refresh = 0.0
@@ -147,7 +147,8 @@ class Runner:
         finally:
             self.folder.sync()
             if self.current_step is not None:
-                self._finish_step_record(self.current_step, "interrupted")
+                self._finish_step_record(self.current_step,
+                                         "failed" if self.step_failed else "interrupted")
             self.folder.update_run(status=status, reason=reason, ended=iso(utc_now()),
                                    outputs_off_confirmed=confirmed, steps=self._steps_doc())
             self.folder.log(f"{status}: {reason}; outputs off confirmed: {confirmed}")
@@ -237,13 +238,11 @@ class Runner:
                 if verdict is not None:
                     break
                 reading = self._read_smu(step, planned.level)
+                self._judgeable(step, planned.index, planned.level, reading.voltage_V,
+                                reading.current_A)
                 self._record(step, Point(step.name, planned.index, "iv", self.bus.elapsed_s(),
                                          reading.voltage_V, reading.current_A,
                                          compliance=reading.compliance))
-                if not (math.isfinite(reading.voltage_V) and math.isfinite(reading.current_A)):
-                    self.bus.emit("warning", step.name, message=f"point {planned.index}: the "
-                                  "instrument answered an overflow or not-a-number marker "
-                                  f"at {planned.level:g} {step.source_unit}", index=planned.index)
                 verdict = guard.after(planned.level, reading)
                 if verdict is None and self._settled(step):
                     clean = True
@@ -281,6 +280,7 @@ class Runner:
             verdict = guard.before(level)
             if verdict is None:
                 r = self.bench.smu.apply_and_read(level)
+                self._judgeable(step, None, level, r.voltage_V, r.current_A)
                 verdict = guard.after(level, Reading(r.voltage_V, r.current_A,
                                                      bool(r.compliance)))
             if verdict is not None:
@@ -323,10 +323,7 @@ class Runner:
                 readings = [lcr.apply_and_read(bias, f) for _ in range(step.average)]
                 y = sum(r.admittance_S for r in readings) / len(readings)
                 cp, gp = parallel_from_admittance(y, f)
-                if not (math.isfinite(cp) and math.isfinite(gp)):
-                    self.bus.emit("warning", step.name, message=f"point {planned.index}: the "
-                                  "meter answered an overflow or not-a-number marker at "
-                                  f"{bias:g} V, {f:g} Hz", index=planned.index)
+                self._judgeable(step, planned.index, bias, cp, gp, frequency_Hz=f)
                 point = Point(step.name, planned.index, "cv", self.bus.elapsed_s(),
                               float(readings[-1].bias_V), None, float(f), float(cp), float(gp))
                 self._record(step, point)
@@ -385,6 +382,18 @@ class Runner:
         return (step.end_when_settled is not None and self.fit is not None
                 and self.done[step.name] >= step.min_points
                 and self.fit.is_settled(step.name))
+
+    def _judgeable(self, step: Step, index: int | None, level: float, a: float, b: float,
+                   frequency_Hz: float | None = None) -> None:
+        """A reading that is not a finite number is an instrument fault: the step and the
+        run end as failed, and no further level follows it."""
+        where = (f"point {index}" if index is not None else "on the way back") + \
+            f" at {level:g} {step.source_unit if step.instrument == 'smu' else 'V'}" + \
+            (f", {frequency_Hz:g} Hz" if frequency_Hz is not None else "")
+        message = not_finite(step.name, step.instrument, where, (a, b))
+        if message is not None:
+            self.step_failed = True
+            raise InstrumentError(message)
 
     # -- pause and abort ----------------------------------------------------------------
     def _checkpoint(self, step: Step) -> bool:

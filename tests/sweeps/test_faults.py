@@ -128,16 +128,51 @@ def test_error_queue_entry_stops_the_run(bench, tmp_path):
     assert_off(bench)
 
 
-def test_overflow_readings_are_kept_and_flagged(bench, tmp_path):
-    plan, launch, outcome = run_with_fault(bench, tmp_path, "smu", "overflow", after=40)
-    assert outcome.status == "completed"
+@pytest.mark.parametrize("instrument, after", [("smu", 40), ("lcr", 30)])
+def test_a_reading_that_is_not_a_number_ends_the_run_as_an_instrument_fault(
+        bench, tmp_path, monkeypatch, instrument, after):
+    """The overflow marker 9.9E37 (SCPI-1999 volume 1, 7.2.1.5) reads as inf: no guard can
+    judge it, so no further level is applied; the source ramps down, the step and the run
+    end as failed (exit 3), the outputs end off, and resume finishes the plan."""
+    from pnbench.drivers.roles import LcrMeter, Smu
+
+    applied = []
+    for cls in (Smu, LcrMeter):
+        original = cls.apply_and_read
+
+        def spy(self, level, *args, _original=original):
+            reading = _original(self, level, *args)
+            applied.append((type(self).__name__, level, reading))
+            return reading
+
+        monkeypatch.setattr(cls, "apply_and_read", spy)
+    plan, launch, outcome = run_with_fault(bench, tmp_path, instrument, "overflow",
+                                           after=after)
+    assert outcome.status == "failed" and outcome.exit_code == 3
+    assert "not a finite number" in outcome.reason
     assert_off(bench)
-    warnings = [e for e in read_events(launch.run_dir) if e.kind == "warning"
-                and "overflow" in e["message"]]
-    assert len(warnings) == 1
-    odd = [p for p in read_points(launch.run_dir)
-           if p.current_A is not None and abs(p.current_A) == float("inf")]
-    assert len(odd) == 1
+    run = read_run(launch.run_dir)
+    assert run["status"] == "failed" and run["outputs_off_confirmed"] is True
+    assert "failed" in [s["status"] for s in run["steps"]]
+    # the bad reading was the last level applied: nothing followed it
+    import math
+
+    def finite(r):
+        if hasattr(r, "current_A"):
+            return math.isfinite(r.current_A) and math.isfinite(r.voltage_V)
+        return all(math.isfinite(x) for x in (r.primary, r.secondary))
+
+    bad = [k for k, (_, _, r) in enumerate(applied) if not finite(r)]
+    assert bad and bad[0] == len(applied) - 1
+    points = read_points(launch.run_dir)
+    assert all(p.current_A is None or math.isfinite(p.current_A) for p in points)
+    assert all(p.capacitance_F is None or math.isfinite(p.capacitance_F) for p in points)
+
+    monkeypatch.undo()
+    outcome2 = Launch.resume_from(launch.run_dir).run()
+    assert outcome2.status == "completed", outcome2.reason
+    assert [(p.step, p.index) for p in read_points(launch.run_dir)] == planned_keys(
+        plan, launch.run_dir)
 
 
 def test_compliance_storm_on_the_bench(bench, tmp_path):
