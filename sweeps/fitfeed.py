@@ -7,8 +7,13 @@ cheaper per point than one by one, and it leaves the interpreter to the acquisit
 thread in between), takes a snapshot (also when the step ends: that event says
 ``final``), emits a ``fit`` event (with the reverse fit's ``leakage`` and ``ibv_A``),
 flags a step whose target parameters (`settle_targets`) have settled to the step's
-``end_when_settled``, and after each step writes model.json and the model card through
-the run folder.
+``end_when_settled``, and writes model.json and the model card through the run folder.
+
+The worker keeps every point it is given as numpy columns per step (`fitmodel.Columns`,
+no object per point). After each step it writes a provisional model assembled from the
+live fits' snapshots (no new fitting, so a step end costs the same in a run's first hour
+as in its last); the run's model is fitted once, from those columns, when the run ends
+(`finish`). Nothing is read back from points.csv.
 
 A fit event publishes estimates only (`estimates`): a value its fitter's bounds chose, or
 one with a relative standard error beyond MAX_REL_SIGMA, goes under ``not_determined``
@@ -99,7 +104,6 @@ class FitWorker:
 
     def __init__(self, steps: tuple[Step, ...], bus: EventBus, *, temperature_K: float,
                  write_model: Callable[[object], None] | None = None,
-                 load_points: Callable[[], list[Point]] | None = None,
                  snapshot_interval_s: float = 0.25, enabled: bool = True,
                  area_m2: float | None = None, extras: dict | None = None) -> None:
         self.steps = {s.name: s for s in steps}
@@ -108,13 +112,12 @@ class FitWorker:
         self.area_m2 = area_m2
         self.extras = extras or {}
         self.write_model = write_model
-        self.load_points = load_points or list
         self.interval = snapshot_interval_s
         self.enabled = enabled and fitmodel.available()
         self._queue: queue.SimpleQueue = queue.SimpleQueue()
         self._fitters: dict[str, object] = {}
         self._broken: set[str] = set()
-        self._counts: dict[str, int] = {}
+        self._columns: dict[str, fitmodel.Columns] = {}
         self._dirty: set[str] = set()
         self._settled: set[str] = set()
         self.latest: dict[str, object] = {}  # step -> FitResult
@@ -154,7 +157,7 @@ class FitWorker:
             self._thread.join(timeout_s)
             self._thread = None
         elif self.enabled:
-            self._write_model()
+            self._write_model(final=True)
 
     # -- the worker thread ----------------------------------------------------------------
     def _loop(self) -> None:
@@ -198,17 +201,22 @@ class FitWorker:
                 break
             if item is _STOP:
                 self._snapshot_dirty()
-                self._write_model()
+                self._write_model(final=True)
                 return True
             name, point = item
             if point is None:
                 self._snapshot(name, final=True)
-                self._write_model()
+                self._write_model(final=False)
             else:
                 run, run_step = [point], name
         return False
 
     def _add(self, name: str, points: list[Point]) -> None:
+        columns = self._columns.get(name)
+        if columns is None:
+            columns = self._columns[name] = fitmodel.Columns()
+        start = len(columns)
+        columns.extend(points)
         if name in self._broken:
             return
         step = self.steps[name]
@@ -221,11 +229,10 @@ class FitWorker:
                                              fitmodel.breakdown_current_A(
                                                  self.steps.values()))
                 self._fitters[name] = fitter
-            fitmodel.add_points(fitter, step.kind, points)
+            fitmodel.add_columns(fitter, step.kind, columns.view(start))
         except Exception as exc:  # noqa: BLE001 - fitting must never stop a run
             self._break(name, exc)
             return
-        self._counts[name] = self._counts.get(name, 0) + len(points)
         self._dirty.add(name)
 
     def _snapshot_dirty(self) -> None:
@@ -250,7 +257,7 @@ class FitWorker:
         shown, not_determined = estimates(result)
         aims = settle_targets(step.kind, shown)
         if (target and result.success and aims and all(result.settled(target, aims).values())
-                and self._counts.get(name, 0) >= step.min_points):
+                and len(self._columns.get(name, ())) >= step.min_points):
             self._settled.add(name)
         self.bus.emit("fit", name, fit_kind=result.kind, success=bool(result.success),
                       message=str(result.message), n_points=int(result.n_points),
@@ -260,13 +267,20 @@ class FitWorker:
                           for n in shown},
                       not_determined=not_determined, final=final, **figures(result))
 
-    def _write_model(self) -> None:
+    def _write_model(self, final: bool) -> None:
+        """model.json and the card: at the run's end fitted from every point (once),
+        after a step assembled from the live snapshots (`fitmodel.model_of_snapshots`)."""
         if self.write_model is None:
             return
         try:
-            model = fitmodel.run_model(self.steps, self.load_points(), self.latest,
-                                       self.temperature_K, area_m2=self.area_m2,
-                                       extras=self.extras)
+            if final:
+                columns = {name: c.view() for name, c in self._columns.items()}
+                model = fitmodel.model_of_columns(self.steps, columns, self.temperature_K,
+                                                  area_m2=self.area_m2, extras=self.extras)
+            else:
+                model = fitmodel.model_of_snapshots(self.steps, self.latest,
+                                                    self.temperature_K,
+                                                    area_m2=self.area_m2, extras=self.extras)
         except Exception as exc:  # noqa: BLE001
             self.bus.emit("warning", None, message=f"model not written: {exc}")
             return

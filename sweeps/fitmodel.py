@@ -70,11 +70,58 @@ def admittance_of(point: Point) -> complex:
                                             point.frequency_Hz))
 
 
+class Columns:
+    """One step's points as growing numpy columns (amortized doubling): what the fit
+    worker keeps of a run, so the run's model is fitted from memory, never re-read.
+    About 41 bytes a point (five floats and a flag), no object per point."""
+
+    def __init__(self) -> None:
+        self._values = np.empty((len(VALUE_COLUMNS), 64))
+        self._compliance = np.empty(64, dtype=bool)
+        self.n = 0
+
+    def __len__(self) -> int:
+        return self.n
+
+    def extend(self, points: list[Point]) -> None:
+        """Append points (absent cells become NaN)."""
+        k = len(points)
+        need = self.n + k
+        if need > self._compliance.size:
+            size = max(need, 2 * self._compliance.size)
+            values = np.empty((len(VALUE_COLUMNS), size))
+            values[:, : self.n] = self._values[:, : self.n]
+            compliance = np.empty(size, dtype=bool)
+            compliance[: self.n] = self._compliance[: self.n]
+            self._values, self._compliance = values, compliance
+        for row, name in enumerate(VALUE_COLUMNS):
+            self._values[row, self.n:need] = np.array([getattr(p, name) for p in points],
+                                                      dtype=float)
+        self._compliance[self.n:need] = [p.compliance for p in points]
+        self.n = need
+
+    def view(self, start: int = 0) -> dict[str, np.ndarray]:
+        """The columns from point ``start`` on (views, valid until the next extend)."""
+        col = {name: self._values[row, start: self.n]
+               for row, name in enumerate(VALUE_COLUMNS)}
+        col["compliance"] = self._compliance[start: self.n]
+        return col
+
+
+#: The value columns of points.csv a fit uses, in Columns' row order.
+VALUE_COLUMNS = ("voltage_V", "current_A", "frequency_Hz", "capacitance_F", "conductance_S")
+
+
 def add_points(fitter, step_kind: str, points: list[Point]) -> None:
     """Add run points to a step's fitter as one batch."""
-    if not points:
+    if points:
+        add_columns(fitter, step_kind, arrays(points, {points[0].step}))
+
+
+def add_columns(fitter, step_kind: str, col: dict[str, np.ndarray]) -> None:
+    """Add a batch of points, given as columns, to a step's fitter."""
+    if not len(col["voltage_V"]):
         return
-    col = arrays(points, {points[0].step})
     if step_kind in ("iv_forward", "iv_reverse"):
         fitter.add(col["voltage_V"], col["current_A"], compliance=col["compliance"])
     else:
@@ -85,26 +132,57 @@ def add_points(fitter, step_kind: str, points: list[Point]) -> None:
 def arrays(points: list[Point], step_names: set[str]) -> dict[str, np.ndarray]:
     """Columns of the points of the given steps."""
     chosen = [p for p in points if p.step in step_names]
-    col = {name: np.array([getattr(p, name) if getattr(p, name) is not None else np.nan
-                           for p in chosen], dtype=float)
-           for name in ("voltage_V", "current_A", "frequency_Hz", "capacitance_F",
-                        "conductance_S")}
+    col = {name: np.array([getattr(p, name) for p in chosen], dtype=float)
+           for name in VALUE_COLUMNS}
     col["compliance"] = np.array([p.compliance for p in chosen], dtype=bool)
     return col
 
 
 def run_model(steps: dict, points: list[Point], latest: dict, temperature_K: float, *,
               area_m2: float | None = None, extras: dict | None = None):
-    """The run's ModelSet from every point so far (None when nothing can be fitted).
-    ``steps`` maps step names to objects with ``.kind``; ``latest`` is unused today
-    (kept for callers that hold live snapshots)."""
+    """The run's ModelSet from a list of points (None when nothing can be fitted).
+    ``steps`` maps step names to objects with ``.kind``; ``latest`` is unused (kept for
+    callers that hold live snapshots)."""
+    by_step = {name: arrays(points, {name}) for name in steps}
+    return model_of_columns(steps, by_step, temperature_K, area_m2=area_m2, extras=extras)
+
+
+def model_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
+                     temperature_K: float, *, area_m2: float | None = None,
+                     extras: dict | None = None):
+    """The run's ModelSet fitted from every point, given per step as columns (`Columns`
+    views); None when nothing can be fitted. Steps of one kind are pooled."""
     from pnbench.modeling.joint import fit_run
 
-    by_kind: dict[str, set[str]] = {}
+    by_kind: dict[str, list[dict]] = {}
     for name, step in steps.items():
-        by_kind.setdefault(step.kind, set()).add(name)
-    data = {kind: arrays(points, names) for kind, names in by_kind.items()}
-    if not any(len(d["voltage_V"]) for d in data.values()):
+        if name in columns and len(columns[name]["voltage_V"]):
+            by_kind.setdefault(step.kind, []).append(columns[name])
+    if not by_kind:
         return None
+    data = {kind: parts[0] if len(parts) == 1 else
+            {c: np.concatenate([p[c] for p in parts]) for c in parts[0]}
+            for kind, parts in by_kind.items()}
     return fit_run(data, temperature_K=temperature_K, area_m2=area_m2, extras=extras,
                    ibv_A=breakdown_current_A(steps.values()))
+
+
+def model_of_snapshots(steps: dict, latest: dict, temperature_K: float, *,
+                       area_m2: float | None = None, extras: dict | None = None):
+    """A provisional ModelSet from the live fits' latest snapshots (the last step of each
+    kind that has one), with no new fitting: what model.json holds between step ends
+    until the run's model is fitted from every point at its end. None without any."""
+    from pnbench.modeling.joint import model_from_results
+
+    results = {}
+    for name, step in steps.items():
+        result = latest.get(name)
+        if result is not None and result.success:
+            results[FIT_KIND[step.kind]] = result
+    if not results:
+        return None
+    more = dict(extras or {})
+    if area_m2 is not None:
+        more["area_m2"] = float(area_m2)
+    more["provisional"] = True
+    return model_from_results(results, temperature_K, more)

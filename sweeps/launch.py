@@ -27,7 +27,7 @@ from pnbench.sweeps.events import EventBus
 from pnbench.sweeps.fitfeed import FitWorker
 from pnbench.sweeps.plan import Plan, parse_plan
 from pnbench.sweeps.runner import Outcome, Runner
-from pnbench.sweeps.store import RunFolder, iso, read_points, read_run, utc_now
+from pnbench.sweeps.store import RunFolder, iso, read_run, utc_now
 
 
 class Launch:
@@ -219,7 +219,7 @@ class Launch:
             folder.write_model(model.to_json_dict(), model.card_text(name), name)
 
         worker = FitWorker(self.plan.steps, bus, temperature_K=self.plan.device.temperature_K,
-                           write_model=write_model, load_points=lambda: read_points(folder.path),
+                           write_model=write_model,
                            enabled=self.fit_enabled, area_m2=self.plan.device.area_m2,
                            extras={"device": self.plan.device.name})
         if state is not None:

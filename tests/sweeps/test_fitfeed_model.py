@@ -1,0 +1,85 @@
+"""The run's model written by the fit worker: provisional after each step (from the live
+snapshots, no new fit), fitted once from every point at the end, from the columns the
+worker kept in memory (the same model as fitting the points read back as rows).
+
+Data: the LH-VC510 points of test_fitfeed (pnbench's exact DC and small-signal models
+with seeded Gaussian noise).
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from test_fitfeed import HEAD, STEPS, T_K, step_points
+
+from pnbench.modeling import joint
+from pnbench.sweeps import fitmodel
+from pnbench.sweeps.events import EventBus
+from pnbench.sweeps.fitfeed import FitWorker
+from pnbench.sweeps.plan import parse_plan
+from pnbench.sweeps.store import Point
+
+
+def _run(names, monkeypatch):
+    plan = parse_plan(HEAD + "".join(STEPS[n] for n in names))
+    written, calls = [], []
+    real = joint.fit_run
+
+    def counting(data, **options):
+        calls.append({k: len(v["voltage_V"]) for k, v in data.items()})
+        return real(data, **options)
+
+    monkeypatch.setattr(joint, "fit_run", counting)
+    worker = FitWorker(plan.steps, EventBus(), temperature_K=T_K, snapshot_interval_s=0.01,
+                       write_model=written.append, extras={"device": "LH-VC510"})
+    worker.start()
+    rng = np.random.default_rng(510)
+    points = []
+    for step in plan.steps:
+        for p in step_points(step.name, rng):
+            worker.submit(step, p)
+            points.append(p)
+        worker.step_done(step.name)
+    worker.finish()
+    return plan, points, written, calls
+
+
+def test_the_run_model_is_fitted_once_from_every_point(monkeypatch):
+    plan, points, written, calls = _run(["forward", "cv", "admittance"], monkeypatch)
+    assert calls == [{"iv_forward": 56, "cv": 62, "admittance": 28}]
+    *steps, last = written
+    assert len(steps) == 3 and all(m.extras.get("provisional") for m in steps)
+    assert "provisional" not in last.extras
+    # the same model as the points read back as rows and fitted by the old path
+    monkeypatch.undo()
+    by_rows = fitmodel.run_model({s.name: s for s in plan.steps}, points, {}, T_K,
+                                 extras={"device": "LH-VC510"})
+    assert json.dumps(last.to_json_dict(), sort_keys=True) == \
+        json.dumps(by_rows.to_json_dict(), sort_keys=True)
+
+
+def test_a_step_end_model_carries_the_live_estimates(monkeypatch):
+    _, _, written, _ = _run(["forward", "cv"], monkeypatch)
+    after_forward, after_cv, final = written
+    assert {"IS", "N"} <= set(after_forward.values) and "CJO" not in after_forward.values
+    assert {"IS", "N", "CJO", "VJ", "M"} <= set(after_cv.values)
+    for name in ("IS", "N", "CJO"):  # the live and the final fits agree within 2 sigma
+        assert abs(after_cv.values[name] - final.values[name]) < 2 * final.sigmas[name]
+
+
+def test_columns_grow_and_keep_absent_cells_as_nan():
+    cols = fitmodel.Columns()
+    rows = [Point("s", k, "iv", 0.0, voltage_V=0.1 * k, current_A=None if k % 3 else 1e-3 * k,
+                  compliance=k % 2 == 1) for k in range(150)]
+    cols.extend(rows[:1])
+    cols.extend(rows[1:100])  # past the first allocation
+    cols.extend(rows[100:])
+    view = cols.view()
+    assert len(cols) == 150 and view["voltage_V"][149] == pytest.approx(14.9)
+    assert np.isnan(view["current_A"][1]) and view["current_A"][3] == pytest.approx(3e-3)
+    assert view["compliance"].tolist() == [k % 2 == 1 for k in range(150)]
+    assert np.isnan(view["capacitance_F"]).all()
+    assert cols.view(140)["voltage_V"][0] == pytest.approx(14.0)
+    assert fitmodel.arrays(rows, {"s"})["current_A"][3] == pytest.approx(3e-3)
