@@ -16,6 +16,12 @@ volume 1 for headers, numbers and the special values):
 - strings are quoted with ``"`` or ``'``; a quote inside is doubled.
 
 Not supported: arbitrary block data (``#`` blocks) and non-decimal numbers (``#H``).
+
+Speed: these functions run several times per bias point. Text without a quote character
+is split with ``str.split`` (the character walk that respects quotes runs only when a
+quote is present; both give the same units), and what depends on a template or a
+header pattern alone (placeholders, pattern nodes, node forms) is computed once per
+distinct text and cached.
 """
 
 from __future__ import annotations
@@ -23,6 +29,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 #: SCPI-1999 vol. 1, 7.2.1.5: the value an instrument returns for not-a-number.
 NAN_MARKER = 9.91e37
@@ -110,7 +117,7 @@ def fill(
     would leave an instrument at a setting nobody asked for.
     """
     given = {"value": value, "state": state, "form": form}
-    used = _PLACEHOLDER.findall(template)
+    pieces, used = _template(template)
     for name in used:
         if name not in given:
             raise ValueError(
@@ -123,17 +130,28 @@ def fill(
         if arg is not None and name not in used:
             raise ValueError(f"{template!r} has no {{{name}}} placeholder for {arg!r}")
 
-    def replace(match: re.Match[str]) -> str:
-        name = match.group(1)
+    if not used:
+        return template
+    out = [pieces[0]]
+    for name, literal in zip(used, pieces[1:], strict=True):
         if name == "value":
             if not math.isfinite(float(value)):
                 raise ValueError(f"refusing to send the non-finite value {value!r}")
-            return format_value(value)
-        if name == "state":
-            return format_bool(bool(state), on, off)
-        return str(form)
+            out.append(format_value(value))
+        elif name == "state":
+            out.append(format_bool(bool(state), on, off))
+        else:
+            out.append(str(form))
+        out.append(literal)
+    return "".join(out)
 
-    return _PLACEHOLDER.sub(replace, template)
+
+@lru_cache(maxsize=1024)
+def _template(template: str) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """A template's literal pieces around its placeholders, and the placeholder names
+    (``pieces[0] name[0] pieces[1] ...``), once per distinct template."""
+    parts = _PLACEHOLDER.split(template)
+    return tuple(parts[0::2]), tuple(parts[1::2])
 
 
 def join(commands: list[str], separator: str = ";") -> str:
@@ -148,6 +166,13 @@ def join(commands: list[str], separator: str = ";") -> str:
 # --- splitting and parsing messages ----------------------------------------------------
 
 def _split_outside_quotes(text: str, separator: str) -> list[str]:
+    if '"' not in text and "'" not in text:  # the common case: nothing quoted
+        return text.split(separator)
+    return _split_quoted(text, separator)
+
+
+def _split_quoted(text: str, separator: str) -> list[str]:
+    """The character walk: a separator inside a quoted string does not split."""
     parts: list[str] = []
     current: list[str] = []
     quote_char = ""
@@ -221,7 +246,8 @@ def parse_command(unit: str) -> Command:
 
 # --- headers -----------------------------------------------------------------------------
 
-def _pattern_nodes(pattern: str) -> list[tuple[str, bool]]:
+@lru_cache(maxsize=4096)
+def _pattern_nodes(pattern: str) -> tuple[tuple[str, bool], ...]:
     """(mnemonic, optional) pairs of a header pattern such as ``:SOURce[:LEVel]``."""
     nodes: list[tuple[str, bool]] = []
     i = 0
@@ -245,9 +271,10 @@ def _pattern_nodes(pattern: str) -> list[tuple[str, bool]]:
                 end += 1
             nodes.append((text[i:end], False))
             i = end
-    return nodes
+    return tuple(nodes)
 
 
+@lru_cache(maxsize=4096)
 def _node_forms(mnemonic: str) -> tuple[str, str]:
     """(long, short) upper-case forms: the short form is the leading capitals/digits."""
     match = _NODE.match(mnemonic)
@@ -259,7 +286,7 @@ def _node_forms(mnemonic: str) -> tuple[str, str]:
     return mnemonic.upper(), short.upper()
 
 
-def _match_nodes(nodes: list[tuple[str, bool]], words: list[str]) -> bool:
+def _match_nodes(nodes: tuple[tuple[str, bool], ...], words: list[str]) -> bool:
     if not nodes:
         return not words
     (mnemonic, optional), rest = nodes[0], nodes[1:]

@@ -1,0 +1,85 @@
+"""The fast paths of `pnbench.drivers.scpi` give what the general ones give.
+
+Text without a quote character is split with ``str.split`` instead of the character walk
+that respects quotes, and templates are read once and cached: for any text the results
+must be the same as the general code's. The reference for `fill` is the plain regular
+expression substitution it replaced (common practice, no source).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from pnbench.drivers import scpi
+
+# texts built from the characters that matter: separators, quotes, spaces, letters
+_ALPHABET = st.sampled_from(list(";,: \t\"'?*AbcV0129.e+-{}"))
+texts = st.lists(_ALPHABET, max_size=40).map("".join)
+separators = st.sampled_from([";", ",", ";;", ":", "\n"])
+
+
+@given(texts, separators)
+def test_split_fast_path_equals_the_character_walk(text, separator):
+    try:
+        walked = scpi._split_quoted(text, separator)
+    except ValueError:  # an unterminated quote: both refuse it
+        with pytest.raises(ValueError):
+            scpi._split_outside_quotes(text, separator)
+        return
+    assert scpi._split_outside_quotes(text, separator) == walked
+
+
+@given(st.lists(st.text(st.sampled_from(list("AbV0:.9 e-+?")), max_size=12), max_size=6),
+       separators)
+def test_unquoted_messages_take_the_fast_path_and_split_as_before(units, separator):
+    message = separator.join(units)
+    assert scpi._split_outside_quotes(message, separator) == \
+        scpi._split_quoted(message, separator)
+    assert scpi.split_units(message, separator) == \
+        [u.strip() for u in scpi._split_quoted(message.strip(), separator) if u.strip()]
+
+
+_PLACEHOLDER = re.compile(r"\{([^{}]*)\}")
+
+
+def _reference_fill(template, value=None, state=None, form=None):
+    def replace(match):
+        name = match.group(1)
+        if name == "value":
+            return scpi.format_value(value)
+        if name == "state":
+            return "ON" if state else "OFF"
+        return str(form)
+    return _PLACEHOLDER.sub(replace, template)
+
+
+literals = st.text(st.sampled_from(list(":SOURVOLTage ;,*?\"'0")), max_size=8)
+
+
+@given(st.lists(st.tuples(literals, st.sampled_from(["value", "state", "form"])),
+                max_size=3, unique_by=lambda t: t[1]),
+       literals,
+       st.floats(allow_nan=False, allow_infinity=False), st.booleans(),
+       st.sampled_from(["VOLT", "CURR", "CPG"]))
+def test_cached_fill_equals_substitution(parts, tail, value, state, form):
+    template = "".join(f"{lit}{{{name}}}" for lit, name in parts) + tail
+    names = {name for _, name in parts}
+    kwargs = {k: v for k, v in (("value", value), ("state", state), ("form", form))
+              if k in names}
+    assert scpi.fill(template, **kwargs) == _reference_fill(template, **kwargs)
+    assert scpi.fill(template, **kwargs) == scpi.fill(template, **kwargs)  # cached again
+
+
+def test_fill_still_refuses_after_caching():
+    assert scpi.fill(":SOUR:VOLT {value}", value=1.5) == ":SOUR:VOLT 1.5"
+    with pytest.raises(ValueError, match="non-finite"):
+        scpi.fill(":SOUR:VOLT {value}", value=math.inf)
+    with pytest.raises(ValueError, match="needs a value"):
+        scpi.fill(":SOUR:VOLT {value}")
+    with pytest.raises(ValueError, match="unknown placeholder"):
+        scpi.fill(":SOUR:VOLT {level}", value=1.0)
