@@ -1,0 +1,142 @@
+"""Long unattended runs: does a run cost the same per point, hold flat memory and end
+promptly however long it is?
+
+    python tests/benchmarks/overnight.py [--big] [--sizes 10000,100000] [--keep DIR]
+
+Each size runs the same plan shape (ten steps, forward I-V and C-V in turn, the points
+split evenly between them) with `pnbench run --headless --no-report` on the simulated
+bench at time scale 0, each in its own process, fitting on. From each run:
+
+* peak_rss_MiB: the run process's peak resident memory (``wait4`` rusage);
+* wall_per_point_us: the time from the first to the last point (points.csv ``time_s``)
+  divided by the points between them;
+* end_tail_s: from the last point to the run process's exit (run start from run.json,
+  plus the last point's ``time_s``, against the moment the process was reaped);
+* longest_pause_ms: the longest gap between two consecutive points, and where it was.
+
+The ratios (second size against the first, and with ``--big`` 1e6 against 1e4) are what
+means something on a shared machine; the absolute figures depend on the machine's load.
+The last line printed is one JSON object with every figure.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from datetime import datetime
+from pathlib import Path
+
+import numpy as np
+
+DEVICE = "lh-vc510"
+STEPS = 10
+HEAD = """[plan]
+format = 1
+title = "overnight benchmark"
+
+[device]
+name = "LH-VC510"
+temperature = "300.15 K"
+
+[limits]
+max_voltage = "2 V"
+max_reverse_voltage = "40 V"
+max_current = "100 mA"
+max_power = "1 W"
+"""
+FORWARD = """
+[[steps]]
+name = "iv{k}"
+kind = "iv_forward"
+start = "0.3 V"
+stop = "0.75 V"
+points = {n}
+compliance = "100 mA"
+"""
+CV = """
+[[steps]]
+name = "cv{k}"
+kind = "cv"
+bias_start = "0 V"
+bias_stop = "-20 V"
+bias_points = {n}
+frequency = "100 kHz"
+ac_level = "20 mV"
+"""
+
+
+def plan_text(points: int) -> str:
+    per = max(2, points // STEPS)
+    return HEAD + "".join((FORWARD if k % 2 == 0 else CV).format(k=k, n=per)
+                          for k in range(STEPS))
+
+
+def point_times(run_dir: Path) -> np.ndarray:
+    with open(run_dir / "points.csv", encoding="utf-8") as f:
+        rows = [line for line in f if line[:1] not in ("#", "s")]
+    return np.array([float(r.split(",", 4)[3]) for r in rows])
+
+
+def one_run(points: int, base: Path) -> dict:
+    out = base / f"n{points}"
+    out.mkdir(parents=True, exist_ok=True)
+    plan = out / "plan.toml"
+    plan.write_text(plan_text(points), encoding="utf-8")
+    cmd = [sys.executable, "-m", "pnbench.tui.cli", "run", str(plan), "--simulate", DEVICE,
+           "--time-scale", "0", "--headless", "--no-report", "--out", str(out / "runs")]
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    _, status, usage = os.wait4(proc.pid, 0)
+    ended = time.time()
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    err = proc.stderr.read().decode(errors="replace") if proc.stderr else ""
+    run_dir = next((out / "runs").iterdir())
+    run = json.loads((run_dir / "run.json").read_text(encoding="utf-8"))
+    started = datetime.fromisoformat(run["started"].replace("Z", "+00:00")).timestamp()
+    t = point_times(run_dir)
+    gaps = np.diff(t)
+    worst = int(np.argmax(gaps)) if gaps.size else 0
+    return {
+        "points": int(t.size), "exit_code": proc.returncode, "status": run["status"],
+        "peak_rss_MiB": usage.ru_maxrss / 1024.0,
+        "wall_per_point_us": (t[-1] - t[0]) / max(t.size - 1, 1) * 1e6,
+        "end_tail_s": ended - (started + t[-1]),
+        "longest_pause_ms": float(gaps.max() * 1e3) if gaps.size else 0.0,
+        "longest_pause_after_point": worst + 1,
+        "model_written": (run_dir / "model.json").exists(),
+        "stderr_tail": err[-300:] if proc.returncode else "",
+    }
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--sizes", default="10000,100000", help="point counts, comma-separated")
+    ap.add_argument("--big", action="store_true", help="also run 1 000 000 points")
+    ap.add_argument("--keep", type=Path, help="keep the run folders here")
+    args = ap.parse_args()
+    sizes = [int(s) for s in args.sizes.split(",")] + ([1_000_000] if args.big else [])
+    with tempfile.TemporaryDirectory() as tmp:
+        base = args.keep or Path(tmp)
+        runs = []
+        for n in sizes:
+            r = one_run(n, base)
+            runs.append(r)
+            print(f"{r['points']:>8} points: {r['wall_per_point_us']:7.0f} us/point, "
+                  f"peak RSS {r['peak_rss_MiB']:6.1f} MiB, end tail {r['end_tail_s']:5.2f} s,"
+                  f" longest pause {r['longest_pause_ms']:6.1f} ms (after point "
+                  f"{r['longest_pause_after_point']}), exit {r['exit_code']}", flush=True)
+    first = runs[0]
+    ratios = {f"{r['points']}_vs_{first['points']}": {
+        "peak_rss": r["peak_rss_MiB"] / first["peak_rss_MiB"],
+        "wall_per_point": r["wall_per_point_us"] / first["wall_per_point_us"],
+        "end_tail": r["end_tail_s"] / max(first["end_tail_s"], 1e-9)} for r in runs[1:]}
+    print(json.dumps({"runs": runs, "ratios": ratios,
+                      "longest_pause_ms": max(r["longest_pause_ms"] for r in runs)}))
+
+
+if __name__ == "__main__":
+    main()
