@@ -43,7 +43,7 @@ def step_seconds(step: Step, line_frequency_Hz: float = 50.0) -> float:
         reading = step.nplc / line_frequency_Hz + SMU_OVERHEAD_S
         readings = step.average + (1 if step.settle_s > 0 else 0)
         return step.planned * (step.settle_s + readings * reading)
-    biases = len({p.level for p in step.points})
+    biases = len(set(step.biases))
     reading = LCR_READING_S + LCR_OVERHEAD_S
     settle = biases * (step.settle_s + (reading if step.settle_s > 0 else 0.0))
     return settle + step.planned * step.average * reading
@@ -52,7 +52,8 @@ def step_seconds(step: Step, line_frequency_Hz: float = 50.0) -> float:
 def step_worst_power_W(step: Step) -> float | None:
     if step.instrument != "smu":
         return None
-    return max(abs(x) for x in step.levels) * float(step.compliance or 0.0)
+    levels = step.levels  # a range: its ends are its extremes
+    return max(abs(levels[0]), abs(levels[-1])) * float(step.compliance or 0.0)
 
 
 def estimate(plan: Plan) -> Estimate:

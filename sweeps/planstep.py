@@ -8,10 +8,10 @@ the LCR meter) and ``admittance`` (forward bias points x frequencies from the LC
 from __future__ import annotations
 
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
 
-from pnbench.modeling.aclevel import worst_case_error
-from pnbench.modeling.junction import thermal_voltage
+from pnbench.modeling.aclevel import thermal_voltage, worst_case_error
 from pnbench.sweeps import points as pts
 from pnbench.sweeps.limits import Limits
 from pnbench.sweeps.planread import TableReader
@@ -37,7 +37,7 @@ _NAME = re.compile(r"^[A-Za-z0-9_.-]{1,40}$")
 class Step:
     name: str
     kind: str
-    points: tuple[pts.PlannedPoint, ...]
+    points: Sequence[pts.PlannedPoint]  # lazy (`points.SmuPoints` / `points.LcrPoints`)
     source: str = "voltage"  # SMU steps: what is forced; LCR steps: "bias"
     compliance: float | None = None  # A when forcing voltage, V when forcing current
     breakdown_guard_A: float | None = None
@@ -62,8 +62,20 @@ class Step:
         return "A" if self.source == "current" else "V"
 
     @property
-    def levels(self) -> list[float]:
-        return [p.level for p in self.points]
+    def levels(self) -> Sequence[float]:
+        """The level (SMU) or bias (LCR) of each point, lazily."""
+        return self.points.levels if hasattr(self.points, "levels") \
+            else [p.level for p in self.points]
+
+    @property
+    def biases(self) -> Sequence[float]:
+        """The levels (SMU) or the bias list (LCR) in order, lazily where planned."""
+        return getattr(self.points, "biases", None) or self.levels
+
+    @property
+    def frequencies_Hz(self) -> tuple[float, ...]:
+        """An LCR step's frequencies in the order measured (empty for SMU steps)."""
+        return getattr(self.points, "frequencies_Hz", ())
 
     def to_json_dict(self) -> dict:
         return {"name": self.name, "kind": self.kind, "source": self.source,
@@ -112,7 +124,7 @@ def read_step(t: TableReader, limits: Limits | None, instruments: dict,
 
 
 def _levels(t: TableReader, unit: str, start: float | None, stop: float | None,
-            default_spacing: str) -> list[float] | None:
+            default_spacing: str) -> Sequence[float] | None:
     spacing = t.choice("spacing", ("lin", "log"), default_spacing)
     count = t.integer("points", None, 1, MAX_POINTS_PER_STEP)
     per_decade = t.integer("points_per_decade", None, 1, 1000)
@@ -138,10 +150,10 @@ def _levels(t: TableReader, unit: str, start: float | None, stop: float | None,
         t.problem("stop", f"start and stop are both {start:g} {unit}: a range of zero width")
         return None
     if spacing == "lin":
-        return pts.linear(start, stop, count)
+        return pts.LinearLevels(start, stop, count)
     if per_decade is not None:
-        return pts.decades(start, stop, per_decade)
-    return pts.logarithmic(start, stop, count)
+        return pts.LogLevels(start, stop, pts.decade_count(start, stop, per_decade))
+    return pts.LogLevels(start, stop, count)
 
 
 def _read_smu(t: TableReader, kind: str, name, limits: Limits | None, common: dict):
@@ -187,12 +199,12 @@ def _read_smu(t: TableReader, kind: str, name, limits: Limits | None, common: di
             return None
     if limits is not None and not _within_limits(t, source, levels, compliance, limits):
         return None
-    return Step(name=name or "", kind=kind, points=tuple(pts.smu_points(levels)),
+    return Step(name=name or "", kind=kind, points=pts.smu_points(levels),
                 source=source, compliance=compliance, breakdown_guard_A=guard, nplc=nplc,
                 four_wire=four_wire, **common)
 
 
-def _within_limits(t: TableReader, source: str, levels: list[float], compliance: float,
+def _within_limits(t: TableReader, source: str, levels: Sequence[float], compliance: float,
                    limits: Limits) -> bool:
     ok = True
     if source == "voltage":
@@ -213,7 +225,7 @@ def _within_limits(t: TableReader, source: str, levels: list[float], compliance:
                       f"{limits.max_power_W:g} W; start lower")
             ok = False
     else:
-        top = max(abs(x) for x in levels)
+        top = max(abs(levels[0]), abs(levels[-1]))  # a range: its ends are its extremes
         if top > limits.max_current_A:
             t.problem("stop", f"{top:g} A is above max_current {limits.max_current_A:g} A")
             ok = False
@@ -245,7 +257,7 @@ def _read_lcr(t: TableReader, kind: str, name, limits: Limits | None, lcr, commo
                 t.problem("bias_stop", f"bias_start and bias_stop are both {b0:g} V: a "
                           "range of zero width")
                 return None
-            biases = pts.linear(b0, b1, n)
+            biases = pts.LinearLevels(b0, b1, n)
     if t.has("frequency") and t.has("frequencies"):
         t.problem("frequency", "give either frequency or frequencies, not both")
         return None
@@ -268,7 +280,7 @@ def _read_lcr(t: TableReader, kind: str, name, limits: Limits | None, lcr, commo
                         f"{error:.1%} (second-order distortion {distortion:.0%}); "
                         f"{0.2 * vt * 1e3:.2g} mV rms (x = 0.28, x**2/8 = 1 %) keeps it "
                         f"under 1 %")
-    return Step(name=name or "", kind=kind, points=tuple(pts.lcr_points(biases, freqs)),
+    return Step(name=name or "", kind=kind, points=pts.lcr_points(biases, freqs),
                 source="bias", ac_level_V=ac, nplc=1.0, **common)
 
 

@@ -39,11 +39,11 @@ def problems(plan: Plan, ratings: dict) -> list[str]:
     for step in plan.steps:
         if step.instrument != "lcr":
             continue
-        top = max(abs(p.level) for p in step.points)
+        top = max(abs(b) for b in step.biases)
         if "max_bias" in lcr and top > lcr["max_bias"]:
             out.append(f"step {step.name}: bias {top:g} V is beyond the LCR meter's "
                        f"{lcr['max_bias']:g} V")
-        freqs = [p.frequency_Hz for p in step.points]
+        freqs = step.frequencies_Hz
         low, high = lcr.get("min_frequency", 0.0), lcr.get("max_frequency", float("inf"))
         if min(freqs) < low or max(freqs) > high:
             out.append(f"step {step.name}: frequencies {min(freqs):g} to {max(freqs):g} Hz "

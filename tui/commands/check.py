@@ -25,8 +25,8 @@ def _range(step) -> str:
         if step.breakdown_guard_A:
             text += f", guard {q(step.breakdown_guard_A, 'A', 3)}"
         return text
-    biases = list(dict.fromkeys(p.level for p in step.points))
-    freqs = sorted({p.frequency_Hz for p in step.points})
+    biases = list(dict.fromkeys(step.biases))
+    freqs = sorted(set(step.frequencies_Hz))
     return (f"bias {q(biases[0], 'V', 3)} to {q(biases[-1], 'V', 3)} ({len(biases)}), "
             f"{len(freqs)} frequencies {q(freqs[0], 'Hz', 3)} to {q(freqs[-1], 'Hz', 3)}, "
             f"AC {q(step.ac_level_V, 'V', 3)}")
