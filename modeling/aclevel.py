@@ -14,6 +14,9 @@ The junction sees the level divided by RS against the junction admittance. The e
 applies to the exponential part of the conductance (and of the diffusion capacitance
 TT*gd), not to a shunt. `fundamental_conductance` computes the large-signal fundamental
 numerically, as the check of the estimate.
+
+numpy, scipy and the junction model are imported by the functions that use them, so a
+plan can be checked against `worst_case_error` without loading them.
 """
 
 from __future__ import annotations
@@ -21,10 +24,12 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-import numpy as np
-
-from pnbench.modeling import junction, smallsignal
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
+
+#: The Boltzmann constant [J/K] and the elementary charge [C], exact in the SI since
+#: 2019 (the values scipy.constants carries).
+BOLTZMANN_J_PER_K = 1.380649e-23
+ELEMENTARY_CHARGE_C = 1.602176634e-19
 
 
 @dataclass(frozen=True)
@@ -42,6 +47,13 @@ class AcLevelCheck:
     recommended_level_V_rms: float  # largest level that keeps conductance_error <= max_error
     small: bool
     message: str
+
+
+def thermal_voltage(temperature_K: float = DEFAULT_TEMPERATURE_K) -> float:
+    """kT/q in volts, computed as `junction.thermal_voltage` does, without scipy."""
+    if not temperature_K > 0:
+        raise ValueError(f"temperature must be > 0 K, got {temperature_K!r}")
+    return BOLTZMANN_J_PER_K * temperature_K / ELEMENTARY_CHARGE_C
 
 
 def worst_case_error(level_V_rms: float, n_vt_V: float) -> tuple[float, float]:
@@ -66,6 +78,8 @@ def check_ac_level(params: DiodeParams, level_V_rms: float, *,
         raise ValueError(f"AC level must be a finite rms voltage >= 0, got {level_V_rms!r}")
     if not max_error > 0:
         raise ValueError(f"max_error must be > 0, got {max_error!r}")
+    from pnbench.modeling import junction, smallsignal
+
     q = smallsignal.operating_point(params, voltage=bias_voltage_V, current=bias_current_A,
                                     temperature_K=temperature_K)
     a = params.N * junction.thermal_voltage(temperature_K)
@@ -113,6 +127,10 @@ def fundamental_conductance(params: DiodeParams, junction_voltage_V: float,
     """
     if not amplitude_V > 0:
         raise ValueError(f"amplitude must be > 0 V, got {amplitude_V!r}")
+    import numpy as np
+
+    from pnbench.modeling import junction
+
     theta = 2.0 * np.pi * np.arange(samples) / samples
     i = junction.junction_current(junction_voltage_V + amplitude_V * np.cos(theta),
                                   params, temperature_K)

@@ -19,8 +19,6 @@ import math
 from collections import deque
 from dataclasses import asdict, dataclass
 
-import numpy as np
-
 #: Voltage above which a plan must carry an explicit acknowledgment. IEC 61010-1 treats
 #: DC voltages above 60 V as hazardous-live in dry locations in its older editions (from
 #: memory; thresholds differ between editions and with conditions: 30 V rms, 42.4 V peak
@@ -98,6 +96,8 @@ def _extrapolate_voltage(history: deque, i_next: float) -> float:
     if i_next > 0 and len(pts) >= 2:
         last_i, last_v = pts[-1]
         if len(pts) >= 3:
+            import numpy as np  # here, so that reading a plan does not load numpy
+
             rows = np.array([[1.0, math.log(i), i] for i, _ in pts[-3:]])
             try:
                 a, b, r = np.linalg.solve(rows, np.array([v for _, v in pts[-3:]]))
