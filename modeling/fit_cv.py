@@ -34,7 +34,14 @@ Z_ACCEPT = 4.0
 _TINY_IS = 1e-30
 
 
-def _params(fixture: bool, with_dc: bool) -> tuple[lsq.Param, ...]:
+#: Why a fixture capacitance is left out of a fit (the 3-sigma rule, as for RS and RSH).
+CFIX_ABSENT = ("CFIX (fixture capacitance) not fitted: no constant capacitance beyond the "
+               "junction's stands three standard errors above zero")
+
+
+def _params(fixture: bool | None, with_dc: bool) -> tuple[lsq.Param, ...]:
+    """Parameters of the C-V models; ``fixture``: None fits CFIX when the data determine
+    it, True always, False never."""
     out = []
     if with_dc:
         out += [
@@ -55,9 +62,9 @@ def _params(fixture: bool, with_dc: bool) -> tuple[lsq.Param, ...]:
         out.append(lsq.Param("TT", "lin", lower=0.0, upper=1.0, optional=True, step=1e-16,
                              absent_reason="TT not determined: the diffusion capacitance "
                                            "never shows above the depletion capacitance"))
-    if fixture:
-        out.append(lsq.Param("CFIX", "lin", lower=0.0, upper=1.0, optional=True, step=1e-18,
-                             absent_reason="fixture capacitance not determined"))
+    if fixture is not False:
+        out.append(lsq.Param("CFIX", "lin", lower=-1e-6, upper=1e-6, optional=not fixture,
+                             step=1e-18, absent_reason=CFIX_ABSENT))
     return tuple(out)
 
 
@@ -66,7 +73,7 @@ class DepletionModel:
 
     channels = ("lin",)
 
-    def __init__(self, fc: float = 0.5, fixture: bool = False):
+    def __init__(self, fc: float = 0.5, fixture: bool | None = False):
         self.fc = fc
         self.params = _params(fixture, with_dc=False)
 
@@ -88,7 +95,7 @@ class AdmittanceModel:
     channels = ("lin", "log")
 
     def __init__(self, temperature_K: float = DEFAULT_TEMPERATURE_K, fc: float = 0.5,
-                 fixture: bool = False):
+                 fixture: bool | None = False):
         self.temperature_K = temperature_K
         self.fc = fc
         self.params = _params(fixture, with_dc=True)
@@ -208,15 +215,16 @@ def _known_noise(noise):
 
 
 def fit_cv(voltage_V, frequency_Hz, capacitance_F, *, compliance=None, use=None,
-           temperature_K: float = DEFAULT_TEMPERATURE_K, with_fixture: bool = False,
+           temperature_K: float = DEFAULT_TEMPERATURE_K, with_fixture: bool | None = None,
            fc: float = 0.5) -> FitResult:
-    """CJO, VJ, M (and CFIX when ``with_fixture``) from C–V points (parallel C)."""
+    """CJO, VJ, M (and CFIX: ``with_fixture`` None when the data determine it, True
+    always, False never) from C–V points (parallel C)."""
     x, y, elig = _cv_arrays(voltage_V, frequency_Hz, capacitance_F, None, compliance, use)
     model = DepletionModel(fc, with_fixture)
     state = depletion_state(model, x, y[:, :1], elig[:, :1])
     if isinstance(state, str):
         return empty_result("cv", len(x), state)
-    return lsq.to_result(model, state, "cv", len(x), min_rows=MIN_CV_POINTS)
+    return lsq.to_result(model, state, "cv", len(x), min_rows=MIN_CV_POINTS, x=x, y=y[:, :1])
 
 
 def _cv_arrays(v, f, c, g, compliance, use):
@@ -243,7 +251,9 @@ def admittance_state(model: AdmittanceModel, x, y, elig, start=None, fixed=None,
                      noise=None):
     """Fit the whole admittance; without usable conductance, the depletion part only."""
     v = x[:, 0]
-    dep = DepletionModel(model.fc, fixture=len(model.params) > 8)
+    dep = DepletionModel(model.fc, fixture=False)
+    if len(model.params) > 8:
+        dep.params = dep.params + model.params[8:]
     dstate = depletion_state(dep, x, y[:, :1], elig[:, :1])
     if isinstance(dstate, str):
         return dstate
@@ -292,7 +302,7 @@ def admittance_state(model: AdmittanceModel, x, y, elig, start=None, fixed=None,
 
 def fit_admittance(voltage_V, frequency_Hz, capacitance_F, conductance_S, *,
                    compliance=None, use=None, temperature_K: float = DEFAULT_TEMPERATURE_K,
-                   with_fixture: bool = False, fixed: dict[str, float] | None = None,
+                   with_fixture: bool | None = None, fixed: dict[str, float] | None = None,
                    fc: float = 0.5) -> FitResult:
     """The whole small-signal model from C and G against bias (parallel readings).
 
@@ -308,7 +318,7 @@ def fit_admittance(voltage_V, frequency_Hz, capacitance_F, conductance_S, *,
     if isinstance(state, str):
         return empty_result("admittance", len(x), state)
     return lsq.to_result(model, state, "admittance", len(x), extras=held_extras(model, fixed),
-                         min_rows=MIN_CV_POINTS)
+                         min_rows=MIN_CV_POINTS, x=x, y=y)
 
 
 def held_extras(model: AdmittanceModel, fixed: dict[str, float] | None) -> dict:
@@ -327,15 +337,31 @@ def held_extras(model: AdmittanceModel, fixed: dict[str, float] | None) -> dict:
 
 def fit_cv_data(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
                 compliance=None, temperature_K: float = DEFAULT_TEMPERATURE_K,
-                with_fixture: bool = False,
-                fixed: dict[str, float] | None = None) -> dict[str, FitResult]:
-    """The depletion fit and, when forward conductance is present, the admittance fit.
+                with_fixture: bool | None = None,
+                fixed: dict[str, float] | None = None,
+                held_covariance: np.ndarray | None = None) -> dict[str, FitResult]:
+    """The C-V fits of a run.
+
+    With IS and N from an I-V fit in ``fixed``: one fit of the network the meter sees
+    (``network.fit_network``) over every point, which yields CJO, VJ, M, TT and CFIX
+    together, the I-V fit's uncertainty carried in (``held_covariance``, in the order
+    of network.DC_NAMES present and finite in ``fixed``).
+
+    Without them: the depletion fit and, when forward conductance is present, the
+    admittance fit.
 
     The admittance fit holds CJO, VJ and M as the depletion fit found them when it
     succeeded: the reverse and low-forward capacitance pin the depletion curve far more
     tightly than forward admittance, where diffusion capacitance and the test signal's
     distortion dominate, and TT is then stated against the same CJO, VJ, M as the card.
     """
+    if fixed and "IS" in fixed and "N" in fixed:
+        from pnbench.modeling import network
+
+        return {"cv": network.fit_network(
+            voltage_V, frequency_Hz, capacitance_F, fixed=fixed,
+            held_covariance=held_covariance, compliance=compliance,
+            temperature_K=temperature_K, with_fixture=with_fixture)}
     out = {"cv": fit_cv(voltage_V, frequency_Hz, capacitance_F, compliance=compliance,
                         temperature_K=temperature_K, with_fixture=with_fixture)}
     v = np.asarray(voltage_V, dtype=float).ravel()

@@ -224,4 +224,4 @@ def fit_with_model(model: ForwardModel, v, i, eligible, *, forced=False, noise=N
                           start=start)
     if isinstance(state, str):
         return empty_result("iv_forward", v.size, state)
-    return lsq.to_result(model, state, "iv_forward", v.size)
+    return lsq.to_result(model, state, "iv_forward", v.size, x=v[:, None], y=i[:, None])

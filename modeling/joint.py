@@ -26,6 +26,7 @@ from typing import Any
 
 import numpy as np
 
+from pnbench.modeling import combine
 from pnbench.modeling.fitresult import FitResult, correlation_from_covariance, empty_result
 from pnbench.modeling.modelset import ModelSet
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
@@ -35,7 +36,7 @@ PRIORITY = {
     "IS": ("iv_forward", "admittance"), "N": ("iv_forward", "admittance"),
     "RS": ("iv_forward", "admittance"), "RSH": ("iv_forward", "iv_reverse", "admittance"),
     "BV": ("iv_reverse",), "CJO": ("cv", "admittance"), "VJ": ("cv", "admittance"),
-    "M": ("cv", "admittance"), "TT": ("admittance",),
+    "M": ("cv", "admittance"), "TT": ("cv", "admittance"),
 }
 #: The I–V fits that speak for a DC parameter. When one of them succeeded, the parameter
 #: comes from I–V or not at all: an admittance fit supplies it only without such
@@ -82,14 +83,15 @@ def _pool(data: Mapping[str, Mapping[str, Any]], kinds: Sequence[str]) -> dict |
 def fit_all(data: Mapping[str, Mapping[str, Any]], *,
             temperature_K: float = DEFAULT_TEMPERATURE_K, area_m2: float | None = None,
             reference_V: float | None = None, ibv_A: float | None = None,
-            with_fixture: bool = False, semiconductor: str | float = "Si",
+            with_fixture: bool | None = None, semiconductor: str | float = "Si",
             extras: Mapping[str, Any] | None = None) -> JointFit:
     """Fit every kind of data present; ``data`` maps a kind ("iv", "iv_forward",
     "iv_reverse", "cv", "admittance") to columns named as in points.csv
     (voltage_V, current_A, frequency_Hz, capacitance_F, conductance_S, compliance).
 
     All I–V kinds are pooled (forward and reverse split by the sign of V), as are the
-    C–V kinds.
+    C–V kinds. ``with_fixture``: None fits a fixture capacitance when the data
+    determine it (3-sigma rule, reason in the message), True always, False never.
     """
     with np.errstate(all="ignore"):  # extreme trial points inside the solvers are expected
         return _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture,
@@ -119,14 +121,15 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
         results.update(fit_cv.fit_cv_data(
             cv["voltage_V"], cv["frequency_Hz"], cv["capacitance_F"], cv["conductance_S"],
             compliance=cv["compliance"], temperature_K=temperature_K,
-            with_fixture=with_fixture, fixed=fixed or None))
+            with_fixture=with_fixture, fixed=fixed or None,
+            held_covariance=dc_hold_covariance(results, fixed)))
     more = dict(extras or {})
     if cv is not None and area_m2 is not None:
-        from pnbench.modeling import fit_cv
+        from pnbench.modeling import fit_cv, network
 
-        doping = fit_cv.doping(cv["voltage_V"], cv["capacitance_F"], area_m2=area_m2,
-                               temperature_K=temperature_K, semiconductor=semiconductor,
-                               compliance=cv["compliance"])
+        doping = network.corrected_doping(cv, results.get("cv"), area_m2=area_m2,
+                                          temperature_K=temperature_K,
+                                          semiconductor=semiconductor)
         if doping is not None:
             depl = results.get("cv")
             m = depl.values.get("M") if depl is not None and depl.success else None
@@ -172,6 +175,31 @@ def dc_holds(results: Iterable[FitResult]) -> dict[str, float]:
     return out
 
 
+def dc_hold_covariance(results: Mapping[str, FitResult],
+                       fixed: Mapping[str, float]) -> np.ndarray | None:
+    """Covariance of the held IS, N, RS, RSH (network.DC_NAMES present, finite and not
+    held absent), from the I-V fits that supplied them (independent fits: zero across)."""
+    from pnbench.modeling.network import DC_NAMES
+
+    names = [n for n in DC_NAMES if n in fixed and math.isfinite(fixed[n])
+             and not (n == "RS" and fixed[n] == 0.0)]
+    if not names:
+        return None
+    cov = np.zeros((len(names), len(names)))
+    fwd = results.get("iv_forward")
+    for a, na in enumerate(names):
+        for b, nb in enumerate(names):
+            if fwd is not None and fwd.success and na in fwd.names and nb in fwd.names \
+                    and fwd.values[na] == fixed[na] and fwd.values[nb] == fixed[nb]:
+                cov[a, b] = fwd.covariance[fwd.names.index(na), fwd.names.index(nb)]
+            elif a == b:
+                for r in results.values():
+                    if r.success and na in r.values and r.values[na] == fixed[na]:
+                        cov[a, a] = r.sigmas[na] ** 2
+                        break
+    return np.where(np.isfinite(cov), cov, 0.0)
+
+
 def _sources(name: str, results: Mapping[str, FitResult]) -> tuple[str, ...]:
     """PRIORITY's sources of a parameter, less the admittance fit where I–V speaks."""
     sources = PRIORITY[name]
@@ -197,14 +225,20 @@ def model_from_results(results: Mapping[str, FitResult], temperature_K: float,
                 sigmas[name] = s if math.isfinite(s) else None
                 break
     rev = results.get("iv_reverse")
+    out: dict[str, Any] = {"fits": {k: r.summary() for k, r in results.items()}}
+    _shunt(values, sigmas, results, out)
     if "BV" in values and rev is not None:
         values["IBV"] = float(rev.extras["IBV_A"])
         sigmas["IBV"] = None  # stated, not measured
-    out: dict[str, Any] = {"fits": {k: r.summary() for k, r in results.items()}}
-    if rev is not None and "leakage_A" in rev.extras:
-        out["leakage"] = {"voltage_V": rev.extras["leakage_voltage_V"],
-                          "current_A": rev.extras["leakage_A"],
-                          "sigma_A": rev.extras.get("leakage_sigma_A")}
+        terminal = values["BV"]
+        values["BV"], sigmas["BV"] = combine.junction_bv(
+            terminal, sigmas.get("BV"), values["IBV"], values.get("RS"), sigmas.get("RS"))
+        if values["BV"] != terminal:
+            out["BV_terminal_V"] = terminal
+    if rev is not None:
+        leak = combine.leakage_figure(dict(rev.extras))
+        if leak is not None:
+            out["leakage"] = leak
     for kind in ("admittance", "cv"):
         r = results.get(kind)
         if r is not None and "CFIX" in r.values:
@@ -213,6 +247,18 @@ def model_from_results(results: Mapping[str, FitResult], temperature_K: float,
             break
     out.update(extras or {})
     return ModelSet(values=values, sigmas=sigmas, temperature_K=temperature_K, extras=out)
+
+
+def _shunt(values, sigmas, results, out) -> None:
+    """RSH from the better determined of the I-V estimates, or their combination."""
+    if "RSH" not in values or not any(k in results for k in ("iv_forward", "iv_reverse")):
+        return
+    est = [(k, r.values["RSH"], r.sigmas["RSH"]) for k in ("iv_forward", "iv_reverse")
+           if (r := results.get(k)) is not None and r.success and "RSH" in r.values]
+    got = combine.combine_shunt(est)
+    if got is not None and len(est) > 1:
+        values["RSH"], sigmas["RSH"] = got[0], got[1]
+        out["RSH_source"] = got[2]
 
 
 def _finite_or_none(x: float) -> float | None:

@@ -249,6 +249,8 @@ def covariance_t(state: FitState) -> np.ndarray:
     hs = h / np.outer(d, d)
     w, v = np.linalg.eigh(hs)
     s2 = state.chi2 / state.dof if state.dof > 0 else math.inf
+    if not state.noise.estimated and math.isfinite(s2):
+        s2 = max(s2, 1.0)  # a stated noise sets the scale; worse residuals widen it
     if w[0] <= 1e-13 * max(w[-1], 1e-300) or not math.isfinite(s2):
         cov = np.full((k, k), math.inf)
         if w[0] > 0 and math.isfinite(s2):
@@ -345,10 +347,24 @@ def healthy(model: Model, state: FitState) -> bool:
 
 
 def to_result(model, state: FitState, kind: str, n_points: int,
-                      extras: dict | None = None, min_rows: int = 4) -> FitResult:
-    """The FitResult of a finished least-squares state (values in SI, not t)."""
+              extras: dict | None = None, min_rows: int = 4, *, x: np.ndarray | None = None,
+              y: np.ndarray | None = None,
+              extra_cov_t: np.ndarray | None = None) -> FitResult:
+    """The FitResult of a finished least-squares state (values in SI, not t).
+
+    With the data ``x``, ``y`` the lack-of-fit checks of ``misfit`` run and a misfit
+    shows in the message (sigmas inflated, marked lower bounds); ``extra_cov_t`` adds
+    the covariance carried in from held parameters (``heldcov``).
+    """
+    from pnbench.modeling import misfit
+
     idx = np.flatnonzero(state.active)
     cov_t = covariance_t(state)
+    if extra_cov_t is not None and extra_cov_t.shape == cov_t.shape:
+        cov_t = cov_t + np.where(np.isfinite(extra_cov_t), extra_cov_t, 0.0)
+    verdict = misfit.assess(model, state, x, y) if x is not None and y is not None \
+        else misfit.Verdict()
+    cov_t = cov_t * verdict.inflation**2
     d = np.array([model.params[k].derivative(state.t[k]) for k in idx])
     cov = cov_t * np.outer(d, d)
     names = tuple(model.params[k].name for k in idx)
@@ -362,6 +378,7 @@ def to_result(model, state: FitState, kind: str, n_points: int,
              f"{n_points} points" if ok else "fit failed: the data do not determine "
              f"{' '.join(n for n, s in sigmas.items() if not math.isfinite(s)) or 'it'}"]
     parts += state.notes
+    parts += verdict.notes
     if not state.converged:
         parts.append("the solver stopped before converging")
     at_bound = at_bounds(model, state)
@@ -372,6 +389,9 @@ def to_result(model, state: FitState, kind: str, n_points: int,
     edge = [model.params[k].name for k in idx
             if state.t[k] <= model.params[k].lower or state.t[k] >= model.params[k].upper]
     noise_extras: dict = {"at_bound": edge} if edge else {}
+    if verdict.figures:
+        noise_extras["lack_of_fit"] = {**verdict.figures, "misfit": verdict.misfit,
+                                       "sigma_inflation": verdict.inflation}
     for c, ch in enumerate(model.channels):
         key = f"noise_{c}" if len(model.channels) > 1 else "noise"
         noise_extras[key] = {"relative": state.noise.rel[c], "floor": state.noise.floor[c],

@@ -34,13 +34,14 @@ def test_a_run_becomes_one_model_with_every_parameter(data):
     for name in ("IS", "N", "RS", "CJO", "VJ", "M", "TT", "BV"):
         assert abs(m.values[name] / getattr(d.params, name) - 1) < 0.02, name
     assert m.values["IBV"] == d.params.IBV and m.sigma("IBV") is None
-    assert set(out.results) == {"iv_forward", "iv_reverse", "cv", "admittance"}
-    # the admittance fit held IS, N, RS at the I-V values
-    assert out.results["admittance"].extras["fixed"]["IS"] == m.values["IS"]
+    assert set(out.results) == {"iv_forward", "iv_reverse", "cv"}
+    # one fit of the network the meter sees held IS, N, RS at the I-V values
+    assert out.results["cv"].extras["fixed"]["IS"] == m.values["IS"]
+    assert {"CJO", "VJ", "M", "TT"} <= set(out.results["cv"].values)
     doc = json.loads(json.dumps(m.to_json_dict()))
     assert doc["parameters"]["TT"]["unit"] == "s"
     assert doc["fits"]["iv_forward"]["success"] is True
-    assert "correlation" in doc["fits"]["admittance"]
+    assert "correlation" in doc["fits"]["cv"]
 
 
 def test_parameters_not_extracted_are_absent(data):
@@ -162,7 +163,7 @@ def test_dc_holds_of_the_iv_fits():
 def test_admittance_fit_holds_no_shunt_when_iv_sees_none(data):
     """The sig diode's forward I-V from 0.35 V (where the simulator's GMIN shunt is below
     the 0.1 % reading noise added) and its admittance with 1 uS of meter loss added to G:
-    the admittance fit holds RSH absent instead of turning the loss into a shunt, the
+    the network fit holds RSH absent instead of turning the loss into a shunt, the
     model has no RSH, and TT stays within 2 % (reference: ngspice DC and AC analysis,
     tests/spicehelp.py)."""
     d = data["sig"]
@@ -173,7 +174,7 @@ def test_admittance_fit_holds_no_shunt_when_iv_sees_none(data):
                          "admittance": {"voltage_V": d.cv_v, "frequency_Hz": d.cv_f,
                                         "capacitance_F": d.cv_c,
                                         "conductance_S": d.cv_g + 1e-6}})
-    adm = out.results["admittance"]
+    adm = out.results["cv"]
     assert "RSH" not in out.results["iv_forward"].values
     assert adm.extras["held_absent"] == ["RSH"] and "RSH" not in adm.values
     assert "RSH" not in out.model.values

@@ -213,6 +213,12 @@ class RunState:
             self.parameters[name] = Estimate(
                 float(entry["value"]),
                 float(sigma) if isinstance(sigma, (int, float)) else None, True)
+        fixture = doc.get("fixture_capacitance_F")  # the bench's, shown marked as such
+        if isinstance(fixture, dict) and isinstance(fixture.get("value"), (int, float)):
+            sigma = fixture.get("sigma")
+            self.parameters["CFIX"] = Estimate(
+                float(fixture["value"]),
+                float(sigma) if isinstance(sigma, (int, float)) else None, True)
         self.version += 1
 
     def add_log(self, entry: LogEntry) -> None:

@@ -32,7 +32,8 @@ def add_arguments(parser) -> None:
                         help="reverse voltage for the leakage figure (default: the deepest "
                              "bias before breakdown), e.g. 20 or 20V")
     parser.add_argument("--fixture", action="store_true",
-                        help="also fit a fixed parallel (fixture) capacitance in C-V data")
+                        help="always fit a parallel (fixture) capacitance in C-V data "
+                             "(by default it is fitted when the data determine it)")
     parser.add_argument("--json", action="store_true",
                         help="print the model.json document instead of the table")
 
@@ -71,7 +72,7 @@ def run(args) -> int:
     kinds = data.kinds if args.kind == "auto" else (args.kind,)
     fit_data = {k: data.select(k) for k in kinds if data.select(k) is not None}
     result = joint.fit_all(fit_data, temperature_K=temperature, area_m2=area,
-                           reference_V=leak, ibv_A=ibv, with_fixture=args.fixture,
+                           reference_V=leak, ibv_A=ibv, with_fixture=True if args.fixture else None,
                            extras={"source": str(data.path)})
     if not any(r.success for r in result.results.values()):
         reasons = "; ".join(f"{k}: {r.message}" for k, r in result.results.items())
@@ -142,12 +143,17 @@ def format_table(result, data, temperature, notes, math) -> str:
     if "leakage" in extras:
         leak = extras["leakage"]
         sd = leak.get("sigma_A")
-        lines.append(f"  leakage at {leak['voltage_V']:.4g} V: "
-                     f"{format_quantity(leak['current_A'], 'A')}"
-                     + (f" +- {format_quantity(sd, 'A')}" if sd is not None else ""))
+        if leak.get("current_A") is None:
+            lines.append(f"  leakage at {leak['voltage_V']:.4g} V: below "
+                         f"{format_quantity(leak.get('below_A', 0.0), 'A')}")
+        else:
+            lines.append(f"  leakage at {leak['voltage_V']:.4g} V: "
+                         f"{format_quantity(leak['current_A'], 'A')}"
+                         + (f" +- {format_quantity(sd, 'A')}" if sd is not None else ""))
     if "fixture_capacitance_F" in extras:
         fx = extras["fixture_capacitance_F"]
-        lines.append(f"  fixture capacitance: {format_quantity(fx['value'], 'F')}")
+        lines.append(f"  fixture capacitance (the bench's, not on the card): "
+                     f"{format_quantity(fx['value'], 'F')}")
     doping = extras.get("doping")
     if isinstance(doping, dict):
         if "doping_per_m3" in doping:

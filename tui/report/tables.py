@@ -86,6 +86,14 @@ def parameters(data: RunData, an: Analysis) -> str:
                      num(esc(qty(sigma, UNITS[name], prec=2) if sigma is not None else "unknown")),
                      num(esc(rel))])
     parts.append(table(["Parameter", "Value", "\u03c3", "\u03c3 / value"], rows))
+    fixture = m.extras.get("fixture_capacitance_F")
+    if isinstance(fixture, dict) and isinstance(fixture.get("value"), (int, float)):
+        sd = fixture.get("sigma")
+        parts.append("<p>Fixture capacitance (the bench's, not the device's; fitted "
+                     "across the terminals and kept off the model card): "
+                     f"{esc(qty(fixture['value'], 'F'))}"
+                     + (f" \u00b1 {esc(qty(sd, 'F', prec=2))}" if isinstance(sd, (int, float))
+                        else "") + ".</p>")
     parts.append(_fit_quality(an))
     for label, names, matrix in an.correlations:
         parts.append(f"<h3>Correlation of the estimates ({esc(label)})</h3>")

@@ -13,6 +13,9 @@ from pnbench.tui.app.state import Estimate
 #: Display order: DC first, then capacitance, then transit time; others after.
 ORDER = ("IS", "N", "RS", "RSH", "BV", "IBV", "CJO", "VJ", "M", "FC", "TT", "EG", "XTI")
 
+#: CFIX is the fixture's stray capacitance: the bench's, not the device's.
+FIXTURE_LABEL = "CFIX bench"
+
 #: The settled column: settled to the step's target, or still moving.
 SETTLED_MARK = "ok"
 MOVING_MARK = ".."
@@ -47,8 +50,9 @@ def rows(parameters: dict[str, Estimate],
     out = []
     for name in names:
         estimate = parameters[name]
-        unit = UNITS.get(name, "")
-        out.append((name, format_value(estimate.value, unit),
+        unit = UNITS.get(name, "F" if name == "CFIX" else "")
+        out.append((FIXTURE_LABEL if name == "CFIX" else name,
+                    format_value(estimate.value, unit),
                     format_sigma(estimate, unit, detailed),
                     SETTLED_MARK if estimate.settled else MOVING_MARK))
     return out

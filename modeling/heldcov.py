@@ -1,0 +1,45 @@
+"""Carry the uncertainty of held parameters into a fit's covariance.
+
+A fit that holds some parameters (phi) at values another fit found, with covariance
+S_phi, returns estimates theta(phi). To first order theta moves with phi as
+A = d theta / d phi = -(J_a^T J_a)^-1 J_a^T J_h (J_a, J_h: weighted Jacobians of the
+residuals over the free and the held parameters at the optimum), so the covariance of
+theta gains A S_phi A^T. The two data sets are independent, so this stacked covariance
+equals the one a single least-squares problem over both would give to first order
+(the Gauss–Markov argument for two-stage estimation; Seber & Wild, *Nonlinear
+Regression*, Wiley 1989, sec. 2.1, from memory).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from pnbench.modeling import lsq
+
+
+def to_t_space(model, t: np.ndarray, held: list[int], cov_values: np.ndarray) -> np.ndarray:
+    """A covariance in the units of the values, expressed in the fitted variables t."""
+    d = np.array([model.params[j].derivative(t[j]) for j in held], dtype=float)
+    cov = np.asarray(cov_values, dtype=float).reshape(len(held), len(held))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = cov / np.outer(d, d)
+    return np.where(np.isfinite(out), out, 0.0)
+
+
+def propagated(model, state: lsq.FitState, x: np.ndarray, y: np.ndarray,
+               held: np.ndarray, held_cov_t: np.ndarray) -> np.ndarray | None:
+    """A S_phi A^T over the active parameters of ``state`` (t space), or None."""
+    idx = np.flatnonzero(state.active)
+    if idx.size == 0 or len(held) == 0:
+        return None
+    both = np.concatenate([idx, np.asarray(held, dtype=int)])
+    with np.errstate(all="ignore"):
+        _, jac, _ = lsq.weighted_rows(model, state.t, both, x, y, state.used, state.noise)
+    ja, jh = jac[:, :idx.size], jac[:, idx.size:]
+    if not (np.all(np.isfinite(ja)) and np.all(np.isfinite(jh))):
+        return None
+    try:
+        a = -np.linalg.solve(ja.T @ ja, ja.T @ jh)
+    except np.linalg.LinAlgError:
+        return None
+    return a @ held_cov_t @ a.T

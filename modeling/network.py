@@ -1,0 +1,228 @@
+"""The C–V fit on the two-terminal network the LCR meter sees (DC part known from I–V).
+
+At each bias and frequency the meter reads the whole network, not the junction: RS in
+series with gd + 1/RSH + j*w*(Cj + Cd), Cd = TT*gd, with the fixture's stray
+capacitance CFIX across the terminals (PHYSICS: small-signal model; the meter reports
+the parallel C = Im Y / w). Taking the reading as Cj biases CJO, VJ and M wherever gd*RS,
+w*RS*C, Cd or CFIX is not negligible: a rectifier's diffusion capacitance at 0 V, a hot
+Schottky's RS*gd, a fixture's fraction of a picofarad. So the capacitance of every C–V
+point (reverse and forward, every frequency) is fitted with that network, IS, N, RS and
+RSH held at the I–V fit's values (their uncertainty carried into the result by
+``heldcov``), and CJO, VJ, M, TT and CFIX free. TT and CFIX are kept only when the data
+set them three standard errors apart from zero (the rule RS and RSH follow); the
+message says which way each went and why.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+
+from pnbench.modeling import fit_cv, heldcov, lsq
+from pnbench.modeling.fitresult import FitResult, empty_result
+from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
+
+#: The DC parameters an I–V fit supplies and the network fit holds.
+DC_NAMES = ("IS", "N", "RS", "RSH")
+TT_ABSENT = ("TT not determined: the diffusion capacitance never stands three standard "
+             "errors above the depletion capacitance")
+
+
+def network_model(temperature_K: float, fc: float,
+                  with_fixture: bool | None) -> fit_cv.AdmittanceModel:
+    """The admittance model with CFIX optional (None), forced (True) or absent (False)."""
+    model = fit_cv.AdmittanceModel(temperature_K, fc, fixture=with_fixture)
+    params = [dataclasses.replace(p, absent_reason=TT_ABSENT) if p.name == "TT" else p
+              for p in model.params]
+    model.params = tuple(params)
+    return model
+
+
+class SplitModel:
+    """The network's parallel C in two channels: points at V <= 0 and at V > 0.
+
+    Each channel gets its own noise model (estimated from its residuals when not
+    stated): forward readings carry the test signal's distortion of the exponential
+    conductance and diffusion capacitance (a relative error of order (a/(N*Vt))**2/8
+    at an AC amplitude a), which must not set the weights of the reverse points that
+    fix CJO, VJ, M and CFIX.
+    """
+
+    channels = ("lin", "lin")
+
+    def __init__(self, inner: fit_cv.AdmittanceModel):
+        self.inner = inner
+        self.params = inner.params
+        self.index = inner.index
+
+    def predict(self, t, x, active):
+        y, jac = self.inner.predict(t, x, active)
+        y2 = np.column_stack([y[:, 0], y[:, 0]])
+        if jac is None:
+            return y2, None
+        return y2, np.stack([jac[:, 0, :], jac[:, 0, :]], axis=1)
+
+
+def _tt_start(model, t0, x, y, use) -> float:
+    """TT from the forward excess capacitance over the TT = 0 prediction (least squares
+    of the excess against dC/dTT)."""
+    k = model.index["TT"]
+    t_lo, t_hi = t0.copy(), t0.copy()
+    t_lo[k], t_hi[k] = 0.0, 1e-9
+    c0 = model.predict(t_lo, x, None)[0][:, 0]
+    d = (model.predict(t_hi, x, None)[0][:, 0] - c0) / 1e-9
+    sel = use & (x[:, 0] > 0) & (d > 0) & np.isfinite(d)
+    if not sel.any():
+        return 0.0
+    excess = y[sel, 0] - c0[sel]
+    tt = float(excess @ d[sel] / (d[sel] @ d[sel]))
+    return max(tt, 0.0) if math.isfinite(tt) else 0.0
+
+
+def fit_network(voltage_V, frequency_Hz, capacitance_F, *, fixed: dict[str, float],
+                held_covariance: np.ndarray | None = None, compliance=None, use=None,
+                temperature_K: float = DEFAULT_TEMPERATURE_K,
+                with_fixture: bool | None = None, fc: float = 0.5,
+                kind: str = "cv") -> FitResult:
+    """CJO, VJ, M, TT, CFIX from the parallel capacitance of every C–V point.
+
+    ``fixed`` holds IS, N and RS (and RSH; RS = 0 and RSH = inf hold them absent) from
+    the I–V fit; ``held_covariance`` is their covariance in the order of DC_NAMES that
+    are in ``fixed`` and finite (values' units), carried into the sigmas.
+    """
+    x, y, elig = fit_cv._cv_arrays(voltage_V, frequency_Hz, capacitance_F, None,
+                                   compliance, use)
+    y, elig = y.copy(), elig.copy()
+    elig[:, 1] = False  # the conductance is not needed: the DC part is held
+    elig[:, 0] &= y[:, 0] > 0
+    n = len(x)
+    if np.count_nonzero(elig[:, 0]) < fit_cv.MIN_CV_POINTS:
+        return empty_result(kind, n, f"too few C-V points ({np.count_nonzero(elig[:, 0])}; "
+                                     f"need {fit_cv.MIN_CV_POINTS})")
+    model = network_model(temperature_K, fc, with_fixture)
+    k = model.index
+    v = x[:, 0]
+    t0 = np.zeros(len(model.params))
+    rev = elig[:, 0] & (v <= 0)
+    if np.count_nonzero(rev) < 3:
+        rev = elig[:, 0] & (v <= np.sort(v[elig[:, 0]])[min(3, int(elig[:, 0].sum())) - 1])
+    t0[k["CJO"]:k["M"] + 1] = fit_cv.depletion_start(v[rev], y[rev, 0], fc)
+    active = np.ones(len(model.params), dtype=bool)
+    for name in DC_NAMES:
+        value = fixed.get(name, {"RS": 0.0, "RSH": math.inf}.get(name))
+        if value is None:
+            return empty_result(kind, n, f"network fit needs {name} from an I-V fit")
+        t0[k[name]] = model.params[k[name]].to_t(value)
+        active[k[name]] = False
+    t0[k["TT"]] = _tt_start(model, t0, x, y, elig[:, 0])
+    split = SplitModel(model)
+    y = np.column_stack([y[:, 0], y[:, 0]])
+    elig = np.column_stack([elig[:, 0] & (v <= 0), elig[:, 0] & (v > 0)])
+    state = lsq.fit(split, x, y, elig, t0, active)
+    model = split
+    held = [k[nm] for nm in DC_NAMES if nm in fixed and _finite_held(model, k[nm], fixed[nm])]
+    extra_cov = None
+    if held_covariance is not None and held:
+        extra_cov = heldcov.propagated(model, state, x, y, np.array(held),
+                                       heldcov.to_t_space(model, state.t, held,
+                                                          held_covariance))
+    out = lsq.to_result(model, state, kind, n, extras=fit_cv.held_extras(model, fixed),
+                        min_rows=fit_cv.MIN_CV_POINTS, x=x, y=y,
+                        extra_cov_t=extra_cov)
+    return _with_fixture_note(out, model, state)
+
+
+def _finite_held(model, j: int, value: float) -> bool:
+    p = model.params[j]
+    return math.isfinite(value) and not (p.optional and p.to_t(value) == p.null)
+
+
+def _with_fixture_note(result: FitResult, model, state: lsq.FitState) -> FitResult:
+    """Say in the message what CFIX is and how firmly the data set it."""
+    if "CFIX" not in result.values or not result.success:
+        return result
+    value, sd = result.values["CFIX"], result.sigmas["CFIX"]
+    z = abs(value) / sd if sd > 0 and math.isfinite(sd) else math.inf
+    note = (f"fixture capacitance CFIX = {value * 1e12:.4g} pF +- {sd * 1e12:.2g} pF fitted "
+            f"({z:.0f} standard errors from none): the bench's, not the device's; an open "
+            f"correction removes it")
+    return dataclasses.replace(result, message=f"{result.message}; {note}")
+
+
+def non_depletion_capacitance(values, voltage_V, frequency_Hz,
+                              temperature_K: float = DEFAULT_TEMPERATURE_K,
+                              fc: float = 0.5) -> np.ndarray:
+    """What the fitted network adds to Cj in the meter's parallel C (fixture, diffusion
+    capacitance, the effect of RS): subtract it from readings to get Cj."""
+    from pnbench.modeling.params import DiodeParams
+    from pnbench.modeling.smallsignal import depletion_capacitance, device_admittance
+
+    if not all(k in values for k in ("CJO", "VJ", "M")):
+        return np.zeros(np.shape(voltage_V))
+    p = DiodeParams(IS=values.get("IS", 1e-300), N=values.get("N", 1.0),
+                    RS=values.get("RS", 0.0), RSH=values.get("RSH", math.inf),
+                    CJO=values["CJO"], VJ=values["VJ"], M=values["M"],
+                    TT=values.get("TT", 0.0), FC=fc)
+    v = np.asarray(voltage_V, dtype=float)
+    f = np.asarray(frequency_Hz, dtype=float)
+    with np.errstate(all="ignore"):
+        y = device_admittance(v, f, p, temperature_K)
+        cp = np.imag(y) / (2 * np.pi * f) + values.get("CFIX", 0.0)
+        out = cp - depletion_capacitance(v, p)
+    return np.where(np.isfinite(out), out, 0.0)
+
+
+def band_gap_flag(vbi_V: float, semiconductor) -> str | None:
+    """A note when a Mott–Schottky built-in voltage exceeds the band gap (no junction in
+    the material can hold that: a measurement artefact such as stray capacitance or
+    series resistance bent the 1/C^2 line)."""
+    from pnbench.modeling.materials import material
+
+    if not isinstance(semiconductor, str):
+        return None
+    try:
+        gap = material(semiconductor).bandgap_eV.value
+    except Exception:  # noqa: BLE001  an unknown material: nothing to compare with
+        return None
+    if vbi_V > gap:
+        return (f"built-in voltage {vbi_V:.3g} V is above the band gap of {semiconductor} "
+                f"({gap:.3g} eV): a measurement artefact (stray capacitance, series "
+                f"resistance), not doping")
+    return None
+
+
+def corrected_doping(cv: dict, fit: FitResult | None, *, area_m2: float,
+                     temperature_K: float, semiconductor) -> dict | None:
+    """Mott–Schottky doping and Vbi on the capacitance less what the fitted network adds
+    to Cj (fixture, diffusion, RS), CFIX's uncertainty carried into both sigmas; a Vbi
+    above the band gap is flagged as an artefact."""
+    from pnbench.modeling.fit_cv import doping
+
+    def run(values):
+        c = cv["capacitance_F"]
+        if values is not None:
+            c = c - non_depletion_capacitance(values, cv["voltage_V"], cv["frequency_Hz"],
+                                              temperature_K)
+        return doping(cv["voltage_V"], c, area_m2=area_m2, temperature_K=temperature_K,
+                      semiconductor=semiconductor, compliance=cv["compliance"])
+
+    values = dict(fit.values) if fit is not None and fit.success else None
+    out = run(values)
+    if out is None or "doping_per_m3" not in out:
+        return out
+    if values is not None:
+        out["corrected"] = ("fixture, diffusion and series-resistance parts of the fitted "
+                            "network removed before the line")
+        sd = fit.sigmas.get("CFIX", math.inf)
+        if "CFIX" in values and math.isfinite(sd) and sd > 0:
+            shifted = run({**values, "CFIX": values["CFIX"] + sd})
+            if shifted is not None and "doping_per_m3" in shifted:
+                for key, sig in (("doping_per_m3", "doping_sigma_per_m3"),
+                                 ("built_in_voltage_V", "built_in_sigma_V")):
+                    out[sig] = math.hypot(out[sig], shifted[key] - out[key])
+    gap = band_gap_flag(out["built_in_voltage_V"], semiconductor)
+    if gap:
+        out["artefact"] = gap
+    return out
