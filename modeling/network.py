@@ -2,7 +2,7 @@
 
 At each bias and frequency the meter reads the whole network, not the junction: RS in
 series with gd + 1/RSH + j*w*(Cj + Cd), Cd = TT*gd, with the fixture's stray
-capacitance CFIX across the terminals (PHYSICS: small-signal model; the meter reports
+capacitance CFIX across the terminals (docs/physics.md §4-5; the meter reports
 the parallel C = Im Y / w). Taking the reading as Cj biases CJO, VJ and M wherever gd*RS,
 w*RS*C, Cd or CFIX is not negligible: a rectifier's diffusion capacitance at 0 V, a hot
 Schottky's RS*gd, a fixture's fraction of a picofarad. So the capacitance of every C–V
