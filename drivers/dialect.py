@@ -292,6 +292,9 @@ def parse_dialect_text(text: str, source: str = "<text>") -> Dialect:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise DialectError(f"dialect {source}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise DialectError(f"dialect {source}: arrays or inline tables nested too deeply "
+                           "to read; a dialect is a flat list of commands") from None
     return parse_dialect(data, source)
 
 

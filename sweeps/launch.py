@@ -18,7 +18,7 @@ import threading
 from pathlib import Path
 
 from pnbench import version
-from pnbench.errors import DataFileError, PnbenchError
+from pnbench.errors import BadInput, DataFileError, PnbenchError
 from pnbench.modeling.modelset import card_name
 from pnbench.sweeps import guardian as guardian_mod
 from pnbench.sweeps import resume as resume_mod
@@ -139,8 +139,13 @@ class Launch:
 
     def _open_folder(self):
         if self.resume_dir is None:
-            folder = RunFolder.create(self.out_dir, self.plan.text, self._run_doc(),
-                                      self._metadata())
+            try:
+                folder = RunFolder.create(self.out_dir, self.plan.text, self._run_doc(),
+                                          self._metadata())
+            except OSError as exc:
+                raise BadInput(f"cannot create a run folder in {self.out_dir} "
+                               f"({exc.strerror or exc}); give another output folder "
+                               "(--out)") from None
             folder.log(f"plan {self.plan.path}; device {self.plan.device.name}; "
                        f"simulated: {self.simulate or 'no'}")
             return folder, None

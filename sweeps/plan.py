@@ -109,6 +109,9 @@ def parse_plan(data: bytes | str, filename: str = "<plan>",
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise PlanError(f"plan {filename}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise PlanError(f"plan {filename}: arrays or inline tables nested too deeply to "
+                        "read; a plan has tables of values and lists of steps") from None
     problems = Problems(filename, key_lines(text))
     plan = _read(doc, text, filename, base_dir or Path("."), problems)
     if problems.items:

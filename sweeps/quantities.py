@@ -31,9 +31,11 @@ def _strip_unit(text: str, unit: str) -> tuple[str, bool]:
 
 
 def parse_quantity(text: str | float, unit: str, *, what: str = "value",
-                   allow_infinite: bool = False) -> float:
+                   allow_infinite: bool = False, low: float | None = None,
+                   high: float | None = None) -> float:
     """The value in SI units of ``text`` (a number, optionally SI-prefixed, optionally
-    followed by ``unit``). Raises BadInput naming ``what`` on anything else."""
+    followed by ``unit``), within [``low``, ``high``] when given. Raises BadInput naming
+    ``what`` on anything else."""
     if isinstance(text, (int, float)):
         value = float(text)
     else:
@@ -58,6 +60,19 @@ def parse_quantity(text: str | float, unit: str, *, what: str = "value",
         value = float(q)
     if math.isnan(value) or (math.isinf(value) and not allow_infinite):
         raise BadInput(f"{what}: {text!r} is not a finite number")
+    return within(value, unit, what, low, high)
+
+
+def within(value: float, unit: str, what: str, low: float | None = None,
+           high: float | None = None) -> float:
+    """``value`` when it lies in [``low``, ``high``]; BadInput naming ``what`` otherwise."""
+    if (low is not None and value < low) or (high is not None and value > high):
+        lo = "" if low is None else format_quantity(low, unit)
+        hi = "" if high is None else format_quantity(high, unit)
+        span = (f"between {lo} and {hi}" if low is not None and high is not None
+                else f"at least {lo}" if low is not None else f"at most {hi}")
+        raise BadInput(f"{what}: {format_quantity(value, unit)} is out of range; expected "
+                       f"{span}")
     return value
 
 

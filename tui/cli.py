@@ -96,7 +96,12 @@ def main(argv: list[str] | None = None) -> int:
 
 def _main(argv: list[str] | None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as stop:
+        if stop.code in (0, None):
+            raise  # --help, --version
+        return 2  # argparse named the option and printed the usage
     if args.command is None:
         parser.print_help()
         return 2

@@ -108,6 +108,9 @@ def parse_device(text: str, source: str = "<device>") -> SimDevice:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise DeviceFileError(f"{source}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise DeviceFileError(f"{source}: arrays or inline tables nested too deeply to "
+                              "read; a device file has flat tables of values") from None
     known = set(KEYS) | {"diode", "fault"}
     for name in doc:
         if name not in known:

@@ -93,4 +93,4 @@ def test_bad_options_exit_2(capsys):
     assert cli.main(["sim"]) == 2
     assert "--dut" in capsys.readouterr().err
     assert cli.main(["sim", "--dut", "lh-vc510", "--time-scale", "-2"]) == 2
-    assert "time scale" in capsys.readouterr().err
+    assert "--time-scale" in capsys.readouterr().err

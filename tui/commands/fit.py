@@ -51,7 +51,8 @@ def run(args) -> int:
     data = read_data(args.source, args.kind)
     notes = list(data.notes)
     if args.temperature is not None:
-        temperature = parse_quantity(args.temperature, "K", what="--temperature")
+        temperature = parse_quantity(args.temperature, "K", what="--temperature",
+                                     low=1.0, high=2000.0)
     elif data.temperature_K is not None:
         temperature = data.temperature_K
     else:
@@ -59,15 +60,15 @@ def run(args) -> int:
         notes.append(f"no temperature in the file or options: assumed {temperature} K (27 C)")
     if not temperature > 0:
         raise DataFileError(f"--temperature must be > 0 K, got {args.temperature!r}")
-    area = parse_quantity(args.area, "m2", what="--area") if args.area else data.area_m2
+    area = parse_quantity(args.area, "m2", what="--area", high=1.0) if args.area else data.area_m2
     if area is not None and not area > 0:
         raise DataFileError(f"--area must be > 0 m^2, got {args.area!r}")
-    ibv = parse_quantity(args.ibv, "A", what="--ibv") if args.ibv else None
+    ibv = parse_quantity(args.ibv, "A", what="--ibv", high=1e3) if args.ibv else None
     if ibv is not None and not ibv > 0:
         raise DataFileError(f"--ibv must be > 0 A, got {args.ibv!r}")
     if ibv is None:
         ibv = _run_breakdown_current(args.source, notes)
-    leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at")
+    leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at", low=-1e4, high=1e4)
             if args.leakage_at else None)
     kinds = data.kinds if args.kind == "auto" else (args.kind,)
     fit_data = {k: data.select(k) for k in kinds if data.select(k) is not None}

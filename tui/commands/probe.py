@@ -14,6 +14,7 @@ import contextlib
 import json
 
 from pnbench.errors import BadInput, InstrumentError, SafetyStop
+from pnbench.tui.commands.options import TIME_SCALE_MAX, integer, number
 
 HELP = "list visible instruments, or identify one and check it accepts a dialect"
 
@@ -32,12 +33,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--backend", default="@py", metavar="B",
                         help="VISA backend: @py (default), the path of a VISA library, or "
                              "FILE.yaml@sim for pyvisa-sim")
-    parser.add_argument("--timeout-ms", type=int, default=2000, metavar="MS",
+    parser.add_argument("--timeout-ms", type=integer(1, 3_600_000), default=2000, metavar="MS",
                         help="reply timeout for RESOURCE (default 2000)")
     parser.add_argument("--simulate", metavar="DUT.toml",
                         help="probe the simulated bench with this device instead (RESOURCE "
                              "is then the role's simulated instrument)")
-    parser.add_argument("--time-scale", type=float, default=0.0, metavar="X",
+    parser.add_argument("--time-scale", type=number(0.0, TIME_SCALE_MAX), default=0.0, metavar="X",
                         help="with --simulate: instrument time factor (default 0)")
     parser.add_argument("--json", action="store_true", help="print one JSON object")
 

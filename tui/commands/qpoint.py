@@ -12,6 +12,8 @@ from it IS moves with EG and XTI (docs/physics.md §3) and the other values stay
 
 from __future__ import annotations
 
+import math
+
 HELP = "small-signal equivalent (rd, gd, Cj, Cd, RS, admittance) of a model at a bias point"
 
 
@@ -66,24 +68,77 @@ def load_model(path_text: str):
     return ModelSet.from_card_text(text, source=str(path))
 
 
-def _finite_or_none(value: float) -> float | None:
-    import math
+#: What a diode model card can plausibly hold (SI units; inclusive). Far outside these a
+#: card is a typo or a hostile file, and the exponentials of the junction law overflow.
+#: Common practice, no source: the widest values found in data sheets and model libraries
+#: with a margin of several decades.
+MODEL_RANGES = {
+    "IS": (1e-40, 1.0), "N": (0.1, 50.0), "RS": (0.0, 1e9), "RSH": (1e-3, math.inf),
+    "CJO": (0.0, 1e-3), "VJ": (0.01, 10.0), "M": (0.0, 5.0), "FC": (0.0, 0.99),
+    "TT": (0.0, 1.0), "BV": (1e-3, math.inf), "IBV": (1e-18, 1e3), "EG": (0.05, 10.0),
+    "XTI": (-100.0, 100.0),
+}
+#: Option ranges: a bench diode's bias, the frequencies an LCR meter or network analyser
+#: covers, temperatures from a cryostat to a furnace, a meter's AC test level.
+BIAS_V_MAX = 1e4
+BIAS_A_MAX = 1e3
+FREQ_HZ = (1e-3, 1e12)
+TEMPERATURE_K = (1.0, 2000.0)
+AC_LEVEL_V_MAX = 100.0
 
+
+def check_model(params, source: str) -> None:
+    """BadInput naming the parameter when a model holds a value no diode has."""
+    from pnbench.errors import BadInput
+
+    for name, (low, high) in MODEL_RANGES.items():
+        value = getattr(params, name)
+        if not (low <= value <= high):
+            raise BadInput(f"{source}: {name} = {value:g} is outside what a diode model "
+                           f"can hold here ({low:g} to {high:g}); check the model")
+
+
+def _finite_or_none(value: float) -> float | None:
     return float(value) if math.isfinite(value) else None
 
 
 def evaluate(model, *, bias_voltage_V=None, bias_current_A=None, frequencies_Hz=(),
              temperature_K=None, ac_level_V_rms=None) -> dict:
-    """The qpoint document (JSON-able) of a ModelSet at one bias."""
-    import math
+    """The qpoint document (JSON-able) of a ModelSet at one bias; BadInput when the model
+    or the bias is out of range or the model gives no finite value there."""
+    import numpy as np
 
+    from pnbench.errors import BadInput
+
+    t = model.temperature_K if temperature_K is None else float(temperature_K)
+    check_model(model.to_params(), "the model")
+    with np.errstate(all="ignore"):
+        try:
+            doc = _evaluate(model, t, bias_voltage_V, bias_current_A, frequencies_Hz,
+                            ac_level_V_rms)
+        except (OverflowError, ZeroDivisionError, FloatingPointError) as exc:
+            raise BadInput(f"the model cannot be evaluated at this bias and temperature "
+                           f"({exc})") from None
+    for key in ("bias_voltage_V", "bias_current_A", "junction_voltage_V", "gd_S", "cj_F",
+                "cd_F", "rs_ohm"):
+        if not math.isfinite(doc[key]):
+            raise BadInput(f"the model gives no finite {key} at this bias and temperature; "
+                           "check the model's values and the bias")
+    for entry in doc["admittance"]:
+        if not (math.isfinite(entry["conductance_S"]) and math.isfinite(
+                entry["susceptance_S"])):
+            raise BadInput(f"the model gives no finite admittance at "
+                           f"{entry['frequency_Hz']:g} Hz")
+    return doc
+
+
+def _evaluate(model, t, bias_voltage_V, bias_current_A, frequencies_Hz, ac_level_V_rms):
     import numpy as np
 
     from pnbench.errors import BadInput
     from pnbench.modeling import aclevel, junction, smallsignal
     from pnbench.modeling.modelset import OTHER_CARD_PARAMETERS
 
-    t = model.temperature_K if temperature_K is None else float(temperature_K)
     params = junction.params_at_temperature(model.to_params(), t, model.temperature_K)
     notes = []
     if t != model.temperature_K:
@@ -180,29 +235,36 @@ def run(args) -> int:
     import json
 
     from pnbench.errors import BadInput
-    from pnbench.sweeps.quantities import parse_quantity
+    from pnbench.sweeps.quantities import parse_quantity, within
 
     model = load_model(args.model)
+    check_model(model.to_params(), args.model)
     bias_v = bias_i = None
     if args.bias_voltage is not None:
-        bias_v = parse_quantity(args.bias_voltage, "V", what="--bias-voltage")
+        bias_v = parse_quantity(args.bias_voltage, "V", what="--bias-voltage",
+                                low=-BIAS_V_MAX, high=BIAS_V_MAX)
     else:
-        bias_i = parse_quantity(args.bias_current, "A", what="--bias-current")
-    freqs = [parse_quantity(text, "Hz", what="--freq") for text in args.freq]
+        bias_i = parse_quantity(args.bias_current, "A", what="--bias-current",
+                                low=-BIAS_A_MAX, high=BIAS_A_MAX)
+    freqs = [parse_quantity(text, "Hz", what="--freq", high=FREQ_HZ[1])
+             for text in args.freq]
     for text, value in zip(args.freq, freqs, strict=True):
         if value <= 0:
             raise BadInput(f"--freq: {text!r} is not above 0 Hz")
+        within(value, "Hz", "--freq", *FREQ_HZ)
     temperature = None
     if args.temperature is not None:
         temperature = parse_quantity(args.temperature, "K", what="--temperature")
         if temperature <= 0:
             raise BadInput(f"--temperature: {args.temperature!r} is not above 0 K "
                            f"(the value is in kelvin, e.g. 300.15)")
+        within(temperature, "K", "--temperature", *TEMPERATURE_K)
     level = None
     if args.ac_level is not None:
         level = parse_quantity(args.ac_level, "V", what="--ac-level")
         if level <= 0:
             raise BadInput(f"--ac-level: {args.ac_level!r} is not above 0 V rms")
+        within(level, "V", "--ac-level", high=AC_LEVEL_V_MAX)
     doc = evaluate(model, bias_voltage_V=bias_v, bias_current_A=bias_i,
                    frequencies_Hz=freqs, temperature_K=temperature, ac_level_V_rms=level)
     if args.json:

@@ -5,6 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from pnbench.tui.commands.options import TIME_SCALE_MAX, check_out_dir, number
+
 HELP = "run a plan on the instruments (or rehearse it with --simulate DEVICE)"
 
 
@@ -26,23 +28,27 @@ def add_bench_options(parser: argparse.ArgumentParser, time_scale: float = 1.0) 
     parser.add_argument("--simulate", metavar="DUT.toml",
                         help="use the simulated bench with this device file (or the name "
                         "of a bundled one, e.g. lh-sw200) instead of the plan's instruments")
-    parser.add_argument("--time-scale", type=float, default=None, metavar="X",
+    parser.add_argument("--time-scale", type=number(0.0, TIME_SCALE_MAX), default=None,
+                        metavar="X",
                         help="with --simulate: 0 = as fast as possible, 1 = the "
                         f"instruments' real time (default: {time_scale:g})")
 
 
 def check_bench_options(args, plan=None) -> None:
-    """Bad --simulate or --time-scale values exit 2 before anything is created; with a
-    plan, its limits and levels are checked against the simulated instruments."""
+    """Bad --simulate, --time-scale or --out values exit 2 before anything is created;
+    with a plan, its limits and levels are checked against the simulated instruments."""
     from pnbench.errors import BadInput
 
     if args.time_scale is not None and args.simulate is None:
         print("note: --time-scale only applies with --simulate; ignored", file=sys.stderr)
     if args.time_scale is None:
         args.time_scale = args.default_time_scale
-    if args.time_scale < 0 or args.time_scale != args.time_scale:
-        raise BadInput(f"--time-scale {args.time_scale}: expected a number >= 0 (0 = as fast "
-                       "as possible, 1 = real instrument time)")
+    if not 0 <= args.time_scale <= TIME_SCALE_MAX:  # also NaN, inf
+        raise BadInput(f"--time-scale {args.time_scale}: expected a number from 0 to "
+                       f"{TIME_SCALE_MAX:g} (0 = as fast as possible, 1 = real instrument "
+                       "time)")
+    if getattr(args, "out", None) is not None:
+        check_out_dir(args.out)
     if args.simulate is not None:
         from pnbench.drivers.sim.device import resolve_device
 

@@ -12,6 +12,7 @@ import json
 import sys
 
 from pnbench.errors import BadInput
+from pnbench.tui.commands.options import TIME_SCALE_MAX, integer, number
 
 HELP = "serve a simulated SMU and LCR meter with a simulated diode on loopback TCP"
 
@@ -28,12 +29,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--dut", metavar="FILE",
         help="simulated-device file (TOML), or the name of a bundled device (see --list)")
-    parser.add_argument("--smu-port", type=int, default=0, metavar="N",
+    parser.add_argument("--smu-port", type=integer(0, 65535), default=0, metavar="N",
                         help="TCP port of the SMU (default: any free port)")
-    parser.add_argument("--lcr-port", type=int, default=0, metavar="N",
+    parser.add_argument("--lcr-port", type=integer(0, 65535), default=0, metavar="N",
                         help="TCP port of the LCR meter (default: any free port)")
     parser.add_argument(
-        "--time-scale", type=float, default=1.0, metavar="X",
+        "--time-scale", type=number(0.0, TIME_SCALE_MAX), default=1.0, metavar="X",
         help="instrument time factor: 0 answers as fast as possible, 1 (default) takes as "
              "long as the simulated instruments would")
     parser.add_argument(
