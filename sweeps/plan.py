@@ -11,6 +11,8 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from pnbench.drivers.backends import plan_backend_problem
+from pnbench.drivers.backends import resolve as resolve_backend
 from pnbench.errors import PlanError
 from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V, Limits
 from pnbench.sweeps.planread import Problems, TableReader
@@ -195,7 +197,11 @@ def _read_instruments(raw: object, base_dir: Path, problems: Problems) -> dict:
         role = t.choice("role", ROLES, label if label in ROLES else None,
                         required=label not in ROLES)
         resource = t.text("resource", required=True)
-        backend = t.text("backend", "@py") or "@py"
+        backend = t.text("backend")
+        if backend is not None and (why := plan_backend_problem(backend)) is not None:
+            t.problem("backend", why)
+            backend = None
+        backend = resolve_backend(backend)  # the user's VISA library, if any
         dialect = t.text("dialect")
         if dialect is not None and dialect != "default":
             candidate = Path(dialect)

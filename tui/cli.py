@@ -107,6 +107,10 @@ def _main(argv: list[str] | None) -> int:
         return 2
     debug = bool(getattr(args, "debug", False))
     try:
+        if getattr(args, "visa_library", None) is not None:
+            from pnbench.drivers.backends import choose_visa_library
+
+            choose_visa_library(args.visa_library)  # the user's choice, never a plan's
         code = args._module.run(args)
     except PnbenchError as exc:
         if debug or exc.exit_code == 1:
@@ -126,6 +130,11 @@ def _main(argv: list[str] | None) -> int:
             file=sys.stderr,
         )
         return 1
+    finally:
+        if getattr(args, "visa_library", None) is not None:
+            from pnbench.drivers.backends import choose_visa_library
+
+            choose_visa_library(None)
     return int(code or 0)
 
 

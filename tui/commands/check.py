@@ -5,11 +5,14 @@ from __future__ import annotations
 import argparse
 import json
 
+from pnbench.tui.commands.options import add_visa_library
+
 HELP = "validate a plan: steps, points, estimated duration and worst-case power"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("plan", help="plan file (TOML)")
+    add_visa_library(parser)
     parser.add_argument("--json", action="store_true",
                         help="print the summary as one JSON object")
 
@@ -51,6 +54,7 @@ def summary(plan) -> dict:
 
 
 def run(args) -> int:
+    from pnbench.drivers.backends import describe
     from pnbench.sweeps.check import estimate
     from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V
     from pnbench.sweeps.plan import load_plan
@@ -75,8 +79,8 @@ def run(args) -> int:
               f"{lim.hazardous_ack_V:g} V); enclose and interlock the fixture")
     if plan.instruments:
         for role, inst in sorted(plan.instruments.items()):
-            print(f"{role}: {inst.resource} ({inst.backend}, dialect "
-                  f"{inst.dialect or 'default'})")
+            print(f"{role}: connects to {inst.resource} through {inst.backend} "
+                  f"({describe(inst.backend)}), dialect {inst.dialect or 'default'}")
     else:
         print("instruments: none in the plan (run it with --simulate DEVICE)")
     width = max(len(s.name) for s in plan.steps)

@@ -77,3 +77,12 @@ def check_out_dir(path: str | Path, option: str = "--out") -> Path:
         raise BadInput(f"{option} {text}: cannot be used as a folder ({exc.strerror or exc})"
                        ) from None
     return folder
+
+
+def add_visa_library(parser: argparse.ArgumentParser) -> None:
+    """``--visa-library PATH``: the VISA library for instruments whose plan names no
+    backend or "@ivi" (a plan itself can never name one)."""
+    parser.add_argument("--visa-library", metavar="PATH",
+                        help="VISA library (shared object) for instruments whose plan gives "
+                        "backend \"@ivi\" or none; default: $PNBENCH_VISA_LIBRARY, then "
+                        "visa_library in ~/.config/pnbench/config.toml, else @py")

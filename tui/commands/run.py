@@ -5,7 +5,12 @@ from __future__ import annotations
 import argparse
 import sys
 
-from pnbench.tui.commands.options import TIME_SCALE_MAX, check_out_dir, number
+from pnbench.tui.commands.options import (
+    TIME_SCALE_MAX,
+    add_visa_library,
+    check_out_dir,
+    number,
+)
 
 HELP = "run a plan on the instruments (or rehearse it with --simulate DEVICE)"
 
@@ -32,6 +37,7 @@ def add_bench_options(parser: argparse.ArgumentParser, time_scale: float = 1.0) 
                         metavar="X",
                         help="with --simulate: 0 = as fast as possible, 1 = the "
                         f"instruments' real time (default: {time_scale:g})")
+    add_visa_library(parser)
 
 
 def check_bench_options(args, plan=None) -> None:
