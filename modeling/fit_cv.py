@@ -359,7 +359,7 @@ def fit_cv_data(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
         from pnbench.modeling import network
 
         return {"cv": network.fit_network(
-            voltage_V, frequency_Hz, capacitance_F, fixed=fixed,
+            voltage_V, frequency_Hz, capacitance_F, conductance_S, fixed=fixed,
             held_covariance=held_covariance, compliance=compliance,
             temperature_K=temperature_K, with_fixture=with_fixture)}
     out = {"cv": fit_cv(voltage_V, frequency_Hz, capacitance_F, compliance=compliance,

@@ -132,9 +132,16 @@ def _analyse(x, mag, ibv, vt):
 def fit_reverse(voltage_V, current_A, *, compliance=None,
                 temperature_K: float = DEFAULT_TEMPERATURE_K,
                 reference_V: float | None = None, ibv_A: float | None = None,
-                use=None) -> FitResult:
+                use=None, series_ohm: float | None = None,
+                series_sigma_ohm: float | None = None) -> FitResult:
     """Leakage at ``reference_V`` (default: the deepest bias before breakdown), RSH, and
-    BV at ``ibv_A`` (default 1 mA) from reverse I–V points (V < 0)."""
+    BV at ``ibv_A`` (default 1 mA) from reverse I–V points (V < 0).
+
+    With ``series_ohm`` (RS from a forward fit) the breakdown is read on the junction
+    voltage V - I*RS, where ln I grows linearly (on the terminal voltage the I*RS drop
+    bends it over a decade of current), BV is the junction's and extras carry the
+    terminal value "BV_terminal_V"; RS's sigma is carried into BV's.
+    """
     v = np.asarray(voltage_V, dtype=float).ravel()
     i = np.asarray(current_A, dtype=float).ravel()
     n = v.size
@@ -151,9 +158,18 @@ def fit_reverse(voltage_V, current_A, *, compliance=None,
                             f"({np.count_nonzero(ok)}; need 2)", used=ok)
     vt = thermal_voltage(temperature_K)
     vr, mag = v[ok], -i[ok]  # reverse current as a positive magnitude where it flows
+    rs = float(series_ohm) if series_ohm is not None and math.isfinite(series_ohm) \
+        and series_ohm > 0 else 0.0
     names, values, sig, notes = [], {}, {}, []
     extras: dict = {"IBV_A": ibv}
     bd, pre, line = _analyse(-vr, mag, ibv, vt)
+    if rs > 0:  # the breakdown on the junction voltage; leakage and RSH stay terminal
+        bd_j, _, _ = _analyse(-(vr + mag * rs), mag, ibv, vt)
+        if bd_j is not None and bd is not None:
+            sd = math.hypot(bd_j[1], ibv * (series_sigma_ohm or 0.0))
+            extras["BV_terminal_V"] = bd_j[0] + ibv * rs
+            extras["BV_at_junction"] = True
+            bd = (bd_j[0], sd, bd_j[2], bd_j[3])
     deepest = float(-vr.min())
     if bd is None:
         reached = float(np.max(mag))

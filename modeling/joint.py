@@ -110,9 +110,12 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
             results["iv_forward"] = fit_iv.fit_forward(v, i, compliance=comp,
                                                        temperature_K=temperature_K)
         if np.any(v < 0):
-            results["iv_reverse"] = fit_iv.fit_reverse(v, i, compliance=comp,
-                                                       temperature_K=temperature_K,
-                                                       reference_V=reference_V, ibv_A=ibv_A)
+            fwd = results.get("iv_forward")
+            rs = fwd.values.get("RS") if fwd is not None and fwd.success else None
+            results["iv_reverse"] = fit_iv.fit_reverse(
+                v, i, compliance=comp, temperature_K=temperature_K, reference_V=reference_V,
+                ibv_A=ibv_A, series_ohm=rs,
+                series_sigma_ohm=fwd.sigmas.get("RS") if rs is not None else None)
     cv = _pool(data, _CV_KINDS)
     if cv is not None:
         from pnbench.modeling import fit_cv
@@ -230,11 +233,15 @@ def model_from_results(results: Mapping[str, FitResult], temperature_K: float,
     if "BV" in values and rev is not None:
         values["IBV"] = float(rev.extras["IBV_A"])
         sigmas["IBV"] = None  # stated, not measured
-        terminal = values["BV"]
-        values["BV"], sigmas["BV"] = combine.junction_bv(
-            terminal, sigmas.get("BV"), values["IBV"], values.get("RS"), sigmas.get("RS"))
-        if values["BV"] != terminal:
-            out["BV_terminal_V"] = terminal
+        if rev.extras.get("BV_at_junction"):
+            out["BV_terminal_V"] = rev.extras["BV_terminal_V"]
+        else:
+            terminal = values["BV"]
+            values["BV"], sigmas["BV"] = combine.junction_bv(
+                terminal, sigmas.get("BV"), values["IBV"], values.get("RS"),
+                sigmas.get("RS"))
+            if values["BV"] != terminal:
+                out["BV_terminal_V"] = terminal
     if rev is not None:
         leak = combine.leakage_figure(dict(rev.extras))
         if leak is not None:

@@ -50,8 +50,8 @@ class Verdict:
 
 
 def ordered_residuals(model, state: lsq.FitState, x: np.ndarray, y: np.ndarray):
-    """Weighted residuals per channel, ordered by the other conditions then the first
-    (e.g. frequency, then bias): a list of 1-d arrays, one per channel and group."""
+    """Weighted residuals per channel, ordered by the second condition then the first
+    (frequency, then bias): a list of 1-d arrays, one per channel and frequency."""
     idx = np.flatnonzero(state.active)
     out = []
     for c in range(len(model.channels)):
@@ -62,11 +62,13 @@ def ordered_residuals(model, state: lsq.FitState, x: np.ndarray, y: np.ndarray):
         use[rows, c] = True
         r, _, _ = lsq.weighted_rows(model, state.t, idx, x, y, use, state.noise,
                                     want_jac=False)
-        keys = [x[rows, j] for j in range(x.shape[1] - 1, 0, -1)] + [x[rows, 0]]
-        order = np.lexsort(keys[::-1]) if x.shape[1] > 1 else np.argsort(x[rows, 0])
+        if x.shape[1] > 1:  # one sequence per value of the second condition (frequency)
+            order = np.lexsort((x[rows, 0], x[rows, 1]))
+        else:
+            order = np.argsort(x[rows, 0], kind="stable")
         xs, rs = x[rows][order], r[order]
-        if x.shape[1] > 1:  # one sequence per value of the other conditions
-            other = xs[:, 1:]
+        if x.shape[1] > 1:
+            other = xs[:, 1:2]
             cut = np.flatnonzero(np.any(np.diff(other, axis=0) != 0, axis=1)) + 1
             out += [p for p in np.split(rs, cut) if p.size]
         else:

@@ -48,21 +48,27 @@ class SplitModel:
     conductance and diffusion capacitance (a relative error of order (a/(N*Vt))**2/8
     at an AC amplitude a), which must not set the weights of the reverse points that
     fix CJO, VJ, M and CFIX.
+
+    The forward channel is scaled per point by w/|Y| of the reading: a meter's noise is
+    a fraction of |Y|, so on C it is rel*|Y|/w, which grows with the conductance; on
+    C*w/|Y| it is the constant rel, which the noise model's floor takes. The scale is
+    read from the data, not the model, so it only sets weights.
     """
 
     channels = ("lin", "lin")
 
-    def __init__(self, inner: fit_cv.AdmittanceModel):
+    def __init__(self, inner: fit_cv.AdmittanceModel, scale: np.ndarray):
         self.inner = inner
         self.params = inner.params
         self.index = inner.index
+        self.scale = scale
 
     def predict(self, t, x, active):
         y, jac = self.inner.predict(t, x, active)
-        y2 = np.column_stack([y[:, 0], y[:, 0]])
+        y2 = np.column_stack([y[:, 0], y[:, 0] * self.scale])
         if jac is None:
             return y2, None
-        return y2, np.stack([jac[:, 0, :], jac[:, 0, :]], axis=1)
+        return y2, np.stack([jac[:, 0, :], jac[:, 0, :] * self.scale[:, None]], axis=1)
 
 
 def _tt_start(model, t0, x, y, use) -> float:
@@ -81,7 +87,8 @@ def _tt_start(model, t0, x, y, use) -> float:
     return max(tt, 0.0) if math.isfinite(tt) else 0.0
 
 
-def fit_network(voltage_V, frequency_Hz, capacitance_F, *, fixed: dict[str, float],
+def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
+                fixed: dict[str, float],
                 held_covariance: np.ndarray | None = None, compliance=None, use=None,
                 temperature_K: float = DEFAULT_TEMPERATURE_K,
                 with_fixture: bool | None = None, fc: float = 0.5,
@@ -92,9 +99,14 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, *, fixed: dict[str, floa
     the I–V fit; ``held_covariance`` is their covariance in the order of DC_NAMES that
     are in ``fixed`` and finite (values' units), carried into the sigmas.
     """
-    x, y, elig = fit_cv._cv_arrays(voltage_V, frequency_Hz, capacitance_F, None,
+    x, y, elig = fit_cv._cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                                    compliance, use)
     y, elig = y.copy(), elig.copy()
+    w = 2 * np.pi * x[:, 1]
+    with np.errstate(all="ignore"):
+        k_phase = w / np.abs(y[:, 1] + 1j * w * y[:, 0])  # w/|Y|: C*w/|Y| has even noise
+    k_phase = np.where(np.isfinite(k_phase) & (k_phase > 0) & np.isfinite(y[:, 1]),
+                       k_phase, 1.0 / np.maximum(np.abs(y[:, 0]), 1e-300))
     elig[:, 1] = False  # the conductance is not needed: the DC part is held
     elig[:, 0] &= y[:, 0] > 0
     n = len(x)
@@ -117,8 +129,8 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, *, fixed: dict[str, floa
         t0[k[name]] = model.params[k[name]].to_t(value)
         active[k[name]] = False
     t0[k["TT"]] = _tt_start(model, t0, x, y, elig[:, 0])
-    split = SplitModel(model)
-    y = np.column_stack([y[:, 0], y[:, 0]])
+    split = SplitModel(model, k_phase)
+    y = np.column_stack([y[:, 0], y[:, 0] * k_phase])
     elig = np.column_stack([elig[:, 0] & (v <= 0), elig[:, 0] & (v > 0)])
     state = lsq.fit(split, x, y, elig, t0, active)
     model = split
