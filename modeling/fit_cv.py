@@ -22,6 +22,7 @@ import numpy as np
 
 from pnbench.errors import BadInput
 from pnbench.modeling import depletion, lsq
+from pnbench.modeling.fit_iv import IS_LOWER_LN
 from pnbench.modeling.fit_iv import start_values as iv_start_values
 from pnbench.modeling.fitresult import FitResult, empty_result
 from pnbench.modeling.junction import thermal_voltage
@@ -45,7 +46,7 @@ def _params(fixture: bool | None, with_dc: bool) -> tuple[lsq.Param, ...]:
     out = []
     if with_dc:
         out += [
-            lsq.Param("IS", "log", lower=math.log(1e-40), upper=math.log(10.0)),
+            lsq.Param("IS", "log", lower=IS_LOWER_LN, upper=math.log(10.0)),
             lsq.Param("N", "lin", lower=0.3, upper=20.0),
             lsq.Param("RS", "lin", lower=0.0, upper=1e9, optional=True, step=1e-9,
                       absent_reason="RS not determined: the conductance never bends "

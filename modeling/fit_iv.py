@@ -28,6 +28,9 @@ from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
 FORWARD_NAMES = ("IS", "N", "RS", "RSH")
 RS_ABSENT = "RS not determined: the data never leave the exponential region"
 RSH_ABSENT = "RSH not determined: no shunt current shows below the exponential region"
+#: ln of the smallest IS a fit may reach: no floor that excludes real junctions (silicon
+#: at 77 K has IS near 1e-69 A); 1e-300 A keeps exp(t) a normal double.
+IS_LOWER_LN = math.log(1e-300)
 #: The fewest usable points a forward fit starts with.
 MIN_POINTS = 4
 
@@ -41,7 +44,7 @@ class ForwardModel:
         self.temperature_K = temperature_K
         self.vt = thermal_voltage(temperature_K)
         self.params = (
-            lsq.Param("IS", "log", lower=math.log(1e-40), upper=math.log(10.0)),
+            lsq.Param("IS", "log", lower=IS_LOWER_LN, upper=math.log(10.0)),
             lsq.Param("N", "lin", lower=0.3, upper=20.0),
             lsq.Param("RS", "lin", lower=0.0, upper=1e9, optional=True, absent_reason=RS_ABSENT),
             lsq.Param("RSH", "inv", lower=0.0, upper=1e3, optional=True, absent_reason=RSH_ABSENT),
@@ -137,7 +140,7 @@ def start_values(v: np.ndarray, i: np.ndarray, temperature_K: float,
         share = excess / ii[below]
         if np.median(share) > 0.3:
             g0 = float(np.median(excess[share > 0.3] / vv[below][share > 0.3]))
-    t = np.array([math.log(max(is0, 1e-40)) if is0 > 0 else math.nan, n0, rs0, max(g0, 0.0)])
+    t = np.array([max(math.log(is0), IS_LOWER_LN) if is0 > 0 else math.nan, n0, rs0, max(g0, 0.0)])
     fallback = np.array([math.log(1e-14), 1.5, 0.0, 0.0])  # only for degenerate data
     return np.where(np.isfinite(t), t, fallback)
 

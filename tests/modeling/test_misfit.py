@@ -1,0 +1,81 @@
+"""Misfit made visible, and the figures several fits contribute to (combine module)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from pnbench.modeling import combine, fit_cv, fit_iv, junction, misfit, smallsignal
+from pnbench.modeling.params import DiodeParams
+
+P = DiodeParams(IS=1e-14, N=1.0, RS=0.5, CJO=2e-11, VJ=0.7, M=0.5)
+
+
+def _cv(rng, cfix=0.0, rel=2e-4):
+    v = np.linspace(-20.0, 0.0, 41)
+    f = np.full(v.size, 1e6)
+    c = np.asarray(smallsignal.depletion_capacitance(v, P)) + cfix
+    return v, f, c * (1 + rel * rng.standard_normal(v.size))
+
+
+def test_a_wrong_model_says_so_and_widens_its_sigmas():
+    """A fixture of 2 pF fitted as junction only (with_fixture=False): the residuals run
+    in long streaks, the message says the model does not describe the data and the
+    sigmas are inflated (runs test: Wald & Wolfowitz 1940)."""
+    rng = np.random.default_rng(11)
+    v, f, c = _cv(rng, cfix=2e-12)
+    wrong = fit_cv.fit_cv(v, f, c, with_fixture=False)
+    assert "does not describe the data" in wrong.message
+    lof = wrong.extras["lack_of_fit"]
+    assert lof["misfit"] and lof["sigma_inflation"] > 1.5 and lof["runs_z"] < -misfit.Z_RUNS
+    right = fit_cv.fit_cv(v, f, c)
+    assert "does not describe the data" not in right.message
+    assert right.extras["lack_of_fit"]["misfit"] is False
+
+
+def test_honest_fits_are_rarely_flagged():
+    """Over 40 noisy data sets the right model is flagged at most twice (the threshold
+    is a one-sided p of ~5e-4; common practice, no source)."""
+    rng = np.random.default_rng(5)
+    v = np.linspace(0.3, 0.9, 60)
+    i0 = np.asarray(junction.current(v, P))
+    flagged = 0
+    for _ in range(40):
+        r = fit_iv.fit_forward(v, i0 * (1 + 1e-3 * rng.standard_normal(v.size)))
+        flagged += bool(r.extras["lack_of_fit"]["misfit"])
+    assert flagged <= 2
+
+
+def test_stated_noise_judges_the_chi_square():
+    """With the instrument's noise stated, residuals ten times larger are a misfit."""
+    rng = np.random.default_rng(2)
+    v = np.linspace(0.3, 0.9, 60)
+    i = np.asarray(junction.current(v, P)) * (1 + 1e-2 * rng.standard_normal(v.size))
+    r = fit_iv.fit_forward(v, i, noise=(1e-3, 1e-15))
+    assert r.extras["lack_of_fit"]["chi2_probability"] < misfit.P_MISFIT
+    assert "exceed the stated instrument noise" in r.message
+    ok = fit_iv.fit_forward(v, i, noise=(1e-2, 1e-15))
+    assert ok.extras["lack_of_fit"]["chi2_probability"] > misfit.P_MISFIT
+
+
+def test_rsh_estimates_combine_by_inverse_variance_or_the_better_wins():
+    """Consistent estimates average on 1/RSH; inconsistent ones: the better determined."""
+    r, s, how = combine.combine_shunt([("iv_forward", 1.0e5, 1e4), ("iv_reverse", 1.0e5, 1e3)])
+    assert math.isclose(r, 1.0e5) and s < 1e3 and "combined" in how
+    r, s, how = combine.combine_shunt([("iv_forward", 1.75e5, 5e3), ("iv_reverse", 1.5e5, 1e3)])
+    assert r == 1.5e5 and "disagree" in how
+
+
+def test_leakage_below_the_noise_is_a_bound_never_negative():
+    leak = combine.leakage_figure({"leakage_voltage_V": -30.0, "leakage_A": -5.8e-13,
+                                   "leakage_sigma_A": 3.0e-13})
+    assert "current_A" not in leak and math.isclose(leak["below_A"], 6e-13)
+    leak = combine.leakage_figure({"leakage_voltage_V": -5.0, "leakage_A": 2e-9,
+                                   "leakage_sigma_A": 1e-11})
+    assert leak["current_A"] == 2e-9
+
+
+def test_bv_at_the_junction_is_the_terminal_value_less_ibv_rs():
+    bv, sd = combine.junction_bv(34.2, 0.002, 5e-3, 16.0, 0.1)
+    assert math.isclose(bv, 34.2 - 0.08) and math.isclose(sd, math.hypot(0.002, 5e-4))
