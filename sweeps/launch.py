@@ -211,11 +211,14 @@ class Launch:
 
     def _record_failure(self, folder: RunFolder, bus: EventBus, exc: PnbenchError) -> None:
         status = "failed"
+        # `connected` false: no instrument was ever reached, so nothing was switched on
+        # (the viewers say that rather than "outputs off not confirmed")
+        connected = self.bench is not None
         folder.update_run(status=status, reason=str(exc), ended=iso(utc_now()),
-                          outputs_off_confirmed=False)
+                          outputs_off_confirmed=False, connected=connected)
         bus.emit("error", None, message=str(exc))
         bus.emit("run_finished", None, status=status, reason=str(exc),
-                 outputs_off_confirmed=False)
+                 outputs_off_confirmed=False, connected=connected)
         folder.log(f"failed before the first point: {exc}")
 
     def _fit_worker(self, folder: RunFolder, bus: EventBus, state) -> FitWorker:

@@ -17,6 +17,7 @@ import threading
 import time
 
 from pnbench.sweeps.quantities import format_quantity
+from pnbench.tui.app.words import guard_words, status_words
 
 LINE_INTERVAL_S = 15.0
 REDRAW_S = 0.25
@@ -150,7 +151,7 @@ class Progress:
                      + (f", continuing at point {e.get('done')}" if e.get("done") else ""))
         elif kind == "step_finished":
             self.steps[step].update(status=e.get("status"), done=e.get("done", 0))
-            why = f", ended by {e.get('ended_by')}" if e.get("ended_by") else ""
+            why = f", ended by {guard_words(e.get('ended_by'))}" if e.get("ended_by") else ""
             self.say(f"step {step} finished ({e.get('status')}{why}): "
                      f"{e.get('done')}/{e.get('planned')} points")
         elif kind == "fit":
@@ -167,8 +168,12 @@ class Progress:
             self.say(f"{kind} in step {step}" + (" (outputs off)" if kind == "paused" else ""))
         elif kind == "run_finished":
             self.current = None
-            self.say(f"run finished: {e.get('status')} ({e.get('reason')}); outputs off "
-                     f"confirmed: {'yes' if e.get('outputs_off_confirmed') else 'NO'}")
+            if e.get("connected") is False:
+                off = "the instruments were never connected, so no output was switched on"
+            else:
+                off = f"outputs off confirmed: {'yes' if e.get('outputs_off_confirmed') else 'NO'}"
+            self.say(f"run finished: {status_words(e.get('status'))} ({e.get('reason')}); "
+                     f"{off}")
 
     # -- text -----------------------------------------------------------------------------
     def total_done(self) -> int:

@@ -80,7 +80,7 @@ def test_describe_names_what_happened():
     assert describe({"kind": "output", "role": "smu", "on": True}) == "SMU output ON"
     text = describe({"kind": "step_finished", "status": "limit", "done": 35, "planned": 40,
                      "ended_by": "compliance_storm"})
-    assert "35/40" in text and "compliance_storm" in text
+    assert "35/40" in text and "repeated compliance" in text
     assert describe({"kind": "warning", "message": "AC level large"}) == "AC level large"
     assert format_duration(3725) == "1:02:05" and format_duration(math.nan) == "--"
 

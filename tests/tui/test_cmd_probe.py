@@ -55,7 +55,8 @@ def test_lcr_role_check_reads_and_leaves_bias_off(capsys, backend):
     code, out, _ = probe(capsys, LCR, "--backend", backend, "--role", "lcr", "--json")
     assert code == 0
     report = json.loads(out)
-    assert report["checks"]["reading_1kHz"] == {"primary": 1e-10, "secondary": 1e-6}
+    reading = report["checks"]["reading_1kHz"]
+    assert (reading["primary"], reading["secondary"]) == (1e-10, 1e-6)
     with open_session(LCR, backend, timeout_ms=300) as s:
         assert s.query(":SOURce:BIAS:STATe?") == "OFF"
 

@@ -71,7 +71,7 @@ def test_plain_lines_when_not_a_terminal():
     lines = text.splitlines()
     assert any("step forward (iv_forward): 10 points" in x for x in lines)
     assert any("limit in forward: power guard" in x for x in lines)
-    assert any("ended by power" in x for x in lines)
+    assert any("ended by the power limit" in x for x in lines)
     assert [x.split(" ", 1)[1] for x in lines if " fit " in x] == [
         "fit forward: N = 1.05 ±1.0%"]
     assert "outputs off confirmed: yes" in lines[-1]

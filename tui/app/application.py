@@ -10,7 +10,6 @@ and waits for that before returning.
 
 from __future__ import annotations
 
-import math
 import signal
 from pathlib import Path
 
@@ -21,24 +20,27 @@ from textual.filter import Monochrome, monochrome_style
 from textual.reactive import reactive
 
 from pnbench.errors import PnbenchError
-from pnbench.tui.app.bench import output_name
+from pnbench.tui.app.control import RunControl
 from pnbench.tui.app.exit import exit_code, safe_exit_on_signals
-from pnbench.tui.app.folder import FolderTail, apply_batch, check_run_folder
+from pnbench.tui.app.feed import RunFeed
+from pnbench.tui.app.folder import FolderTail, check_run_folder
 from pnbench.tui.app.live import LiveRun
+from pnbench.tui.app.messages import (
+    AbortRequested,
+    PauseToggled,
+    PlanChanged,
+    PlanCheck,
+    PlanExample,
+    PlanOpen,
+    PlanSave,
+    StartRequested,
+)
+from pnbench.tui.app.plandoc import PlanDocument
 from pnbench.tui.app.state import RunState
-
-SHORT_ADVICE = ("Quitting the app aborts it. For overnight runs use `pnbench run PLAN "
-                "--headless` and look in with `pnbench watch RUN_DIR`.")
+from pnbench.tui.app.words import OVERNIGHT_ADVICE, SHORT_ADVICE
 
 DRAIN_PERIOD_S = 0.1
 WATCH_PERIOD_S = 0.5
-
-OVERNIGHT_ADVICE = (
-    "Overnight and other long runs belong in headless mode: start them with "
-    "`pnbench run PLAN --headless` (in tmux or with nohup) and look in with "
-    "`pnbench watch RUN_DIR`, which you can open and quit at any time without "
-    "touching the acquisition."
-)
 
 
 class _Monochrome(Monochrome):
@@ -53,8 +55,12 @@ class _Monochrome(Monochrome):
 _MONOCHROME = _Monochrome()
 
 
-class PnbenchApp(App):
-    """Bench, plan, run and review screens (or only the watch screen)."""
+class PnbenchApp(RunFeed, App):
+    """Bench, plan, run and review screens (or only the watch screen).
+
+    The app holds three things and navigation: the plan (`PlanDocument`), the sweep
+    (`RunControl`) and the run's state (`RunState`). Screens post messages
+    (`tui.app.messages`) to change the first two and draw from all three."""
 
     CSS_PATH = "app.tcss"
     TITLE = "pnbench"
@@ -78,33 +84,57 @@ class PnbenchApp(App):
     def __init__(self, plan_path: str | Path | None = None, *, simulate: str | None = None,
                  time_scale: float = 1.0, out_dir: str | Path = "runs",
                  autostart: bool = False, watch_dir: str | Path | None = None,
-                 live_factory=LiveRun):
+                 live_factory=LiveRun, report: bool = True):
         super().__init__()
-        self.simulate = simulate
-        self.time_scale = time_scale
-        self.out_dir = Path(out_dir)
         self.autostart = autostart
         self.watch_dir = Path(watch_dir) if watch_dir is not None else None
-        self.live_factory = live_factory
+        self.control = RunControl(live_factory, simulate=simulate, time_scale=time_scale,
+                                  out_dir=out_dir, report=report)
+        self.doc = PlanDocument()
         self.state = RunState()
-        self.live: LiveRun | None = None
         self.tail: FolderTail | None = None
         self.last_run_dir: Path | None = None
-        self.plan_path = Path(plan_path) if plan_path else None
-        self.plan_text = ""
-        self.plan = None
-        self.plan_error = ""
+        #: the last message shown (the message strip or a toast), for the keys list
+        self.last_message = ""
         self._was_active = False
         self._shown_status = ""
         self._closing = False
-        if self.plan_path is not None:
-            self.load_plan_file(self.plan_path)
+        if plan_path is not None:
+            self.doc.load(plan_path)
+        elif self.watch_dir is None:
+            self.doc.load_example(simulate)  # the README's promise: start from an example
+        self._plan_state()
         self.available_modes = ["run"] if self.watch_dir else ["bench", "plan", "run",
                                                                "review"]
+
+    # -- what screens read (kept as attributes of the app for them and for tests) ------
+    simulate = property(lambda self: self.control.simulate)
+    time_scale = property(lambda self: self.control.time_scale)
+    out_dir = property(lambda self: self.control.out_dir)
+    live = property(lambda self: self.control.live)
+    plan = property(lambda self: self.doc.plan)
+    plan_path = property(lambda self: self.doc.path)
+    plan_text = property(lambda self: self.doc.text)
+    plan_error = property(lambda self: self.doc.error)
 
     def get_line_filters(self):
         return [_MONOCHROME if type(f) is Monochrome else f
                 for f in super().get_line_filters()]
+
+    def notify(self, message: str, *, title: str = "", severity="information",
+               timeout: float | None = None, markup: bool = True) -> None:
+        """Messages go to the strip under the screen bar, which pushes the screen down
+        instead of covering the plot; a dialog on top gets Textual's toast."""
+        from pnbench.tui.app.widgets.banner import MessageStrip
+
+        text = f"{title}: {message}" if title else str(message)
+        self.last_message = text
+        strips = list(self.screen.query(MessageStrip)) if self.screen else []
+        if not strips:
+            super().notify(message, title=title, severity=severity, timeout=timeout,
+                           markup=markup)
+            return
+        strips[0].say(text, error=severity == "error", timeout=timeout or 6.0)
 
     # ------------------------------------------------------------------ setup
     def on_mount(self) -> None:
@@ -128,51 +158,88 @@ class PnbenchApp(App):
         if self.autostart and self.plan is not None:
             self.switch_mode("run")
             self.start_run()
-        elif self.plan is not None or self.plan_error:
-            self.switch_mode("plan" if self.plan_error else "run")
-        else:
+        elif self.plan is not None and self.plan_path is not None:
+            self.switch_mode("run")
+        else:  # a plan with problems, or the bundled example to look at first
             self.switch_mode("plan")
 
-    # ------------------------------------------------------------------ plan
+    # ------------------------------------------------------------------ plan messages
+    def _plan_state(self) -> None:
+        """A fresh RunState with the plan's steps (unless a sweep is running)."""
+        plan = self.plan
+        if plan is not None and not self.live_active:
+            self.state = RunState()
+            self.state.set_plan_steps([(s.name, s.kind, s.planned) for s in plan.steps])
+            self.state.device = plan.device.to_json_dict()
+            self.state.temperature_K = plan.device.temperature_K
+
+    def _plan_changed(self, checked: bool = False) -> None:
+        self._plan_state()
+        self.screen.post_message(PlanChanged(checked))
+        self.refresh_bindings()
+
     def load_plan_file(self, path: Path) -> None:
         """Read a plan file into the app (text and validation result)."""
-        self.plan_path = Path(path)
-        try:
-            self.plan_text = self.plan_path.read_text(encoding="utf-8")
-        except OSError as exc:
-            self.plan_text, self.plan = "", None
-            self.plan_error = f"plan {path}: cannot read it ({exc.strerror or exc})"
-            return
-        self.check_plan_text(self.plan_text)
+        self.doc.load(path)
+        self._plan_state()
 
     def check_plan_text(self, text: str) -> bool:
         """Validate editor text with the engine; keeps the Plan or the engine's message."""
-        from pnbench.sweeps.plan import parse_plan
+        ok = self.doc.check(text)
+        self._plan_state()
+        return ok
 
-        self.plan_text = text
-        name = str(self.plan_path) if self.plan_path else "<unsaved plan>"
-        base = self.plan_path.parent if self.plan_path else Path.cwd()
+    def on_plan_open(self, message: PlanOpen) -> None:
+        self.doc.load(message.path)
+        self._plan_changed()
+
+    def on_plan_check(self, message: PlanCheck) -> None:
+        ok = self.doc.check(message.text)
+        self._plan_changed(checked=True)
+        self.notify("Plan checked: it can run." if ok else "Plan has problems; see the "
+                    "messages.", severity="information" if ok else "error", timeout=4)
+
+    def on_plan_example(self, _message: PlanExample) -> None:
+        if not self.doc.load_example(self.simulate):
+            self.notify("No bundled example plan is installed.", severity="error")
+            return
+        self._plan_changed()
+
+    def on_plan_save(self, message: PlanSave) -> None:
         try:
-            self.plan = parse_plan(text, name, base_dir=base)
-            self.plan_error = ""
-        except PnbenchError as exc:
-            self.plan, self.plan_error = None, str(exc)
-        if self.plan is not None and not self.live_active:
-            self.state = RunState()
-            self.state.set_plan_steps([(s.name, s.kind, s.planned) for s in self.plan.steps])
-            self.state.device = self.plan.device.to_json_dict()
-            self.state.temperature_K = self.plan.device.temperature_K
-        return self.plan is not None
+            self.doc.save(message.path, message.text)
+        except OSError as exc:
+            self.notify(f"Cannot write {message.path}: {exc.strerror or exc}",
+                        severity="error", timeout=8)
+            return
+        self._plan_changed()
+        self.notify(f"Saved {self.doc.path}", timeout=4)
 
-    # ------------------------------------------------------------------ the run
+    # ------------------------------------------------------------------ run messages
     @property
     def live_active(self) -> bool:
-        return self.live is not None and self.live.running
+        return self.control.active
 
     def can_run_action(self, action: str) -> bool:
         if action == "start":
             return not self.live_active and self.plan is not None
         return self.live_active
+
+    def on_start_requested(self, message: StartRequested) -> None:
+        if message.text is not None and not self.doc.check(message.text):
+            self._plan_changed(checked=True)
+            self.notify("The plan does not check; fix the problems first.",
+                        severity="error")
+            return
+        if message.text is not None:
+            self._plan_changed()
+        self.ask_start(message.key)
+
+    def on_pause_toggled(self, _message: PauseToggled) -> None:
+        self.toggle_pause()
+
+    def on_abort_requested(self, _message: AbortRequested) -> None:
+        self.ask_abort()
 
     def ask_start(self, key: str = "s") -> None:
         """Ask before switching a source on: a stray key must not energize the DUT."""
@@ -181,22 +248,15 @@ class PnbenchApp(App):
         if self.plan is None or self.live_active:
             self.start_run()  # says why it cannot
             return
-        plan = self.plan
-        where = (f"the simulated bench ({self.simulate})" if self.simulate
-                 else ", ".join(f"{role.upper()} at {inst.resource}"
-                                for role, inst in sorted(self.plan.instruments.items())))
-        text = (f"'{plan.title or plan.device.name}': {len(plan.steps)} steps, "
-                f"{plan.total_points} points on {where}. Sources switch on at the "
-                f"device's terminals; limits: {plan.limits.max_voltage_V:g} V forward, "
-                f"{plan.limits.max_reverse_voltage_V:g} V reverse, "
-                f"{plan.limits.max_current_A:g} A.")
 
         def answered(yes: bool | None) -> None:
             if yes:
                 self.switch_mode("run")
                 self.start_run()
 
-        self.push_screen(ConfirmDialog("Start the sweep?", text, yes_key=key), answered)
+        self.push_screen(ConfirmDialog("Start the sweep?",
+                                       self.control.start_question(self.plan),
+                                       yes_key=key), answered)
 
     def start_run(self) -> None:
         if self.live_active:
@@ -211,9 +271,7 @@ class PnbenchApp(App):
         self.state.status = "starting"
         self.last_run_dir = None
         try:
-            self.live = self.live_factory(self.plan, simulate=self.simulate,
-                                          time_scale=self.time_scale, out_dir=self.out_dir)
-            self.live.start()  # connects and runs on the engine's own thread
+            self.control.start(self.plan)  # connects and runs on the engine's thread
         except PnbenchError as exc:
             self._start_failed(str(exc))
             return
@@ -230,13 +288,10 @@ class PnbenchApp(App):
         self.refresh_bindings()
 
     def toggle_pause(self) -> None:
-        live = self.live
-        if live is None or not live.running:
-            return
-        if self.state.status == "paused":
-            self.run_worker(live.resume, thread=True, group="control")
-        else:
-            self.run_worker(live.pause, thread=True, group="control")
+        if self.live_active:
+            paused = self.state.status == "paused"
+            self.run_worker(lambda: self.control.toggle_pause(paused), thread=True,
+                            group="control")
 
     def ask_abort(self) -> None:
         from pnbench.tui.app.screens.dialogs import ConfirmDialog
@@ -254,81 +309,9 @@ class PnbenchApp(App):
             "so far stay in the run folder.", yes_key="x"), answered)
 
     def abort_run(self) -> None:
-        live = self.live
-        if live is not None:
+        if self.live is not None:
             self.status_text = "aborting"
-            self.run_worker(live.abort, thread=True, group="control")
-
-    # ------------------------------------------------------------------ timers
-    def drain_live(self) -> None:
-        live = self.live
-        if live is None:
-            return
-        was_active = self._was_active
-        for doc in live.drain():
-            self.state.apply_event(doc)
-        if live.run_dir is not None:
-            self.last_run_dir = Path(live.run_dir)
-        problem = live.failure()
-        if problem is not None:
-            self._start_failed(problem)
-        self._was_active = live.running
-        self.poll_outputs()
-        if was_active and not self._was_active:
-            self.refresh_bindings()
-            if live.run_dir is not None:
-                self._apply_model(FolderTail(live.run_dir))
-            if self.state.finished:
-                self.notify(f"Run {self.state.status}. F5 reviews it: refit, card, report.",
-                            timeout=8)
-        self._update_status()
-
-    def poll_folder(self) -> None:
-        if self.tail is None:
-            return
-        batch = self.tail.poll()
-        if batch:
-            apply_batch(self.state, batch)
-        if self.state.finished:  # the final model of every point, once written
-            self._apply_model(self.tail)
-        self._update_outputs(self.state.outputs)
-        self._update_status()
-
-    def _apply_model(self, tail: FolderTail) -> None:
-        try:
-            doc = tail.read_model()
-        except PnbenchError:
-            return  # being replaced right now: the next poll reads it
-        if doc is not None:
-            self.state.apply_model_json(doc)
-
-    def poll_outputs(self) -> None:
-        live = self.live
-        truth = live.outputs() if live is not None else None
-        self._update_outputs(truth if truth is not None else self.state.outputs,
-                             simulated=truth is not None)
-
-    def _update_outputs(self, outputs: dict[str, bool], simulated: bool = False) -> None:
-        on = sorted(output_name(role) for role, state in outputs.items() if state)
-        self.source_on = bool(on)
-        if on:
-            where = "simulated " if simulated else ""
-            self.output_text = (f"SOURCE OUTPUT ON: {', '.join(on)} ({where}DUT terminals "
-                                "are live)")
-        elif outputs or self.state.point_count:
-            confirmed = " (confirmed by the runner)" if self.state.outputs_off_confirmed else ""
-            self.output_text = f"outputs off{confirmed}"
-        elif self.watch_dir is not None:
-            self.output_text = "outputs: no output event seen in this run folder yet"
-
-    def _update_status(self) -> None:
-        state = self.state
-        fraction = state.progress_fraction()
-        percent = f" {fraction:.0%}" if math.isfinite(fraction) else ""
-        self.status_text = f"{state.status}{percent}"
-        if state.status != self._shown_status:  # Pause becomes Resume, Start comes back
-            self._shown_status = state.status
-            self.refresh_bindings()
+            self.run_worker(self.control.abort, thread=True, group="control")
 
     # ------------------------------------------------------------------ navigation
     def check_action(self, action: str, parameters: tuple) -> bool | None:
@@ -350,10 +333,12 @@ class PnbenchApp(App):
         self.switch_mode(mode)
 
     def action_keys(self) -> None:
-        if self.screen.query("HelpPanel"):
-            self.action_hide_help_panel()
+        from pnbench.tui.app.screens.keys import KeysScreen
+
+        if isinstance(self.screen, KeysScreen):
+            self.screen.dismiss()
         else:
-            self.action_show_help_panel()
+            self.push_screen(KeysScreen(self.screen))
 
     async def action_quit(self) -> None:
         from pnbench.tui.app.screens.dialogs import ConfirmDialog
@@ -374,24 +359,23 @@ class PnbenchApp(App):
             "run folder.\n\n" + OVERNIGHT_ADVICE), answered)
 
     def _close_and_exit(self) -> None:
-        if self.live is not None:
-            self.live.close()
+        self.control.close()
         self.call_from_thread(self.exit, 0)
 
 
 def run_app(plan_path: str | Path | None = None, simulate: str | None = None,
             time_scale: float = 1.0, out_dir: str | Path = "runs",
-            autostart: bool = False) -> int:
+            autostart: bool = False, report: bool = True) -> int:
     """Open the app (bench, plan, run, review). Returns the exit code: 0, or 4 when
-    a sweep this app owned ended in an abort or a safety stop."""
+    a sweep this app owned ended in an abort or a safety stop. Every sweep it runs ends
+    by writing its report.html unless `report` is False (--no-report)."""
     app = PnbenchApp(plan_path, simulate=simulate, time_scale=time_scale, out_dir=out_dir,
-                     autostart=autostart)
+                     autostart=autostart, report=report)
     previous = safe_exit_on_signals(app)
     try:
         code = app.run()
     finally:
-        if app.live is not None:
-            app.live.close()
+        app.control.close()
         for sig, handler in previous.items():
             signal.signal(sig, handler)
     return exit_code(app, code)

@@ -6,6 +6,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+from pnbench.tui.app.words import guard_words, status_words
+
 #: Event kinds that go to the log, with the tag that marks them without colour.
 LOG_TAGS = {
     "compliance": "COMPL",
@@ -64,7 +66,8 @@ def describe(event: dict) -> str:
         return f"{str(event.get('role', 'source')).upper()} output {state}{confirmed}"
     if kind == "run_finished":
         reason = event.get("reason")
-        return f"run {event.get('status', '?')}" + (f": {reason}" if reason else "")
+        return (f"run {status_words(event.get('status', '?'))}"
+                + (f": {reason}" if reason else ""))
     if kind == "run_started":
         planned = event.get("planned")
         again = " again (resumed)" if event.get("resumed") else ""
@@ -76,7 +79,7 @@ def describe(event: dict) -> str:
         ended = event.get("ended_by")
         text = (f"step {event.get('status', 'finished')}: {event.get('done', '?')}/"
                 f"{event.get('planned', '?')} points")
-        return text + (f", ended by {ended}" if ended else "")
+        return text + (f", ended by {guard_words(ended)}" if ended else "")
     if kind == "compliance":
         v = event.get("voltage_V")
         i = event.get("current_A")

@@ -81,6 +81,10 @@ class RunState:
     reason: str = ""
     outputs: dict[str, bool] = field(default_factory=dict)
     outputs_off_confirmed: bool = False
+    #: who confirmed the outputs off: the runner, or the guardian after a killed run
+    outputs_off_by: str = "runner"
+    #: False once the run says no instrument was ever reached
+    connected: bool = True
     device: dict = field(default_factory=dict)
     instruments: dict = field(default_factory=dict)
     temperature_K: float = 300.15
@@ -157,6 +161,7 @@ class RunState:
             self.status = str(event.get("status", "completed"))
             self.reason = str(event.get("reason", self.reason) or "")
             self.outputs_off_confirmed = bool(event.get("outputs_off_confirmed", False))
+            self.connected = event.get("connected") is not False
         elif kind == "output":
             self.outputs[str(event.get("role", "source"))] = bool(event.get("on"))
         if kind in LOG_TAGS:
@@ -170,6 +175,10 @@ class RunState:
         self.device = dict(doc.get("device") or {})
         self.instruments = dict(doc.get("instruments") or {})
         self.outputs_off_confirmed = bool(doc.get("outputs_off_confirmed", False))
+        guardian = doc.get("guardian")
+        self.outputs_off_by = ("guardian" if isinstance(guardian, dict)
+                               and guardian.get("outputs_off_confirmed") else "runner")
+        self.connected = doc.get("connected") is not False
         temperature = to_number(self.device.get("temperature_K"))
         if math.isfinite(temperature) and temperature > 0:
             self.temperature_K = temperature

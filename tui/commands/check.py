@@ -15,6 +15,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_visa_library(parser)
     parser.add_argument("--json", action="store_true",
                         help="print the summary as one JSON object")
+    parser.add_argument("--simulate", metavar="DUT.toml",
+                        help="also check the plan against the simulated bench with this "
+                        "device file (or bundled name): its SMU and LCR ranges")
 
 
 def _range(step) -> str:
@@ -62,12 +65,18 @@ def run(args) -> int:
     from pnbench.tui.headless import format_duration
 
     plan = load_plan(args.plan)
+    if args.simulate is not None:
+        from pnbench.drivers.sim.device import resolve_device
+        from pnbench.sweeps.ratings import check_simulated
+
+        check_simulated(plan, resolve_device(args.simulate))  # PlanError names the limit
     if args.json:
         print(json.dumps(summary(plan), indent=2))
         return 0
     est = estimate(plan)
     lim, d = plan.limits, plan.device
-    print(f"plan {plan.path}: valid" + (f" - {plan.title}" if plan.title else ""))
+    print(f"plan {plan.path}: valid" + (f" - {plan.title}" if plan.title else "")
+          + (f"; fits the simulated bench with {args.simulate}" if args.simulate else ""))
     print(f"device {d.name}" + (f", {d.material}" if d.material else "")
           + (f", area {d.area_m2:.4g} m^2" if d.area_m2 else "")
           + f", {d.temperature_K:.2f} K")

@@ -53,7 +53,7 @@ def run(args) -> int:
         from pnbench.tui.app.application import run_app
 
         return run_app(plan_path=plan_path, simulate=simulate, time_scale=args.time_scale,
-                       out_dir=args.out, autostart=True)
+                       out_dir=args.out, autostart=True, report=not args.no_report)
     launch = Launch.new(plan, simulate=simulate, time_scale=args.time_scale,
                         out_dir=args.out)
     return run_headless(launch, plan, report=not args.no_report)

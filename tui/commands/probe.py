@@ -100,7 +100,7 @@ def _check_lcr(session, dialect, report: dict) -> None:
         raise
     report["safe_off_notes"] = lcr.safe_off()
     report["checks"]["configuration"] = f"accepted (form {lcr.form}, AC level 20 mV)"
-    report["checks"]["reading_1kHz"] = {"primary": reading.primary,
+    report["checks"]["reading_1kHz"] = {"form": lcr.form, "primary": reading.primary,
                                         "secondary": reading.secondary}
     report["checks"]["bias"] = "off"
 
@@ -123,6 +123,23 @@ def _probe_one(resource: str, backend: str, timeout_ms: int, dialect, role: str 
     return report
 
 
+#: The reading forms' two quantities, with their units, for the probe's lines.
+FORM_QUANTITIES = {"cpgp": (("Cp", "F"), ("Gp", "S")), "csrs": (("Cs", "F"), ("Rs", "ohm"))}
+
+
+def check_text(key: str, value) -> str:
+    """One check as a line a person reads (a reading as quantities with units)."""
+    from pnbench.sweeps.quantities import format_quantity
+
+    if key == "reading_1kHz" and isinstance(value, dict):
+        form = str(value.get("form", ""))
+        names = FORM_QUANTITIES.get(form.lower(), (("primary", ""), ("secondary", "")))
+        parts = [f"{name} = {format_quantity(float(value[field]), unit, 4)}"
+                 for (name, unit), field in zip(names, ("primary", "secondary"), strict=True)]
+        return f"{', '.join(parts)} at 1 kHz, 0 V bias (form {form})"
+    return str(value)
+
+
 def _print(report: dict) -> None:
     if "resources" in report:
         rows = report["resources"]
@@ -137,7 +154,7 @@ def _print(report: dict) -> None:
     for code, message in report.get("errors_before_probe", []):
         print(f"  note: error queue held {code},\"{message}\" before the probe")
     for key, value in report["checks"].items():
-        print(f"  {key}: {value}")
+        print(f"  {key}: {check_text(key, value)}")
     for note in report.get("safe_off_notes", []):
         print(f"  note: {note}")
     if report["role"]:

@@ -16,6 +16,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--no-report", action="store_true",
                         help="do not write report.html at the end (`pnbench report RUN_DIR` "
                         "makes it later)")
+    parser.add_argument("--headless", action="store_true",
+                        help="progress as lines on the terminal (resume always runs this "
+                        "way; follow it in the app with `pnbench watch RUN_DIR`)")
     parser.add_argument("--force-identity", action="store_true",
                         help="continue even if an instrument answers with another serial "
                         "number than the run recorded")

@@ -17,6 +17,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_bench_options(parser)
     parser.add_argument("--out", metavar="DIR", default="runs",
                         help="folder in which run folders are created (default: runs)")
+    parser.add_argument("--no-report", action="store_true",
+                        help="do not write report.html when a sweep ends (`pnbench report "
+                        "RUN_DIR` makes it later)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -44,4 +47,4 @@ def run(args: argparse.Namespace) -> int:
     from pnbench.tui.app.application import run_app
 
     return run_app(args.plan, simulate=args.simulate, time_scale=args.time_scale,
-                   out_dir=args.out)
+                   out_dir=args.out, report=not args.no_report)

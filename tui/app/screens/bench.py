@@ -1,5 +1,6 @@
 """The bench screen: instruments of the plan (role, resource, dialect, identity, state),
-what the VISA backends see, and the state of every source output."""
+what the VISA backends see, the state of every source output, and one point sourced by
+hand within the plan's limits. Every instrument call runs on a worker."""
 
 from __future__ import annotations
 
@@ -19,7 +20,7 @@ from pnbench.tui.app.bench import (
     scan_resources,
     with_run_identities,
 )
-from pnbench.tui.app.widgets.banner import ScreenBar, SourceBanner
+from pnbench.tui.app.widgets.banner import MessageStrip, ScreenBar, SourceBanner
 
 REFRESH_S = 0.5
 ROLE_NAMES = {"smu": "SMU (source-measure unit)", "lcr": "LCR meter"}
@@ -31,6 +32,7 @@ class BenchScreen(Screen):
     BINDINGS = [
         Binding("i", "identify", "Identify"),
         Binding("l", "scan", "List VISA"),
+        Binding("m", "measure", "One point"),
     ]
 
     def __init__(self):
@@ -39,14 +41,17 @@ class BenchScreen(Screen):
         self.scanned: list[tuple[str, str]] | None = None
         self._identified = False
         self._busy = ""
+        self._point = ""
 
     def compose(self) -> ComposeResult:
         yield SourceBanner()
         yield ScreenBar("bench", "Bench")
+        yield MessageStrip()
         with VerticalScroll(id="bench-body"):
             yield Static("Instruments", classes="section", markup=False)
             yield Static("", id="bench-instruments", markup=False)
             yield Static("", id="bench-outputs", markup=False)
+            yield Static("", id="bench-point", markup=False)
             yield Static("Resources the VISA backends list", classes="section", markup=False)
             yield Static("", id="bench-resources", markup=False)
         yield Footer(compact=True)
@@ -121,12 +126,14 @@ class BenchScreen(Screen):
 
     def _show_resources(self) -> None:
         if self.scanned is None:
-            text = "not listed yet (l lists them; raw-socket instruments never appear here)"
+            text = "not listed yet (l lists them)"
         elif not self.scanned:
             text = "none found"
         else:
             text = "\n".join(f"{backend:>6}  {name}" for backend, name in self.scanned)
+        text += "\n\n" + socket_note(self.app.plan, self.app.simulate)
         self.query_one("#bench-resources", Static).update(text)
+        self.query_one("#bench-point", Static).update(self._point)
 
     # ------------------------------------------------------------------ actions
     def check_action(self, action: str, parameters: tuple) -> bool | None:
@@ -136,7 +143,9 @@ class BenchScreen(Screen):
 
     def action_identify(self) -> None:
         app = self.app
-        self._busy = "asking each instrument for its identity..."
+        self._busy = "asking each instrument for its identity (*IDN?)..."
+        self.notify("Identify: asking each instrument for its identity...", timeout=3)
+        self._show_outputs()
         rows = plan_rows(app.plan, app.simulate)
 
         def work() -> None:
@@ -153,9 +162,15 @@ class BenchScreen(Screen):
         self._identified = True
         self._busy = ""
         self._fill(rows)
+        answered = [r for r in rows if r.state == "answered"]
+        failed = [f"{r.role.upper()}: {r.state}" for r in rows if r.state.startswith("error")]
+        text = (f"Identify: {len(answered)} of {len(rows)} instruments answered"
+                + ("; " + "; ".join(failed) if failed else ""))
+        self.notify(text, severity="error" if failed else "information", timeout=8)
 
     def _identified_failed(self, message: str) -> None:
         self._busy = f"identify failed: {message}"
+        self.notify(f"Identify failed: {message}", severity="error", timeout=10)
 
     def action_scan(self) -> None:
         app = self.app
@@ -173,3 +188,61 @@ class BenchScreen(Screen):
         self.scanned = found
         self._busy = ""
         self._show_resources()
+
+    def action_measure(self) -> None:
+        """One point by hand: ask for level and compliance, check them against the
+        plan's limits, source, read, switch off (on a worker)."""
+        from pnbench.tui.app.screens.dialogs import PointDialog
+
+        app = self.app
+        if app.plan is None or app.live_active:
+            self.notify("One point needs a plan (its limits and SMU) and no sweep "
+                        "running.", severity="warning")
+            return
+        lim = app.plan.limits
+        limits = (f"{lim.max_voltage_V:g} V forward, {lim.max_reverse_voltage_V:g} V "
+                  f"reverse, {lim.max_current_A:g} A, {lim.max_power_W:g} W")
+
+        def chosen(answer) -> None:
+            if answer is not None:
+                self._measure(*answer)
+
+        app.push_screen(PointDialog(limits), chosen)
+
+    def _measure(self, level: str, compliance: str) -> None:
+        from pnbench.errors import PnbenchError
+        from pnbench.sweeps.onepoint import measure_one
+
+        app = self.app
+        self._point = f"one point: sourcing {level} (compliance {compliance})..."
+        self._show_resources()
+
+        def work() -> None:
+            try:
+                result = measure_one(app.plan, level, compliance, simulate=app.simulate,
+                                     time_scale=0.0)
+                text, error = "one point: " + result.line(), False
+            except PnbenchError as exc:
+                text, error = f"one point refused or failed: {exc}", True
+            app.call_from_thread(self._measured, text, error)
+
+        self.run_worker(work, thread=True, exclusive=True, group="point")
+
+    def _measured(self, text: str, error: bool) -> None:
+        self._point = text
+        self._show_resources()
+        self.notify(text, severity="error" if error else "information", timeout=10)
+
+
+def socket_note(plan, simulate: str | None) -> str:
+    """VISA cannot discover raw-socket instruments: say so, and name the plan's."""
+    note = ("Raw-socket instruments (TCPIP0::host::port::SOCKET) cannot be discovered: "
+            "VISA lists only what announces itself. Give their resource in the plan.")
+    if simulate:
+        return note + " The simulated bench serves two such sockets on 127.0.0.1."
+    sockets = [f"  {role.upper()}: {inst.resource}" for role, inst in
+               sorted((plan.instruments if plan else {}).items())
+               if inst.resource.upper().endswith("::SOCKET")]
+    if sockets:
+        note += " The plan's socket instruments (i asks them):\n" + "\n".join(sockets)
+    return note

@@ -124,3 +124,37 @@ class QPointDialog(ModalScreen[QChoice | None]):
 
     def action_cancel(self) -> None:
         self.dismiss(None)
+
+
+class PointDialog(ModalScreen[tuple[str, str] | None]):
+    """Ask for one bias point to source by hand: the level (V or A) and the compliance."""
+
+    DEFAULT_CSS = DIALOG_CSS.format(name="PointDialog")
+    BINDINGS = [Binding("escape", "cancel", "Cancel")]
+
+    def __init__(self, limits_text: str, level: str = "0.5 V", compliance: str = "1 mA"):
+        super().__init__()
+        self.limits_text = limits_text
+        self.level = level
+        self.compliance = compliance
+
+    def compose(self) -> ComposeResult:
+        with Vertical():
+            yield Static("Source and measure one point", classes="dialog-title",
+                         markup=False)
+            yield Static("Level: a voltage (0.6 V, -5 V) or a current (1 mA)", markup=False)
+            yield Input(self.level, id="level")
+            yield Static("Compliance on the other quantity (10 mA, or 2 V)", markup=False)
+            yield Input(self.compliance, id="compliance")
+            yield Static(f"The plan's limits apply: {self.limits_text}. The output goes "
+                         "off again right after the reading.", markup=False)
+            yield Static("Enter: source it   Tab: next field   Esc: cancel",
+                         classes="dialog-error", markup=False)
+        yield Footer(compact=True)
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        self.dismiss((self.query_one("#level", Input).value,
+                      self.query_one("#compliance", Input).value))
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)

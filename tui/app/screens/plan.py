@@ -16,9 +16,17 @@ from textual.containers import Horizontal, VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Static, TextArea
 
-from pnbench.tui.app.plan import example_plan_path, plan_summary
+from pnbench.tui.app.messages import (
+    PlanChanged,
+    PlanCheck,
+    PlanExample,
+    PlanOpen,
+    PlanSave,
+    StartRequested,
+)
+from pnbench.tui.app.plan import plan_summary
 from pnbench.tui.app.screens.dialogs import PathDialog
-from pnbench.tui.app.widgets.banner import ScreenBar, SourceBanner
+from pnbench.tui.app.widgets.banner import MessageStrip, ScreenBar, SourceBanner
 
 
 def first_line_number(message: str) -> int | None:
@@ -42,6 +50,7 @@ class PlanScreen(Screen):
     def compose(self) -> ComposeResult:
         yield SourceBanner()
         yield ScreenBar("plan", "Plan")
+        yield MessageStrip()
         yield Static("", id="plan-path", markup=False)
         with Horizontal(id="plan-body"):
             yield TextArea("", id="plan-text", show_line_numbers=True, tab_behavior="focus")
@@ -52,9 +61,13 @@ class PlanScreen(Screen):
     def on_mount(self) -> None:
         editor = self.query_one(TextArea)
         editor.load_text(self.app.plan_text)
-        self._modified = False
+        self._modified = self.app.doc.unsaved
         self._show_result()
         editor.focus()
+
+    def on_screen_resume(self) -> None:
+        """Back on this screen: the app may have changed the plan meanwhile."""
+        self.on_plan_changed(PlanChanged())
 
     def on_resize(self, event) -> None:
         self.set_class(event.size.width >= 120, "-wide")
@@ -83,74 +96,50 @@ class PlanScreen(Screen):
                     "example to start from. Ctrl+T checks what you typed.")
         self.query_one("#plan-messages", Static).update(text)
 
-    # ------------------------------------------------------------------ actions
-    def action_check(self) -> None:
+    # ------------------------------------------------------------------ the app's word
+    def on_plan_changed(self, message: PlanChanged) -> None:
+        """The app changed the plan document: show its text (unless it is what the
+        editor holds) and the engine's verdict; after a check, go to the first problem."""
         editor = self.query_one(TextArea)
-        ok = self.app.check_plan_text(editor.text)
+        doc = self.app.doc
+        if editor.text != doc.text:
+            editor.load_text(doc.text)
+        self._modified = doc.unsaved
         self._show_result()
-        line = first_line_number(self.app.plan_error) if not ok else None
+        line = first_line_number(doc.error) if message.checked and doc.error else None
         if line is not None and 0 < line <= editor.document.line_count:
             editor.move_cursor((line - 1, 0), center=True)  # to the first problem
-        self.notify("Plan checked: it can run." if ok else "Plan has problems; see the "
-                    "messages.", severity="information" if ok else "error", timeout=4)
+
+    # ------------------------------------------------------------------ actions
+    def action_check(self) -> None:
+        self.post_message(PlanCheck(self.query_one(TextArea).text))
 
     def action_open(self) -> None:
         current = str(self.app.plan_path or Path.cwd()) + ("" if self.app.plan_path else "/")
 
         def chosen(path: str | None) -> None:
             if path:
-                self._load(Path(path).expanduser())
+                self.post_message(PlanOpen(Path(path).expanduser()))
 
         self.app.push_screen(PathDialog("Open a plan file", "Path of a plan (TOML):",
                                         current), chosen)
 
-    def _load(self, path: Path) -> None:
-        self.app.load_plan_file(path)
-        self.query_one(TextArea).load_text(self.app.plan_text)
-        self._modified = False
-        self._show_result()
-
     def action_example(self) -> None:
-        path = example_plan_path(self.app.simulate)
-        if path is None:
-            self.notify("No bundled example plan is installed.", severity="error")
-            return
-        self._load(path)
-        self.app.plan_path = None  # a copy to edit; Save asks where
-        self._modified = True
-        self._show_path()
+        self.post_message(PlanExample())
 
     def action_save(self) -> None:
         suggestion = str(self.app.plan_path or Path.cwd() / "plan.toml")
 
         def chosen(path: str | None) -> None:
-            if not path:
-                return
-            target = Path(path).expanduser()
-            text = self.query_one(TextArea).text
-            try:
-                target.parent.mkdir(parents=True, exist_ok=True)
-                target.write_text(text, encoding="utf-8")
-            except OSError as exc:
-                self.notify(f"Cannot write {target}: {exc.strerror or exc}",
-                            severity="error", timeout=8)
-                return
-            self.app.plan_path = target
-            self.app.check_plan_text(text)
-            self._modified = False
-            self._show_result()
-            self.notify(f"Saved {target}", timeout=4)
+            if path:
+                self.post_message(PlanSave(Path(path).expanduser(),
+                                           self.query_one(TextArea).text))
 
         self.app.push_screen(PathDialog("Save the plan as", "File to write (TOML):",
                                         suggestion), chosen)
 
     def action_run(self) -> None:
-        if not self.app.check_plan_text(self.query_one(TextArea).text):
-            self._show_result()
-            self.notify("The plan does not check; fix the problems first.", severity="error")
-            return
-        self._show_result()
-        self.app.ask_start("ctrl+r")
+        self.post_message(StartRequested("ctrl+r", text=self.query_one(TextArea).text))
 
     def action_leave_editor(self) -> None:
         self.query_one("#plan-report").focus()

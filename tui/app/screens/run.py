@@ -17,8 +17,9 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 from textual.widgets import Footer, RichLog, Static
 
+from pnbench.tui.app.messages import AbortRequested, PauseToggled, StartRequested
 from pnbench.tui.app.plots import VIEW_OF_KIND, VIEWS, has_dc_fit, model_params, plot_data
-from pnbench.tui.app.widgets.banner import ScreenBar, SourceBanner
+from pnbench.tui.app.widgets.banner import MessageStrip, ScreenBar, SourceBanner
 from pnbench.tui.app.widgets.params import ParamTable
 from pnbench.tui.app.widgets.plot import SweepPlot
 from pnbench.tui.app.widgets.progress import RunProgress
@@ -41,6 +42,7 @@ class RunScreen(Screen):
 
     BINDINGS = [
         Binding("s", "start", "Start"),
+        Binding("ctrl+r", "start_ctrl_r", "Start", show=False),
         Binding("space", "pause", "Pause"),
         Binding("space", "resume", "Resume"),
         Binding("x", "abort", "Abort"),
@@ -48,8 +50,8 @@ class RunScreen(Screen):
         Binding("V", "previous_view", "Prev view", show=False),
         Binding("p", "next_panel", "Panel"),
         Binding("b", "pick_qpoint", "Q-point"),
-    ] + [Binding(str(n + 1), f"view({n})", f"view {key}", show=False)
-         for n, (key, _) in enumerate(VIEWS)]
+    ] + [Binding(str(n + 1), f"view({n})", title, show=False)
+         for n, (_, title) in enumerate(VIEWS)]
 
     def __init__(self, read_only: bool = False):
         super().__init__()
@@ -66,6 +68,7 @@ class RunScreen(Screen):
     def compose(self) -> ComposeResult:
         yield SourceBanner()
         yield ScreenBar("run", "Watch (read-only)" if self.read_only else "Run")
+        yield MessageStrip()
         with Horizontal(id="run-body"):
             yield SweepPlot(id="run-plot")
             with Vertical(id="run-side"):
@@ -196,6 +199,8 @@ class RunScreen(Screen):
 
     # ------------------------------------------------------------------ actions
     def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action == "start_ctrl_r":
+            action = "start"
         if action in ("start", "pause", "resume", "abort"):
             if self.read_only:
                 return False  # watching: no control over the acquisition, not shown
@@ -208,16 +213,20 @@ class RunScreen(Screen):
         return True
 
     def action_start(self) -> None:
-        self.app.ask_start("s")
+        self.post_message(StartRequested("s"))
+
+    def action_start_ctrl_r(self) -> None:
+        """Ctrl+R runs the plan here as on the Plan screen."""
+        self.post_message(StartRequested("ctrl+r"))
 
     def action_pause(self) -> None:
-        self.app.toggle_pause()
+        self.post_message(PauseToggled())
 
     def action_resume(self) -> None:
-        self.app.toggle_pause()
+        self.post_message(PauseToggled())
 
     def action_abort(self) -> None:
-        self.app.ask_abort()
+        self.post_message(AbortRequested())
 
     def action_next_view(self) -> None:
         self.action_view((self.view_index + 1) % len(VIEWS))

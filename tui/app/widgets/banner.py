@@ -45,6 +45,61 @@ class SourceBanner(Static):
         self.update(f">>> {text} <<<" if on else text)
 
 
+def banner_text(outputs: dict[str, bool], *, simulated: bool = False, state=None,
+                watching: bool = False) -> tuple[bool, str]:
+    """(a source is on, the banner's words) for the output states and the run's state.
+
+    Off is said with who confirmed it: the runner at its end, or the guardian process
+    that switched the outputs off after the run process was killed; a run that never
+    reached its instruments says that nothing was connected."""
+    from pnbench.tui.app.bench import output_name
+
+    on = sorted(output_name(role) for role, state_on in outputs.items() if state_on)
+    if on:
+        where = "simulated " if simulated else ""
+        return True, (f"SOURCE OUTPUT ON: {', '.join(on)} ({where}DUT terminals are live)")
+    if state is not None and not getattr(state, "connected", True):
+        return False, "the instruments were never connected: no output was switched on"
+    if outputs or (state is not None and state.point_count):
+        confirmed = ""
+        if state is not None and state.outputs_off_confirmed:
+            who = getattr(state, "outputs_off_by", "") or "runner"
+            confirmed = f" (confirmed by the {who})"
+        return False, f"outputs off{confirmed}"
+    if watching:
+        return False, "outputs: no output event seen in this run folder yet"
+    return False, ""
+
+
+class MessageStrip(Static):
+    """The app's messages, in a strip under the screen bar: they push the screen down
+    for a few seconds instead of covering the plot or the last-event line."""
+
+    DEFAULT_CSS = """
+    MessageStrip { height: auto; max-height: 4; width: 1fr; padding: 0 1;
+                   background: $boost; display: none; }
+    MessageStrip.-shown { display: block; }
+    MessageStrip.-error { text-style: bold; background: $error 30%; }
+    """
+
+    def __init__(self) -> None:
+        super().__init__("", markup=False)
+        self._timer = None
+
+    def say(self, text: str, *, error: bool = False, timeout: float = 6.0) -> None:
+        self.update(text)
+        self.set_class(True, "-shown")
+        self.set_class(error, "-error")
+        if self._timer is not None:
+            self._timer.stop()
+        self._timer = self.set_timer(max(float(timeout), 1.0), self.clear)
+
+    def clear(self) -> None:
+        self.update("")
+        self.set_class(False, "-shown")
+        self._timer = None
+
+
 class ScreenBar(Horizontal):
     """Screen name, the screen keys, and the run's status at the right."""
 

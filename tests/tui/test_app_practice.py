@@ -1,0 +1,180 @@
+"""What a bench user meets in the first hour of the app, at 80x24 and 140x45: the
+bundled example when no plan is given, F1 in pnbench's own words, messages that do not
+cover the plot, Ctrl+R on the Run screen, the hazardous-voltage word in the start
+question, no internal codes on screen, who switched the outputs off, the Bench screen's
+identify feedback, socket note and one point by hand, and the report at the end of a
+sweep run in the app (or not, with --no-report)."""
+
+from __future__ import annotations
+
+import pytest
+from appplans import sweep_plan
+from test_app_run import wait_for
+
+from pnbench.errors import SafetyStop
+from pnbench.sweeps.onepoint import measure_one
+from pnbench.sweeps.plan import parse_plan
+from pnbench.tui.app.application import PnbenchApp
+from pnbench.tui.app.control import RunControl
+from pnbench.tui.app.events import describe
+from pnbench.tui.app.state import RunState
+from pnbench.tui.app.widgets.banner import MessageStrip, banner_text
+
+SIZES = [(80, 24), (140, 45)]
+
+
+def plan_file(tmp_path, forward=10, reverse=11, **kw):
+    path = tmp_path / "plan.toml"
+    path.write_text(sweep_plan("LH-SW200-t1", forward, reverse, **kw), encoding="utf-8")
+    return path
+
+
+def screen_text(screen) -> str:
+    return "\n".join(str(w.render()) for w in screen.query("Static"))
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_ui_without_a_plan_opens_the_bundled_example_on_the_plan_screen(size):
+    app = PnbenchApp(simulate="lh-vc510", time_scale=0.0)
+    async with app.run_test(size=size) as pilot:
+        await pilot.pause(0.2)
+        assert app.current_mode == "plan"
+        assert app.plan is not None and app.plan_path is None  # a copy: Save asks where
+        assert "[[steps]]" in app.screen.query_one("TextArea").text
+        assert "CHECK PASSED" in str(app.screen.query_one("#plan-messages").render())
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_f1_leads_with_the_screens_own_keys_and_readable_view_names(tmp_path, size):
+    app = PnbenchApp(plan_file(tmp_path), simulate="lh-sw200", time_scale=0.0)
+    async with app.run_test(size=size) as pilot:
+        await pilot.pause(0.2)
+        assert app.current_mode == "run"
+        await pilot.press("f1")
+        await wait_for(pilot, lambda: type(app.screen).__name__ == "KeysScreen", "F1")
+        text = str(app.screen.query_one("#keys-text").render())
+        assert text.startswith("On the Run screen:")
+        first = text.splitlines()[1]
+        assert "Start" in first  # pnbench's keys first, not cursor movement
+        for title in ("I-V forward", "Mott-Schottky", "admittance C"):
+            assert title in text
+        assert "view yc" not in text and "view mott" not in text
+        assert "Cursor" not in text
+        assert text.index("Everywhere:") > text.index("Abort")
+        await pilot.press("escape")
+        await pilot.pause(0.1)
+        assert type(app.screen).__name__ == "RunScreen"
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_messages_push_the_screen_down_instead_of_covering_plot_or_last_line(
+        tmp_path, size):
+    app = PnbenchApp(plan_file(tmp_path), simulate="lh-sw200", time_scale=0.0)
+    async with app.run_test(size=size) as pilot:
+        await pilot.pause(0.2)
+        app.notify("a message long enough to wrap on a small terminal " * 2, title="Note")
+        await pilot.pause(0.2)
+        screen = app.screen
+        strip = screen.query_one(MessageStrip)
+        assert strip.display and strip.region.height >= 1
+        assert not list(app._notifications)  # no toast floating over the screen
+        for name in ("#run-plot", "#run-last"):
+            region = screen.query_one(name).region
+            assert region.height >= 1 and not region.overlaps(strip.region), name
+        assert screen.query_one("#run-last").region.bottom <= size[1] - 1
+
+
+async def test_ctrl_r_on_the_run_screen_asks_to_start(tmp_path):
+    app = PnbenchApp(plan_file(tmp_path), simulate="lh-sw200", time_scale=0.0)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause(0.2)
+        assert app.current_mode == "run"
+        await pilot.press("ctrl+r")
+        await wait_for(pilot, lambda: type(app.screen).__name__ == "ConfirmDialog",
+                       "the start question")
+        await pilot.press("n")
+        await pilot.pause(0.1)
+        assert app.live is None
+
+
+def test_the_start_question_names_a_hazardous_voltage(tmp_path):
+    """Threshold of 60 V DC as the plan rules use it (IEC 61010-1, older editions)."""
+    text = sweep_plan("LH-SW200-t1", 5, 5, reverse_stop="-80 V").replace(
+        'max_reverse_voltage = "20 V"',
+        'max_reverse_voltage = "90 V"\nacknowledge_hazardous_voltage = "90 V"')
+    plan = parse_plan(text, "hv.toml")
+    question = RunControl(None, simulate="lh-sw200").start_question(plan)
+    assert "HAZARDOUS VOLTAGE" in question and "90 V" in question
+    safe = parse_plan(sweep_plan("LH-SW200-t1", 5, 5), "safe.toml")
+    assert "HAZARDOUS" not in RunControl(None).start_question(safe)
+
+
+def test_internal_codes_do_not_reach_the_log():
+    line = describe({"kind": "step_finished", "status": "ended_early", "done": 12,
+                     "planned": 40, "ended_by": "compliance_storm"})
+    assert "compliance_storm" not in line and "repeated compliance" in line
+    assert "_" not in describe({"kind": "run_finished", "status": "safety_stop"})
+
+
+def test_the_banner_says_who_switched_the_outputs_off_and_when_nothing_was_connected():
+    state = RunState()
+    state.apply_run_json({"status": "interrupted", "outputs_off_confirmed": True,
+                          "guardian": {"at": "x", "outputs_off_confirmed": True}})
+    state.outputs = {"smu": False}
+    assert banner_text(state.outputs, state=state) == (
+        False, "outputs off (confirmed by the guardian)")
+    state.apply_run_json({"status": "completed", "outputs_off_confirmed": True,
+                          "guardian": None})
+    assert banner_text(state.outputs, state=state)[1].endswith("(confirmed by the runner)")
+    never = RunState()
+    never.apply_event({"kind": "run_finished", "status": "failed", "connected": False,
+                       "outputs_off_confirmed": False})
+    assert "never connected" in banner_text({}, state=never)[1]
+
+
+def test_one_point_by_hand_keeps_to_the_plans_limits_and_ends_off(tmp_path):
+    plan = parse_plan(sweep_plan("LH-SW200-t1", 5, 5), "p.toml")
+    result = measure_one(plan, "0.6 V", "10 mA", simulate="lh-sw200")
+    assert result.source == "voltage" and result.outputs_off_confirmed
+    assert 0 < result.current_A <= 10e-3 and abs(result.voltage_V - 0.6) < 0.01
+    assert "off, confirmed" in result.line()
+    with pytest.raises(SafetyStop, match="max_current"):
+        measure_one(plan, "0.6 V", "80 mA", simulate="lh-sw200")  # limit 50 mA
+    with pytest.raises(SafetyStop, match="voltage limits"):
+        measure_one(plan, "-30 V", "1 mA", simulate="lh-sw200")  # limit 20 V reverse
+    with pytest.raises(SafetyStop, match="max_power"):
+        measure_one(plan, "-20 V", "10 mA", simulate="lh-sw200")  # 200 mW > 50 mW
+
+
+async def test_bench_screen_identify_answers_and_one_point_is_measured(tmp_path):
+    app = PnbenchApp(plan_file(tmp_path), simulate="lh-sw200", time_scale=0.0)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause(0.2)
+        app.switch_mode("bench")
+        await pilot.pause(0.2)
+        assert "cannot be discovered" in screen_text(app.screen)
+        await pilot.press("i")
+        await wait_for(pilot, lambda: "answered" in app.last_message, "identify")
+        assert "1 of 1 instruments answered" in app.last_message  # the plan needs the SMU
+        assert "answered" in screen_text(app.screen)
+        await pilot.press("m")
+        await wait_for(pilot, lambda: type(app.screen).__name__ == "PointDialog", "dialog")
+        await pilot.press("enter")  # the offered 0.5 V at 1 mA
+        await wait_for(pilot, lambda: "one point:" in app.last_message, "the point")
+        assert "off, confirmed" in app.last_message
+
+
+@pytest.mark.parametrize("report", [True, False])
+async def test_a_sweep_in_the_app_ends_with_its_report_unless_told_not_to(tmp_path, report):
+    app = PnbenchApp(plan_file(tmp_path, 8, 0), simulate="lh-sw200", time_scale=0.0,
+                     out_dir=tmp_path / "runs", autostart=True, report=report)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(pilot, lambda: app.state.finished and not app.live.running,
+                       "the end of the run")
+        if report:
+            await wait_for(pilot, lambda: (app.last_run_dir / "report.html").exists(),
+                           "the report")
+            await wait_for(pilot, lambda: "report written" in app.last_message, "word")
+        else:
+            await pilot.pause(1.0)
+            assert not (app.last_run_dir / "report.html").exists()

@@ -1,0 +1,43 @@
+"""Commands as the README shows them: `resume RUN_DIR --headless`, `check PLAN
+--simulate DEVICE`, and `probe` of the LCR meter in readable lines."""
+
+from __future__ import annotations
+
+from appplans import sweep_plan
+
+from pnbench.tui import cli
+
+
+def test_resume_accepts_headless(tmp_path, capsys):
+    args = cli.build_parser().parse_args(["resume", str(tmp_path), "--headless"])
+    assert args.headless and args.run_dir == str(tmp_path)
+    # a folder that holds no run is bad input, named, not a usage error
+    assert cli.main(["resume", str(tmp_path), "--headless"]) == 2
+    err = capsys.readouterr().err
+    assert "usage:" not in err and str(tmp_path) in err
+
+
+def test_check_with_simulate_checks_against_the_simulated_bench(tmp_path, capsys):
+    plan = tmp_path / "plan.toml"
+    plan.write_text(sweep_plan("LH-SW200-t1", 5, 5), encoding="utf-8")
+    assert cli.main(["check", str(plan), "--simulate", "lh-vc510"]) == 0
+    assert "fits the simulated bench with lh-vc510" in capsys.readouterr().out
+    # a limit beyond the simulated SMU's largest current range (1 A) is refused (exit 2)
+    big = tmp_path / "big.toml"
+    big.write_text(sweep_plan("LH-SW200-t1", 5, 5).replace(
+        'max_current = "50 mA"', 'max_current = "2 A"'), encoding="utf-8")
+    assert cli.main(["check", str(big)]) == 0  # the plan on its own is fine
+    capsys.readouterr()
+    code = cli.main(["check", str(big), "--simulate", "lh-vc510"])
+    err = capsys.readouterr().err
+    assert code == 2 and "simulated bench" in err and "max_current" in err
+    assert cli.main(["check", str(plan), "--simulate", "no-such-device"]) == 2
+
+
+def test_probe_of_the_lcr_meter_prints_quantities_not_a_dict(capsys):
+    assert cli.main(["probe", "--simulate", "lh-vc510", "--role", "lcr",
+                     "--time-scale", "0"]) == 0
+    out = capsys.readouterr().out
+    line = next(x for x in out.splitlines() if "reading_1kHz" in x)
+    assert "{" not in line and "'" not in line
+    assert "Cp = " in line and " pF" in line and "Gp = " in line and "at 1 kHz" in line
