@@ -29,6 +29,16 @@ def app_with_run(tmp_path):
     return app
 
 
+async def settle(pilot, condition, timeout_s: float = 15.0) -> None:
+    """Let the app work until `condition()` holds or the time runs out; the caller then
+    asserts, so a layout that never settles still fails. A fixed pause was too short on a
+    loaded machine."""
+    for _ in range(int(timeout_s / 0.1)):
+        if condition():
+            return
+        await pilot.pause(0.1)
+
+
 def visible_widgets(screen):
     """Widgets on show, leaving out content inside scrolling containers (which may
     be taller than its window by design)."""
@@ -90,12 +100,19 @@ async def test_run_screen_gives_the_plot_room_and_shows_panels_as_space_allows(
     async with app.run_test(size=size) as pilot:
         app.state, _ = read_run_folder(app.last_run_dir)  # a run with every parameter
         app.switch_mode("run")
-        await pilot.pause(0.5)
         screen = app.screen
+        panels = [screen.query_one(f"#{name}") for name in ("params", "qpoint", "log")]
+
+        def shown_panels():
+            return [p for p in panels if p.display and p.region.height > 0]
+
+        def laid_out():  # the parameter table fills once the run's model has been read
+            return all(p.region.height >= 3 for p in shown_panels())
+
+        await settle(pilot, laid_out)
         plot = screen.query_one("#run-plot").region
         assert plot.width >= width // 2 and plot.height >= height // 2
-        panels = [screen.query_one(f"#{name}") for name in ("params", "qpoint", "log")]
-        shown = [p for p in panels if p.display and p.region.height > 0]
+        shown = shown_panels()
         if size == (80, 24):
             assert len(shown) == 1
             await pilot.press("p")
