@@ -9,6 +9,7 @@ ramps the source to zero, turns the output off and confirms it by asking.
 from __future__ import annotations
 
 import math
+import time
 from dataclasses import dataclass
 
 from pnbench.drivers import scpi
@@ -20,6 +21,16 @@ from pnbench.modeling import smallsignal
 #: A reading within this fraction of the limit counts as compliance when the dialect
 #: has no status query for it.
 COMPLIANCE_FRACTION = 1e-3
+
+#: Default rate of the ramp to zero, in volts per second at the terminals. At 10 V/s a
+#: 1 nF device or fixture draws C dV/dt = 10 nA and a 1 uF one 10 uA, well inside any
+#: compliance, and 40 V come down in 4 s; a step of a few hundred volts per second, as
+#: an unpaced ramp gives, would push microamperes to milliamperes through a large
+#: capacitance or a long cable. Common practice, no source; plans set their own rate.
+RAMP_RATE_V_PER_S = 10.0
+#: Dwell between the steps of the ramp, and the most steps one ramp takes.
+RAMP_DWELL_S = 0.02
+RAMP_MAX_STEPS = 500
 
 
 @dataclass(frozen=True)
@@ -127,6 +138,11 @@ class Smu(_Role):
         self.source: str | None = None
         self.limit: float | None = None
         self.level: float | None = None
+        self.last_voltage_V: float | None = None  # terminal voltage of the last reading
+        #: Ramp to zero at this rate (V/s); dwells are multiplied by ``ramp_time_scale``
+        #: (the simulated bench's time scale: 0 skips them, as it skips all waiting).
+        self.ramp_rate_V_per_s = RAMP_RATE_V_PER_S
+        self.ramp_time_scale = 1.0
         self._output_on = False
 
     def _set_command(self, level: float) -> str:
@@ -208,6 +224,8 @@ class Smu(_Role):
         elif "compliance" not in values:
             measured = values["current" if self.source == "voltage" else "voltage"]
             compliance = abs(measured) >= self.limit * (1.0 - COMPLIANCE_FRACTION)
+        if math.isfinite(values["voltage"]):
+            self.last_voltage_V = values["voltage"]
         return SmuReading(voltage_V=values["voltage"], current_A=values["current"],
                           compliance=bool(compliance))
 
@@ -228,17 +246,37 @@ class Smu(_Role):
         query = self.commands.output_query
         return _flag(self.session, self.session.query(query), query)
 
-    def ramp_to_zero(self, steps: int = 10) -> None:
-        """Step the source level to zero, waiting for each step to complete."""
+    def ramp_plan(self) -> tuple[int, float]:
+        """(steps, dwell in s) of the ramp to zero from the present level: the terminal
+        voltage (the level when sourcing voltage; the last reading, else the voltage limit,
+        when sourcing current) comes down at ``ramp_rate_V_per_s``, in at least ten
+        steps, at most RAMP_MAX_STEPS."""
+        if self.source is None or not self.level:
+            return 1, 0.0
+        if self.source == "voltage":
+            volts = abs(self.level)
+        else:
+            known = self.last_voltage_V if self.last_voltage_V is not None else self.limit
+            volts = abs(known or 0.0)
+        duration = volts / self.ramp_rate_V_per_s
+        steps = max(10, min(RAMP_MAX_STEPS, math.ceil(duration / RAMP_DWELL_S)))
+        return steps, duration / steps * self.ramp_time_scale
+
+    def ramp_to_zero(self, sleep=time.sleep) -> None:
+        """Step the source level to zero at the ramp rate, each step confirmed complete
+        (*OPC?) and followed by a dwell."""
         if self.source is None:
             return
         start = self.level if self.level is not None else 0.0
         opc = self.dialect.common.operation_complete
-        count = max(1, int(steps)) if start != 0.0 else 1
+        count, dwell = self.ramp_plan()
         for k in range(count - 1, -1, -1):
             self.level = start * k / count
             self.session.expect_complete(self.dialect.join(
                 [self._set_command(self.level), opc]))
+            if k and dwell > 0:
+                sleep(dwell)
+        self.last_voltage_V = None
 
     def safe_off(self) -> list[str]:
         """Ramp to zero, output off, confirm by query. Idempotent.

@@ -99,6 +99,8 @@ class Bench:
         fresh = _open_role(self.connections[role])
         if role == "smu":  # carry the source state so ramp_to_zero knows where it is
             fresh.source, fresh.limit, fresh.level = old.source, old.limit, old.level
+            fresh.last_voltage_V = old.last_voltage_V
+            set_ramp(fresh, old.ramp_rate_V_per_s, old.ramp_time_scale)
         self.roles[role] = fresh
 
     def check_errors(self, role: str, context: str) -> None:
@@ -114,6 +116,14 @@ class Bench:
         if self.sim is not None:
             with contextlib.suppress(Exception):
                 self.sim.close()
+
+
+def set_ramp(smu, rate_V_per_s: float, time_scale: float = 1.0) -> None:
+    """The rate of the SMU's ramp to zero (the plan's [limits] ramp_rate), and the time
+    scale of its dwells: 1 for real instruments; the simulated bench's own time scale
+    for it (so a bench at time scale 0 ramps in as many steps, without waiting)."""
+    smu.ramp_rate_V_per_s = float(rate_V_per_s)
+    smu.ramp_time_scale = float(time_scale)
 
 
 def prime_source(smu, source: str, level: float) -> None:
@@ -179,6 +189,9 @@ def open_bench(plan: Plan, *, simulate: str | None = None, time_scale: float = 0
         for role, conn in bench.connections.items():
             bench.roles[role] = _open_role(conn)
             conn.identity = bench.roles[role].identity
+        if bench.smu is not None:
+            set_ramp(bench.smu, plan.limits.ramp_rate_V_per_s,
+                     time_scale if bench.sim is not None else 1.0)
         _check_identities(bench, expected or {}, force_identity)
         if prime is not None and bench.smu is not None:
             prime_source(bench.smu, *prime)

@@ -10,7 +10,8 @@ with real instruments starts a guardian:
 It blocks reading its stdin. When the pipe closes it takes the run folder's lock (free
 once the run process has gone), reads run.json, and if the run is still marked
 ``running`` or ``paused`` it connects to each recorded instrument, ramps the source to
-zero, turns outputs and bias off, confirms, and records it in run.json (status
+zero at the plan's ramp rate (as every other way out does), turns outputs and bias
+off, confirms, and records it in run.json (status
 ``interrupted``, ``guardian``) and run.log. A run that ended normally is left alone.
 It ignores SIGINT and SIGHUP so a Ctrl-C or a closed terminal cannot take it down with
 the run. Runs on the in-process simulated bench need none (the bench dies with them).
@@ -72,8 +73,8 @@ def rescue(run_dir: Path, lock_timeout_s: float = 30.0) -> int:
         run = folder.run
         if run.get("status") not in LIVE or run.get("simulated"):
             return 0
-        prime = _last_level(run_dir)
-        report = {role: _off(role, info, prime)
+        prime, ramp = _last_level(run_dir)
+        report = {role: _off(role, info, prime, ramp)
                   for role, info in (run.get("instruments") or {}).items()}
         confirmed = bool(report) and all(ok for ok, _ in report.values())
         detail = "; ".join(f"{role}: {text}" for role, (_, text) in report.items())
@@ -89,8 +90,9 @@ def rescue(run_dir: Path, lock_timeout_s: float = 30.0) -> int:
         folder.close()
 
 
-def _off(role: str, info: dict, prime: tuple[str, float] | None) -> tuple[bool, str]:
-    from pnbench.sweeps.bench import Connection, _open_role, prime_source
+def _off(role: str, info: dict, prime: tuple[str, float] | None,
+         ramp: tuple[float, float] | None) -> tuple[bool, str]:
+    from pnbench.sweeps.bench import Connection, _open_role, prime_source, set_ramp
 
     try:
         conn = Connection(role, info["resource"], info.get("backend") or "@py",
@@ -101,6 +103,10 @@ def _off(role: str, info: dict, prime: tuple[str, float] | None) -> tuple[bool, 
     try:
         if role == "smu" and prime is not None:
             prime_source(instrument, *prime)
+            if ramp is not None:  # the plan's rate; from the highest voltage it allows
+                set_ramp(instrument, ramp[0])
+                if prime[0] == "current":
+                    instrument.limit = ramp[1]
         instrument.safe_off()
         return True, "off, confirmed"
     except Exception as exc:  # noqa: BLE001
@@ -109,16 +115,22 @@ def _off(role: str, info: dict, prime: tuple[str, float] | None) -> tuple[bool, 
         instrument.session.close()
 
 
-def _last_level(run_dir: Path) -> tuple[str, float] | None:
-    """Source and level of the SMU step in progress, so the source ramps down from it."""
+def _last_level(run_dir: Path) -> tuple[tuple[str, float] | None,
+                                         tuple[float, float] | None]:
+    """Source and level of the SMU step in progress, so the source ramps down from it,
+    and the plan's (ramp rate in V/s, highest voltage of its limits)."""
     try:
         from pnbench.sweeps.launch import plan_of_run
         from pnbench.sweeps.resume import last_smu_level, load_state
 
         plan = plan_of_run(run_dir)
-        return last_smu_level(plan, load_state(run_dir, plan))
     except Exception:  # noqa: BLE001 - without it the output still goes off, unramped
-        return None
+        return None, None
+    ramp = (plan.limits.ramp_rate_V_per_s, plan.limits.highest_voltage_V())
+    try:
+        return last_smu_level(plan, load_state(run_dir, plan)), ramp
+    except Exception:  # noqa: BLE001
+        return None, ramp
 
 
 if __name__ == "__main__":

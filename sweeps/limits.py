@@ -28,6 +28,12 @@ HAZARDOUS_VOLTAGE_V = 60.0
 #: Consecutive compliance readings after which a step ends (a "compliance storm").
 COMPLIANCE_STORM_COUNT = 3
 
+#: Rate at which the source comes down to zero on every way out (V/s; [limits]
+#: ramp_rate), and the rates a plan may set. The default is the SMU role's
+#: (drivers.roles.RAMP_RATE_V_PER_S), whose comment gives the reasoning.
+RAMP_RATE_V_PER_S = 10.0
+RAMP_RATE_RANGE = (0.1, 1e4)
+
 #: Margin before a reading over the current limit counts as the instrument failing to
 #: hold its compliance (a reading at the limit is normal: that is what compliance does).
 OVERSHOOT_MARGIN = 0.05
@@ -42,6 +48,7 @@ class Limits:
     max_current_A: float
     max_power_W: float
     hazardous_ack_V: float | None = None
+    ramp_rate_V_per_s: float = RAMP_RATE_V_PER_S
 
     def to_json_dict(self) -> dict:
         return asdict(self)

@@ -14,7 +14,12 @@ from pathlib import Path
 from pnbench.drivers.backends import plan_backend_problem
 from pnbench.drivers.backends import resolve as resolve_backend
 from pnbench.errors import PlanError
-from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V, Limits
+from pnbench.sweeps.limits import (
+    HAZARDOUS_VOLTAGE_V,
+    RAMP_RATE_RANGE,
+    RAMP_RATE_V_PER_S,
+    Limits,
+)
 from pnbench.sweeps.planread import Problems, TableReader
 from pnbench.sweeps.planstep import Step, read_step
 from pnbench.sweeps.tomllines import key_lines
@@ -236,6 +241,11 @@ def _read_limits(t: TableReader, instruments: dict) -> Limits | None:
     i_max = t.quantity("max_current", "A", required=True, positive=True)
     p_max = t.quantity("max_power", "W", required=True, positive=True)
     ack = t.quantity("acknowledge_hazardous_voltage", "V", positive=True)
+    ramp = t.quantity("ramp_rate", "V/s", RAMP_RATE_V_PER_S, positive=True)
+    if ramp is not None and not RAMP_RATE_RANGE[0] <= ramp <= RAMP_RATE_RANGE[1]:
+        t.problem("ramp_rate", f"{ramp:g} V/s is outside {RAMP_RATE_RANGE[0]:g} to "
+                  f"{RAMP_RATE_RANGE[1]:g} V/s")
+        ramp = RAMP_RATE_V_PER_S
     t.finish()
     highest = max(v_max or 0.0, abs(v_rev or 0.0))
     if highest > HAZARDOUS_VOLTAGE_V and (ack is None or ack < highest):
@@ -260,4 +270,5 @@ def _read_limits(t: TableReader, instruments: dict) -> Limits | None:
             t.problem("max_current", f"{i_max:g} A is beyond the SMU's rating of "
                       f"{rated_i:g} A (instruments max_current)")
     return Limits(max_voltage_V=v_max, max_reverse_voltage_V=abs(v_rev), max_current_A=i_max,
-                  max_power_W=p_max, hazardous_ack_V=ack)
+                  max_power_W=p_max, hazardous_ack_V=ack,
+                  ramp_rate_V_per_s=ramp if ramp is not None else RAMP_RATE_V_PER_S)

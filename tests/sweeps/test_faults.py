@@ -31,6 +31,7 @@ PLAN = textwrap.dedent("""\
     max_reverse_voltage = "40 V"
     max_current = "100 mA"
     max_power = "150 mW"
+    ramp_rate = "5 kV/s"          # the bench runs at time scale 0; pnbench cannot know
 
     [[steps]]
     name = "forward"

@@ -40,6 +40,7 @@ PLAN = textwrap.dedent("""\
     max_reverse_voltage = "8 V"
     max_current = "100 mA"
     max_power = "100 mW"
+    ramp_rate = "5 kV/s"          # the bench runs at time scale 0; pnbench cannot know
 
     [[steps]]
     name = "forward"
