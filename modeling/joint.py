@@ -72,7 +72,7 @@ def _pool(data: Mapping[str, Mapping[str, Any]], kinds: Sequence[str]) -> dict |
         return None
     out: dict[str, np.ndarray] = {}
     for name in ("voltage_V", "current_A", "frequency_Hz", "capacitance_F",
-                 "conductance_S"):
+                 "conductance_S", "ac_level_V"):
         out[name] = np.concatenate([_col(p, name, len(_col(p, "voltage_V"))) for p in parts])
     out["compliance"] = np.concatenate([
         np.asarray(p["compliance"], dtype=bool).ravel() if p.get("compliance") is not None
@@ -87,7 +87,9 @@ def fit_all(data: Mapping[str, Mapping[str, Any]], *,
             extras: Mapping[str, Any] | None = None) -> JointFit:
     """Fit every kind of data present; ``data`` maps a kind ("iv", "iv_forward",
     "iv_reverse", "cv", "admittance") to columns named as in points.csv
-    (voltage_V, current_A, frequency_Hz, capacitance_F, conductance_S, compliance).
+    (voltage_V, current_A, frequency_Hz, capacitance_F, conductance_S, compliance) and
+    optionally ac_level_V (the LCR meter's test-signal level, rms, one value or one per
+    point: its distortion of forward readings is then modelled).
 
     All I–V kinds are pooled (forward and reverse split by the sign of V), as are the
     C–V kinds. ``with_fixture``: None fits a fixture capacitance when the data
@@ -125,7 +127,8 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
             cv["voltage_V"], cv["frequency_Hz"], cv["capacitance_F"], cv["conductance_S"],
             compliance=cv["compliance"], temperature_K=temperature_K,
             with_fixture=with_fixture, fixed=fixed or None,
-            held_covariance=dc_hold_covariance(results, fixed)))
+            held_covariance=dc_hold_covariance(results, fixed),
+            ac_level_V=cv["ac_level_V"]))
     more = dict(extras or {})
     if cv is not None and area_m2 is not None:
         from pnbench.modeling import fit_cv, network

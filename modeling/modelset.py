@@ -216,14 +216,27 @@ class ModelSet:
             if sigma is not None:
                 text += f" +- {sigma!r}"
             lines.append(text)
+        shunt = f"{name}_RSH"
         if "RSH" in self.values:
             lines.append("* RSH (shunt) is not a standard model-card parameter: it is not "
-                         "on the .model line; place a resistor of that value across the "
-                         "diode to simulate it.")
+                         f"on the .model line. To simulate the leakage, use the subcircuit "
+                         f"{shunt} (pins: anode cathode) in place of the bare diode, e.g. "
+                         f"X1 a k {shunt}; it places RSH across the diode (outside RS, "
+                         f"which differs from across the junction by RS/RSH).")
+        caution = _breakdown_caution(self.values, self.temperature_K)
+        if caution:
+            lines.append(f"* caution: {caution}")
         params = [f"{p}={self.values[p]!r}" for p in CARD_ORDER if p in self.values]
         params.append(f"TNOM={t_c:.10g}")
         lines.append(f".model {name} D({' '.join(params)})")
+        if "RSH" in self.values:
+            lines += [f".subckt {shunt} A K", f"D1 A K {name}",
+                      f"R1 A K {self.values['RSH']!r}", f".ends {shunt}"]
         return "\n".join(lines) + "\n"
+
+    def breakdown_caution(self) -> str | None:
+        """Why the card's BV/IBV would not mean the measured knee in a simulator."""
+        return _breakdown_caution(self.values, self.temperature_K)
 
     @classmethod
     def from_card_text(cls, text: str, name: str | None = None,
@@ -286,6 +299,21 @@ class ModelSet:
             raise DataFileError(f"{source}, line {lineno}: {exc}") from None
         _check_params(model, f"{source}, line {lineno}")
         return model
+
+
+def _breakdown_caution(values: dict[str, float], temperature_K: float) -> str | None:
+    """Simulators of the SPICE2 lineage raise IBV to IS*BV/Vt when it is smaller (ngspice
+    warns "breakdown current increased"), which moves the whole breakdown curve: a card
+    fitted with such an IBV does not reproduce the measured knee."""
+    if not all(k in values for k in ("BV", "IBV", "IS")):
+        return None
+    vt = 8.617333262e-5 * temperature_K  # k/q in V/K (CODATA 2018, exact)
+    least = values["IS"] * values["BV"] / vt
+    if values["IBV"] >= least:
+        return None
+    return (f"IBV = {values['IBV']:.3g} A is below IS*BV/Vt = {least:.3g} A: simulators "
+            f"raise IBV to that and move the breakdown knee; state BV at a current above "
+            f"it to keep the card's meaning")
 
 
 def _check_params(model: ModelSet, where: str) -> None:

@@ -20,7 +20,7 @@ import math
 
 import numpy as np
 
-from pnbench.modeling import fit_cv, heldcov, lsq
+from pnbench.modeling import fit_cv, heldcov, junction, lsq
 from pnbench.modeling.fitresult import FitResult, empty_result
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
 
@@ -33,7 +33,7 @@ TT_ABSENT = ("TT not determined: the diffusion capacitance never stands three st
 def network_model(temperature_K: float, fc: float,
                   with_fixture: bool | None) -> fit_cv.AdmittanceModel:
     """The admittance model with CFIX optional (None), forced (True) or absent (False)."""
-    model = fit_cv.AdmittanceModel(temperature_K, fc, fixture=with_fixture)
+    model = MeterModel(temperature_K, fc, fixture=with_fixture)
     params = [dataclasses.replace(p, absent_reason=TT_ABSENT) if p.name == "TT" else p
               for p in model.params]
     model.params = tuple(params)
@@ -71,6 +71,45 @@ class SplitModel:
         return y2, np.stack([jac[:, 0, :], jac[:, 0, :] * self.scale[:, None]], axis=1)
 
 
+#: Samples of the test signal's period in the describing function (the integrand is
+#: periodic and smooth, so the trapezoid rule converges fast; amplitude <~ 2 N*Vt).
+_PHASES = 16
+
+
+class MeterModel(fit_cv.AdmittanceModel):
+    """The admittance the meter reads at its test-signal level: x = (V, f, a_rms).
+
+    A test signal of amplitude a on the exponential junction is not small against
+    N*Vt at forward bias: the fundamental of the current is the describing function
+    Y = mean(2 sin(t)**2 * Yj(Vd + a_j cos t)) over one period (the in-phase and
+    quadrature parts of a conductance and charge driven by a cosine), with a_j the part
+    of the amplitude across the junction (RS takes the rest); its relative change of gd
+    and Cd is ~(a_j/(N*Vt))**2/8. Where a is 0 or unknown (NaN) the small-signal form.
+    """
+
+    def _y(self, t, x):
+        from pnbench.modeling.smallsignal import junction_admittance
+
+        if x.shape[1] < 3 or not np.any(np.nan_to_num(x[:, 2]) > 0):
+            return super()._y(t, x)
+        p = self.diode(t)
+        v, f = x[:, 0], x[:, 1]
+        amp = np.sqrt(2.0) * np.nan_to_num(x[:, 2])
+        i0 = np.asarray(junction.current(v, p, self.temperature_K), dtype=float)
+        vd0 = v - i0 * p.RS
+        y_small = junction_admittance(vd0, f, p, self.temperature_K)
+        a_j = amp / np.abs(1.0 + p.RS * y_small)
+        phase = 2 * np.pi * (np.arange(_PHASES) + 0.5) / _PHASES
+        weight = 2.0 * np.sin(phase) ** 2
+        grid = vd0[:, None] + a_j[:, None] * np.cos(phase)[None, :]
+        yj = junction_admittance(grid, f[:, None], p, self.temperature_K)
+        y_eff = np.where(amp > 0, (yj * weight).mean(axis=1), y_small)
+        y = y_eff / (1.0 + p.RS * y_eff)
+        w = 2 * np.pi * f
+        c = y.imag / w + (t[8] if len(t) > 8 else 0.0)
+        return np.column_stack([c, y.real])
+
+
 def _tt_start(model, t0, x, y, use) -> float:
     """TT from the forward excess capacitance over the TT = 0 prediction (least squares
     of the excess against dC/dTT)."""
@@ -88,7 +127,7 @@ def _tt_start(model, t0, x, y, use) -> float:
 
 
 def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
-                fixed: dict[str, float],
+                fixed: dict[str, float], ac_level_V=None,
                 held_covariance: np.ndarray | None = None, compliance=None, use=None,
                 temperature_K: float = DEFAULT_TEMPERATURE_K,
                 with_fixture: bool | None = None, fc: float = 0.5,
@@ -98,10 +137,15 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
     ``fixed`` holds IS, N and RS (and RSH; RS = 0 and RSH = inf hold them absent) from
     the I–V fit; ``held_covariance`` is their covariance in the order of DC_NAMES that
     are in ``fixed`` and finite (values' units), carried into the sigmas.
+    ``ac_level_V``: the meter's test-signal level (rms) per point or one value; where
+    known its distortion of the forward readings is modelled (MeterModel).
     """
     x, y, elig = fit_cv._cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                                    compliance, use)
     y, elig = y.copy(), elig.copy()
+    level = np.full(len(x), np.nan) if ac_level_V is None else np.broadcast_to(
+        np.asarray(ac_level_V, dtype=float).ravel(), (len(x),))
+    x = np.column_stack([x, level])
     w = 2 * np.pi * x[:, 1]
     with np.errstate(all="ignore"):
         k_phase = w / np.abs(y[:, 1] + 1j * w * y[:, 0])  # w/|Y|: C*w/|Y| has even noise

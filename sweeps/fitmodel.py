@@ -157,7 +157,12 @@ def model_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
     by_kind: dict[str, list[dict]] = {}
     for name, step in steps.items():
         if name in columns and len(columns[name]["voltage_V"]):
-            by_kind.setdefault(step.kind, []).append(columns[name])
+            col = columns[name]
+            if step.kind in ("cv", "admittance"):  # the LCR test level, for the C-V fit
+                level = getattr(step, "ac_level_V", None)
+                col = {**col, "ac_level_V": np.full(len(col["voltage_V"]),
+                                                    np.nan if level is None else level)}
+            by_kind.setdefault(step.kind, []).append(col)
     if not by_kind:
         return None
     data = {kind: parts[0] if len(parts) == 1 else

@@ -75,7 +75,8 @@ def test_card_keeps_rsh_off_the_model_line_and_says_why():
     assert "RSH" not in model_line[0]
     assert "TNOM=25" in model_line[0]
     assert "not a standard model-card parameter" in card
-    assert all(ln.startswith("*") for ln in card.splitlines() if not ln.startswith(".model"))
+    body = card.split(".subckt")[0]  # the shunt's subcircuit follows the .model line
+    assert all(ln.startswith("*") for ln in body.splitlines() if not ln.startswith(".model"))
 
 
 def test_card_reader_understands_simulator_syntax():
@@ -149,3 +150,22 @@ def test_card_name_makes_any_device_name_a_simulator_name():
     card = ModelSet(values={"IS": 1e-14}, sigmas={}, temperature_K=300.15,
                     extras={}).card_text(card_name("LH-SW200 sample 3"))
     assert ".model LH-SW200_sample_3 D(" in card
+
+
+def test_card_with_a_shunt_offers_a_subcircuit_and_round_trips():
+    """RSH is no card parameter: the card carries a subcircuit that places it across the
+    diode, says how to use it, and still reads back (RSH from its comment line)."""
+    m = ModelSet(values={"IS": 1e-12, "N": 1.4, "RS": 3.0, "RSH": 2e5})
+    text = m.card_text("LKY1")
+    assert ".subckt LKY1_RSH A K" in text and "R1 A K 200000.0" in text
+    assert "X1 a k LKY1_RSH" in text
+    assert ModelSet.from_card_text(text).values["RSH"] == 2e5
+
+
+def test_card_warns_when_ibv_is_below_is_bv_over_vt():
+    """Simulators of the SPICE2 lineage (ngspice) raise IBV to IS*BV/Vt when it is
+    smaller, moving the knee (ngspice source, dioTemp; from memory): the card says so."""
+    low = ModelSet(values={"IS": 1e-8, "N": 1.8, "BV": 100.0, "IBV": 1e-6})
+    assert "caution: IBV" in low.card_text("REC1")
+    ok = ModelSet(values={"IS": 1e-14, "N": 1.0, "BV": 100.0, "IBV": 1e-6})
+    assert "caution" not in ok.card_text("SIG1") and ok.breakdown_caution() is None
