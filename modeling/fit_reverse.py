@@ -75,6 +75,11 @@ def _breakdown(x, mag, ibv):
     x, y = vv[lo:hi + 1], np.log(ii[lo:hi + 1])
     if len(x) >= 4:
         a, b, cov, _ = _line(x, y)
+        # a sigma read from the scatter of a few points is itself uncertain: the error
+        # over it follows Student's t, whose rms is sqrt(dof/(dof - 2)); scale by that
+        # (by sqrt(3) at 2 dof) so BV's sigma is an honest rms with a short knee
+        dof = len(x) - 2
+        cov = cov * (dof / (dof - 2) if dof > 2 else 3.0)
     else:  # the two bracketing points
         x, y = vv[k - 1:k + 1], np.log(ii[k - 1:k + 1])
         b = (y[1] - y[0]) / (x[1] - x[0]) if x[1] != x[0] else math.inf
@@ -164,12 +169,24 @@ def fit_reverse(voltage_V, current_A, *, compliance=None,
     extras: dict = {"IBV_A": ibv}
     bd, pre, line = _analyse(-vr, mag, ibv, vt)
     if rs > 0:  # the breakdown on the junction voltage; leakage and RSH stay terminal
-        bd_j, _, _ = _analyse(-(vr + mag * rs), mag, ibv, vt)
+        bd_j, _, line_j = _analyse(-(vr + mag * rs), mag, ibv, vt)
         if bd_j is not None and bd is not None:
             sd = math.hypot(bd_j[1], ibv * (series_sigma_ohm or 0.0))
             extras["BV_terminal_V"] = bd_j[0] + ibv * rs
             extras["BV_at_junction"] = True
-            bd = (bd_j[0], sd, bd_j[2], bd_j[3])
+            bd, line_bd = (bd_j[0], sd, bd_j[2], bd_j[3]), line_j
+        else:
+            line_bd = line
+    else:
+        line_bd = line
+    if bd is not None and line_bd is not None and math.isfinite(bd[1]):
+        # the leakage line subtracted at the knee is uncertain too: an error dL in it
+        # moves the breakdown current by dL, and BV by dL/(IBV * growth rate)
+        cov_l = line_bd[2]
+        at = np.array([1.0, bd[0]])
+        var_l = float(at @ cov_l @ at) if np.all(np.isfinite(cov_l)) else 0.0
+        bd = (bd[0], math.hypot(bd[1], math.sqrt(max(var_l, 0.0)) / (ibv * bd[2])),
+              bd[2], bd[3])
     deepest = float(-vr.min())
     if bd is None:
         reached = float(np.max(mag))

@@ -25,10 +25,14 @@ class Noise:
     rel: tuple[float, ...]
     floor: tuple[float, ...]
     estimated: bool = True
+    #: True: sigma = rel*y + floor, as instrument specifications add the two parts
+    linear: bool = False
 
     def sigma(self, yhat: np.ndarray) -> np.ndarray:
         rel = np.asarray(self.rel)
         floor = np.asarray(self.floor)
+        if self.linear:
+            return rel * np.abs(yhat) + floor
         return np.sqrt((rel * yhat) ** 2 + floor**2)
 
 

@@ -84,7 +84,8 @@ def fit_all(data: Mapping[str, Mapping[str, Any]], *,
             temperature_K: float = DEFAULT_TEMPERATURE_K, area_m2: float | None = None,
             reference_V: float | None = None, ibv_A: float | None = None,
             with_fixture: bool | None = None, semiconductor: str | float = "Si",
-            extras: Mapping[str, Any] | None = None) -> JointFit:
+            extras: Mapping[str, Any] | None = None,
+            noise: Mapping[str, tuple[float, float]] | None = None) -> JointFit:
     """Fit every kind of data present; ``data`` maps a kind ("iv", "iv_forward",
     "iv_reverse", "cv", "admittance") to columns named as in points.csv
     (voltage_V, current_A, frequency_Hz, capacitance_F, conductance_S, compliance) and
@@ -92,16 +93,18 @@ def fit_all(data: Mapping[str, Mapping[str, Any]], *,
     point: its distortion of forward readings is then modelled).
 
     All I–V kinds are pooled (forward and reverse split by the sign of V), as are the
-    C–V kinds. ``with_fixture``: None fits a fixture capacitance when the data
+    C–V kinds. ``noise``: the instruments' stated noise, {"iv": (relative, floor_A),
+    "cv": (relative of |Y|, floor_F)}; a fit is then judged against it (chi-square)
+    instead of estimating it. ``with_fixture``: None fits a fixture capacitance when the data
     determine it (3-sigma rule, reason in the message), True always, False never.
     """
     with np.errstate(all="ignore"):  # extreme trial points inside the solvers are expected
         return _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture,
-                        semiconductor, extras)
+                        semiconductor, extras, dict(noise or {}))
 
 
 def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, semiconductor,
-             extras) -> JointFit:
+             extras, noise=None) -> JointFit:
     from pnbench.modeling import fit_iv
 
     results: dict[str, FitResult] = {}
@@ -110,7 +113,8 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
         v, i, comp = iv["voltage_V"], iv["current_A"], iv["compliance"]
         if np.any(v > 0):
             results["iv_forward"] = fit_iv.fit_forward(v, i, compliance=comp,
-                                                       temperature_K=temperature_K)
+                                                       temperature_K=temperature_K,
+                                                       noise=(noise or {}).get("iv"))
         if np.any(v < 0):
             fwd = results.get("iv_forward")
             rs = fwd.values.get("RS") if fwd is not None and fwd.success else None
@@ -128,7 +132,7 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
             compliance=cv["compliance"], temperature_K=temperature_K,
             with_fixture=with_fixture, fixed=fixed or None,
             held_covariance=dc_hold_covariance(results, fixed),
-            ac_level_V=cv["ac_level_V"]))
+            ac_level_V=cv["ac_level_V"], noise=(noise or {}).get("cv")))
     more = dict(extras or {})
     if cv is not None and area_m2 is not None:
         from pnbench.modeling import fit_cv, network

@@ -128,6 +128,7 @@ def _tt_start(model, t0, x, y, use) -> float:
 
 def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
                 fixed: dict[str, float], ac_level_V=None,
+                noise: tuple[float, float] | None = None,
                 held_covariance: np.ndarray | None = None, compliance=None, use=None,
                 temperature_K: float = DEFAULT_TEMPERATURE_K,
                 with_fixture: bool | None = None, fc: float = 0.5,
@@ -138,7 +139,9 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
     the I–V fit; ``held_covariance`` is their covariance in the order of DC_NAMES that
     are in ``fixed`` and finite (values' units), carried into the sigmas.
     ``ac_level_V``: the meter's test-signal level (rms) per point or one value; where
-    known its distortion of the forward readings is modelled (MeterModel).
+    known its distortion of the forward readings is modelled (MeterModel). ``noise``:
+    the meter's stated noise (relative of |Y|, floor as a capacitance in F), else it is
+    estimated from the residuals.
     """
     x, y, elig = fit_cv._cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                                    compliance, use)
@@ -176,7 +179,15 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
     split = SplitModel(model, k_phase)
     y = np.column_stack([y[:, 0], y[:, 0] * k_phase])
     elig = np.column_stack([elig[:, 0] & (v <= 0), elig[:, 0] & (v > 0)])
-    state = lsq.fit(split, x, y, elig, t0, active)
+    known = None
+    if noise is not None:
+        # reverse: rel*C + floor; forward, scaled by w/|Y|: rel + floor*w/|Y|, the last
+        # ~ (floor/C)*(C*w/|Y|) with C's median there
+        rel, floor = float(noise[0]), float(noise[1])
+        fwd = elig[:, 1] & (y[:, 0] > 0)
+        c_typ = float(np.median(y[fwd, 0] / k_phase[fwd])) if fwd.any() else math.inf
+        known = lsq.Noise((rel, floor / c_typ), (floor, rel), estimated=False, linear=True)
+    state = lsq.fit(split, x, y, elig, t0, active, noise=known)
     model = split
     held = [k[nm] for nm in DC_NAMES if nm in fixed and _finite_held(model, k[nm], fixed[nm])]
     extra_cov = None

@@ -101,3 +101,20 @@ def test_the_meters_test_level_is_modelled_at_forward_bias():
     plain = network.fit_network(v, f, c, g, fixed=fixed)
     assert abs(good.values["TT"] / p.TT - 1) < 2e-3
     assert plain.values["TT"] / p.TT - 1 > 5e-3
+
+
+def test_the_run_is_judged_against_the_stated_instrument_noise():
+    """joint.fit_all with the instruments' noise stated: honest data pass the
+    chi-square check; the same data with readings ten times noisier are flagged."""
+    from pnbench.modeling import joint
+
+    rng = np.random.default_rng(8)
+    v = np.linspace(0.3, 0.9, 60)
+    i0 = np.asarray(junction.current(v, P))
+    noise = {"iv": (1e-3, 1e-15)}
+    good = joint.fit_all({"iv_forward": {"voltage_V": v, "current_A": i0 * (
+        1 + 1e-3 * rng.standard_normal(v.size))}}, noise=noise)
+    bad = joint.fit_all({"iv_forward": {"voltage_V": v, "current_A": i0 * (
+        1 + 1e-2 * rng.standard_normal(v.size))}}, noise=noise)
+    assert good.results["iv_forward"].extras["lack_of_fit"]["misfit"] is False
+    assert "exceed the stated instrument noise" in bad.results["iv_forward"].message
