@@ -1,7 +1,6 @@
 """The run folder: create, append to, reopen after a crash, and read.
 
-Layout and formats are the contract in DEVELOPERS.md ("The run folder and the event
-stream"). Durability rules:
+Layout and formats are the contract described in docs/run-folder.md. Durability rules:
 
 - a point is written and flushed to the operating system before the next bias step, so a
   killed process (even kill -9) loses nothing it had read; `sync()` (fsync) runs at least
