@@ -8,6 +8,7 @@ import math
 
 import numpy as np
 import pytest
+from scipy import constants
 from test_app_synth import TRUE, SyntheticRun
 
 from pnbench.errors import BadInput, DataFileError
@@ -169,22 +170,34 @@ def test_semilog_view_holds_log10_of_current_and_the_admittance_view_splits_bias
     assert adm.x_log and adm.y_log
 
 
-def test_mott_schottky_fit_line_is_linear_for_an_abrupt_junction():
-    """For M = 1/2, 1/C^2 = (1 - V/VJ) / CJO^2 is a straight line crossing zero at VJ
-    (Sze, Physics of Semiconductor Devices, abrupt junction; from memory)."""
+def test_mott_schottky_view_has_the_textbook_slope_and_intercept():
+    """One-sided abrupt junction (Sze & Ng, Physics of Semiconductor Devices, 3rd ed.,
+    ch. 2): 1/C^2 = 2*(Vbi - V - kT/q)/(q*eps*A^2*N), a line of slope -2/(q*eps*A^2*N)
+    crossing zero at Vbi - kT/q. Slope and intercept are computed here from N, Vbi and A
+    with scipy.constants (eps_r(Si) = 11.7, Sze & Ng appendix, from memory), not from the
+    card values the view is given."""
+    q, k, t = constants.e, constants.k, 300.0
+    eps = 11.7 * constants.epsilon_0
+    area, doping, vbi = 1e-6, 1e22, 0.80          # 1 mm^2, 1e16 cm^-3
+    vj = vbi - k * t / q
+    cjo = area * np.sqrt(q * eps * doping / (2 * vj))
     state = RunState()
-    p = DiodeParams(CJO=10e-12, VJ=0.8, M=0.5)
-    for v in np.linspace(-5, 0, 11):
-        state.add_point({"step": "cv", "kind": "cv", "voltage_V": v, "frequency_Hz": 1e5,
-                         "capacitance_F": 10e-12 * (1 - v / 0.8) ** -0.5,
+    v = np.linspace(-5, 0, 11)
+    for vv in v:
+        state.add_point({"step": "cv", "kind": "cv", "voltage_V": vv, "frequency_Hz": 1e5,
+                         "capacitance_F": area * np.sqrt(q * eps * doping / (2 * (vj - vv))),
                          "conductance_S": 0.0})
     state.parameters = {"IS": Estimate(1e-14, None, True), "N": Estimate(1, None, True),
-                        "CJO": Estimate(p.CJO, None, True), "VJ": Estimate(p.VJ, None, True),
-                        "M": Estimate(p.M, None, True)}
-    line = next(s for s in plot_data("mott", state).series if s.line)
-    slope = np.polyfit(line.x, line.y, 1)
-    assert np.allclose(np.polyval(slope, line.x), line.y, rtol=1e-9)
-    assert -slope[1] / slope[0] == pytest.approx(0.8, rel=1e-9)
+                        "CJO": Estimate(cjo, None, True), "VJ": Estimate(vj, None, True),
+                        "M": Estimate(0.5, None, True)}
+    series = plot_data("mott", state).series
+    measured = next(s for s in series if not s.line)
+    line = next(s for s in series if s.line)
+    slope, intercept = np.polyfit(line.x, line.y, 1)
+    assert slope == pytest.approx(-2 / (q * eps * area**2 * doping), rel=1e-9)
+    assert -intercept / slope == pytest.approx(vbi - k * t / q, rel=1e-9)
+    # The measured points lie on the same line.
+    assert np.allclose(measured.y, slope * measured.x + intercept, rtol=1e-9)
 
 
 def test_decade_ticks_sit_on_whole_decades_with_si_labels():
