@@ -23,7 +23,7 @@ from pathlib import Path
 from textual import events
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-from appplans import sweep_plan  # noqa: E402
+from plantext import sweep_plan  # noqa: E402
 
 from pnbench.tui.app.application import PnbenchApp
 

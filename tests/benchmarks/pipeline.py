@@ -29,6 +29,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
+from plantext import forward, limits, plan_text  # noqa: E402
 from sweepfake import FakeBench, FakeSmu  # noqa: E402
 
 from pnbench.drivers.dialect import load_dialect  # noqa: E402
@@ -43,29 +44,12 @@ from pnbench.sweeps.store import RunFolder  # noqa: E402
 
 DEVICE = "lh-vc510"
 WARM_UP = 20_000
-PLAN = """
-[device]
-name = "LH-VC510"
-[limits]
-max_voltage = "2 V"
-max_current = "100 mA"
-max_power = "1 W"
-"""
-STEP = """
-[[steps]]
-name = "s{k}"
-kind = "iv_forward"
-start = "0.3 V"
-stop = "0.7 V"
-points = {n}
-compliance = "100 mA"
-nplc = 1
-"""
-
-
 def plan_of(steps: int, points: int):
-    return parse_plan(PLAN + "".join(STEP.format(k=k, n=points) for k in range(steps)),
-                      "benchmark.toml")
+    text = plan_text(*(forward(f"s{k}", stop="0.7 V", points=points, nplc=1)
+                       for k in range(steps)),
+                     device="LH-VC510", limits=limits(max_reverse_voltage=None,
+                                                      max_power="1 W"))
+    return parse_plan(text, "benchmark.toml")
 
 
 def bare_round_trip_s(sim: SimBench, n: int) -> float:

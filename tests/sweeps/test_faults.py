@@ -5,59 +5,26 @@ and `resume` finishes the plan without repeating or losing a point."""
 
 from __future__ import annotations
 
-import textwrap
-
 import pytest
+from plantext import cv, forward, limits, plan_text, reverse
 
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.sweeps.launch import Launch
 from pnbench.sweeps.plan import parse_plan
 from pnbench.sweeps.store import read_events, read_points, read_run
 
-PLAN = textwrap.dedent("""\
-    [device]
-    name = "LH-VC510"
 
-    [instruments.smu]
-    resource = "{smu}"
-    timeout = "400 ms"
-
-    [instruments.lcr]
-    resource = "{lcr}"
-    timeout = "400 ms"
-
-    [limits]
-    max_voltage = "2 V"
-    max_reverse_voltage = "40 V"
-    max_current = "100 mA"
-    max_power = "150 mW"
-    ramp_rate = "5 kV/s"          # the bench runs at time scale 0; pnbench cannot know
-
-    [[steps]]
-    name = "forward"
-    kind = "iv_forward"
-    source = "voltage"
-    start = "0.3 V"
-    stop = "{fwd_stop}"
-    points = 40
-    compliance = "{compliance}"
-
-    [[steps]]
-    name = "reverse"
-    kind = "iv_reverse"
-    stop = "-20 V"
-    points = 21
-    compliance = "1 mA"
-    breakdown_guard = "10 uA"
-
-    [[steps]]
-    name = "cv"
-    kind = "cv"
-    bias_start = 0
-    bias_stop = "-10 V"
-    bias_points = 6
-    frequencies = ["100 kHz", "1 MHz"]
-    """)
+def plan_for(sim, fwd_stop: str, compliance: str) -> str:
+    return plan_text(
+        forward(source="voltage", stop=fwd_stop, compliance=compliance),
+        reverse(),
+        cv(),
+        device="LH-VC510",
+        instruments={"smu": {"resource": sim.smu_resource, "timeout": "400 ms"},
+                     "lcr": {"resource": sim.lcr_resource, "timeout": "400 ms"}},
+        # the bench runs at time scale 0, which pnbench cannot know: a fast ramp
+        limits=limits(ramp_rate="5 kV/s"),
+    )
 
 
 @pytest.fixture
@@ -68,8 +35,7 @@ def bench():
 
 
 def make_plan(sim, tmp_path, fwd_stop="0.75 V", compliance="100 mA"):
-    text = PLAN.format(smu=sim.smu_resource, lcr=sim.lcr_resource, fwd_stop=fwd_stop,
-                       compliance=compliance)
+    text = plan_for(sim, fwd_stop, compliance)
     path = tmp_path / "plan.toml"
     path.write_text(text)
     return parse_plan(text, str(path), base_dir=tmp_path)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from plantext import admittance, cv, forward, plan_text, reverse
 
 from pnbench.modeling import junction
 from pnbench.modeling.fitresult import FitResult
@@ -23,50 +24,11 @@ from pnbench.sweeps.store import Point
 
 T_K = 300.15
 TRUE = DiodeParams(IS=4e-15, N=1.03, RS=0.42, CJO=3.2e-11, VJ=0.72, M=0.5, TT=2e-9)
-HEAD = """
-[device]
-name = "LH-VC510"
-[limits]
-max_voltage = "2 V"
-max_reverse_voltage = "40 V"
-max_current = "100 mA"
-max_power = "150 mW"
-"""
 STEPS = {
-    "forward": """
-[[steps]]
-name = "forward"
-kind = "iv_forward"
-start = "0.3 V"
-stop = "0.85 V"
-points = 56
-compliance = "100 mA"
-""",
-    "cv": """
-[[steps]]
-name = "cv"
-kind = "cv"
-bias_start = "0 V"
-bias_stop = "-30 V"
-bias_points = 31
-frequencies = ["100 kHz", "1 MHz"]
-""",
-    "reverse": """
-[[steps]]
-name = "reverse"
-kind = "iv_reverse"
-stop = "-36 V"
-points = 73
-compliance = "1 mA"
-breakdown_guard = "10 uA"
-""",
-    "admittance": """
-[[steps]]
-name = "admittance"
-kind = "admittance"
-bias = ["0.55 V", "0.6 V", "0.63 V", "0.66 V", "0.68 V", "0.70 V", "0.72 V"]
-frequencies = ["100 kHz", "300 kHz", "1 MHz", "2 MHz"]
-""",
+    "forward": forward(stop="0.85 V", points=56),
+    "cv": cv(bias_start="0 V", bias_stop="-30 V", bias_points=31),
+    "reverse": reverse(stop="-36 V", points=73),
+    "admittance": admittance(),
 }
 
 
@@ -96,10 +58,11 @@ def step_points(name: str, rng) -> list[Point]:
                       np.array([1e5, 3e5, 1e6, 2e6]), rng)
 
 
-def run_steps(names, extra: str = "", points=None, worker_out=None) -> list:
+def run_steps(names, extra: dict | None = None, points=None, worker_out=None) -> list:
     """Feed each step's points through a started FitWorker as the runner does (submit,
     then step_done) and return the fit events (the worker goes into ``worker_out``)."""
-    plan = parse_plan(HEAD + "".join(STEPS[n].rstrip() + "\n" + extra for n in names))
+    plan = parse_plan(plan_text(*({**STEPS[n], **(extra or {})} for n in names),
+                                device="LH-VC510"))
     bus = EventBus()
     seen = []
     bus.add_listener(seen.append)
@@ -181,7 +144,7 @@ def test_a_marginal_shunt_does_not_hold_up_a_settled_forward_step():
     points = [Point("forward", k, "iv", 0.0, voltage_V=float(a), current_A=float(b))
               for k, (a, b) in enumerate(zip(v, i, strict=True))]
     box = []
-    fits = run_steps(["forward"], extra="end_when_settled = 0.05\nmin_points = 20",
+    fits = run_steps(["forward"], extra={"end_when_settled": 0.05, "min_points": 20},
                      points={"forward": points}, worker_out=box)
     last = final(fits, "forward")["parameters"]
     assert last["RSH"]["sigma"] > 0.05 * last["RSH"]["value"]  # the shunt is marginal
@@ -207,7 +170,7 @@ def test_a_reverse_step_runs_to_its_end():
     points = [Point("reverse", k, "iv", 0.0, voltage_V=float(a), current_A=float(b))
               for k, (a, b) in enumerate(zip(v, i, strict=True))]
     box = []
-    fits = run_steps(["reverse"], extra="end_when_settled = 0.5\nmin_points = 4",
+    fits = run_steps(["reverse"], extra={"end_when_settled": 0.5, "min_points": 4},
                      points={"reverse": points}, worker_out=box)
     bv = final(fits, "reverse")["parameters"]["BV"]
     assert bv["sigma"] < 0.01 * bv["value"]  # read over several points through the knee

@@ -16,58 +16,30 @@ import random
 import signal
 import subprocess
 import sys
-import textwrap
 import time
 from pathlib import Path
 
 import pytest
+from plantext import cv, forward, limits, plan_text, reverse
 
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.sweeps.store import read_events, read_points, read_run
 
-PLAN = textwrap.dedent("""\
-    [device]
-    name = "LH-ZL560"
 
-    [instruments.smu]
-    resource = "{smu}"
+def plan_for(bench) -> str:
+    return plan_text(
+        forward(source="current", start="10 nA", stop="20 mA", points=None,
+                points_per_decade=20, compliance="2 V"),
+        reverse(start="-0.1 V", stop="-8 V", points=200, compliance="10 mA",
+                breakdown_guard="5 mA"),
+        cv(bias_stop="-4 V", bias_points=21),
+        device="LH-ZL560",
+        instruments={"smu": {"resource": bench.smu_resource},
+                     "lcr": {"resource": bench.lcr_resource}},
+        # the bench runs at time scale 0, which pnbench cannot know: a fast ramp
+        limits=limits(max_reverse_voltage="8 V", max_power="100 mW", ramp_rate="5 kV/s"),
+    )
 
-    [instruments.lcr]
-    resource = "{lcr}"
-
-    [limits]
-    max_voltage = "2 V"
-    max_reverse_voltage = "8 V"
-    max_current = "100 mA"
-    max_power = "100 mW"
-    ramp_rate = "5 kV/s"          # the bench runs at time scale 0; pnbench cannot know
-
-    [[steps]]
-    name = "forward"
-    kind = "iv_forward"
-    source = "current"
-    start = "10 nA"
-    stop = "20 mA"
-    points_per_decade = 20
-    compliance = "2 V"
-
-    [[steps]]
-    name = "reverse"
-    kind = "iv_reverse"
-    start = "-0.1 V"
-    stop = "-8 V"
-    points = 200
-    compliance = "10 mA"
-    breakdown_guard = "5 mA"
-
-    [[steps]]
-    name = "cv"
-    kind = "cv"
-    bias_start = 0
-    bias_stop = "-4 V"
-    bias_points = 21
-    frequencies = ["100 kHz", "1 MHz"]
-    """)
 
 SEED = int(os.environ.get("PNBENCH_KILL_SEED", "5607"))
 REPETITIONS = 3
@@ -105,7 +77,7 @@ def bench():
 def test_kill_9_then_resume(bench, tmp_path, repetition):
     rng = random.Random(SEED * 100 + repetition)
     plan = tmp_path / "plan.toml"
-    plan.write_text(PLAN.format(smu=bench.smu_resource, lcr=bench.lcr_resource))
+    plan.write_text(plan_for(bench))
     out = tmp_path / "runs"
     env = {**os.environ, "PYTHONUNBUFFERED": "1"}
     proc = subprocess.Popen(pnbench("run", str(plan), "--headless", "--no-report",

@@ -7,6 +7,7 @@ import json
 import threading
 
 import pytest
+from plantext import cv, forward, limits, plan_text, reverse
 from sweepfake import FakeBench, FakeLcr, FakeSmu
 
 from pnbench.sweeps.events import EventBus
@@ -15,53 +16,18 @@ from pnbench.sweeps.plan import parse_plan
 from pnbench.sweeps.runner import Runner
 from pnbench.sweeps.store import RunFolder, read_events, read_points, read_run
 
-LIMITS = """
-[device]
-name = "LH-T1"
-[limits]
-max_voltage = "2 V"
-max_reverse_voltage = "30 V"
-max_current = "100 mA"
-max_power = "{power}"
-"""
-
-FWD = """
-[[steps]]
-name = "{name}"
-kind = "iv_forward"
-start = "{start}"
-stop = "{stop}"
-points = {points}
-compliance = "{compliance}"
-{extra}
-"""
-
-REV = """
-[[steps]]
-name = "rev"
-kind = "iv_reverse"
-stop = "-25 V"
-points = 26
-compliance = "1 mA"
-breakdown_guard = "100 uA"
-"""
-
-CV = """
-[[steps]]
-name = "cv"
-kind = "cv"
-bias = [0, -1, -2]
-frequencies = ["100 kHz", "1 MHz"]
-"""
+REV = reverse("rev", stop="-25 V", points=26, breakdown_guard="100 uA")
+CV = cv(bias=[0, -1, -2])
 
 
-def make_plan(*steps: str, power: str = "150 mW"):
-    return parse_plan(LIMITS.format(power=power) + "".join(steps), "t.toml")
+def make_plan(*steps: dict, power: str = "150 mW"):
+    text = plan_text(*steps, limits=limits(max_reverse_voltage="30 V", max_power=power))
+    return parse_plan(text, "t.toml")
 
 
-def fwd(name="fwd", start="0 V", stop="0.8 V", points=41, compliance="100 mA", extra=""):
-    return FWD.format(name=name, start=start, stop=stop, points=points,
-                      compliance=compliance, extra=extra)
+def fwd(name="fwd", start="0 V", stop="0.8 V", points=41, compliance="100 mA", **extra):
+    return forward(name, start=start, stop=stop, points=points, compliance=compliance,
+                   **extra)
 
 
 class Rig:
@@ -264,7 +230,7 @@ def test_step_ends_early_when_the_fit_has_settled(tmp_path):
     """With 0.01 % current noise a few dozen points determine IS and N far better than
     5 %: the step ends soon after min_points, long before its 3000 points."""
     plan = make_plan(fwd(start="0.3 V", stop="0.75 V", points=3000,
-                         extra="end_when_settled = 0.05\nmin_points = 20"))
+                         end_when_settled=0.05, min_points=20))
     rig = Rig(tmp_path, plan, smu=FakeSmu(noise_rel=1e-4, io_delay_s=2e-4))
     worker = FitWorker(plan.steps, rig.bus, temperature_K=300.15, snapshot_interval_s=0.01)
     rig.runner.fit = worker
@@ -288,8 +254,7 @@ def test_run_json_is_valid_json_at_every_state_change(tmp_path):
 def test_plan_warnings_are_recorded_as_run_events(tmp_path):
     """A plan warning (here a 20 mV rms test level at forward bias) reaches events.jsonl,
     where the app, watch and the report show it, not only the terminal that started it."""
-    loud = CV.replace('name = "cv"', 'name = "adm"').replace(
-        "bias = [0, -1, -2]", "bias = [0.5, 0.6]\nac_level = \"20 mV\"")
+    loud = cv("adm", bias=[0.5, 0.6], ac_level="20 mV")
     rig = Rig(tmp_path, make_plan(loud))
     assert rig.plan.warnings
     rig.run()

@@ -4,7 +4,7 @@ source-output banner on a monochrome terminal."""
 from __future__ import annotations
 
 import pytest
-from appplans import sweep_plan
+from plantext import sweep_plan
 from test_app_synth import SyntheticRun
 from textual.containers import ScrollableContainer
 from textual.widgets import Footer

@@ -6,7 +6,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from appplans import sweep_plan
+from plantext import sweep_plan
 
 from pnbench.tui.app.application import PnbenchApp, exit_code
 from pnbench.tui.app.screens.plan import first_line_number

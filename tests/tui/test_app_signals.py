@@ -13,7 +13,7 @@ import time
 from pathlib import Path
 
 import pytest
-from appplans import sweep_plan
+from plantext import sweep_plan
 
 PLAN = sweep_plan("LH-SW200-hup", 2000)
 

@@ -11,6 +11,7 @@ import json
 import fitdevices as fd
 import numpy as np
 import pytest
+from plantext import limits, plan_text, reverse
 
 from pnbench.sweeps import store
 from pnbench.tui import cli
@@ -105,26 +106,11 @@ def test_random_bytes_and_bad_options_exit_2(tmp_path, capsys):
     assert "--temperature" in capsys.readouterr().err
 
 
-RUN_PLAN = """\
-[device]
-name = "hr-sw-101"
-
-[limits]
-max_voltage = "2 V"
-max_reverse_voltage = "80 V"
-max_current = "100 mA"
-max_power = "500 mW"
-acknowledge_hazardous_voltage = "80 V"
-
-[[steps]]
-name = "reverse_iv"
-kind = "iv_reverse"
-start = "0 V"
-stop = "-80 V"
-points = 81
-compliance = "1 mA"
-breakdown_guard = "5 uA"
-"""
+RUN_PLAN = plan_text(
+    reverse("reverse_iv", start="0 V", stop="-80 V", points=81, breakdown_guard="5 uA"),
+    device="hr-sw-101",
+    limits=limits(max_reverse_voltage="80 V", max_power="500 mW",
+                  acknowledge_hazardous_voltage="80 V"))
 
 
 def test_run_folder_states_bv_at_the_plans_breakdown_guard(tmp_path, capsys):

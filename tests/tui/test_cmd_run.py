@@ -14,34 +14,18 @@ import textwrap
 import time
 
 import pytest
+from plantext import Raw, forward, limits, plan_text
 
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.sweeps.store import read_points, read_run
 from pnbench.tui.cli import main
 
-GOOD = textwrap.dedent("""\
-    [device]
-    name = "LH-ZL560"
-
-    [instruments.smu]
-    resource = "{smu}"
-    max_voltage = "20 V"
-    max_current = "1 A"
-
-    [limits]
-    max_voltage = "2 V"
-    max_reverse_voltage = "8 V"
-    max_current = "100 mA"
-    max_power = "100 mW"
-
-    [[steps]]
-    name = "forward"
-    kind = "iv_forward"
-    start = "0.2 V"
-    stop = "0.75 V"
-    points = {points}
-    compliance = "50 mA"
-    """)
+GOOD = plan_text(
+    forward(start="0.2 V", stop="0.75 V", points=Raw("{points}"), compliance="50 mA"),
+    device="LH-ZL560",
+    instruments={"smu": {"resource": Raw('"{smu}"'), "max_voltage": "20 V",
+                         "max_current": "1 A"}},
+    limits=limits(max_reverse_voltage="8 V", max_power="100 mW"))
 
 BAD = {
     "unknown key": ('points = 12', 'points = 12\ncolour = "red"', "unknown key 'colour'"),

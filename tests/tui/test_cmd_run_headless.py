@@ -6,30 +6,16 @@ from __future__ import annotations
 import io
 import time
 
+from plantext import forward, limits, plan_text
+
 from pnbench.sweeps.events import Event
 from pnbench.sweeps.plan import parse_plan
 from pnbench.tui.headless import Progress, bar, format_duration, format_parameter, leakage_text
 
-PLAN = parse_plan("""
-[device]
-name = "X"
-[limits]
-max_voltage = "2 V"
-max_current = "100 mA"
-max_power = "1 W"
-[[steps]]
-name = "forward"
-kind = "iv_forward"
-stop = "0.8 V"
-points = 10
-compliance = "10 mA"
-[[steps]]
-name = "forward2"
-kind = "iv_forward"
-stop = "0.8 V"
-points = 30
-compliance = "10 mA"
-""")
+PLAN = parse_plan(plan_text(
+    forward(start=None, stop="0.8 V", points=10, compliance="10 mA"),
+    forward("forward2", start=None, stop="0.8 V", points=30, compliance="10 mA"),
+    device="X", limits=limits(max_reverse_voltage=None, max_power="1 W")))
 
 
 def feed(progress, events):
