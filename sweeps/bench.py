@@ -52,6 +52,8 @@ class Connection:
 
 @dataclass
 class Bench:
+    """The connected roles of one run; satisfies `sweeps.benchtypes.BenchLike`."""
+
     connections: dict = field(default_factory=dict)  # role -> Connection
     roles: dict = field(default_factory=dict)  # role -> Smu | LcrMeter
     sim: object | None = None

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 
 from pnbench.errors import InstrumentError, OperatorStop, SafetyStop
 from pnbench.modeling.smallsignal import parallel_from_admittance
+from pnbench.sweeps.benchtypes import BenchLike
 from pnbench.sweeps.control import Control
 from pnbench.sweeps.events import EventBus, finite
 from pnbench.sweeps.limits import Reading, StepGuard, Verdict, not_finite
@@ -49,7 +50,7 @@ class Outcome:
 
 
 class Runner:
-    def __init__(self, plan: Plan, folder: RunFolder, bench, bus: EventBus, *,
+    def __init__(self, plan: Plan, folder: RunFolder, bench: BenchLike, bus: EventBus, *,
                  fit=None, time_scale: float = 1.0, resume_state=None) -> None:
         self.plan = plan
         self.folder = folder

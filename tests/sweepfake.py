@@ -150,6 +150,9 @@ class FakeLcr:
 
 @dataclass
 class FakeBench:
+    """Satisfies `sweeps.benchtypes.BenchLike`, as the real Bench does
+    (tests/sweeps/test_bench_protocol.py checks both)."""
+
     roles: dict = field(default_factory=dict)
     last_off: dict = field(default_factory=dict)
     identity_changes: list = field(default_factory=list)
