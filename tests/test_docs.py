@@ -29,6 +29,8 @@ FILES = _tracked()
 def test_every_cited_document_is_in_the_repository():
     missing = []
     for path in FILES:
+        if path == Path(__file__).resolve():
+            continue  # this file names documents in its own code
         text = path.read_text(encoding="utf-8", errors="replace")
         for name in set(_MD.findall(text)):
             if not ((ROOT / name).is_file() or (path.parent / name).is_file()):

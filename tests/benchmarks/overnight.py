@@ -33,47 +33,22 @@ from pathlib import Path
 
 import numpy as np
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+from plantext import cv, forward, limits, plan_text  # noqa: E402
+
 DEVICE = "lh-vc510"
 STEPS = 10
-HEAD = """[plan]
-format = 1
-title = "overnight benchmark"
-
-[device]
-name = "LH-VC510"
-temperature = "300.15 K"
-
-[limits]
-max_voltage = "2 V"
-max_reverse_voltage = "40 V"
-max_current = "100 mA"
-max_power = "1 W"
-"""
-FORWARD = """
-[[steps]]
-name = "iv{k}"
-kind = "iv_forward"
-start = "0.3 V"
-stop = "0.75 V"
-points = {n}
-compliance = "100 mA"
-"""
-CV = """
-[[steps]]
-name = "cv{k}"
-kind = "cv"
-bias_start = "0 V"
-bias_stop = "-20 V"
-bias_points = {n}
-frequency = "100 kHz"
-ac_level = "20 mV"
-"""
 
 
-def plan_text(points: int) -> str:
+def plan_for(points: int) -> str:
     per = max(2, points // STEPS)
-    return HEAD + "".join((FORWARD if k % 2 == 0 else CV).format(k=k, n=per)
-                          for k in range(STEPS))
+    steps = [forward(f"iv{k}", points=per) if k % 2 == 0 else
+             cv(f"cv{k}", bias_stop="-20 V", bias_points=per, frequencies=None,
+                frequency="100 kHz", ac_level="20 mV")
+             for k in range(STEPS)]
+    return plan_text(*steps, plan={"format": 1, "title": "overnight benchmark"},
+                     device={"name": "LH-VC510", "temperature": "300.15 K"},
+                     limits=limits(max_power="1 W"))
 
 
 def point_times(run_dir: Path) -> np.ndarray:
@@ -86,7 +61,7 @@ def one_run(points: int, base: Path) -> dict:
     out = base / f"n{points}"
     out.mkdir(parents=True, exist_ok=True)
     plan = out / "plan.toml"
-    plan.write_text(plan_text(points), encoding="utf-8")
+    plan.write_text(plan_for(points), encoding="utf-8")
     cmd = [sys.executable, "-m", "pnbench.tui.cli", "run", str(plan), "--simulate", DEVICE,
            "--time-scale", "0", "--headless", "--no-report", "--out", str(out / "runs")]
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)

@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
+from plantext import cv, forward, limits, plan_text
 
 from pnbench.sweeps import points as pts
 from pnbench.sweeps.check import estimate
@@ -55,31 +56,11 @@ def test_points_index_slice_and_compare_like_tuples():
     assert list(lcr.levels[1::2]) == [0.0, -1.0, -2.0]
 
 
-MILLION = """
-[device]
-name = "LH-VC510"
-[limits]
-max_voltage = "2 V"
-max_reverse_voltage = "40 V"
-max_current = "100 mA"
-max_power = "1 W"
-""" + "".join(f"""
-[[steps]]
-name = "iv{k}"
-kind = "iv_forward"
-start = "0.3 V"
-stop = "0.75 V"
-points = 100000
-compliance = "100 mA"
-
-[[steps]]
-name = "cv{k}"
-kind = "cv"
-bias_start = "0 V"
-bias_stop = "-20 V"
-bias_points = 50000
-frequencies = ["100 kHz", "1 MHz"]
-""" for k in range(5))
+MILLION = plan_text(
+    *(step for k in range(5)
+      for step in (forward(f"iv{k}", points=100000),
+                   cv(f"cv{k}", bias_stop="-20 V", bias_points=50000))),
+    device="LH-VC510", limits=limits(max_power="1 W"))
 
 
 def test_a_million_point_plan_holds_no_object_per_point():

@@ -12,32 +12,18 @@ import sys
 import time
 
 import pytest
+from plantext import forward, limits, plan_text
 
 from pnbench.sweeps.store import read_points, read_run
 from pnbench.tui.cli import main
 
-PLAN = """[device]
-name = "LH-ZL560"
-
-[limits]
-max_voltage = "2 V"
-max_reverse_voltage = "8 V"
-max_current = "100 mA"
-max_power = "100 mW"
-
-[[steps]]
-name = "forward"
-kind = "iv_forward"
-start = "0.2 V"
-stop = "0.75 V"
-points = {points}
-compliance = "50 mA"
-"""
-
 
 def _plan(tmp_path, points: int) -> str:
     path = tmp_path / "plan.toml"
-    path.write_text(PLAN.format(points=points), encoding="utf-8")
+    text = plan_text(forward(start="0.2 V", stop="0.75 V", points=points, compliance="50 mA"),
+                     device="LH-ZL560",
+                     limits=limits(max_reverse_voltage="8 V", max_power="100 mW"))
+    path.write_text(text, encoding="utf-8")
     return str(path)
 
 
