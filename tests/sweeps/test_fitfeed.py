@@ -58,11 +58,16 @@ def step_points(name: str, rng) -> list[Point]:
                       np.array([1e5, 3e5, 1e6, 2e6]), rng)
 
 
+def plan_of(names, extra: dict | None = None):
+    """The plan of these STEPS, each with the ``extra`` keys."""
+    return parse_plan(plan_text(*({**STEPS[n], **(extra or {})} for n in names),
+                                device="LH-VC510"))
+
+
 def run_steps(names, extra: dict | None = None, points=None, worker_out=None) -> list:
     """Feed each step's points through a started FitWorker as the runner does (submit,
     then step_done) and return the fit events (the worker goes into ``worker_out``)."""
-    plan = parse_plan(plan_text(*({**STEPS[n], **(extra or {})} for n in names),
-                                device="LH-VC510"))
+    plan = plan_of(names, extra)
     bus = EventBus()
     seen = []
     bus.add_listener(seen.append)

@@ -12,18 +12,17 @@ import json
 
 import numpy as np
 import pytest
-from test_fitfeed import HEAD, STEPS, T_K, step_points
+from test_fitfeed import T_K, plan_of, step_points
 
 from pnbench.modeling import joint
 from pnbench.sweeps import fitmodel
 from pnbench.sweeps.events import EventBus
 from pnbench.sweeps.fitfeed import FitWorker
-from pnbench.sweeps.plan import parse_plan
 from pnbench.sweeps.store import Point
 
 
 def _run(names, monkeypatch):
-    plan = parse_plan(HEAD + "".join(STEPS[n] for n in names))
+    plan = plan_of(names)
     written, calls = [], []
     real = joint.fit_run
 
