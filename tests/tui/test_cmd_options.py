@@ -6,26 +6,13 @@ or an empty run folder left behind."""
 from __future__ import annotations
 
 import pytest
+from plantext import forward, limits, plan_text
 
 from pnbench.tui.cli import main
 
-PLAN = """[device]
-name = "LH-ZL560"
-
-[limits]
-max_voltage = "2 V"
-max_reverse_voltage = "8 V"
-max_current = "100 mA"
-max_power = "100 mW"
-
-[[steps]]
-name = "forward"
-kind = "iv_forward"
-start = "0.2 V"
-stop = "0.75 V"
-points = 6
-compliance = "50 mA"
-"""
+PLAN = plan_text(forward(start="0.2 V", stop="0.75 V", points=6, compliance="50 mA"),
+                 device="LH-ZL560",
+                 limits=limits(max_reverse_voltage="8 V", max_power="100 mW"))
 
 
 def exit_code(argv) -> int:

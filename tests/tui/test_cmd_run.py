@@ -10,11 +10,10 @@ import signal
 import socket
 import subprocess
 import sys
-import textwrap
 import time
 
 import pytest
-from plantext import Raw, forward, limits, plan_text
+from plantext import Raw, cv, forward, limits, plan_text, table
 
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.sweeps.store import read_points, read_run
@@ -108,13 +107,8 @@ def test_bad_simulated_device_and_time_scale_exit_2(tmp_path, capsys):
 def test_plan_beyond_the_simulated_instruments_exits_2(tmp_path, capsys):
     """The bundled LH-ZL560 device file keeps the simulated LCR meter's defaults: 20 Hz
     to 2 MHz."""
-    text = GOOD.format(smu="TCPIP0::192.0.2.1::5025::SOCKET", points=5) + textwrap.dedent("""
-        [[steps]]
-        name = "cv"
-        kind = "cv"
-        bias = [0, -1]
-        frequency = "5 MHz"
-        """)
+    text = GOOD.format(smu="TCPIP0::192.0.2.1::5025::SOCKET", points=5) + "\n" + table(
+        "[steps]", cv(bias=[0, -1], frequencies=None, frequency="5 MHz"))
     plan = write(tmp_path, text)
     assert main(["run", plan, "--simulate", "lh-zl560", "--headless",
                  "--out", str(tmp_path / "runs")]) == 2
