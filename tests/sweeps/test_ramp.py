@@ -5,9 +5,8 @@ scale (0: the same steps, no waiting)."""
 
 from __future__ import annotations
 
-import textwrap
-
 import pytest
+from plantext import Raw, limits, plan_text, reverse
 
 from pnbench.drivers.roles import RAMP_DWELL_S, RAMP_MAX_STEPS, RAMP_RATE_V_PER_S, Smu
 from pnbench.drivers.session import open_session
@@ -18,29 +17,14 @@ from pnbench.sweeps.bench import open_bench
 from pnbench.sweeps.limits import RAMP_RATE_V_PER_S as PLAN_DEFAULT
 from pnbench.sweeps.plan import parse_plan
 
-PLAN = textwrap.dedent("""\
-    [device]
-    name = "LH-SW200"
 
-    [limits]
-    max_voltage = "1 V"
-    max_reverse_voltage = "40 V"
-    max_current = "50 mA"
-    max_power = "50 mW"
-    {ramp}
-
-    [[steps]]
-    name = "reverse"
-    kind = "iv_reverse"
-    stop = "-30 V"
-    points = 7
-    compliance = "1 mA"
-    breakdown_guard = "100 uA"
-    """)
-
-
-def plan_with(ramp: str = ""):
-    return parse_plan(PLAN.format(ramp=ramp), "p.toml")
+def plan_with(ramp: str | None = None):
+    """A reverse-step plan; ``ramp`` is the TOML value of [limits] ramp_rate (line 9)."""
+    text = plan_text(reverse(stop="-30 V", points=7, breakdown_guard="100 uA"),
+                     device="LH-SW200",
+                     limits=limits(max_voltage="1 V", max_current="50 mA", max_power="50 mW",
+                                   ramp_rate=None if ramp is None else Raw(ramp)))
+    return parse_plan(text, "p.toml")
 
 
 @pytest.fixture
@@ -90,17 +74,17 @@ def test_the_default_rate_is_one_number():
 
 
 def test_plan_key_reads_units_and_refuses_absurd_rates():
-    assert plan_with('ramp_rate = "2 kV/s"').limits.ramp_rate_V_per_s == 2000.0
-    assert plan_with("ramp_rate = 0.5").limits.ramp_rate_V_per_s == 0.5
-    for bad, words in (('ramp_rate = "1e-9 V/s"', "outside"), ('ramp_rate = "1e9"', "outside"),
-                       ('ramp_rate = "5 V"', "V/s"), ("ramp_rate = -1", "ramp_rate")):
+    assert plan_with('"2 kV/s"').limits.ramp_rate_V_per_s == 2000.0
+    assert plan_with("0.5").limits.ramp_rate_V_per_s == 0.5
+    for bad, words in (('"1e-9 V/s"', "outside"), ('"1e9"', "outside"), ('"5 V"', "V/s"),
+                       ("-1", "ramp_rate")):
         with pytest.raises(PlanError, match=words) as error:
             plan_with(bad)
         assert "line 9, limits.ramp_rate" in str(error.value)
 
 
 def test_the_bench_ramps_at_the_plans_rate_and_the_sims_time_scale():
-    plan = plan_with('ramp_rate = "25 V/s"')
+    plan = plan_with('"25 V/s"')
     with open_bench(plan, simulate="lh-sw200", time_scale=0.0) as bench:
         assert bench.smu.ramp_rate_V_per_s == 25.0 and bench.smu.ramp_time_scale == 0.0
         bench.smu.configure(source="voltage", limit=1e-3)

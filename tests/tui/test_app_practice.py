@@ -8,7 +8,7 @@ sweep run in the app (or not, with --no-report)."""
 from __future__ import annotations
 
 import pytest
-from appplans import sweep_plan
+from plantext import sweep_plan
 from test_app_run import wait_for
 
 from pnbench.errors import SafetyStop

@@ -3,7 +3,7 @@
 
 from __future__ import annotations
 
-from appplans import sweep_plan
+from plantext import sweep_plan
 
 from pnbench.tui import cli
 
