@@ -12,9 +12,15 @@ refitting from scratch:
   hold), the sums are rebuilt at the new estimate with a few warm-started iterations
   (O(n), rare).
 * Whenever the point count has grown by ``growth`` (25 % by default) since the last
-  one, a full refit runs, warm-started: it re-estimates the noise model, re-chooses the
-  points above the floor and re-decides which optional parameters (RS, RSH, TT, ...) the
-  data determine. Amortized, that is O(1) per point.
+  refit, the fit is refitted over every point. Most of these refits are warm: they keep
+  what the last full refit decided (which optional parameters the data determine, the
+  noise model) and run one Levenberg–Marquardt solve from the current estimate, then
+  re-estimate the noise model once and re-choose the points above the floor. A full
+  refit, which starts the noise model afresh and re-decides the optional parameters
+  (RS, RSH, TT, ...), runs when the count has grown by ``SELECT_GROWTH`` since the last
+  full one, when a kept optional parameter is no longer significant, or when the warm
+  solve fails. Both schedules are geometric, so the work is O(1) per point amortized,
+  and a warm refit costs a fraction of a full one.
 
 ``iv_reverse`` is a closed-form analysis (straight lines through the data): a snapshot
 recomputes it when points were added. ``iv`` routes forward and reverse points to one
@@ -43,6 +49,15 @@ FITTER_KINDS = ("iv", "iv_forward", "iv_reverse", "cv", "admittance")
 #: Rebuild the sums when the pending step moves the estimate by more than this
 #: Mahalanobis distance squared (in units of the current covariance).
 RELINEARIZE_CHI2 = 1.0
+#: A full refit (noise model afresh, optional parameters re-decided) at the latest when
+#: the point count has grown by this factor since the last one; warm refits in between.
+SELECT_GROWTH = 2.0
+#: A warm refit gives way to a full one when a left-out optional parameter, freed for
+#: one Gauss–Newton step, moves by this many standard errors (below the 3 sigma that
+#: keep one, since one step from the null understates a parameter coupled to others).
+CALL_Z = 1.5
+#: Iterations of a warm refit's Levenberg–Marquardt solve (it starts near the optimum).
+WARM_MAX_ITER = 20
 
 
 class _Buffer:
@@ -92,6 +107,8 @@ class _LsqStream:
         self.state: lsq.FitState | None = None
         self.reason = f"waiting for points (need {spec.min_points})"
         self.next_full = spec.min_points
+        self.next_select = spec.min_points
+        self.refits = {"full": 0, "warm": 0}
         self.h = self.g = None
         self.s = 0.0
         self.rows = 0
@@ -178,19 +195,110 @@ class _LsqStream:
                                  gradient=jac.T @ r, chi2=float(r @ r), n_rows=int(use.sum())))
 
     def _full_refit(self) -> None:
-        start = None
-        if self.state is not None and lsq.healthy(self.model, self.state):
-            start = np.where(self.state.active, self.current_t(), np.nan)
-        state = self.spec.full_state(self.x.view(), self.y.view(), self.elig.view(), start)
-        if isinstance(state, str):
-            self.reason = state
-            self.state = None
-        else:
-            self._reset_sums(state)
+        healthy = self.state is not None and lsq.healthy(self.model, self.state)
+        if not (healthy and self.n < self.next_select and self._warm_refit()):
+            start = None
+            if healthy:
+                start = np.where(self.state.active, self.current_t(), np.nan)
+            state = self.spec.full_state(self.x.view(), self.y.view(), self.elig.view(),
+                                         start)
+            self.refits["full"] += 1
+            if isinstance(state, str):
+                self.reason = state
+                self.state = None
+            else:
+                self._reset_sums(state)
+            self.next_select = max(self.n + 1, math.ceil(self.n * SELECT_GROWTH))
         # while the fit is not healthy yet (e.g. only floor noise so far), refit sooner
-        growth = self.growth if self.state is not None and lsq.healthy(self.model, self.state)\
-            else 1.0 + (self.growth - 1.0) / 5.0
+        healthy = self.state is not None and lsq.healthy(self.model, self.state)
+        growth = self.growth if healthy else 1.0 + (self.growth - 1.0) / 5.0
         self.next_full = max(self.n + 1, math.ceil(self.n * growth))
+        if not healthy:
+            self.next_select = self.next_full
+
+    def refit(self) -> None:
+        """A full refit now (the end of a sweep: the last word on the optional
+        parameters and the noise model)."""
+        if self.n >= self.spec.min_points:
+            self.next_select = self.n
+            self._full_refit()
+
+    def _warm_refit(self) -> bool:
+        """Refit every point keeping the decided optional parameters and the rows'
+        eligibility rule, from the current estimate and the last noise model: one
+        Levenberg–Marquardt solve, the noise model re-estimated once (when it is an
+        estimate), the rows above the floor chosen again, the sums rebuilt. False (and
+        nothing changed) when the result is not a healthy fit whose optional parameters
+        all stay significant: a full refit decides then."""
+        st = self.state
+        model = self.model
+        x, y = self.x.view(), self.y.view()
+        elig = self.spec.eligible_now(x, self.elig.view())
+        t0 = self.current_t()
+        try:
+            yhat, _ = model.predict(t0, x, None)
+            noise = st.noise
+            use = lsq.usable_rows(model, y, yhat, elig, noise)
+            t, _, _, _, converged = lsq.levenberg(model, t0, st.active, x, y, use, noise,
+                                                  max_iter=WARM_MAX_ITER, yhat_ref=yhat)
+            yhat, _ = model.predict(t, x, None)
+            if noise.estimated:
+                noise = lsq.estimate_noise(model, y, yhat, elig, noise)
+            use = lsq.usable_rows(model, y, yhat, elig, noise)
+            idx = np.flatnonzero(st.active)
+            r, jac, _ = lsq.weighted_rows(model, t, idx, x, y, use, noise)
+        except (ValueError, ArithmeticError, np.linalg.LinAlgError):
+            return False
+        state = replace(st, t=t, noise=noise, used=use, hessian=jac.T @ jac,
+                        gradient=jac.T @ r, chi2=float(r @ r), n_rows=int(use.sum()),
+                        converged=converged)
+        if not (np.all(np.isfinite(state.hessian)) and lsq.healthy(model, state)):
+            return False
+        if any(z < lsq.Z_KEEP for z in lsq.significance(model, state).values()):
+            return False
+        if self._called_for(state, x, y):
+            return False
+        self._reset_sums(state)
+        self.refits["warm"] += 1
+        return True
+
+    def _called_for(self, state: lsq.FitState, x: np.ndarray, y: np.ndarray) -> bool:
+        """Whether the data now call for an optional parameter the last full refit left
+        out: one Gauss–Newton step with that parameter freed from its null (a score
+        test, one parameter at a time) moves it, inside its bounds, by CALL_Z of its
+        standard error or more."""
+        params = self.model.params
+        absent = [k for k, p in enumerate(params) if p.optional and not state.active[k]]
+        if not absent:
+            return False
+        trial = state.active.copy()
+        trial[absent] = True
+        idx = np.flatnonzero(trial)
+        r, jac, _ = lsq.weighted_rows(self.model, state.t, idx, x, y, state.used, state.noise)
+        h_all = jac.T @ jac
+        g_all = jac.T @ r
+        if not (np.all(np.isfinite(h_all)) and np.all(np.isfinite(g_all))):
+            return True
+        kept = [j for j, k in enumerate(idx) if state.active[k]]
+        for k in absent:
+            j = int(np.searchsorted(idx, k))
+            sub = [*kept, j]
+            h, g = h_all[np.ix_(sub, sub)], g_all[sub]
+            one = state.active.copy()
+            one[k] = True
+            cov = lsq.covariance_t(replace(state, active=one, hessian=h, gradient=g))
+            d = np.sqrt(np.maximum(np.diag(h), 1e-300))
+            try:
+                step = -np.linalg.solve(h / np.outer(d, d), g / d) / d
+            except np.linalg.LinAlgError:
+                return True
+            var = cov[-1, -1]
+            sd = math.sqrt(var) if np.isfinite(var) and var > 0 else 0.0
+            moved = state.t[k] + step[-1]
+            if (params[k].lower <= moved <= params[k].upper and sd > 0
+                    and abs(step[-1]) >= CALL_Z * sd):
+                return True
+        return False
 
     def current_t(self) -> np.ndarray:
         t = self.state.t.copy()
@@ -356,6 +464,15 @@ class IncrementalFitter:
                                  [fwd_mask, ~fwd_mask])
         stream = self._forward or self._reverse or self._small
         return stream.snapshot()
+
+    def refit(self) -> None:
+        """Refit every point now from scratch (warm-started): noise model and optional
+        parameters decided afresh. For the end of a sweep; O(n)."""
+        with self._lock, np.errstate(all="ignore"):
+            self._cache = None
+            for stream in (self._forward, self._small):
+                if stream is not None:
+                    stream.refit()
 
     def settled(self, target_rel: float | None = None,
                 names: Iterable[str] | None = None) -> dict[str, bool]:

@@ -247,6 +247,8 @@ class FitWorker:
             return
         step = self.steps[name]
         try:
+            if final:  # the step's last word: optional parameters decided afresh
+                fitter.refit()
             result = fitter.snapshot()
         except Exception as exc:  # noqa: BLE001
             self._break(name, exc)
