@@ -4,8 +4,9 @@ promptly however long it is?
     python tests/benchmarks/overnight.py [--big] [--sizes 10000,100000] [--keep DIR]
 
 Each size runs the same plan shape (ten steps, forward I-V and C-V in turn, the points
-split evenly between them) with `pnbench run --headless --no-report` on the simulated
-bench at time scale 0, each in its own process, fitting on. From each run:
+split evenly between them, no two steps at the same levels) with
+`pnbench run --headless --no-report` on the simulated bench at time scale 0, each in its
+own process, fitting on. From each run:
 
 * peak_rss_MiB: the run process's peak resident memory (``wait4`` rusage);
 * wall_per_point_us: the time from the first to the last point (points.csv ``time_s``)
@@ -42,9 +43,12 @@ STEPS = 10
 
 def plan_for(points: int) -> str:
     per = max(2, points // STEPS)
-    steps = [forward(f"iv{k}", points=per) if k % 2 == 0 else
-             cv(f"cv{k}", bias_stop="-20 V", bias_points=per, frequencies=None,
-                frequency="100 kHz", ac_level="20 mV")
+    # every step's levels differ a little from the others': the simulated instruments
+    # remember recent operating points, and repeated levels would make short runs look
+    # cheaper than long ones (their steps fit in that memory, a long run's do not)
+    steps = [forward(f"iv{k}", points=per, stop=f"{0.75 + 1e-3 * k:.4f} V") if k % 2 == 0
+             else cv(f"cv{k}", bias_stop=f"{-20 - 0.1 * k:.2f} V", bias_points=per,
+                     frequencies=None, frequency="100 kHz", ac_level="20 mV")
              for k in range(STEPS)]
     return plan_text(*steps, plan={"format": 1, "title": "overnight benchmark"},
                      device={"name": "LH-VC510", "temperature": "300.15 K"},
