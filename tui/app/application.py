@@ -21,7 +21,7 @@ from textual.reactive import reactive
 
 from pnbench.errors import PnbenchError
 from pnbench.tui.app.control import RunControl
-from pnbench.tui.app.exit import exit_code, safe_exit_on_signals
+from pnbench.tui.app.exit import exit_code, finish_end_work, safe_exit_on_signals
 from pnbench.tui.app.feed import RunFeed
 from pnbench.tui.app.folder import FolderTail, check_run_folder
 from pnbench.tui.app.live import LiveRun
@@ -375,9 +375,12 @@ def run_app(plan_path: str | Path | None = None, simulate: str | None = None,
     try:
         code = app.run()
     finally:
-        app.control.close()
-        for sig, handler in previous.items():
-            signal.signal(sig, handler)
+        try:
+            app.control.close()
+            finish_end_work(app)  # the report, under the same signal handlers
+        finally:
+            for sig, handler in previous.items():
+                signal.signal(sig, handler)
     return exit_code(app, code)
 
 

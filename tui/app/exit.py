@@ -14,6 +14,7 @@ import os
 import signal
 import threading
 import time
+from pathlib import Path
 
 from pnbench.errors import PnbenchError
 
@@ -21,6 +22,9 @@ from pnbench.errors import PnbenchError
 #: app's own exit, before it ends the process itself.
 HANGUP_RUN_WAIT_S = 120.0
 HANGUP_EXIT_WAIT_S = 3.0
+#: Seconds the guard waits for a report being written when the signal came (the folder
+#: is finished before the process ends).
+HANGUP_REPORT_WAIT_S = 600.0
 
 
 def safe_exit_on_signals(app) -> dict:
@@ -36,6 +40,7 @@ def safe_exit_on_signals(app) -> dict:
                          "is already ending with its outputs off\n".encode())
             return
         app._closing = True
+        app.stopped_by_signal = signal.Signals(signum).name
         live = app.live
         if live is not None and live.running:
             live.abort(f"the app got {signal.Signals(signum).name} (terminal hung up or "
@@ -58,6 +63,9 @@ def safe_exit_on_signals(app) -> dict:
 def _hangup_guard(app, live) -> None:
     if live is not None:
         live.wait(HANGUP_RUN_WAIT_S)  # the runner's ramp-down, outputs off, files closed
+    report = getattr(app, "report_done", None)
+    if report is not None:
+        report.wait(HANGUP_REPORT_WAIT_S)  # a report being written is finished first
     deadline = time.monotonic() + HANGUP_EXIT_WAIT_S
     while time.monotonic() < deadline:
         if not app.is_running:
@@ -73,6 +81,8 @@ def exit_code(app, code: object = 0) -> int:
     if live is not None:
         outcome = getattr(live.launch, "outcome", None)
         if outcome is not None:
+            if outcome.exit_code == 0 and getattr(app, "stopped_by_signal", None):
+                return 4  # SIGHUP or SIGTERM came while the run folder was finished
             return int(outcome.exit_code)
         error = getattr(live.launch, "error", None)
         if isinstance(error, PnbenchError):
@@ -84,3 +94,24 @@ def exit_code(app, code: object = 0) -> int:
     if app.state.status == "failed":
         return 3
     return int(code or 0) if isinstance(code, int) else 0
+
+
+def finish_end_work(app) -> None:
+    """After the app has ended: the report of its last sweep is finished (or written here,
+    when the app ended before it began), so the folder is complete before the process
+    ends. Called while the signal handlers are still in place."""
+    live = app.live
+    control = getattr(app, "control", None)
+    if live is None or live.run_dir is None or live.running:
+        return
+    if control is not None and not getattr(control, "report", True):
+        return
+    done = getattr(app, "report_done", None)
+    if done is not None and getattr(app, "report_dir", None) == Path(live.run_dir):
+        done.wait(HANGUP_REPORT_WAIT_S)
+        return
+    if getattr(live.launch, "outcome", None) is None:
+        return  # failed before the first point: nothing to report
+    from pnbench.tui.headless import finish_report
+
+    finish_report(live.run_dir)

@@ -6,6 +6,7 @@ worker when a sweep this app ran has ended. A mixin of the app class (it uses th
 from __future__ import annotations
 
 import math
+import threading
 from pathlib import Path
 
 from pnbench.errors import PnbenchError
@@ -44,6 +45,8 @@ class RunFeed:
         headless runs do), unless --no-report said otherwise."""
         if not self.control.report:
             return
+        done = self.report_done = threading.Event()  # the end work waits for it
+        self.report_dir = run_dir
 
         def work() -> None:
             from pnbench.tui.report import write_report
@@ -51,13 +54,21 @@ class RunFeed:
             try:
                 path = write_report(run_dir)
             except Exception as exc:  # noqa: BLE001 - never lose a run over its report
-                self.call_from_thread(
-                    self.notify, f"the report could not be written ({exc}); try "
-                    f"`pnbench report {run_dir}`", severity="error", timeout=12)
+                self._tell(f"the report could not be written ({exc}); try "
+                           f"`pnbench report {run_dir}`", severity="error", timeout=12)
                 return
-            self.call_from_thread(self.notify, f"report written: {path}", timeout=8)
+            finally:
+                done.set()
+            self._tell(f"report written: {path}", timeout=8)
 
         self.run_worker(work, thread=True, group="report")
+
+    def _tell(self, message: str, **options) -> None:
+        """A notice from a worker; nothing when the app has already ended."""
+        try:
+            self.call_from_thread(self.notify, message, **options)
+        except Exception:  # noqa: BLE001 - the app is gone (a signal ended it)
+            pass
 
     def poll_folder(self) -> None:
         if self.tail is None:
