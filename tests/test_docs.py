@@ -46,3 +46,48 @@ def test_cited_physics_sections_exist():
              for n in _SECTION.findall(p.read_text(encoding="utf-8", errors="replace"))
              if int(n) not in sections]
     assert not wrong, "\n".join(wrong)
+
+
+_READER_CALL = re.compile(
+    r"\.(?:text|boolean|integer|number|quantity|quantity_list|area|temperature|choice|raw)"
+    r"\(\s*\"([a-z_]+)\"")
+
+
+def _documented(page: str) -> set[str]:
+    return set(re.findall(r"`([A-Za-z_]+)`", (ROOT / "docs" / page).read_text(encoding="utf-8")))
+
+
+def test_plan_format_page_names_every_key_the_plan_reader_accepts():
+    """Keys read through planread.TableReader in sweeps/plan*.py, every step kind's KEYS
+    and the instruments' rating keys: each appears in docs/plan-format.md."""
+    from pnbench.sweeps import plan, planstep
+
+    keys = set()
+    for name in ("plan.py", "planstep.py"):
+        keys |= set(_READER_CALL.findall((ROOT / "sweeps" / name).read_text(encoding="utf-8")))
+    for kind_keys in planstep.KEYS.values():
+        keys |= set(kind_keys)
+    for ratings in plan.RATINGS.values():
+        keys |= set(ratings)
+    keys -= {"plan", "device", "limits", "steps", "instruments"}  # tables, not keys
+    assert len(keys) > 40
+    missing = sorted(keys - _documented("plan-format.md"))
+    assert not missing, f"docs/plan-format.md does not mention {missing}"
+
+
+def test_dialect_page_names_every_dialect_key():
+    """Every key of every dialect table (drivers/dialect.py) appears in docs/dialects.md."""
+    from pnbench.drivers import dialect
+
+    keys = set(dialect._DIALECT_KEYS)
+    for kinds in (dialect._COMMON_KINDS, dialect._SMU_KINDS, dialect._LCR_KINDS):
+        keys |= set(kinds)
+    missing = sorted(keys - _documented("dialects.md"))
+    assert not missing, f"docs/dialects.md does not mention {missing}"
+
+
+def test_run_folder_page_names_every_points_column():
+    from pnbench.sweeps import store
+
+    missing = sorted(set(store.COLUMNS) - _documented("run-folder.md"))
+    assert not missing, f"docs/run-folder.md does not mention {missing}"
