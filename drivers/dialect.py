@@ -19,15 +19,16 @@ from typing import Any
 from pnbench.drivers import scpi
 from pnbench.errors import DialectError
 
-#: The two-element forms an LCR meter may report, and what they mean.
+#: The two-element forms an LCR meter may report, named in pnbench's own plain words
+#: (by the equivalent circuit and its second quantity), and what the two fields are.
 LCR_FORMS = {
-    "CPGP": "parallel capacitance Cp [F], parallel conductance Gp [S]",
-    "CPRP": "parallel capacitance Cp [F], parallel resistance Rp [ohm]",
-    "CPD": "parallel capacitance Cp [F], dissipation factor D",
-    "CSRS": "series capacitance Cs [F], series resistance Rs [ohm]",
-    "CSD": "series capacitance Cs [F], dissipation factor D",
-    "GB": "conductance G [S], susceptance B [S]",
-    "RX": "resistance R [ohm], reactance X [ohm]",
+    "parallel": "parallel capacitance Cp [F], parallel conductance Gp [S]",
+    "parallel_r": "parallel capacitance Cp [F], parallel resistance Rp [ohm]",
+    "parallel_d": "parallel capacitance Cp [F], dissipation factor D",
+    "series": "series capacitance Cs [F], series resistance Rs [ohm]",
+    "series_d": "series capacitance Cs [F], dissipation factor D",
+    "admittance": "conductance G [S], susceptance B [S]",
+    "impedance": "resistance R [ohm], reactance X [ohm]",
 }
 SMU_FIELDS = ("voltage", "current", "compliance", "skip")
 LCR_FIELDS = ("primary", "secondary", "skip")
@@ -192,7 +193,7 @@ def _check_command(value: Any, kind: str, source: str, where: str) -> str:
         if text.rstrip().endswith("?"):
             raise _fault(source, where, f"{text!r} must be a setting, not a query")
         sample = {"setting": {}, "value": {"value": 1.0}, "state": {"state": True},
-                  "form": {"form": "CPGP"}}[kind]
+                  "form": {"form": "parallel"}}[kind]
     try:
         if kind == "form" and "{form}" not in text:
             sample = {}  # the instrument's own word for the form, written in full
@@ -228,10 +229,12 @@ def _build(cls: type, table: dict, kinds: dict, source: str, name: str) -> Any:
             values[key] = _check_fields(table[key], allowed, needed, source, where)
         elif kind == "form_name":
             form = table[key]
-            if not isinstance(form, str) or form.upper() not in LCR_FORMS:
-                raise _fault(source, where, f"unknown form {form!r} (accepted: "
-                             + "; ".join(f"{k} = {v}" for k, v in LCR_FORMS.items()) + ")")
-            values[key] = form.upper()
+            if not isinstance(form, str) or form.strip().lower() not in LCR_FORMS:
+                raise _fault(source, where, f"unknown form {form!r}; pnbench names the "
+                             "reading forms in plain words: "
+                             + "; ".join(f"{k} = {v}" for k, v in LCR_FORMS.items())
+                             + " (the instrument's own word for it goes into `model`)")
+            values[key] = form.strip().lower()
         else:
             values[key] = _check_command(table[key], kind, source, where)
     assert {f.name for f in fields(cls)} == set(values)

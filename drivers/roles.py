@@ -305,27 +305,27 @@ def admittance_from_reading(form: str, primary: float, secondary: float,
                             frequency_Hz: float) -> complex:
     """Complex admittance [S] from a two-element LCR reading of `form` (see LCR_FORMS).
 
-    Cp-Gp and Cs-Rs go through the meter conversions of `pnbench.modeling.smallsignal`;
-    the other forms are turned into one of those first. A marker value (overflow or
-    not-a-number) gives nan+nanj.
+    The parallel (Cp, Gp) and series (Cs, Rs) forms go through the meter conversions of
+    `pnbench.modeling.smallsignal`; the other forms are turned into one of those first.
+    A marker value (overflow or not-a-number) gives nan+nanj.
     """
     if not (math.isfinite(primary) and math.isfinite(secondary)):
         return complex(math.nan, math.nan)
     w = 2.0 * math.pi * frequency_Hz
-    if form == "CPGP":
+    if form == "parallel":
         y = smallsignal.admittance_from_parallel(primary, secondary, frequency_Hz)
-    elif form == "CPRP":
+    elif form == "parallel_r":
         gp = 1.0 / secondary if secondary else math.inf
         y = smallsignal.admittance_from_parallel(primary, gp, frequency_Hz)
-    elif form == "CPD":
+    elif form == "parallel_d":
         y = smallsignal.admittance_from_parallel(primary, secondary * w * primary, frequency_Hz)
-    elif form == "CSRS":
+    elif form == "series":
         y = smallsignal.admittance_from_series(primary, secondary, frequency_Hz)
-    elif form == "CSD":
+    elif form == "series_d":
         y = smallsignal.admittance_from_series(primary, secondary / (w * primary), frequency_Hz)
-    elif form == "GB":
+    elif form == "admittance":
         y = complex(primary, secondary)
-    elif form == "RX":
+    elif form == "impedance":
         z = complex(primary, secondary)
         y = 1.0 / z if z != 0 else complex(math.inf, 0.0)
     else:

@@ -58,7 +58,7 @@ def _finite_float(value: Any) -> float | None:
 
 def card_name(device_name: str) -> str:
     """A model name simulators accept (letters, digits, _ . + -, a letter first) for a
-    device name that may hold spaces or other signs ("LH-SW200 sample 3" -> "LH-SW200_sample_3")."""
+    device name that may hold spaces or other signs ("LH-QT16 sample 3" -> "LH-QT16_sample_3")."""
     name = re.sub(r"[^A-Za-z0-9_.+-]+", "_", device_name.strip()).strip("_") or "device"
     return name if name[0].isalpha() else f"D{name}"
 

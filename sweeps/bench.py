@@ -1,6 +1,6 @@
 """Connecting the instruments a plan needs, and always leaving them off.
 
-    with open_bench(plan, simulate="lh-sw200", time_scale=0.0) as bench:
+    with open_bench(plan, simulate="lh-qt16", time_scale=0.0) as bench:
         bench.smu, bench.lcr, bench.instruments    # roles and their identities
         bench.safe_off()                           # {role: confirmed off}
 

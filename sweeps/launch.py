@@ -1,6 +1,6 @@
 """One run from start to end: folder, bench, fitter, runner, in the right order.
 
-    launch = Launch.new(plan, simulate="lh-sw200", time_scale=0.0, out_dir="runs",
+    launch = Launch.new(plan, simulate="lh-qt16", time_scale=0.0, out_dir="runs",
                         listeners=[queue.put])
     outcome = launch.run()       # blocking; or launch.start() + launch.wait() on a thread
     launch.pause(); launch.resume(); launch.abort("why")

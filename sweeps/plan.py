@@ -252,8 +252,9 @@ def _read_limits(t: TableReader, instruments: dict) -> Limits | None:
         key = "max_voltage" if (v_max or 0.0) >= abs(v_rev or 0.0) else "max_reverse_voltage"
         found = "is missing" if ack is None else f"covers only {ack:g} V"
         t.problem(key, f"{highest:g} V is above the {HAZARDOUS_VOLTAGE_V:g} V DC "
-                  "hazardous-voltage threshold (IEC 61010-1, older editions; from memory) "
-                  f"and the acknowledgment {found}. When the fixture is enclosed and "
+                  "hazardous-voltage threshold (as older editions of IEC 61010-1 "
+                  f"set it; check the edition your lab follows) and the acknowledgment "
+                  f"{found}. When the fixture is enclosed and "
                   "interlocked, add  acknowledge_hazardous_voltage = "
                   f"\"{highest:g} V\"  to [limits]")
     if v_max is None or v_rev is None or i_max is None or p_max is None:

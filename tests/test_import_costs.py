@@ -34,7 +34,7 @@ def test_help_loads_no_heavy_module():
     assert _heavy_modules_after(["--help"]) == []
 
 
-@pytest.mark.parametrize("plan", ["example_full.toml", "lh-sw200.toml"])
+@pytest.mark.parametrize("plan", ["example_full.toml", "lh-qt16.toml"])
 def test_check_loads_no_heavy_module(plan):
     path = resources.files("pnbench.sim_configs") / "plans" / plan
     assert _heavy_modules_after(["check", str(path)]) == []

@@ -11,7 +11,7 @@ answers the not-a-number marker in both fields and queues -221. Noise is specifi
 device file and turns autorange off; a reading beyond a fixed range (by more than 5 %)
 answers the overflow marker.
 
-LCR meter after *RST: 1 kHz, 1 V rms, bias 0 V and off, form CPGP; open and short
+LCR meter after *RST: 1 kHz, 1 V rms, bias 0 V and off, form parallel (Cp, Gp); open and short
 corrections are kept (they live in the meter's memory, not in its settings). The AC level
 is the rms voltage across the device. The bias source sags to hold its current limit.
 """
@@ -110,15 +110,15 @@ class SimSmu(SimInstrumentWithOutput):
                 "number", _max_v, settles=True),
         Setting(":SOURce:CURRent[:LEVel][:IMMediate][:AMPLitude]", "current_level_A",
                 "number", _max_i, settles=True),
-        Setting(":SENSe:CURRent[:DC]:PROTection[:LEVel]", "current_limit_A", "number",
+        Setting(":SOURce:CURRent:PROTection[:LEVel]", "current_limit_A", "number",
                 lambda s: (s.current_ranges[0] / 100, s.current_ranges[-1]), settles=True),
-        Setting(":SENSe:VOLTage[:DC]:PROTection[:LEVel]", "voltage_limit_V", "number",
+        Setting(":SOURce:VOLTage:PROTection[:LEVel]", "voltage_limit_V", "number",
                 lambda s: (s.voltage_ranges[0] / 100, s.voltage_ranges[-1]), settles=True),
         Setting(":SENSe:CURRent[:DC]:RANGe:AUTO", "current_autorange", "bool"),
         Setting(":SENSe:VOLTage[:DC]:RANGe:AUTO", "voltage_autorange", "bool"),
         Setting(":SENSe:CURRent[:DC]:NPLCycles", "nplc", "number", lambda s: (0.01, 10.0)),
         Setting(":SENSe:VOLTage[:DC]:NPLCycles", "nplc", "number", lambda s: (0.01, 10.0)),
-        Setting(":SYSTem:RSENse", "remote_sense", "bool", settles=True),
+        Setting(":SENSe:REMote", "remote_sense", "bool", settles=True),
     )
 
     def __init__(self, device: SimDevice, on_output: OutputHook | None = None) -> None:
@@ -153,9 +153,9 @@ class SimSmu(SimInstrumentWithOutput):
             *self._range_commands(":SENSe:VOLTage[:DC]:RANGe[:UPPer]", "voltage"),
             (":READ", True, self._read),
             (":FETCh", True, self._fetch),
-            (":SENSe:CURRent[:DC]:PROTection:TRIPped", True,
+            (":SOURce:CURRent:PROTection:TRIPped", True,
              lambda c: "1" if self.mode == "VOLTage" and self._now()[2] else "0"),
-            (":SENSe:VOLTage[:DC]:PROTection:TRIPped", True,
+            (":SOURce:VOLTage:PROTection:TRIPped", True,
              lambda c: "1" if self.mode == "CURRent" and self._now()[2] else "0"),
         ]
 
@@ -242,7 +242,8 @@ class SimLcr(SimInstrumentWithOutput):
     """An LCR meter with its DC bias source, measuring the diode."""
 
     name = "lcr"
-    FORMS = ("CPGP", "CSRS")
+    #: the reading forms it offers (dialect words `parallel` and `series`)
+    FORMS = ("PARallel", "SERies")
 
     def __init__(self, device: SimDevice, on_output: OutputHook | None = None) -> None:
         spec = device.lcr
@@ -263,7 +264,7 @@ class SimLcr(SimInstrumentWithOutput):
         self.defaults = {"frequency_Hz": min(max(1e3, spec["frequency_min_Hz"]),
                                              spec["frequency_max_Hz"]),
                          "ac_level_V": min(1.0, spec["ac_level_max_V"]), "bias_V": 0.0,
-                         "form": "CPGP"}
+                         "form": "PARallel"}
         self.open_corrected = False
         self.short_corrected = False
         self.last_reading: str | None = None
@@ -317,7 +318,7 @@ class SimLcr(SimInstrumentWithOutput):
         sigma = spec["noise_percent_of_reading"] / 100.0 * abs(y) + w * spec["noise_floor_F"]
         if sigma > 0:
             y += sigma * complex(*self.rng.normal(0.0, 1.0, 2))
-        if self.form == "CPGP":
+        if self.form == "PARallel":
             primary, secondary = smallsignal.parallel_from_admittance(y, self.frequency_Hz)
         else:
             primary, secondary = smallsignal.series_from_admittance(y, self.frequency_Hz)

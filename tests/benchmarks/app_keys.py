@@ -27,7 +27,7 @@ from plantext import sweep_plan  # noqa: E402
 
 from pnbench.tui.app.application import PnbenchApp
 
-PLAN = sweep_plan("LH-SW200-bench", 4000, 4000, reverse_stop="-10 V",
+PLAN = sweep_plan("LH-QT16-bench", 4000, 4000, reverse_stop="-10 V",
                   title="key latency benchmark")
 
 PRESSES = 40
@@ -63,7 +63,7 @@ async def main() -> dict:
     with tempfile.TemporaryDirectory() as tmp:
         plan = Path(tmp) / "plan.toml"
         plan.write_text(PLAN, encoding="utf-8")
-        app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=Path(tmp) / "r")
+        app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.0, out_dir=Path(tmp) / "r")
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause(0.5)
             idle, _ = await latencies(app, pilot, running=False)

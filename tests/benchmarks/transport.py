@@ -36,7 +36,7 @@ from pnbench.drivers.session import open_session
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.instruments import SimSmu
 
-DEVICE = "lh-sw200"
+DEVICE = "lh-qt16"
 
 
 def _median_s(action, repeats: int) -> float:
@@ -50,13 +50,13 @@ def _median_s(action, repeats: int) -> float:
 
 def _instrument_only_s(bench: SimBench, repeats: int = 2000) -> float:
     smu = SimSmu(bench.device)
-    for unit in (":SENS:CURR:PROT 0.01", ":SYST:RSEN ON", ":OUTP ON"):
+    for unit in (":SOUR:CURR:PROT 0.01", ":SENS:REM ON", ":OUTP ON"):
         smu.execute(unit)
     levels = np.linspace(0.3, 0.8, repeats)
     start = time.perf_counter()
     for level in levels:
         smu.begin_message()
-        for unit in (f":SOUR:VOLT:LEV {float(level)!r}", ":READ?", ":SENS:CURR:PROT:TRIP?"):
+        for unit in (f":SOUR:VOLT:LEV {float(level)!r}", ":READ?", ":SOUR:CURR:PROT:TRIP?"):
             smu.execute(unit)
     return (time.perf_counter() - start) / repeats
 
@@ -90,7 +90,7 @@ def main() -> dict:
         plain = manager.open_resource(bench.smu_resource, read_termination="\n",
                                       write_termination="\n", timeout=5000)
         try:
-            plain.write(":SYST:RSEN ON;:SENS:CURR:PROT 0.01;:OUTP ON")
+            plain.write(":SENS:REM ON;:SOUR:CURR:PROT 0.01;:OUTP ON")
             plain.query("*OPC?")
             bare_plain = _median_s(lambda: plain.query("*OPC?"), 300)
             write_nagle = _median_s(

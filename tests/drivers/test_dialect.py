@@ -91,9 +91,20 @@ def test_optional_commands_may_be_empty_and_a_role_may_be_absent(tmp_path):
 
 def test_model_may_use_the_instruments_own_word(tmp_path):
     data = default_data()
-    data["lcr"].update(model=":FUNC:IMP CPG", form="cpgp")
+    data["lcr"].update(model="SHOW CP,G", form="Parallel")
     d = dl.load_dialect(write(tmp_path, data))
-    assert d.lcr.model == ":FUNC:IMP CPG" and d.lcr.form == "CPGP"
+    assert d.lcr.model == "SHOW CP,G" and d.lcr.form == "parallel"
+
+
+def test_a_four_letter_form_code_is_refused_naming_the_plain_words(tmp_path):
+    data = default_data()
+    data["lcr"]["form"] = "CPGP"
+    with pytest.raises(DialectError) as err:
+        dl.load_dialect(write(tmp_path, data))
+    message = str(err.value)
+    assert "[lcr] form" in message and "'CPGP'" in message
+    for word in ("parallel", "parallel_d", "series", "admittance", "impedance"):
+        assert f"{word} = " in message
 
 
 def test_bad_toml_and_missing_file(tmp_path):
@@ -112,3 +123,19 @@ def test_fill_uses_dialect_words(tmp_path):
     assert d.fill(d.smu.output, state=False) == ":OUTPut:STATe 0"
     assert d.separator == ";"  # surrounding whitespace is not part of the separator
     assert d.join(["*CLS", "*OPC?"]) == "*CLS;*OPC?"
+
+
+def test_default_smu_dialect_uses_the_scpi_source_subsystem_for_its_limits():
+    """SCPI-1999 Volume 2, SOURce subsystem: [SOURce:]CURRent|VOLTage:PROTection[:LEVel]
+    and :PROTection:TRIPped? (from memory); the default dialect's header says that SCPI
+    defines no compliance command and why it uses these."""
+    d = dl.load_dialect()
+    smu = d.smu
+    assert smu.current_limit.startswith(":SOURce:CURRent:PROTection")
+    assert smu.voltage_limit.startswith(":SOURce:VOLTage:PROTection")
+    assert smu.tripped_sourcing_voltage == ":SOURce:CURRent:PROTection:TRIPped?"
+    assert not any(":SENSe:" in c and "PROT" in c.upper()
+                   for c in (smu.current_limit, smu.voltage_limit,
+                             smu.tripped_sourcing_voltage, smu.tripped_sourcing_current))
+    header = dl.default_dialect_text().split("[dialect]")[0]
+    assert "SCPI-1999" in header and "compliance" in header and "does not define" in header

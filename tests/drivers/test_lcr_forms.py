@@ -23,13 +23,13 @@ def textbook_readings(cp: float, gp: float, f: float) -> dict[str, tuple[float, 
     z = 1 / y
     cs = -1 / (w * z.imag)
     return {
-        "CPGP": (cp, gp),
-        "CPRP": (cp, 1 / gp),
-        "CPD": (cp, gp / (w * cp)),
-        "CSRS": (cs, z.real),
-        "CSD": (cs, w * cs * z.real),
-        "GB": (gp, w * cp),
-        "RX": (z.real, z.imag),
+        "parallel": (cp, gp),
+        "parallel_r": (cp, 1 / gp),
+        "parallel_d": (cp, gp / (w * cp)),
+        "series": (cs, z.real),
+        "series_d": (cs, w * cs * z.real),
+        "admittance": (gp, w * cp),
+        "impedance": (z.real, z.imag),
     }
 
 
@@ -52,14 +52,14 @@ def test_every_form_gives_the_same_admittance(cp, gp, f):
 def test_dissipation_is_the_same_in_series_and_parallel():
     """D = Gp/(w Cp) = w Cs Rs (common practice, no source): 100 pF || 1 uS at 1 kHz."""
     r = textbook_readings(1e-10, 1e-6, 1e3)
-    assert r["CPD"][1] == pytest.approx(r["CSD"][1], rel=1e-12)
-    assert r["CPD"][1] == pytest.approx(1e-6 / (2 * math.pi * 1e3 * 1e-10), rel=1e-12)
+    assert r["parallel_d"][1] == pytest.approx(r["series_d"][1], rel=1e-12)
+    assert r["parallel_d"][1] == pytest.approx(1e-6 / (2 * math.pi * 1e3 * 1e-10), rel=1e-12)
 
 
 def test_markers_give_nan_and_unknown_form_raises():
-    y = admittance_from_reading("CPGP", math.inf, 1e-6, 1e3)
+    y = admittance_from_reading("parallel", math.inf, 1e-6, 1e3)
     assert math.isnan(y.real) and math.isnan(y.imag)
-    y = admittance_from_reading("CSRS", 1e-9, math.nan, 1e3)
+    y = admittance_from_reading("series", 1e-9, math.nan, 1e3)
     assert math.isnan(y.real)
     with pytest.raises(ValueError):
         admittance_from_reading("ZTHETA", 1.0, 1.0, 1e3)

@@ -23,7 +23,7 @@ from pnbench.modeling import smallsignal
 
 @pytest.fixture
 def bench():
-    with SimBench.start("lh-sw200", time_scale=0.0) as b:
+    with SimBench.start("lh-qt16", time_scale=0.0) as b:
         yield b
 
 
@@ -127,7 +127,7 @@ def test_reverse_bias_capacitance_matches_the_model(bench, lcr):
 
 def test_series_form_gives_the_same_admittance(bench):
     data = tomllib.loads(dl.default_dialect_text())
-    data["lcr"]["form"] = "CSRS"
+    data["lcr"]["form"] = "series"
     series = dl.parse_dialect(data, "series-form dialect")
     with open_session(bench.lcr_resource, timeout_ms=1000) as s:
         parallel_meter = LcrMeter(s)
@@ -135,34 +135,35 @@ def test_series_form_gives_the_same_admittance(bench):
         y_parallel = parallel_meter.apply_and_read(-2.0, 1e5).admittance_S
         series_meter = LcrMeter(s, series)
         series_meter.configure(0.02)
-        assert s.query(":SENSe:IMPedance:MODel?").upper().startswith("CSRS")
+        assert s.query(":SENSe:IMPedance:MODel?").upper().startswith("SER")
         y_series = series_meter.apply_and_read(-2.0, 1e5).admittance_S
     assert np.isclose(y_series, y_parallel, rtol=0.02)
 
 
 def test_example_user_dialects_load_and_drive_an_instrument():
-    """The README's example dialects (drivers/dialects/examples/) load, and the SMU one reads its
-    compliance from the status field of a five-field reading."""
+    """The README's example dialects (drivers/dialects/examples/) load, and the SMU one
+    reads its compliance from the clamp flag that leads its three-field reading."""
     from pathlib import Path
 
     from loopback_instrument import LoopbackInstrument
 
     docs = Path(__file__).resolve().parents[2] / "drivers" / "dialects" / "examples"
     lcr_dialect = dl.load_dialect(docs / "harrow-lane-lcr.toml")
-    assert lcr_dialect.smu is None and lcr_dialect.lcr.form == "CPD"
+    assert lcr_dialect.smu is None and lcr_dialect.lcr.form == "parallel_d"
+    assert lcr_dialect.lcr.model == "SHOW CP,LOSS"
     smu_dialect = dl.load_dialect(docs / "harrow-lane-smu.toml")
-    inst = LoopbackInstrument(canned={":READ": "0.41,1.0E-02,41,12.5,1", ":OUTP": "0"})
+    inst = LoopbackInstrument(canned={"SAMPLE": "1,1.0E-02,0.41", "OUT": "0"})
     try:
         with open_session(inst.resource, timeout_ms=500, dialect=smu_dialect) as s:
             smu = Smu(s)
             smu.configure("voltage", limit=1e-2)
-            assert inst.received[-2] == (":SOUR:FUNC VOLT;:SOUR:VOLT 0;:SENS:CURR:PROT 0.01;"
-                                         ":SENS:CURR:RANG:AUTO 1;:SENS:CURR:NPLC 1")
+            assert inst.received[-2] == ("MODE VLT;VLT 0;CLAMP:AMP 0.01;SPAN:AMP:AUTO 1;"
+                                         "CYCLES 1;KELVIN 0")
             reading = smu.apply_and_read(0.45)
-            assert inst.received[-1] == ":SOUR:VOLT 0.45;:READ?"  # one message, no tripped?
+            assert inst.received[-1] == "VLT 0.45;SAMPLE?"  # one message, no tripped?
             assert (reading.voltage_V, reading.current_A, reading.compliance) == (
                 0.41, 1e-2, True)
             assert smu.safe_off() == []
-            assert inst.received[-1] == ":OUTP?"
+            assert inst.received[-1] == "OUT?"
     finally:
         inst.close()

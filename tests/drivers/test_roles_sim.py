@@ -36,16 +36,16 @@ def dialect_with(changes: dict) -> dl.Dialect:
 def test_smu_configure_sets_what_was_asked(smu):
     smu.configure("voltage", limit=0.02, nplc=0.5, four_wire=True, range_=0.01)
     q = smu.session.query
-    assert float(q(":SENSe:CURRent:PROTection?")) == 0.02
+    assert float(q(":SOURce:CURRent:PROTection:LEVel?")) == 0.02
     assert float(q(":SENSe:CURRent:NPLCycles?")) == 0.5
-    assert float(q(":SENSe:CURRent:RANGe?")) == 0.01
+    assert float(q(":SENSe:CURRent:RANGe:UPPer?")) == 0.01
     assert q(":SENSe:CURRent:RANGe:AUTO?") == "OFF"
-    assert q(":SYSTem:RSENse?") == "ON"
+    assert q(":SENSe:REMote?") == "ON"
     assert q(":SOURce:FUNCtion:MODE?") == "VOLTage"
     assert not smu.output_is_on()  # configuring never turns the output on
     smu.configure("current", limit=5.0)
     assert q(":SOURce:FUNCtion:MODE?") == "CURRent"
-    assert float(q(":SENSe:VOLTage:PROTection?")) == 5.0
+    assert float(q(":SOURce:VOLTage:PROTection:LEVel?")) == 5.0
 
 
 def test_smu_point_is_one_message_with_compliance(smu):
@@ -72,7 +72,7 @@ def test_compliance_judged_from_limit_without_status_query(sim_backend):
 def test_rejected_limit_carries_the_instruments_message(smu):
     with pytest.raises(InstrumentError, match=r'-100,"Command error"') as err:
         smu.configure("voltage", limit=1.0)
-    assert ":SENSe:CURRent:PROTection 1" in str(err.value)
+    assert ":SOURce:CURRent:PROTection:LEVel 1" in str(err.value)
 
 
 @pytest.mark.parametrize(
@@ -137,7 +137,7 @@ def test_broken_instrument_replies_become_instrument_errors(sim_backend):
 def test_lcr_configure_read_and_safe_off(lcr):
     lcr.configure(0.03)
     q = lcr.session.query
-    assert q(":SENSe:IMPedance:MODel?") == "CPGP"
+    assert q(":SENSe:IMPedance:MODel?") == "parallel"
     assert float(q(":SOURce:VOLTage:LEVel?")) == 0.03
     assert q(":SOURce:BIAS:STATe?") == "OFF"
     lcr.bias(True)

@@ -50,7 +50,7 @@ def test_fill_value_state_form():
     assert scpi.fill(":SOUR:VOLT {value}", value=0.25) == ":SOUR:VOLT 0.25"
     assert scpi.fill(":OUTP {state}", state=True) == ":OUTP ON"
     assert scpi.fill(":OUTP {state}", state=False, on="1", off="0") == ":OUTP 0"
-    assert scpi.fill(":IMP:MOD {form}", form="CPGP") == ":IMP:MOD CPGP"
+    assert scpi.fill(":IMP:MOD {form}", form="parallel") == ":IMP:MOD parallel"
     assert scpi.fill("*RST") == "*RST"
 
 

@@ -30,7 +30,7 @@ def test_set_get_round_trip(sim_backend):
 
 def test_rejected_command_raises_with_the_instruments_message(sim_backend):
     with open_session(SMU, sim_backend, timeout_ms=300) as s:
-        s.write(":SENSe:CURRent:PROTection 5")  # above the simulated 0.1 A maximum
+        s.write(":SOURce:CURRent:PROTection:LEVel 5")  # above the simulated 0.1 A maximum
         with pytest.raises(InstrumentError) as err:
             s.drain_errors(context="setting the limit")
         assert '-100,"Command error"' in str(err.value)
@@ -45,7 +45,7 @@ def test_rejected_command_raises_with_the_instruments_message(sim_backend):
 def test_ask_collects_one_unit_per_query_from_separate_lines(sim_backend):
     """pyvisa-sim answers each query of a message on its own line; ask() gathers them."""
     with open_session(SMU, sim_backend, timeout_ms=300) as s:
-        units = s.ask(":SOURce:VOLTage:LEVel 0.25;:READ?;:SENSe:CURRent:PROTection:TRIPped?")
+        units = s.ask(":SOURce:VOLTage:LEVel 0.25;:READ?;:SOURce:CURRent:PROTection:TRIPped?")
         assert units == ["+2.500000000E-01,+1.250000E-03", "0"]
         assert s.ask(":SOURce:VOLTage:LEVel 0") == []
 

@@ -225,7 +225,7 @@ def test_repeating_fault_rearms_from_each_firing(bench):
 
 
 def test_bad_fault_requests_and_options():
-    with SimBench.start("lh-sw200") as bench:
+    with SimBench.start("lh-qt16") as bench:
         with pytest.raises(DeviceFileError, match="melt"):
             bench.inject("smu", "melt")
         with pytest.raises(DeviceFileError, match="seconds"):
@@ -233,9 +233,9 @@ def test_bad_fault_requests_and_options():
         with pytest.raises(DeviceFileError, match="dmm"):
             bench.inject("dmm", "drop")
     with pytest.raises(BadInput, match="time scale"):
-        SimBench.start("lh-sw200", time_scale=-1)
+        SimBench.start("lh-qt16", time_scale=-1)
     with pytest.raises(BadInput, match="port"):
-        SimBench.start("lh-sw200", smu_port=70000)
+        SimBench.start("lh-qt16", smu_port=70000)
 
 
 def test_a_port_in_use_is_an_instrument_error():
@@ -244,13 +244,13 @@ def test_a_port_in_use_is_an_instrument_error():
         taken.listen()
         port = taken.getsockname()[1]
         with pytest.raises(InstrumentError, match=str(port)):
-            SimBench.start("lh-sw200", smu_port=port)
+            SimBench.start("lh-qt16", smu_port=port)
 
 
 def test_faults_from_the_device_file(tmp_path):
     from pnbench.drivers.sim.device import bundled_device
 
-    text = bundled_device("lh-sw200").read_text()
+    text = bundled_device("lh-qt16").read_text()
     path = tmp_path / "flaky.toml"
     path.write_text(text + '\n[[fault]]\ninstrument = "smu"\nkind = "drop"\nafter = 2\n')
     with SimBench.start(path) as bench, open_session(bench.smu_resource, timeout_ms=400) as s:

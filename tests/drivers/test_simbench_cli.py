@@ -50,10 +50,10 @@ def _free_port() -> int:
 
 def test_json_resources_and_given_ports():
     port = _free_port()
-    proc = _start("--dut", "lh-sw200", "--json", "--time-scale", "0", "--smu-port", str(port))
+    proc = _start("--dut", "lh-qt16", "--json", "--time-scale", "0", "--smu-port", str(port))
     try:
         info = json.loads(proc.stdout.readline())
-        assert info["device"] == "LH-SW200"
+        assert info["device"] == "LH-QT16"
         assert info["smu_resource"] == f"TCPIP0::127.0.0.1::{port}::SOCKET"
         with open_session(info["lcr_resource"]) as lcr:
             assert lcr.query(":SOUR:BIAS:STAT?") == "0"
@@ -66,7 +66,7 @@ def test_json_resources_and_given_ports():
 def test_lists_bundled_devices(capsys):
     assert cli.main(["sim", "--list"]) == 0
     listed = capsys.readouterr().out
-    for name in ("lh-sw200", "lh-sk340", "lh-vc510", "lh-vh720", "lh-zl560"):
+    for name in ("lh-qt16", "lh-hm27", "lh-vc510", "lh-vh720", "lh-zl560"):
         assert name in listed
 
 

@@ -19,7 +19,7 @@ from pnbench.errors import DeviceFileError
 from pnbench.modeling import junction
 from pnbench.modeling.params import DiodeParams
 
-BUNDLED = ("lh-sk340", "lh-sw200", "lh-vc510", "lh-vh720", "lh-zl560")
+BUNDLED = ("lh-hm27", "lh-qt16", "lh-vc510", "lh-vh720", "lh-zl560")
 
 
 def test_every_bundled_device_loads_and_documents_every_key():
@@ -42,10 +42,10 @@ def test_bundled_devices_are_the_kinds_promised():
     p = {name: load_device(bundled_device(name)).params for name in BUNDLED}
     assert p["lh-vc510"].M == pytest.approx(0.5)
     assert p["lh-vh720"].M > 0.5
-    assert p["lh-sk340"].N < 1.1 and p["lh-sk340"].TT == 0
-    assert load_device(bundled_device("lh-sk340")).device["junction"] == "schottky"
+    assert p["lh-hm27"].N < 1.1 and p["lh-hm27"].TT == 0
+    assert load_device(bundled_device("lh-hm27")).device["junction"] == "schottky"
     assert p["lh-zl560"].BV < 7 and p["lh-zl560"].RSH < 1e8
-    assert p["lh-sw200"].TT < 1e-8 and p["lh-sw200"].CJO < 5e-12
+    assert p["lh-qt16"].TT < 1e-8 and p["lh-qt16"].CJO < 5e-12
 
 
 def test_missing_keys_take_documented_defaults():

@@ -152,7 +152,7 @@ def test_noise_shrinks_with_longer_integration():
     spreads = []
     for nplc in (0.1, 10):
         smu = SimSmu(device)
-        _run(smu, f":OUTP ON;:SOUR:VOLT 0.6;:SENS:CURR:PROT 0.1;:SENS:CURR:NPLC {nplc}")
+        _run(smu, f":OUTP ON;:SOUR:VOLT 0.6;:SOUR:CURR:PROT 0.1;:SENS:CURR:NPLC {nplc}")
         currents = [float(_run(smu, ":READ?")[0][0].split(",")[1]) for _ in range(400)]
         spreads.append(np.std(currents) / np.mean(currents))
     assert spreads[0] == pytest.approx(0.01 * math.sqrt(10), rel=0.15)

@@ -248,12 +248,12 @@ def test_open_correction_removes_the_fixture_capacitance():
 def test_series_form_reads_cs_and_rs():
     device = parse_device(QUIET)
     with SimBench.start(device) as bench, open_session(bench.lcr_resource) as session:
-        session.write(":SENS:CORR:OPEN;:SENS:IMP:MOD CSRS;:SOUR:VOLT 0.01;"
+        session.write(":SENS:CORR:OPEN;:SENS:IMP:MOD SER;:SOUR:VOLT 0.01;"
                       ":SOUR:BIAS:VOLT -2;:SOUR:BIAS:STAT ON;:SOUR:FREQ 1e6")
         form, reading = session.ask(":SENS:IMP:MOD?;:READ:IMP?")
         session.write(":SOUR:BIAS:STAT OFF")
     cs, rs = (float(x) for x in reading.split(","))
     expected = smallsignal.series_from_admittance(
         smallsignal.device_admittance(-2.0, 1e6, device.params), 1e6)
-    assert form == "CSRS"
+    assert form == "SER"
     assert (cs, rs) == pytest.approx((float(expected[0]), float(expected[1])), rel=1e-9)

@@ -141,15 +141,15 @@ def test_from_params_drops_infinite_values():
 
 
 def test_card_name_makes_any_device_name_a_simulator_name():
-    """A plan's device name may hold spaces ("LH-SW200 sample 3"); the card line may not."""
+    """A plan's device name may hold spaces ("LH-QT16 sample 3"); the card line may not."""
     from pnbench.modeling.modelset import card_name
 
-    assert card_name("LH-SW200 sample 3") == "LH-SW200_sample_3"
+    assert card_name("LH-QT16 sample 3") == "LH-QT16_sample_3"
     assert card_name("  7th wafer / die 12 ") == "D7th_wafer_die_12"
     assert card_name("") == "device"
     card = ModelSet(values={"IS": 1e-14}, sigmas={}, temperature_K=300.15,
-                    extras={}).card_text(card_name("LH-SW200 sample 3"))
-    assert ".model LH-SW200_sample_3 D(" in card
+                    extras={}).card_text(card_name("LH-QT16 sample 3"))
+    assert ".model LH-QT16_sample_3 D(" in card
 
 
 def test_card_with_a_shunt_offers_a_subcircuit_and_round_trips():

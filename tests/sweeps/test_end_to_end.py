@@ -35,8 +35,8 @@ TOL_REL = {"IS": 0.10, "N": 0.02, "RS": 0.05, "RSH": 0.25, "CJO": 0.05, "VJ": 0.
 #: What each bundled plan must extract (a Schottky plan has no admittance step: TT = 0).
 EXPECTED = {
     "lh-vc510": ("IS", "N", "RS", "CJO", "VJ", "M", "TT", "BV"),
-    "lh-sw200": ("IS", "N", "RS", "CJO", "VJ", "M", "TT", "BV"),
-    "lh-sk340": ("IS", "N", "RS", "RSH", "CJO", "VJ", "M", "BV"),
+    "lh-qt16": ("IS", "N", "RS", "CJO", "VJ", "M", "TT", "BV"),
+    "lh-hm27": ("IS", "N", "RS", "RSH", "CJO", "VJ", "M", "BV"),
     "lh-vh720": ("IS", "N", "RS", "CJO", "VJ", "M", "TT", "BV"),
     "lh-zl560": ("IS", "N", "RS", "RSH", "CJO", "VJ", "M", "TT", "BV"),
 }
@@ -60,6 +60,10 @@ def test_bundled_plan_recovers_the_device(device, tmp_path):
         mine = [p.index for p in points if p.step == step["name"]]
         assert mine == list(range(step["done"])), step["name"]
         assert step["status"] in ("done", "limit")
+        # a bundled plan stays inside its own compliance: a step may end only at its
+        # breakdown guard, as planned, never by running into the limit it set
+        assert step.get("ended_by") in (None, "breakdown_guard"), (step["name"], step)
+    assert not [p for p in points if p.compliance], device
 
     true = resolve_device(device).params
     model = json.loads((launch.run_dir / "model.json").read_text())["parameters"]

@@ -21,7 +21,7 @@ from pnbench.sweeps.plan import parse_plan
 def plan_with(ramp: str | None = None):
     """A reverse-step plan; ``ramp`` is the TOML value of [limits] ramp_rate (line 9)."""
     text = plan_text(reverse(stop="-30 V", points=7, breakdown_guard="100 uA"),
-                     device="LH-SW200",
+                     device="LH-QT16",
                      limits=limits(max_voltage="1 V", max_current="50 mA", max_power="50 mW",
                                    ramp_rate=None if ramp is None else Raw(ramp)))
     return parse_plan(text, "p.toml")
@@ -29,7 +29,7 @@ def plan_with(ramp: str | None = None):
 
 @pytest.fixture
 def sim():
-    with SimBench.start("lh-sw200", time_scale=0.0, off_on_disconnect=False) as bench:
+    with SimBench.start("lh-qt16", time_scale=0.0, off_on_disconnect=False) as bench:
         yield bench
 
 
@@ -85,7 +85,7 @@ def test_plan_key_reads_units_and_refuses_absurd_rates():
 
 def test_the_bench_ramps_at_the_plans_rate_and_the_sims_time_scale():
     plan = plan_with('"25 V/s"')
-    with open_bench(plan, simulate="lh-sw200", time_scale=0.0) as bench:
+    with open_bench(plan, simulate="lh-qt16", time_scale=0.0) as bench:
         assert bench.smu.ramp_rate_V_per_s == 25.0 and bench.smu.ramp_time_scale == 0.0
         bench.smu.configure(source="voltage", limit=1e-3)
         bench.smu.output(True)

@@ -11,7 +11,7 @@ import pytest
 from plantext import sweep_plan
 from test_app_run import wait_for
 
-from pnbench.errors import SafetyStop
+from pnbench.errors import PlanError, SafetyStop
 from pnbench.sweeps.onepoint import measure_one
 from pnbench.sweeps.plan import parse_plan
 from pnbench.tui.app.application import PnbenchApp
@@ -25,7 +25,7 @@ SIZES = [(80, 24), (140, 45)]
 
 def plan_file(tmp_path, forward=10, reverse=11, **kw):
     path = tmp_path / "plan.toml"
-    path.write_text(sweep_plan("LH-SW200-t1", forward, reverse, **kw), encoding="utf-8")
+    path.write_text(sweep_plan("LH-QT16-t1", forward, reverse, **kw), encoding="utf-8")
     return path
 
 
@@ -46,7 +46,7 @@ async def test_ui_without_a_plan_opens_the_bundled_example_on_the_plan_screen(si
 
 @pytest.mark.parametrize("size", SIZES)
 async def test_f1_leads_with_the_screens_own_keys_and_readable_view_names(tmp_path, size):
-    app = PnbenchApp(plan_file(tmp_path), simulate="lh-sw200", time_scale=0.0)
+    app = PnbenchApp(plan_file(tmp_path), simulate="lh-qt16", time_scale=0.0)
     async with app.run_test(size=size) as pilot:
         await pilot.pause(0.2)
         assert app.current_mode == "run"
@@ -69,7 +69,7 @@ async def test_f1_leads_with_the_screens_own_keys_and_readable_view_names(tmp_pa
 @pytest.mark.parametrize("size", SIZES)
 async def test_messages_push_the_screen_down_instead_of_covering_plot_or_last_line(
         tmp_path, size):
-    app = PnbenchApp(plan_file(tmp_path), simulate="lh-sw200", time_scale=0.0)
+    app = PnbenchApp(plan_file(tmp_path), simulate="lh-qt16", time_scale=0.0)
     async with app.run_test(size=size) as pilot:
         await pilot.pause(0.2)
         app.notify("a message long enough to wrap on a small terminal " * 2, title="Note")
@@ -85,7 +85,7 @@ async def test_messages_push_the_screen_down_instead_of_covering_plot_or_last_li
 
 
 async def test_ctrl_r_on_the_run_screen_asks_to_start(tmp_path):
-    app = PnbenchApp(plan_file(tmp_path), simulate="lh-sw200", time_scale=0.0)
+    app = PnbenchApp(plan_file(tmp_path), simulate="lh-qt16", time_scale=0.0)
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause(0.2)
         assert app.current_mode == "run"
@@ -99,13 +99,13 @@ async def test_ctrl_r_on_the_run_screen_asks_to_start(tmp_path):
 
 def test_the_start_question_names_a_hazardous_voltage(tmp_path):
     """Threshold of 60 V DC as the plan rules use it (IEC 61010-1, older editions)."""
-    text = sweep_plan("LH-SW200-t1", 5, 5, reverse_stop="-80 V").replace(
+    text = sweep_plan("LH-QT16-t1", 5, 5, reverse_stop="-80 V").replace(
         'max_reverse_voltage = "20 V"',
         'max_reverse_voltage = "90 V"\nacknowledge_hazardous_voltage = "90 V"')
     plan = parse_plan(text, "hv.toml")
-    question = RunControl(None, simulate="lh-sw200").start_question(plan)
+    question = RunControl(None, simulate="lh-qt16").start_question(plan)
     assert "HAZARDOUS VOLTAGE" in question and "90 V" in question
-    safe = parse_plan(sweep_plan("LH-SW200-t1", 5, 5), "safe.toml")
+    safe = parse_plan(sweep_plan("LH-QT16-t1", 5, 5), "safe.toml")
     assert "HAZARDOUS" not in RunControl(None).start_question(safe)
 
 
@@ -133,21 +133,21 @@ def test_the_banner_says_who_switched_the_outputs_off_and_when_nothing_was_conne
 
 
 def test_one_point_by_hand_keeps_to_the_plans_limits_and_ends_off(tmp_path):
-    plan = parse_plan(sweep_plan("LH-SW200-t1", 5, 5), "p.toml")
-    result = measure_one(plan, "0.6 V", "10 mA", simulate="lh-sw200")
+    plan = parse_plan(sweep_plan("LH-QT16-t1", 5, 5), "p.toml")
+    result = measure_one(plan, "0.6 V", "10 mA", simulate="lh-qt16")
     assert result.source == "voltage" and result.outputs_off_confirmed
     assert 0 < result.current_A <= 10e-3 and abs(result.voltage_V - 0.6) < 0.01
     assert "off, confirmed" in result.line()
     with pytest.raises(SafetyStop, match="max_current"):
-        measure_one(plan, "0.6 V", "80 mA", simulate="lh-sw200")  # limit 50 mA
+        measure_one(plan, "0.6 V", "80 mA", simulate="lh-qt16")  # limit 50 mA
     with pytest.raises(SafetyStop, match="voltage limits"):
-        measure_one(plan, "-30 V", "1 mA", simulate="lh-sw200")  # limit 20 V reverse
+        measure_one(plan, "-30 V", "1 mA", simulate="lh-qt16")  # limit 20 V reverse
     with pytest.raises(SafetyStop, match="max_power"):
-        measure_one(plan, "-20 V", "10 mA", simulate="lh-sw200")  # 200 mW > 50 mW
+        measure_one(plan, "-20 V", "10 mA", simulate="lh-qt16")  # 200 mW > 50 mW
 
 
 async def test_bench_screen_identify_answers_and_one_point_is_measured(tmp_path):
-    app = PnbenchApp(plan_file(tmp_path), simulate="lh-sw200", time_scale=0.0)
+    app = PnbenchApp(plan_file(tmp_path), simulate="lh-qt16", time_scale=0.0)
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause(0.2)
         app.switch_mode("bench")
@@ -166,7 +166,7 @@ async def test_bench_screen_identify_answers_and_one_point_is_measured(tmp_path)
 
 @pytest.mark.parametrize("report", [True, False])
 async def test_a_sweep_in_the_app_ends_with_its_report_unless_told_not_to(tmp_path, report):
-    app = PnbenchApp(plan_file(tmp_path, 8, 0), simulate="lh-sw200", time_scale=0.0,
+    app = PnbenchApp(plan_file(tmp_path, 8, 0), simulate="lh-qt16", time_scale=0.0,
                      out_dir=tmp_path / "runs", autostart=True, report=report)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(pilot, lambda: app.state.finished and not app.live.running,
@@ -178,3 +178,13 @@ async def test_a_sweep_in_the_app_ends_with_its_report_unless_told_not_to(tmp_pa
         else:
             await pilot.pause(1.0)
             assert not (app.last_run_dir / "report.html").exists()
+
+
+def test_the_hazardous_voltage_message_has_no_internal_aside():
+    text = sweep_plan("LH-QT16-t1", 5, 5).replace('max_reverse_voltage = "20 V"',
+                                                   'max_reverse_voltage = "80 V"')
+    with pytest.raises(PlanError) as err:
+        parse_plan(text, "hv.toml")
+    message = str(err.value)
+    assert "acknowledge_hazardous_voltage" in message and "60 V" in message
+    assert "from memory" not in message and "…" not in message

@@ -17,7 +17,7 @@ PATIENCE_S = 60.0
 
 def write_plan(folder: Path, points: int, reverse_points: int = 11) -> Path:
     path = folder / "plan.toml"
-    path.write_text(sweep_plan("LH-SW200-t1", points, reverse_points),
+    path.write_text(sweep_plan("LH-QT16-t1", points, reverse_points),
                     encoding="utf-8")
     return path
 
@@ -40,7 +40,7 @@ async def test_start_see_points_and_parameters_pause_then_abort_leaves_outputs_o
         tmp_path):
     # long enough that the abort comes before the end, whenever the first fit arrives
     plan = write_plan(tmp_path, points=300, reverse_points=600)
-    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.3, out_dir=tmp_path / "runs")
+    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.3, out_dir=tmp_path / "runs")
     async with app.run_test(size=(80, 24)) as pilot:
         assert app.current_mode == "run" and app.plan is not None
         await pilot.press("s")  # asks first: a stray key must not switch a source on
@@ -80,7 +80,7 @@ async def test_start_see_points_and_parameters_pause_then_abort_leaves_outputs_o
 
 async def test_quitting_during_a_run_asks_then_aborts_safely(tmp_path):
     plan = write_plan(tmp_path, points=400)
-    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=1.0, out_dir=tmp_path / "runs",
+    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=1.0, out_dir=tmp_path / "runs",
                      autostart=True)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(pilot, lambda: len(app.state.iv) >= 3, "the first points")
@@ -106,8 +106,8 @@ async def test_quitting_during_a_run_asks_then_aborts_safely(tmp_path):
 
 async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts(tmp_path):
     plan = tmp_path / "bad.toml"
-    plan.write_text(sweep_plan("LH-SW200-t1", 0, 11), encoding="utf-8")
-    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs",
+    plan.write_text(sweep_plan("LH-QT16-t1", 0, 11), encoding="utf-8")
+    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.0, out_dir=tmp_path / "runs",
                      autostart=True)
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause(0.2)
@@ -120,7 +120,7 @@ async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts
         named = first_line_number(app.plan_error)
         assert named is not None and editor.cursor_location[0] == named - 1
         assert "points" in editor.document.get_line(named - 1)
-        editor.load_text(sweep_plan("LH-SW200-t1", 5, 11))
+        editor.load_text(sweep_plan("LH-QT16-t1", 5, 11))
         await pilot.press("ctrl+t")
         await pilot.pause(0.1)
         assert app.plan is not None
@@ -139,7 +139,7 @@ async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts
 
 async def test_a_finished_run_reviews_refits_and_exports_a_card_and_report(tmp_path):
     plan = write_plan(tmp_path, points=25)
-    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs",
+    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.0, out_dir=tmp_path / "runs",
                      autostart=True)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(pilot, lambda: app.state.finished and not app.live.running,
@@ -175,14 +175,14 @@ async def test_a_finished_run_reviews_refits_and_exports_a_card_and_report(tmp_p
         assert report.exists(), app.screen._busy
     assert exit_code(app) == 0
     card = target.read_text()
-    assert ".model LH-SW200-t1 D(" in card and "IS=" in card
+    assert ".model LH-QT16-t1 D(" in card and "IS=" in card
     assert (tmp_path / "card.json").exists()  # the refit's model.json beside it
 
 
 async def test_bench_screen_identifies_the_simulated_instruments_and_lists_resources(
         tmp_path):
     plan = write_plan(tmp_path, points=5)
-    app = PnbenchApp(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path / "runs")
+    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.0, out_dir=tmp_path / "runs")
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.press("f2")
         await pilot.pause(0.2)
@@ -201,7 +201,7 @@ async def test_bench_screen_identifies_the_simulated_instruments_and_lists_resou
 
 async def test_an_instrument_that_is_not_there_is_reported_and_the_app_stays_up(tmp_path):
     plan = tmp_path / "plan.toml"
-    text = sweep_plan("LH-SW200-t1", 5, 11).replace(
+    text = sweep_plan("LH-QT16-t1", 5, 11).replace(
         "[limits]", '[instruments.smu]\nrole = "smu"\n'
         'resource = "TCPIP0::127.0.0.1::9::SOCKET"\ntimeout = "0.5 s"\n\n[limits]')
     plan.write_text(text, encoding="utf-8")

@@ -15,7 +15,7 @@ from pathlib import Path
 import pytest
 from plantext import sweep_plan
 
-PLAN = sweep_plan("LH-SW200-hup", 2000)
+PLAN = sweep_plan("LH-QT16-hup", 2000)
 
 PATIENCE_S = 90.0
 
@@ -57,7 +57,7 @@ def test_losing_the_terminal_aborts_the_sweep_with_outputs_off(tmp_path, how):
     plan.write_text(PLAN, encoding="utf-8")
     out = tmp_path / "runs"
     argv = [sys.executable, "-m", "pnbench.tui.cli", "run", str(plan), "--simulate",
-            "lh-sw200", "--time-scale", "1", "--out", str(out)]
+            "lh-qt16", "--time-scale", "1", "--out", str(out)]
     pid, fd = pty.fork()
     if pid == 0:  # the child: the app on the pseudo-terminal
         os.environ["TERM"] = "xterm-256color"

@@ -265,7 +265,7 @@ def test_run_json_steps_fill_planned_counts(tmp_path):
 def test_card_names_are_ones_a_simulator_accepts():
     from pnbench.tui.app.review import card_name
 
-    assert card_name("LH-SW200 sample 3") == "LH-SW200_sample_3"
+    assert card_name("LH-QT16 sample 3") == "LH-QT16_sample_3"
     assert card_name("3rd part") == "D3rd_part"
     assert card_name("  ") == "device"
 

@@ -19,12 +19,12 @@ def test_resume_accepts_headless(tmp_path, capsys):
 
 def test_check_with_simulate_checks_against_the_simulated_bench(tmp_path, capsys):
     plan = tmp_path / "plan.toml"
-    plan.write_text(sweep_plan("LH-SW200-t1", 5, 5), encoding="utf-8")
+    plan.write_text(sweep_plan("LH-QT16-t1", 5, 5), encoding="utf-8")
     assert cli.main(["check", str(plan), "--simulate", "lh-vc510"]) == 0
     assert "fits the simulated bench with lh-vc510" in capsys.readouterr().out
     # a limit beyond the simulated SMU's largest current range (1 A) is refused (exit 2)
     big = tmp_path / "big.toml"
-    big.write_text(sweep_plan("LH-SW200-t1", 5, 5).replace(
+    big.write_text(sweep_plan("LH-QT16-t1", 5, 5).replace(
         'max_current = "50 mA"', 'max_current = "2 A"'), encoding="utf-8")
     assert cli.main(["check", str(big)]) == 0  # the plan on its own is fine
     capsys.readouterr()

@@ -63,12 +63,12 @@ def test_lcr_role_check_reads_and_leaves_bias_off(capsys, backend):
 
 def test_instrument_with_output_on_is_left_alone(capsys, backend):
     with open_session(SMU, backend, timeout_ms=300) as s:
-        s.write(":OUTPut:STATe ON;:SENSe:CURRent:PROTection 0.05")
+        s.write(":OUTPut:STATe ON;:SOURce:CURRent:PROTection:LEVel 0.05")
     code, _, err = probe(capsys, SMU, "--backend", backend, "--role", "smu")
     assert code == 4 and "output is ON" in err
     with open_session(SMU, backend, timeout_ms=300) as s:
         assert s.query(":OUTPut:STATe?") == "ON"  # untouched
-        assert float(s.query(":SENSe:CURRent:PROTection?")) == 0.05
+        assert float(s.query(":SOURce:CURRent:PROTection:LEVel?")) == 0.05
 
 
 def test_instrument_faults_exit_3(capsys, backend):
@@ -96,13 +96,13 @@ def test_bad_dialect_and_options_exit_2(capsys, backend, tmp_path):
                          str(bad))
     assert code == 2 and "bad.toml" in err and "output_ask" in err
     assert probe(capsys, "--role", "smu")[0] == 2
-    assert probe(capsys, SMU, "--simulate", "lh-sw200")[0] == 2
+    assert probe(capsys, SMU, "--simulate", "lh-qt16")[0] == 2
 
 
 def test_simulated_bench_both_roles(capsys):
-    code, out, _ = probe(capsys, "--simulate", "lh-sw200", "--role", "smu", "--json")
+    code, out, _ = probe(capsys, "--simulate", "lh-qt16", "--role", "smu", "--json")
     assert code == 0
     report = json.loads(out)
     assert report["nodelay"] is True and report["checks"]["output"] == "off"
-    code, out, _ = probe(capsys, "--simulate", "lh-sw200", "--role", "lcr")
+    code, out, _ = probe(capsys, "--simulate", "lh-qt16", "--role", "lcr")
     assert code == 0 and "works for the LCR role" in out

@@ -256,7 +256,7 @@ def test_plan_without_the_instruments_it_needs_exits_2_before_any_run_folder(tmp
     a run folder is made (no failed run left behind, no instrument involved)."""
     from importlib import resources
 
-    plan = resources.files("pnbench.sim_configs").joinpath("plans/lh-sw200.toml")
+    plan = resources.files("pnbench.sim_configs").joinpath("plans/lh-qt16.toml")
     out = tmp_path / "runs"
     assert main(["run", str(plan), "--headless", "--out", str(out)]) == 2
     assert "has no 'lcr' entry" in capsys.readouterr().err

@@ -124,7 +124,12 @@ def _probe_one(resource: str, backend: str, timeout_ms: int, dialect, role: str 
 
 
 #: The reading forms' two quantities, with their units, for the probe's lines.
-FORM_QUANTITIES = {"cpgp": (("Cp", "F"), ("Gp", "S")), "csrs": (("Cs", "F"), ("Rs", "ohm"))}
+FORM_QUANTITIES = {
+    "parallel": (("Cp", "F"), ("Gp", "S")), "parallel_r": (("Cp", "F"), ("Rp", "ohm")),
+    "parallel_d": (("Cp", "F"), ("D", "")), "series": (("Cs", "F"), ("Rs", "ohm")),
+    "series_d": (("Cs", "F"), ("D", "")), "admittance": (("G", "S"), ("B", "S")),
+    "impedance": (("R", "ohm"), ("X", "ohm")),
+}
 
 
 def check_text(key: str, value) -> str:

@@ -32,7 +32,7 @@ def add_bench_options(parser: argparse.ArgumentParser, time_scale: float = 1.0) 
     parser.set_defaults(default_time_scale=time_scale)
     parser.add_argument("--simulate", metavar="DUT.toml",
                         help="use the simulated bench with this device file (or the name "
-                        "of a bundled one, e.g. lh-sw200) instead of the plan's instruments")
+                        "of a bundled one, e.g. lh-qt16) instead of the plan's instruments")
     parser.add_argument("--time-scale", type=number(0.0, TIME_SCALE_MAX), default=None,
                         metavar="X",
                         help="with --simulate: 0 = as fast as possible, 1 = the "
