@@ -19,6 +19,7 @@ import math
 
 import numpy as np
 
+from pnbench.modeling.fitnoise import Noise, estimate_noise
 from pnbench.modeling.fitresult import FitResult, correlation_from_covariance, empty_result
 from pnbench.modeling.junction import thermal_voltage
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
@@ -94,13 +95,32 @@ def _breakdown(x, mag, ibv):
     return bv, math.sqrt(var) if var >= 0 else math.inf, b, len(x)
 
 
+class _OneLinearChannel:
+    channels = ("lin",)
+
+
 def _leakage_line(x, mag, pre):
-    """Weighted straight line |I| = I0 + G*|V| (relative weights) over ``pre``."""
+    """Weighted straight line |I| = I0 + G*|V| over ``pre``: relative weights first, then
+    (six points or more) weights from the noise the residuals show, percent of reading
+    plus a floor (fitnoise): at pA currents the floor dominates, and relative weights
+    would trust the smallest, noisiest readings most."""
     if np.count_nonzero(pre) < 3:
         return None
-    y = mag[pre]
+    xx, y = x[pre], mag[pre]
     w = 1.0 / np.maximum(np.abs(y), 1e-3 * np.median(np.abs(y)) + 1e-300) ** 2
-    return _line(x[pre], y, w)
+    line = _line(xx, y, w)
+    if y.size < 6:
+        return line
+    noise = Noise((1.0,), (0.0,))
+    for _ in range(2):
+        fit = line[0] + line[1] * xx
+        noise = estimate_noise(_OneLinearChannel, y[:, None], fit[:, None],
+                               np.ones((y.size, 1), dtype=bool), noise)
+        sig = noise.sigma(np.abs(fit)[:, None])[:, 0]
+        if not np.all(np.isfinite(sig) & (sig > 0)):
+            break
+        line = _line(xx, y, 1.0 / sig**2)
+    return line
 
 
 def _analyse(x, mag, ibv, vt):

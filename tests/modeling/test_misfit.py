@@ -118,3 +118,23 @@ def test_the_run_is_judged_against_the_stated_instrument_noise():
         1 + 1e-2 * rng.standard_normal(v.size))}}, noise=noise)
     assert good.results["iv_forward"].extras["lack_of_fit"]["misfit"] is False
     assert "exceed the stated instrument noise" in bad.results["iv_forward"].message
+
+
+def test_rsh_from_pa_level_reverse_data_is_unbiased_with_honest_sigma():
+    """A 150 GOhm shunt read from 3..200 pA of reverse current under 1 pA of noise: over
+    60 draws the mean is within 2 % and the rms of (RSH - truth)/sigma within 0.7..1.4
+    (the line is weighted by the noise its residuals show, not relatively)."""
+    from pnbench.modeling import fit_reverse
+
+    p = DiodeParams(IS=1e-15, N=1.0, RSH=1.5e11)
+    v = np.linspace(-0.5, -30.0, 40)
+    i0 = np.asarray(junction.current(v, p))
+    rng = np.random.default_rng(3)
+    vals, zs = [], []
+    for _ in range(60):
+        r = fit_reverse.fit_reverse(v, i0 + (1e-3 * np.abs(i0) + 1e-12)
+                                    * rng.standard_normal(v.size))
+        vals.append(r.values["RSH"])
+        zs.append((r.values["RSH"] - p.RSH) / r.sigmas["RSH"])
+    assert abs(np.mean(vals) / p.RSH - 1) < 0.02
+    assert 0.7 < math.sqrt(np.mean(np.square(zs))) < 1.4
