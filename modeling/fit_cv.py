@@ -408,7 +408,7 @@ class StreamSpec:
     x_width = 2
     min_points = MIN_CV_POINTS
 
-    def __init__(self, kind: str, temperature_K: float, with_fixture: bool = False,
+    def __init__(self, kind: str, temperature_K: float, with_fixture: bool | None = None,
                  fixed: dict[str, float] | None = None, fc: float = 0.5):
         self.kind = kind
         self.fixed = dict(fixed) if fixed else None
@@ -445,6 +445,6 @@ class StreamSpec:
         return held_extras(self.model, self.fixed) if self.kind == "admittance" else {}
 
 
-def stream_spec(kind: str, temperature_K: float, *, with_fixture: bool = False,
+def stream_spec(kind: str, temperature_K: float, *, with_fixture: bool | None = None,
                 fixed: dict[str, float] | None = None) -> StreamSpec:
     return StreamSpec(kind, temperature_K, with_fixture, fixed)

@@ -391,7 +391,7 @@ class IncrementalFitter:
     def __init__(self, kind: str, *, temperature_K: float = DEFAULT_TEMPERATURE_K,
                  target_rel: float = 0.01, noise: tuple[float, float] | None = None,
                  reference_V: float | None = None, ibv_A: float | None = None,
-                 with_fixture: bool = False, fixed: dict[str, float] | None = None,
+                 with_fixture: bool | None = None, fixed: dict[str, float] | None = None,
                  growth: float = 1.25):
         if kind not in FITTER_KINDS:
             raise ValueError(f"unknown fit kind {kind!r}; known: {', '.join(FITTER_KINDS)}")

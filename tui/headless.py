@@ -23,7 +23,7 @@ LINE_INTERVAL_S = 15.0
 REDRAW_S = 0.25
 BAR = 24
 _UNITS = {"IS": "A", "RS": "ohm", "RSH": "ohm", "CJO": "F", "VJ": "V", "TT": "s", "BV": "V",
-          "IBV": "A"}
+          "IBV": "A", "CFIX": "F"}
 
 
 def format_duration(seconds: float) -> str:
@@ -42,7 +42,8 @@ def format_parameter(name: str, entry: dict) -> str:
     text = format_quantity(value, _UNITS.get(name, ""), 3) if name in _UNITS else f"{value:.4g}"
     if sigma is not None and value:
         text += f" ±{abs(sigma / value):.1%}"
-    return f"{name} = {text}{' ✓' if entry.get('settled') else ''}"
+    label = "fixture CFIX" if name == "CFIX" else name  # the bench's, not the device's
+    return f"{label} = {text}{' ✓' if entry.get('settled') else ''}"
 
 
 def first_clause(message: str) -> str:
