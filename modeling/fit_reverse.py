@@ -89,9 +89,11 @@ def _breakdown(x, mag, ibv):
     if not (b > 0 and math.isfinite(b)):
         return None
     bv = (math.log(ibv) - a) / b
-    # delta method: BV = (ln IBV - a)/b
+    # delta method: BV = (ln IBV - a)/b; between two readings only, the crossing lies
+    # somewhere in their span: the sigma of a uniform spread over it, span/sqrt(12)
     grad = np.array([-1.0 / b, -(math.log(ibv) - a) / b**2])
-    var = float(grad @ cov @ grad) if np.all(np.isfinite(cov)) else math.inf
+    var = float(grad @ cov @ grad) if np.all(np.isfinite(cov)) else \
+        float(x[-1] - x[0]) ** 2 / 12.0
     return bv, math.sqrt(var) if var >= 0 else math.inf, b, len(x)
 
 
@@ -217,8 +219,8 @@ def fit_reverse(voltage_V, current_A, *, compliance=None,
         names.append("BV")
         values["BV"], sig["BV"] = bv, bv_sd
         extras["BV_points"] = npts
-        if not math.isfinite(bv_sd):
-            notes.append("BV read between two points only (no uncertainty)")
+        if npts == 2:
+            notes.append("BV read between two points only (sigma from their spacing)")
     used = np.zeros(n, dtype=bool)
     if line is not None:
         _, g, cov, _ = line
