@@ -413,7 +413,7 @@ class StreamSpec:
         self.kind = kind
         self.fixed = dict(fixed) if fixed else None
         self.model = (DepletionModel(fc, with_fixture) if kind == "cv"
-                      else AdmittanceModel(temperature_K, fc, with_fixture))
+                      else AdmittanceModel(temperature_K, fc, bool(with_fixture)))
         self.v_cut = math.inf
 
     def rows(self, v, i, f, c, g, comp):
