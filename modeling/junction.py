@@ -58,15 +58,13 @@ def saturation_current(params: DiodeParams, temperature_K: float,
 
 def params_at_temperature(params: DiodeParams, temperature_K: float,
                           nominal_K: float = DEFAULT_TEMPERATURE_K) -> DiodeParams:
-    """``params`` with IS moved from nominal_K to temperature_K; nothing else changes.
-
-    Simulators also move VJ, CJO and (with their temperature coefficients) BV and RS;
-    this model does not, so away from nominal_K capacitances and breakdown stay at
-    their nominal values.
+    """``params`` moved from nominal_K (TNOM) to temperature_K with the reference
+    simulator's full temperature model (modeling.temperature): IS with EG and XTI, VJ and
+    CJO through the band gap, RS and BV with their coefficients TRS, TRS2 and TCV.
     """
-    if temperature_K == nominal_K:
-        return params
-    return params.with_values(IS=saturation_current(params, temperature_K, nominal_K))
+    from pnbench.modeling import temperature
+
+    return temperature.params_at(params, temperature_K, nominal_K)
 
 
 def _shaped(x, shape: tuple):

@@ -23,13 +23,19 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from pnbench.errors import DataFileError
-from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, UNITS, DiodeParams
+from pnbench.modeling.params import (
+    DEFAULT_TEMPERATURE_K,
+    TEMPERATURE_COEFFICIENTS,
+    UNITS,
+    DiodeParams,
+)
 
 #: Offset between kelvin and degrees Celsius.
 _ZERO_C_K = 273.15
 
 #: Order of parameters on a card (the order simulators document them in).
-CARD_ORDER = ("IS", "N", "RS", "CJO", "VJ", "M", "FC", "TT", "BV", "IBV", "EG", "XTI")
+CARD_ORDER = ("IS", "N", "RS", "CJO", "VJ", "M", "FC", "TT", "BV", "IBV", "EG", "XTI",
+              "TRS", "TRS2", "TCV")
 
 #: Other spellings of the same parameters that simulators accept on a diode card.
 CARD_ALIASES = {"CJ0": "CJO", "CJ": "CJO", "PB": "VJ", "MJ": "M", "JS": "IS"}
@@ -43,7 +49,7 @@ _SUFFIX = {"f": 1e-15, "p": 1e-12, "n": 1e-9, "u": 1e-6, "m": 1e-3, "k": 1e3,
 _NUMBER = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)([a-zA-Z]*)$")
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_.+\-]*$")
 _COMMENT_VALUE = re.compile(
-    r"^\*\s*([A-Za-z]+)\s*=\s*(\S+)(?:\s+[^\s+]*)?(?:\s*\+-\s*(\S+))?", re.ASCII
+    r"^\*\s*([A-Za-z][A-Za-z0-9]*)\s*=\s*(\S+)(?:\s+[^\s+]*)?(?:\s*\+-\s*(\S+))?", re.ASCII
 )
 _MARKER = "* pnbench model card"
 
@@ -121,7 +127,8 @@ class ModelSet:
                     temperature_K: float = DEFAULT_TEMPERATURE_K,
                     extras: dict[str, Any] | None = None) -> ModelSet:
         """The finite values of ``params`` (or only ``names``), without sigmas."""
-        chosen = names if names is not None else tuple(UNITS)
+        chosen = names if names is not None else tuple(
+            n for n in UNITS if n not in TEMPERATURE_COEFFICIENTS or getattr(params, n) != 0)
         values = {n: getattr(params, n) for n in chosen if math.isfinite(getattr(params, n))}
         return cls(values=values, temperature_K=temperature_K, extras=extras or {})
 

@@ -25,7 +25,13 @@ UNITS: dict[str, str] = {
     "IBV": "A",
     "EG": "eV",
     "XTI": "",
+    "TRS": "1/K",
+    "TRS2": "1/K^2",
+    "TCV": "V/K",
 }
+
+#: Temperature coefficients (modeling.temperature): 0 means the card does not give them.
+TEMPERATURE_COEFFICIENTS = ("TRS", "TRS2", "TCV")
 
 #: Room temperature used when nothing else says (27 °C, the nominal temperature that
 #: common circuit simulators use).
@@ -37,7 +43,9 @@ class DiodeParams:
     """A complete diode description for simulation (every field has a value).
 
     IS [A], N [-], RS [ohm], RSH [ohm, inf = no shunt], CJO [F], VJ [V], M [-], FC [-],
-    TT [s], BV [V, inf = no breakdown], IBV [A], EG [eV], XTI [-].
+    TT [s], BV [V, inf = no breakdown], IBV [A], EG [eV], XTI [-], and the temperature
+    coefficients of RS and BV as the reference simulator names them: TRS [1/K],
+    TRS2 [1/K^2], TCV [V/K] (modeling.temperature; 0 = RS and BV do not move).
     """
 
     IS: float = 1e-14
@@ -53,6 +61,9 @@ class DiodeParams:
     IBV: float = 1e-3
     EG: float = 1.11
     XTI: float = 3.0
+    TRS: float = 0.0
+    TRS2: float = 0.0
+    TCV: float = 0.0
 
     def __post_init__(self) -> None:
         for f in fields(self):

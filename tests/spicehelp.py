@@ -278,3 +278,25 @@ def ac_admittance(ngspice: str, model, bias_voltages: Sequence[float],
         return y
 
     return _robust(solve, v, options, fallback, fallback_log)
+
+
+def operating_point(ngspice: str, model, bias_voltages: Sequence[float],
+                    temperature_C: float = 27.0, *, tnom_C: float = 27.0,
+                    gmin: float = NGSPICE_GMIN, options: dict[str, float] | None = None,
+                    timeout_s: float | None = None) -> dict[str, np.ndarray]:
+    """The diode's own operating-point quantities from ngspice's ``.op``, per bias:
+    ``vd`` (junction voltage [V]), ``id`` [A], ``gd`` (junction conductance [S], GMIN
+    included, as ngspice reports it) and ``cd`` (depletion plus diffusion capacitance
+    [F]); read as ``@dK[name]``. No fallback: bias points near a breakdown knee are not
+    what this is for.
+    """
+    v = np.asarray(bias_voltages, dtype=float).ravel()
+    names = ("vd", "id", "gd", "cd")
+    control = ["op"]
+    for k in range(v.size):
+        control += [f"let {n}{k} = @d{k}[{n}]" for n in names]
+    control.append("write op.raw " + " ".join(f"{n}{k}" for k in range(v.size)
+                                             for n in names))
+    netlist = _netlist(model, v, temperature_C, tnom_C, gmin, options, False, control)
+    (vectors,) = _run(ngspice, netlist, ["op.raw"], _timeout(v.size, timeout_s))
+    return {n: np.array([vectors[f"{n}{k}"][0] for k in range(v.size)]) for n in names}

@@ -5,7 +5,7 @@ tables are pnbench's own and every key has a documented default (`KEYS`, also pr
 each bundled file's header):
 
     [device]   part, lab, description, material, junction, area, temperature_K, tnom_K
-    [diode]    IS N RS RSH CJO VJ M FC TT BV IBV EG XTI (missing: DiodeParams defaults;
+    [diode]    IS N RS RSH CJO VJ M FC TT BV IBV EG XTI TRS TRS2 TCV (missing: defaults;
                EG and XTI default from material and junction)
     [smu]      identity, seed, ranges, noise (percent of reading + percent of range),
                gain errors, lead resistance
@@ -14,10 +14,10 @@ each bundled file's header):
     [[fault]]  faults armed when the bench starts (same kinds as SimBench.inject)
 
 The device on the bench is the card scaled by `area` (IS, IBV and CJO times area; RS and
-RSH divided by it, as simulators treat their AREA factor) and IS moved from `tnom_K` to
-`temperature_K` with the simulator law of docs/physics.md §3
-(`junction.params_at_temperature`). Other parameters do not
-change with temperature here. Anything wrong raises DeviceFileError naming the file and key.
+RSH divided by it, as simulators treat their AREA factor) and moved from `tnom_K` to
+`temperature_K` with the reference simulator's temperature equations (docs/physics.md §3;
+`modeling.temperature`: IS with EG and XTI, VJ and CJO through the band gap, RS and BV
+with TRS, TRS2 and TCV). Anything wrong raises DeviceFileError naming the file and key.
 """
 
 from __future__ import annotations

@@ -156,7 +156,8 @@ def key_table() -> str:
         lines.append(f"[{table}]")
         for k in keys:
             lines.append(f"  {k.name} = {k.default!r}  # {k.doc}")
-    lines.append("[diode]  IS N RS RSH CJO VJ M FC TT BV IBV EG XTI (model-card names, SI)")
+    lines.append("[diode]  IS N RS RSH CJO VJ M FC TT BV IBV EG XTI TRS TRS2 TCV "
+                 "(model-card names, SI)")
     lines.append("[[fault]]")
     for name, (_typ, default, doc, kinds) in FAULT_KEYS.items():
         lines.append(f"  {name} = {default!r}  # {doc}; kinds: {', '.join(kinds)}")

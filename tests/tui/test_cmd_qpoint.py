@@ -72,7 +72,8 @@ def test_temperature_moves_is_and_is_always_printed(model_json, capsys):
     p = junction.params_at_temperature(MODEL.to_params(), 320.0, 300.15)
     assert doc["temperature_K"] == 320.0
     assert doc["bias_current_A"] == pytest.approx(junction.current(0.6, p, 320.0), rel=1e-12)
-    assert any("only IS" in note for note in doc["notes"])
+    assert any("temperature equations" in note for note in doc["notes"])
+    assert any("no EG or XTI" in note for note in doc["notes"])
     assert cli.main(["qpoint", str(model_json), "--bias-voltage", "0.6"]) == 0
     assert "300.15 K" in capsys.readouterr().out
 

@@ -7,7 +7,10 @@ MODEL is a model.json, a model-card file (``.model NAME D(...)``) or a run folde
 holds model.json. Quantities take SI prefixes and an optional unit ("650m", "2.5mA",
 "1MHz", "300 K"; a negative value with a prefix as ``--bias-voltage=-500m``, since
 argparse takes "-500m" for an option). The temperature defaults to the model's; away
-from it IS moves with EG and XTI (docs/physics.md §3) and the other values stay as they are.
+from it the whole card moves with the reference simulator's temperature equations
+(docs/physics.md §3; modeling.temperature: IS with EG and XTI, VJ and CJO through the
+band gap, RS and BV with TRS, TRS2 and TCV), so rd, Cj, Cd and Y(f) are those a
+simulator gives there.
 """
 
 from __future__ import annotations
@@ -139,11 +142,19 @@ def _evaluate(model, t, bias_voltage_V, bias_current_A, frequencies_Hz, ac_level
     from pnbench.modeling import aclevel, junction, smallsignal
     from pnbench.modeling.modelset import OTHER_CARD_PARAMETERS
 
-    params = junction.params_at_temperature(model.to_params(), t, model.temperature_K)
+    try:
+        params = junction.params_at_temperature(model.to_params(), t, model.temperature_K)
+    except ValueError as exc:
+        raise BadInput(f"--temperature {t:g} K: {exc}") from None
     notes = []
     if t != model.temperature_K:
-        notes.append(f"model values hold at {model.temperature_K:g} K; at {t:g} K only IS "
-                     f"is moved (EG, XTI), CJO, VJ, BV and RS are kept")
+        notes.append(f"model values hold at {model.temperature_K:g} K (TNOM); moved to "
+                     f"{t:g} K with the simulator's temperature equations (IS with EG and "
+                     f"XTI, VJ and CJO through the band gap, RS and BV with TRS and TCV)")
+        absent = [n for n in ("EG", "XTI") if n not in model.values]
+        if absent:
+            notes.append(f"the model has no {' or '.join(absent)}: the simulator defaults "
+                         f"(EG 1.11 eV, XTI 3, silicon pn) are used")
     other = model.extras.get(OTHER_CARD_PARAMETERS) or {}
     if other:
         notes.append("card parameters not modeled, ignored: " + ", ".join(sorted(other)))
