@@ -1,7 +1,11 @@
-"""`pnbench fit`: extract the diode model from a data file or a run folder.
+"""`pnbench fit`: extract the diode model from data files or a run folder.
 
-    pnbench fit FILE_OR_RUN_DIR [--kind iv|cv|auto] [--temperature K] [--area M2]
-                [--ibv A] [--leakage-at V] [--fixture] [--json]
+    pnbench fit FILE_OR_RUN_DIR [FILE ...] [--kind iv|cv|auto] [--temperature K]
+                [--area M2] [--ibv A] [--leakage-at V] [--fixture] [--tnom K] [--json]
+
+Several files are fitted into one model, each at its own temperature (its
+``temperature_K`` metadata, else ``--temperature``); with two temperatures or more EG
+and XTI are extracted too (fit_over, modeling.fit_temperature).
 
 The file holds the CSV columns of docs/run-folder.md (``voltage_V,current_A`` for I–V;
 ``voltage_V,frequency_Hz,capacitance_F[,conductance_S]`` for C–V); ``# key = value``
@@ -17,13 +21,18 @@ HELP = "fit the diode model (IS N RS RSH BV CJO VJ M TT) to a data file or a run
 
 
 def add_arguments(parser) -> None:
-    parser.add_argument("source", metavar="FILE_OR_RUN_DIR",
-                        help="CSV data file or run folder (its points.csv)")
+    parser.add_argument("source", metavar="FILE_OR_RUN_DIR", nargs="+",
+                        help="CSV data file or run folder (its points.csv); several files "
+                             "are fitted into one model, each at its own temperature")
     parser.add_argument("--kind", choices=("iv", "cv", "auto"), default="auto",
                         help="which data to fit (default: whatever the columns hold)")
     parser.add_argument("--temperature", metavar="K",
-                        help="device temperature in kelvin (default: the file's "
-                             "temperature_K, the run's, else 300.15 K)")
+                        help="device temperature in kelvin (one file: overrides the "
+                             "file's temperature_K; several files: for those without it; "
+                             "default 300.15 K)")
+    parser.add_argument("--tnom", metavar="K",
+                        help="with several temperatures: the temperature the model's values "
+                             "hold at (TNOM; default: the measured one nearest 300.15 K)")
     parser.add_argument("--area", metavar="M2",
                         help="junction area in m^2 for the Mott-Schottky doping, e.g. 1e-6")
     parser.add_argument("--ibv", metavar="A",
@@ -48,7 +57,12 @@ def run(args) -> int:
     from pnbench.sweeps.datafile import read_data
     from pnbench.sweeps.quantities import parse_quantity
 
-    data = read_data(args.source, args.kind)
+    if len(args.source) > 1 or args.tnom is not None:
+        from pnbench.tui.commands import fit_over
+
+        return fit_over.run(args)
+    source = args.source[0]
+    data = read_data(source, args.kind)
     notes = list(data.notes)
     if args.temperature is not None:
         temperature = parse_quantity(args.temperature, "K", what="--temperature",
@@ -67,7 +81,7 @@ def run(args) -> int:
     if ibv is not None and not ibv > 0:
         raise DataFileError(f"--ibv must be > 0 A, got {args.ibv!r}")
     if ibv is None:
-        ibv = _run_breakdown_current(args.source, notes)
+        ibv = _run_breakdown_current(source, notes)
     leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at", low=-1e4, high=1e4)
             if args.leakage_at else None)
     kinds = data.kinds if args.kind == "auto" else (args.kind,)
@@ -119,27 +133,38 @@ def _json_default(value):
     raise TypeError(f"not JSON-able: {type(value).__name__}")
 
 
+def parameter_lines(model) -> list[str]:
+    """One line per parameter of a ModelSet: value, sigma, relative sigma."""
+    from pnbench.modeling.params import UNITS
+    from pnbench.sweeps.quantities import format_quantity
+
+    lines = [f"  {'parameter':<10}{'value':>16}{'sigma':>16}{'rel. sigma':>12}"]
+    for name in UNITS:
+        if name not in model.values:
+            continue
+        value, sigma, unit = model.values[name], model.sigma(name), UNITS[name]
+        plain = not unit or "/" in unit  # per-kelvin coefficients: plain numbers
+        val = f"{value:.6g}" if plain else format_quantity(value, unit)
+        if sigma is None:
+            sig, rel = "stated" if name == "IBV" else "-", ""
+        else:
+            sig = f"{sigma:.3g}" if plain else format_quantity(sigma, unit, prec=2)
+            rel = f"{100 * sigma / abs(value):.3g} %" if value else ""
+        if plain and unit:
+            val, sig = f"{val} {unit}", (f"{sig} {unit}" if sigma is not None else sig)
+        lines.append(f"  {name:<10}{val:>16}{sig:>16}{rel:>12}")
+    return lines
+
+
 def format_table(result, data, temperature, notes, math) -> str:
     """The human-readable report: one line per parameter, then what each fit said."""
-    from pnbench.modeling.params import UNITS
     from pnbench.sweeps.quantities import format_quantity
 
     counts = ", ".join(f"{int((data.row_kind == k).sum())} {k.upper()} points"
                        for k in data.kinds)
     lines = [f"{data.path}: {counts}, {temperature:.6g} K", ""]
-    lines.append(f"  {'parameter':<10}{'value':>16}{'sigma':>16}{'rel. sigma':>12}")
     model = result.model
-    for name in UNITS:
-        if name not in model.values:
-            continue
-        value, sigma, unit = model.values[name], model.sigma(name), UNITS[name]
-        val = format_quantity(value, unit) if unit else f"{value:.6g}"
-        if sigma is None:
-            sig, rel = "stated" if name == "IBV" else "-", ""
-        else:
-            sig = format_quantity(sigma, unit, prec=2) if unit else f"{sigma:.3g}"
-            rel = f"{100 * sigma / abs(value):.3g} %" if value else ""
-        lines.append(f"  {name:<10}{val:>16}{sig:>16}{rel:>12}")
+    lines += parameter_lines(model)
     extras = model.extras
     if "leakage" in extras:
         leak = extras["leakage"]

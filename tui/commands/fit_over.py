@@ -1,0 +1,104 @@
+"""`pnbench fit FILE [FILE ...]`: several files into one model, each at its temperature.
+
+Each file is read as `pnbench fit` reads one (sweeps.datafile); its temperature is its
+``temperature_K`` metadata (a run folder's run.json), else ``--temperature``, else
+300.15 K with a note. Files at the same temperature are fitted together (any mix of I–V
+and C–V); with two temperatures or more modeling.fit_temperature fits EG and XTI (and
+TRS, TCV, N's drift when the data show them) and the model holds its values at TNOM.
+"""
+
+from __future__ import annotations
+
+
+def run(args) -> int:
+    import json
+
+    from pnbench.errors import DataFileError
+    from pnbench.modeling.fit_temperature import fit_over_temperature
+    from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
+    from pnbench.sweeps.datafile import read_data
+    from pnbench.sweeps.quantities import parse_quantity
+
+    default_t = None
+    if args.temperature is not None:
+        default_t = parse_quantity(args.temperature, "K", what="--temperature")
+        if not default_t > 0:
+            raise DataFileError(f"--temperature must be > 0 K, got {args.temperature!r}")
+    tnom = None
+    if args.tnom is not None:
+        tnom = parse_quantity(args.tnom, "K", what="--tnom")
+        if not tnom > 0:
+            raise DataFileError(f"--tnom must be > 0 K, got {args.tnom!r}")
+    area = parse_quantity(args.area, "m2", what="--area") if args.area else None
+    if area is not None and not area > 0:
+        raise DataFileError(f"--area must be > 0 m^2, got {args.area!r}")
+    ibv = parse_quantity(args.ibv, "A", what="--ibv") if args.ibv else None
+    if ibv is not None and not ibv > 0:
+        raise DataFileError(f"--ibv must be > 0 A, got {args.ibv!r}")
+    leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at")
+            if args.leakage_at else None)
+    notes: list[str] = []
+    sets, files = [], []
+    for source in args.source:
+        data = read_data(source, args.kind)
+        notes += [f"{data.path}: {n}" for n in data.notes]
+        if data.temperature_K is not None:
+            t = data.temperature_K
+        elif default_t is not None:
+            t = default_t
+        else:
+            t = DEFAULT_TEMPERATURE_K
+            notes.append(f"{data.path}: no temperature_K in the file or --temperature: "
+                         f"assumed {t} K (27 C)")
+        if area is None and data.area_m2 is not None:
+            area = data.area_m2
+        kinds = data.kinds if args.kind == "auto" else (args.kind,)
+        fit_data = {k: data.select(k) for k in kinds if data.select(k) is not None}
+        sets.append((t, fit_data))
+        files.append((data, t))
+    try:
+        fit = fit_over_temperature(sets, tnom_K=tnom, area_m2=area, ibv_A=ibv,
+                                   reference_V=leak,
+                                   extras={"sources": [str(d.path) for d, _ in files]})
+    except ValueError as exc:
+        raise DataFileError(f"{', '.join(args.source)}: {exc}") from None
+    if not any(r.success for _, jf in fit.per_temperature for r in jf.results.values()):
+        reasons = "; ".join(f"{t:g} K: {jf.message}" for t, jf in fit.per_temperature)
+        raise DataFileError(f"{', '.join(args.source)}: nothing could be fitted ({reasons})")
+    if args.json:
+        from pnbench.tui.commands.fit import _json_default
+
+        print(json.dumps(fit.model.to_json_dict(), indent=2, default=_json_default))
+        return 0
+    print(format_table(fit, files, notes))
+    return 0
+
+
+def format_table(fit, files, notes) -> str:
+    """Files and their temperatures, the model at TNOM, the per-temperature values."""
+    from pnbench.tui.commands.fit import parameter_lines
+
+    lines = []
+    for data, t in files:
+        counts = ", ".join(f"{int((data.row_kind == k).sum())} {k.upper()} points"
+                           for k in data.kinds)
+        lines.append(f"{data.path}: {counts}, {t:.6g} K")
+    model = fit.model
+    lines += ["", f"model at TNOM = {model.temperature_K:.6g} K", *parameter_lines(model)]
+    corr = fit.result.extras.get("EG_XTI_correlation")
+    if corr is not None:
+        lines.append(f"  correlation of EG and XTI: {corr:+.4f}")
+    drift = model.extras.get("N_drift")
+    if drift is not None:
+        lines.append(f"  N drift: {drift['slope_per_K']:.3g} +- {drift['sigma_per_K']:.2g} "
+                     f"per K" + (" (significant)" if drift["significant"] else ""))
+    lines += ["", f"  {'T [K]':>8}{'IS [A]':>14}{'N':>10}{'RS [ohm]':>12}{'BV [V]':>10}"]
+    for row in model.extras.get("temperatures", []):
+        cells = "".join(f"{format(row[name], '.4g') if name in row else '-':>{width}}"
+                        for name, width in (("IS", 14), ("N", 10), ("RS", 12), ("BV", 10)))
+        lines.append(f"  {row['temperature_K']:>8.5g}{cells}")
+    lines += ["", f"  over temperature: {fit.result.message}"]
+    for t, jf in fit.per_temperature:
+        lines.append(f"  {t:g} K: {jf.message}")
+    lines += [f"  note: {n}" for n in (*model.extras.get("temperature_notes", []), *notes)]
+    return "\n".join(lines)
