@@ -8,7 +8,7 @@ Order of work:
    ln IS and N at TNOM, RS at TNOM with TRS when RS shows at two temperatures or more,
    EG, and XTI when three temperatures or more separate it from EG. Residuals are in
    ln I, each temperature weighted by the scatter its own fit left; sigmas and the
-   correlation come from the Jacobian, cov = s^2 (J^T J)^-1 (PHYSICS.md section 6).
+   correlation come from the Jacobian, cov = s^2 (J^T J)^-1 (docs/physics.md §9).
    Two temperatures give two values of IS for three unknowns (IS, EG, XTI): XTI is then
    held at the simulator's default 3 and left off the model (so a simulator uses the
    same 3), and the message says so.

@@ -71,7 +71,7 @@ def test_clean_rectifier_gives_eg_xti_and_coefficients(rectifier_sets, ngspice):
         assert m.values[name] == pytest.approx(getattr(at_tnom, name), rel=2e-3), name
     assert m.sigma("EG") > 0 and m.sigma("XTI") > 0
     corr = fit.result.extras["EG_XTI_correlation"]
-    assert -1.0 <= corr < -0.9  # EG and XTI trade off over a 150 K span (PHYSICS.md §7)
+    assert -1.0 <= corr < -0.9  # EG and XTI trade off over a 150 K span (docs/physics.md §3)
     assert [row["temperature_K"] for row in m.extras["temperatures"]] == list(TEMPERATURES_K)
     # The card reproduces the device in ngspice at every measured temperature.
     # (The RSH the fit found is ngspice's GMIN, ~1e15 ohm: not a card parameter.)
