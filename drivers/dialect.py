@@ -2,7 +2,8 @@
 
 A dialect file has a ``[dialect]`` table (name, format, separator, terminations and the
 words for on/off), a ``[common]`` table (IEEE 488.2 commands and the error-queue query)
-and one table per role it serves (``[smu]``, ``[lcr]``; a file may leave a role out).
+and one table per role it serves (``[smu]``, ``[lcr]``, ``[stage]`` for a thermal stage;
+a file may leave a role out).
 Every key of a table that is present must be given; an empty string means "this
 instrument has no such command" where that is allowed. Loading checks every key, its type,
 its placeholders and whether it is a query, and names the file and key of any fault.
@@ -81,6 +82,24 @@ class LcrCommands:
 
 
 @dataclass(frozen=True)
+class StageCommands:
+    """A thermal stage (chuck, oven, cryostat controller); temperatures in
+    ``temperature_unit`` ("K" or "C"), the ramp rate in that unit per minute."""
+
+    temperature_unit: str
+    set_point: str
+    set_point_query: str
+    measure: str
+    ramp_rate: str
+    control: str
+    control_query: str
+
+
+#: Units a stage dialect may state its temperatures in.
+STAGE_UNITS = ("K", "C")
+
+
+@dataclass(frozen=True)
 class Dialect:
     """A validated dialect. `source` names the file it came from."""
 
@@ -95,6 +114,7 @@ class Dialect:
     smu: SmuCommands | None
     lcr: LcrCommands | None
     source: str
+    stage: StageCommands | None = None
 
     def fill(self, template: str, **kwargs: Any) -> str:
         """`scpi.fill` with this dialect's on/off words."""
@@ -104,8 +124,9 @@ class Dialect:
         """One program message from several units, with this dialect's separator."""
         return scpi.join(commands, self.separator)
 
-    def require(self, role: str) -> SmuCommands | LcrCommands:
-        """The commands of `role` ("smu" or "lcr"); DialectError if the file has none."""
+    def require(self, role: str) -> SmuCommands | LcrCommands | StageCommands:
+        """The commands of `role` ("smu", "lcr" or "stage"); DialectError if the file
+        has none."""
         table = getattr(self, role, None)
         if table is None:
             raise DialectError(
@@ -157,6 +178,15 @@ _LCR_KINDS = {
     "read_fields": "fields",
     "open_correction": "setting?",
     "short_correction": "setting?",
+}
+_STAGE_KINDS = {
+    "temperature_unit": "unit",
+    "set_point": "value",
+    "set_point_query": "query",
+    "measure": "query",
+    "ramp_rate": "value?",
+    "control": "state?",
+    "control_query": "query?",
 }
 _DIALECT_KEYS = ("name", "format", "separator", "read_termination", "write_termination",
                  "on", "off")
@@ -227,6 +257,12 @@ def _build(cls: type, table: dict, kinds: dict, source: str, name: str) -> Any:
             allowed = SMU_FIELDS if name == "smu" else LCR_FIELDS
             needed = ("voltage", "current") if name == "smu" else ("primary", "secondary")
             values[key] = _check_fields(table[key], allowed, needed, source, where)
+        elif kind == "unit":
+            unit = table[key]
+            if not isinstance(unit, str) or unit.strip().upper() not in STAGE_UNITS:
+                raise _fault(source, where, f"found {unit!r}; accepted: \"K\" (kelvin) or "
+                             "\"C\" (degrees Celsius)")
+            values[key] = unit.strip().upper()
         elif kind == "form_name":
             form = table[key]
             if not isinstance(form, str) or form.strip().lower() not in LCR_FORMS:
@@ -243,7 +279,7 @@ def _build(cls: type, table: dict, kinds: dict, source: str, name: str) -> Any:
 
 def parse_dialect(data: dict, source: str) -> Dialect:
     """A Dialect from the parsed TOML document `data`; `source` names it in errors."""
-    tables = ("dialect", "common", "smu", "lcr")
+    tables = ("dialect", "common", "smu", "lcr", "stage")
     for key in data:
         if key not in tables:
             raise _fault(source, "top level", f"unknown table [{key}] "
@@ -267,13 +303,15 @@ def parse_dialect(data: dict, source: str) -> Dialect:
     if head["on"].strip().upper() == head["off"].strip().upper():
         raise _fault(source, "[dialect] on/off", "the words for on and off must differ")
     roles = {}
-    for role, cls, kinds in (("smu", SmuCommands, _SMU_KINDS), ("lcr", LcrCommands, _LCR_KINDS)):
+    for role, cls, kinds in (("smu", SmuCommands, _SMU_KINDS), ("lcr", LcrCommands, _LCR_KINDS),
+                             ("stage", StageCommands, _STAGE_KINDS)):
         if role in data:
             if not isinstance(data[role], dict):
                 raise _fault(source, f"[{role}]", "expected a table")
             roles[role] = _build(cls, data[role], kinds, source, role)
     if not roles:
-        raise _fault(source, "top level", "no [smu] or [lcr] table: the dialect drives nothing")
+        raise _fault(source, "top level",
+                     "no [smu], [lcr] or [stage] table: the dialect drives nothing")
     return Dialect(
         name=head["name"].strip(),
         format=1,
@@ -286,6 +324,7 @@ def parse_dialect(data: dict, source: str) -> Dialect:
         smu=roles.get("smu"),
         lcr=roles.get("lcr"),
         source=source,
+        stage=roles.get("stage"),
     )
 
 

@@ -1,4 +1,4 @@
-"""The simulated bench: a source-measure unit and an LCR meter served over loopback TCP.
+"""The simulated bench: an SMU, an LCR meter and a thermal stage served over loopback TCP.
 
 Each instrument listens on its own port (chosen by the OS unless given) as a raw-socket
 resource ``TCPIP0::127.0.0.1::PORT::SOCKET``: newline-terminated program messages in, one
@@ -45,6 +45,7 @@ from pnbench.drivers.sim.device import (
     resolve_device,
 )
 from pnbench.drivers.sim.instruments import SimInstrumentWithOutput, SimLcr, SimSmu
+from pnbench.drivers.sim.stage import SimClock, SimStage, ThermalModel
 from pnbench.errors import BadInput, InstrumentError
 
 __all__ = ["SimBench", "bundled_device"]
@@ -92,15 +93,21 @@ class _Port:
 
 
 class SimBench:
-    """Both simulated instruments, served from an asyncio loop in a daemon thread.
+    """The simulated instruments, served from an asyncio loop in a daemon thread.
 
-    Start with `SimBench.start(...)`; use as a context manager or call `close()`.
+    Start with `SimBench.start(...)`; use as a context manager or call `close()`. The
+    device follows the thermal stage's temperature (drivers/sim/stage.py), on `clock`.
     """
 
     def __init__(self, device: SimDevice, time_scale: float, host: str,
-                 off_on_disconnect: bool) -> None:
+                 off_on_disconnect: bool, clock: SimClock | None = None) -> None:
         self.device = device
         self.time_scale = time_scale
+        self.clock = clock or SimClock(time_scale)
+        stage = device.stage
+        self.thermal = ThermalModel(self.clock, device.temperature_K,
+                                    stage["time_constant_s"],
+                                    (stage["reach_low_K"], stage["reach_high_K"]))
         self.host = host
         self.off_on_disconnect = off_on_disconnect
         self._log: list[tuple[str, bool, str]] = []
@@ -113,20 +120,24 @@ class SimBench:
     @classmethod
     def start(cls, device: str | Path | SimDevice, *, time_scale: float = 0.0,
               smu_port: int = 0, lcr_port: int = 0, host: str = "127.0.0.1",
-              off_on_disconnect: bool = True) -> SimBench:
-        """Load the device (a SimDevice, a file, or a bundled name) and start serving."""
+              off_on_disconnect: bool = True, stage_port: int = 0,
+              clock: SimClock | None = None) -> SimBench:
+        """Load the device (a SimDevice, a file, or a bundled name) and start serving.
+
+        ``clock``: simulated time for the thermal stage; a caller that waits through
+        it passes ``SimClock(time_scale, driven=True)`` (see drivers/sim/stage.py)."""
         if not (isinstance(time_scale, (int, float)) and math.isfinite(time_scale)
                 and time_scale >= 0):
             raise BadInput(f"time scale {time_scale!r}: expected a number >= 0 "
                            "(0 = as fast as possible, 1 = real instrument time)")
-        for name, port in (("SMU", smu_port), ("LCR", lcr_port)):
+        for name, port in (("SMU", smu_port), ("LCR", lcr_port), ("stage", stage_port)):
             if not (isinstance(port, int) and 0 <= port <= 65535):
                 raise BadInput(f"{name} port {port!r}: expected 0 (any free port) to 65535")
-        bench = cls(resolve_device(device), float(time_scale), host, off_on_disconnect)
-        bench._run_thread(smu_port, lcr_port)
+        bench = cls(resolve_device(device), float(time_scale), host, off_on_disconnect, clock)
+        bench._run_thread(smu_port, lcr_port, stage_port)
         return bench
 
-    def _run_thread(self, smu_port: int, lcr_port: int) -> None:
+    def _run_thread(self, smu_port: int, lcr_port: int, stage_port: int = 0) -> None:
         ready = threading.Event()
         failure: list[BaseException] = []
 
@@ -134,7 +145,7 @@ class SimBench:
             loop = asyncio.new_event_loop()
             self._loop = loop
             try:
-                loop.run_until_complete(self._open(smu_port, lcr_port))
+                loop.run_until_complete(self._open(smu_port, lcr_port, stage_port))
             except BaseException as exc:  # noqa: BLE001 - reported to the starting thread
                 failure.append(exc)
                 ready.set()
@@ -155,17 +166,19 @@ class SimBench:
             exc = failure[0]
             if isinstance(exc, OSError):
                 raise InstrumentError(f"simulated bench cannot listen on {self.host} "
-                                      f"(SMU port {smu_port}, LCR port {lcr_port}): "
+                                      f"(SMU port {smu_port}, LCR port {lcr_port}, "
+                                      f"stage port {stage_port}): "
                                       f"{exc.strerror or exc}") from None
             raise exc
 
-    async def _open(self, smu_port: int, lcr_port: int) -> None:
-        hook = self._record_output
-        self._ports = {"smu": _Port(SimSmu(self.device, hook)),
-                       "lcr": _Port(SimLcr(self.device, hook))}
+    async def _open(self, smu_port: int, lcr_port: int, stage_port: int) -> None:
+        hook, thermal = self._record_output, self.thermal
+        self._ports = {"smu": _Port(SimSmu(self.device, hook, thermal)),
+                       "lcr": _Port(SimLcr(self.device, hook, thermal)),
+                       "stage": _Port(SimStage(self.device, thermal))}
         for spec in self.device.faults:
             self._ports[spec.instrument].faults.append(_Armed(spec))
-        for name, wanted in (("smu", smu_port), ("lcr", lcr_port)):
+        for name, wanted in (("smu", smu_port), ("lcr", lcr_port), ("stage", stage_port)):
             port = self._ports[name]
 
             async def client(reader, writer, port=port):
@@ -221,6 +234,15 @@ class SimBench:
     def lcr_resource(self) -> str:
         """VISA resource string of the simulated LCR meter (raw socket)."""
         return self._resource("lcr")
+
+    @property
+    def stage_resource(self) -> str:
+        """VISA resource string of the simulated thermal stage (raw socket)."""
+        return self._resource("stage")
+
+    def device_temperature_K(self) -> float:
+        """The simulated device's temperature now (no reading noise)."""
+        return self.thermal.temperature_K()
 
     def outputs(self) -> dict[str, bool]:
         """Whether the SMU output and the LCR bias are on right now."""

@@ -11,6 +11,8 @@ each bundled file's header):
                gain errors, lead resistance
     [lcr]      identity, seed, noise, gain error, limits, fixture strays
     [timing]   line frequency, settling and measurement times
+    [stage]    the thermal stage: identity, accepted and reachable range, ramp limit,
+               time constant, reading noise (drivers/sim/stage.py)
     [[fault]]  faults armed when the bench starts (same kinds as SimBench.inject)
 
 The device on the bench is the card scaled by `area` (IS, IBV and CJO times area; RS and
@@ -71,6 +73,7 @@ class SimDevice:
     timing: dict[str, Any]
     faults: tuple[FaultSpec, ...] = ()
     source: str = "<device>"
+    stage: dict[str, Any] = field(default_factory=dict)
 
     @property
     def part(self) -> str:
@@ -83,8 +86,12 @@ class SimDevice:
     @property
     def params(self) -> DiodeParams:
         """The diode on the bench: card scaled by area and moved to temperature_K."""
+        return self.params_at(self.temperature_K)
+
+    def params_at(self, temperature_K: float) -> DiodeParams:
+        """The diode on the bench at another temperature (a thermal stage's)."""
         area = float(self.device["area"])
-        p = junction.params_at_temperature(self.card, self.temperature_K,
+        p = junction.params_at_temperature(self.card, temperature_K,
                                            float(self.device["tnom_K"]))
         return p.with_values(IS=p.IS * area, IBV=p.IBV * area, CJO=p.CJO * area,
                              RS=p.RS / area, RSH=p.RSH / area)
@@ -116,7 +123,7 @@ def parse_device(text: str, source: str = "<device>") -> SimDevice:
         if name not in known:
             raise DeviceFileError(
                 f"{source}: unknown table or key {name!r}; a device file has the tables "
-                + ", ".join(f"[{t}]" for t in ("device", "diode", "smu", "lcr", "timing"))
+                + ", ".join(f"[{t}]" for t in ("device", "diode", "smu", "lcr", "timing", "stage"))
                 + " and [[fault]] entries"
             )
     tables = {name: _table(doc, name, text, source) for name in KEYS}
@@ -130,7 +137,8 @@ def parse_device(text: str, source: str = "<device>") -> SimDevice:
         for k, entry in enumerate(faults, start=1)
     )
     return SimDevice(card=card, device=tables["device"], smu=tables["smu"], lcr=tables["lcr"],
-                     timing=tables["timing"], faults=specs, source=source)
+                     timing=tables["timing"], faults=specs, source=source,
+                     stage=tables["stage"])
 
 
 def _line(text: str, table: str, key: str | None) -> str:
@@ -221,6 +229,11 @@ def _diode(raw: Any, device: dict, text: str, source: str) -> DiodeParams:
 
 
 def _cross_checks(tables: dict[str, dict], text: str, source: str) -> None:
+    stage = tables["stage"]
+    for low, high in (("lowest_K", "highest_K"), ("reach_low_K", "reach_high_K")):
+        if stage[low] >= stage[high]:
+            raise DeviceFileError(f"{_where(source, text, 'stage', low)} = {stage[low]!r}: "
+                                  f"must be below {high} = {stage[high]!r}")
     lcr = tables["lcr"]
     for low, high in (("frequency_min_Hz", "frequency_max_Hz"),
                       ("ac_level_min_V", "ac_level_max_V")):
@@ -238,7 +251,8 @@ def parse_fault(entry: Any, where: str = "fault") -> FaultSpec:
             raise DeviceFileError(f"{where}: missing key {required!r} ({FAULT_KEYS[required][2]})")
     instrument, kind = entry["instrument"], entry["kind"]
     if instrument not in INSTRUMENTS:
-        raise DeviceFileError(f"{where}: instrument = {instrument!r}: expected smu or lcr")
+        raise DeviceFileError(f"{where}: instrument = {instrument!r}: expected smu, lcr "
+                              "or stage")
     if kind not in FAULT_KINDS:
         raise DeviceFileError(f"{where}: kind = {kind!r}: expected one of "
                               + ", ".join(FAULT_KINDS))

@@ -32,7 +32,7 @@ SCHOTTKY_EG_eV, SCHOTTKY_XTI = SCHOTTKY_CARD_EG.value, SCHOTTKY_CARD_XTI.value
 PN_XTI = PN_CARD_XTI.value
 
 FAULT_KINDS = ("drop", "stall", "garbage", "error", "overflow")
-INSTRUMENTS = ("smu", "lcr")
+INSTRUMENTS = ("smu", "lcr", "stage")
 
 
 @dataclass(frozen=True)
@@ -132,11 +132,31 @@ KEYS: dict[str, tuple[Key, ...]] = {
         Key("lcr_measurement_s", "float", 0.02, "one LCR reading", _nonneg, "a number >= 0"),
         Key("command_s", "float", 1e-4, "parsing one command unit", _nonneg, "a number >= 0"),
     ),
+    "stage": (
+        Key("identity", "str", "pnbench,simulated thermal stage,0,1", "the *IDN? reply"),
+        Key("seed", "int", 3, "noise seed of the temperature reading"),
+        Key("lowest_K", "float", 223.15, "lowest set point the stage accepts", _pos,
+            "a temperature in kelvin > 0"),
+        Key("highest_K", "float", 473.15, "highest set point the stage accepts", _pos,
+            "a temperature in kelvin > 0"),
+        Key("reach_low_K", "float", 223.15,
+            "coldest the stage can hold (a weak stage settles short of a colder set point)",
+            _pos, "a temperature in kelvin > 0"),
+        Key("reach_high_K", "float", 473.15, "hottest the stage can hold", _pos,
+            "a temperature in kelvin > 0"),
+        Key("max_ramp_K_per_min", "float", 30.0, "fastest ramp rate the stage accepts", _pos,
+            "a number > 0"),
+        Key("time_constant_s", "float", 30.0,
+            "first-order lag of the device temperature behind the stage's ramp", _pos,
+            "a number > 0"),
+        Key("reading_noise_K", "float", 0.01, "1-sigma noise of the stage's reading",
+            _nonneg, "a number >= 0"),
+    ),
 }
 
 #: Keys of one [[fault]] entry: (kind, default, doc); which kinds use them.
 FAULT_KEYS: dict[str, tuple[str, Any, str, tuple[str, ...]]] = {
-    "instrument": ("str", None, "smu or lcr (required)", FAULT_KINDS),
+    "instrument": ("str", None, "smu, lcr or stage (required)", FAULT_KINDS),
     "kind": ("str", None, "drop, stall, garbage, error or overflow (required)", FAULT_KINDS),
     "after": ("int", 0, "command units the instrument handles before the fault fires",
               FAULT_KINDS),

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from typing import Protocol
 
 import numpy as np
 
@@ -43,6 +44,20 @@ from pnbench.modeling import smallsignal
 #: cause is "command", "reset", "disconnect" or "close".
 OutputHook = Callable[[str, bool, str], None]
 NOT_A_NUMBER = scpi.format_value(math.nan)
+
+
+class Thermal(Protocol):
+    """Where the device's temperature comes from when a thermal stage holds it."""
+
+    def temperature_K(self) -> float: ...
+
+
+def device_temperature(thermal: Thermal | None, device: SimDevice) -> float:
+    """The device temperature now [K]: the stage's (to 0.1 mK, so readings at a held
+    temperature share their physics), else the device file's."""
+    if thermal is None:
+        return device.temperature_K
+    return round(thermal.temperature_K(), 4)
 
 
 def _max_v(smu: SimSmu) -> tuple[float, float]:
@@ -121,15 +136,15 @@ class SimSmu(SimInstrumentWithOutput):
         Setting(":SENSe:REMote", "remote_sense", "bool", settles=True),
     )
 
-    def __init__(self, device: SimDevice, on_output: OutputHook | None = None) -> None:
+    def __init__(self, device: SimDevice, on_output: OutputHook | None = None,
+                 thermal: Thermal | None = None) -> None:
         spec = device.smu
         self.spec, self.timing = spec, device.timing
         self.voltage_ranges = tuple(spec["voltage_ranges_V"])
         self.current_ranges = tuple(spec["current_ranges_A"])
+        self.device, self.thermal = device, thermal
         self.temperature_K = device.temperature_K
-        params = device.params
-        self.params_4w = params
-        self.params_2w = params.with_values(RS=params.RS + spec["lead_resistance_ohm"])
+        self._params: dict[tuple, object] = {}
         self.rng = np.random.default_rng(spec["seed"])
         self.defaults = {
             "mode": "VOLTage", "voltage_level_V": 0.0, "current_level_A": 0.0,
@@ -185,16 +200,24 @@ class SimSmu(SimInstrumentWithOutput):
         """(voltage, current, in compliance) on the device now; zeros with output off."""
         if not self.output:
             return 0.0, 0.0, False
+        self.temperature_K = device_temperature(self.thermal, self.device)
         key = (self.mode, self.voltage_level_V, self.current_level_A, self.current_limit_A,
-               self.voltage_limit_V, self.remote_sense)
+               self.voltage_limit_V, self.remote_sense, self.temperature_K)
         return remembered(self._points, key, self._source_point)
 
+    def _params_now(self):
+        """The diode at the device temperature now, with the leads in 2-wire mode."""
+        p = self.device.params_at(self.temperature_K)
+        leads = 0.0 if self.remote_sense else self.spec["lead_resistance_ohm"]
+        return p.with_values(RS=p.RS + leads)
+
     def _source_point(self) -> tuple[float, float, bool]:
-        params = self.params_4w if self.remote_sense else self.params_2w
+        t = self.temperature_K
+        params = remembered(self._params, (t, self.remote_sense), self._params_now)
         if self.mode == "VOLTage":
-            return simphysics.source_point(params, self.temperature_K, "voltage",
+            return simphysics.source_point(params, t, "voltage",
                                            self.voltage_level_V, self.current_limit_A)
-        return simphysics.source_point(params, self.temperature_K, "current",
+        return simphysics.source_point(params, t, "current",
                                        self.current_level_A, self.voltage_limit_V)
 
     def _read(self, command: scpi.Command) -> str:
@@ -245,9 +268,11 @@ class SimLcr(SimInstrumentWithOutput):
     #: the reading forms it offers (dialect words `parallel` and `series`)
     FORMS = ("PARallel", "SERies")
 
-    def __init__(self, device: SimDevice, on_output: OutputHook | None = None) -> None:
+    def __init__(self, device: SimDevice, on_output: OutputHook | None = None,
+                 thermal: Thermal | None = None) -> None:
         spec = device.lcr
         self.spec, self.timing = spec, device.timing
+        self.device, self.thermal = device, thermal
         self.params = device.params
         self.temperature_K = device.temperature_K
         self.rng = np.random.default_rng(spec["seed"])
@@ -290,8 +315,11 @@ class SimLcr(SimInstrumentWithOutput):
 
     def admittance(self) -> complex:
         """The admittance between the meter's terminals now, before noise and gain."""
+        t = device_temperature(self.thermal, self.device)
+        if t != self.temperature_K:
+            self.temperature_K, self.params = t, self.device.params_at(t)
         key = (self.bias_V if self.output else 0.0, self.frequency_Hz, self.ac_level_V,
-               self.open_corrected, self.short_corrected)
+               self.open_corrected, self.short_corrected, t)
         return remembered(self._admittances, key, lambda: self._terminal_admittance(key[0]))
 
     def _terminal_admittance(self, bias_V: float) -> complex:

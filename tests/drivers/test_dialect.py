@@ -64,7 +64,7 @@ def test_copy_of_default_loads_from_a_file(tmp_path):
         (lambda d: d["dialect"].update(on="OFF"), "must differ"),
         (lambda d: d["smu"].update(set_current=":SOUR:CURR {level}"), "unknown placeholder"),
         (lambda d: d["common"].update(reset=3), "expected a string"),
-        (lambda d: (d.pop("smu"), d.pop("lcr")), "drives nothing"),
+        (lambda d: (d.pop("smu"), d.pop("lcr"), d.pop("stage")), "drives nothing"),
     ],
 )
 def test_faults_name_file_and_key(tmp_path, change, needle):

@@ -4,7 +4,8 @@ Without RESOURCE it lists the VISA resources the backend can see, each with its 
 the identification query (short timeout each). With RESOURCE it identifies that
 instrument; with --role it also sends the dialect's configuration commands for that role
 and checks the instrument's error queue stays empty, without turning any output on. An
-instrument whose output (or DC bias) is already on is left untouched.
+instrument whose output (or DC bias) is already on is left untouched. A thermal stage
+(--role stage) is read and sent back the set point it already holds, so nothing moves.
 """
 
 from __future__ import annotations
@@ -26,7 +27,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("resource", nargs="?", metavar="RESOURCE",
                         help="VISA resource to probe, e.g. TCPIP0::192.0.2.20::5025::SOCKET "
                              "(default: list every visible resource)")
-    parser.add_argument("--role", choices=("smu", "lcr"),
+    parser.add_argument("--role", choices=("smu", "lcr", "stage"),
                         help="also check the dialect's configuration commands for this role")
     parser.add_argument("--dialect", metavar="FILE",
                         help="dialect file (TOML) to check (default: the built-in SCPI dialect)")
@@ -105,6 +106,22 @@ def _check_lcr(session, dialect, report: dict) -> None:
     report["checks"]["bias"] = "off"
 
 
+def _check_stage(session, dialect, report: dict) -> None:
+    """Read the stage and send back the set point it already holds: nothing moves."""
+    from pnbench.drivers.stage import StageLimits, ThermalStage
+
+    stage = ThermalStage(session, dialect, StageLimits(0.001, 1e6))
+    before = stage.read()
+    stage.set_point(before.set_point_K)
+    after = stage.read()
+    report["checks"]["set_point_K"] = after.set_point_K
+    report["checks"]["temperature_K"] = after.temperature_K
+    if after.regulating is not None:
+        report["checks"]["regulating"] = "on" if after.regulating else "off"
+    report["checks"]["configuration"] = ("accepted (its own set point sent back; nothing "
+                                         "changed)")
+
+
 def _probe_one(resource: str, backend: str, timeout_ms: int, dialect, role: str | None) -> dict:
     from pnbench.drivers.session import open_session
 
@@ -120,6 +137,8 @@ def _probe_one(resource: str, backend: str, timeout_ms: int, dialect, role: str 
             _check_smu(session, dialect, report)
         elif role == "lcr":
             _check_lcr(session, dialect, report)
+        elif role == "stage":
+            _check_stage(session, dialect, report)
     return report
 
 
@@ -182,7 +201,7 @@ def run(args: argparse.Namespace) -> int:
         from pnbench.drivers.sim.bench import SimBench
 
         with SimBench.start(args.simulate, time_scale=args.time_scale) as bench:
-            roles = [args.role] if args.role else ["smu", "lcr"]
+            roles = [args.role] if args.role else ["smu", "lcr", "stage"]
             reports = [_probe_one(getattr(bench, f"{r}_resource"), "@py", args.timeout_ms,
                                   dialect, r if args.role else None) for r in roles]
         report = reports[0] if args.role else {
