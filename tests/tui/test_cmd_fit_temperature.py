@@ -68,8 +68,8 @@ def test_a_file_without_temperature_is_assumed_at_300_15_and_says_so(files, caps
 
 @pytest.mark.parametrize("argv, fragment", [
     (["{f}", "missing.csv"], "missing.csv"),
-    (["{f}", "{f}", "--tnom", "-4"], "--tnom must be > 0 K"),
-    (["{f}", "{f}", "--temperature", "0"], "--temperature must be > 0 K"),
+    (["{f}", "{f}", "--tnom=-4"], "--tnom: -4 K is out of range"),
+    (["{f}", "{f}", "--temperature", "0"], "--temperature: 0 K is out of range"),
 ])
 def test_bad_input_exits_2(files, capsys, argv, fragment):
     code = cli.main(["fit", *[files[1] if a == "{f}" else a for a in argv]])

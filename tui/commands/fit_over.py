@@ -21,21 +21,22 @@ def run(args) -> int:
 
     default_t = None
     if args.temperature is not None:
-        default_t = parse_quantity(args.temperature, "K", what="--temperature")
+        default_t = parse_quantity(args.temperature, "K", what="--temperature",
+                                   low=1.0, high=2000.0)
         if not default_t > 0:
             raise DataFileError(f"--temperature must be > 0 K, got {args.temperature!r}")
     tnom = None
     if args.tnom is not None:
-        tnom = parse_quantity(args.tnom, "K", what="--tnom")
+        tnom = parse_quantity(args.tnom, "K", what="--tnom", low=1.0, high=2000.0)
         if not tnom > 0:
             raise DataFileError(f"--tnom must be > 0 K, got {args.tnom!r}")
-    area = parse_quantity(args.area, "m2", what="--area") if args.area else None
+    area = parse_quantity(args.area, "m2", what="--area", high=1.0) if args.area else None
     if area is not None and not area > 0:
         raise DataFileError(f"--area must be > 0 m^2, got {args.area!r}")
-    ibv = parse_quantity(args.ibv, "A", what="--ibv") if args.ibv else None
+    ibv = parse_quantity(args.ibv, "A", what="--ibv", high=1e3) if args.ibv else None
     if ibv is not None and not ibv > 0:
         raise DataFileError(f"--ibv must be > 0 A, got {args.ibv!r}")
-    leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at")
+    leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at", low=-1e4, high=1e4)
             if args.leakage_at else None)
     notes: list[str] = []
     sets, files = [], []
