@@ -57,6 +57,10 @@ def test_json_resources_and_given_ports():
         assert info["smu_resource"] == f"TCPIP0::127.0.0.1::{port}::SOCKET"
         with open_session(info["lcr_resource"]) as lcr:
             assert lcr.query(":SOUR:BIAS:STAT?") == "0"
+        with open_session(info["stage_resource"]) as stage:
+            # Served on its own at time scale 0, the stage is settled at once.
+            reply = stage.query(":SOUR:TEMP:SPO 85;:MEAS:TEMP?")
+            assert float(reply) == pytest.approx(85.0, abs=0.1)
     finally:
         proc.terminate()
         proc.communicate(timeout=20)

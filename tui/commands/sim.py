@@ -1,6 +1,6 @@
-"""`pnbench sim`: serve the simulated SMU and LCR meter on loopback TCP until interrupted.
+"""`pnbench sim`: serve the simulated SMU, LCR meter and thermal stage on loopback TCP.
 
-Prints the two VISA resource strings (or, with --json, one JSON object) and serves until
+Prints the three VISA resource strings (or, with --json, one JSON object) and serves until
 Ctrl-C, SIGTERM or SIGHUP; then both outputs go off and it exits 0. A client that
 disconnects finds its instrument's output turned off too.
 """
@@ -33,6 +33,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="TCP port of the SMU (default: any free port)")
     parser.add_argument("--lcr-port", type=integer(0, 65535), default=0, metavar="N",
                         help="TCP port of the LCR meter (default: any free port)")
+    parser.add_argument("--stage-port", type=integer(0, 65535), default=0, metavar="N",
+                        help="TCP port of the thermal stage (default: any free port)")
     parser.add_argument(
         "--time-scale", type=number(0.0, TIME_SCALE_MAX), default=1.0, metavar="X",
         help="instrument time factor: 0 answers as fast as possible, 1 (default) takes as "
@@ -69,7 +71,8 @@ def run(args: argparse.Namespace) -> int:
         raise BadInput("pnbench sim: --dut is required: give a simulated-device file or the "
                        "name of a bundled device (pnbench sim --list shows them)")
     bench = SimBench.start(args.dut, time_scale=args.time_scale, smu_port=args.smu_port,
-                           lcr_port=args.lcr_port, host=args.host)
+                           lcr_port=args.lcr_port, host=args.host,
+                           stage_port=args.stage_port)
     stop = threading.Event()
     previous = {}
     if threading.current_thread() is threading.main_thread():
@@ -81,10 +84,12 @@ def run(args: argparse.Namespace) -> int:
         if args.json:
             print(json.dumps({"smu_resource": bench.smu_resource,
                               "lcr_resource": bench.lcr_resource,
+                              "stage_resource": bench.stage_resource,
                               "device": bench.device.part, "time_scale": bench.time_scale}))
         else:
             print(f"SMU  {bench.smu_resource}")
             print(f"LCR  {bench.lcr_resource}")
+            print(f"stage  {bench.stage_resource}")
             print(f"simulating {bench.device.part} from {bench.device.source} at time scale "
                   f"{bench.time_scale:g}; Ctrl-C stops (outputs go off)")
         if args.host not in _LOOPBACK:
