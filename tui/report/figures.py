@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from pnbench.modeling import junction, smallsignal
+from pnbench.tui.report import arrhenius
 from pnbench.tui.report.analysis import Analysis
 from pnbench.tui.report.plotstyle import (
     ACCENT,
@@ -37,7 +38,7 @@ from pnbench.tui.report.plotstyle import (
 
 #: Names of every figure the report can hold, in report order (file stems).
 FIGURE_NAMES = ("iv_forward", "iv_reverse", "cv", "mott_schottky", "doping_profile",
-                "admittance")
+                "admittance", arrhenius.NAME)
 
 _PNG_DPI = 130
 _LOCK = threading.Lock()  # rc_context changes matplotlib's global settings
@@ -277,7 +278,7 @@ def admittance(an: Analysis, device: str):
 _MAKERS: dict[str, Callable] = {
     "iv_forward": forward_iv, "iv_reverse": reverse_iv, "cv": cv,
     "mott_schottky": mott_schottky, "doping_profile": doping_profile,
-    "admittance": admittance,
+    "admittance": admittance, arrhenius.NAME: arrhenius.arrhenius,
 }
 
 

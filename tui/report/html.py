@@ -10,6 +10,7 @@ from __future__ import annotations
 import base64
 import json
 
+from pnbench.tui.report import arrhenius
 from pnbench.tui.report.analysis import Analysis
 from pnbench.tui.report.data import RunData
 from pnbench.tui.report.figures import FigureFile
@@ -56,10 +57,12 @@ _CAPTIONS = {
     "doping_profile": "Doping against depletion depth from the local slope of 1/C\u00b2.",
     "admittance": "Parallel conductance and capacitance against frequency at the "
                   "admittance biases, with the small-signal model's prediction.",
+    arrhenius.NAME: arrhenius.CAPTION,
 }
 _TITLES = {"iv_forward": "Forward I\u2013V", "iv_reverse": "Reverse I\u2013V",
            "cv": "C\u2013V", "mott_schottky": "Mott\u2013Schottky (1/C\u00b2)",
-           "doping_profile": "Doping profile N(W)", "admittance": "Admittance"}
+           "doping_profile": "Doping profile N(W)", "admittance": "Admittance",
+           arrhenius.NAME: arrhenius.TITLE}
 _NOTICE_KINDS = ("warning", "compliance", "limit", "error")
 _EVENT_ROWS = 400
 _DETAIL_CHARS = 400  # an event's detail column is cut after this many characters
