@@ -15,7 +15,7 @@ from pnbench.modeling.modelset import ModelSet
 from pnbench.modeling.params import DiodeParams
 from pnbench.tui.report import arrhenius
 from pnbench.tui.report.analysis import Analysis
-from pnbench.tui.report.figures import FIGURE_NAMES, render_all
+from pnbench.tui.report.figures import OVER_TEMPERATURE_FIGURES, render_all
 
 CARD = DiodeParams(IS=2e-9, N=1.03, RS=0.5, EG=0.69, XTI=2.0, TRS=2e-3)
 
@@ -36,7 +36,7 @@ def test_a_model_over_temperature_gets_the_figure(tmp_path):
     assert [r["temperature_K"] for r in arrhenius.rows(an)] == [250.0, 300.0, 350.0, 400.0]
     files = render_all(an, "LH-TEST-T2", tmp_path)
     names = [f.name for f in files]
-    assert "arrhenius" in names and "arrhenius" in FIGURE_NAMES
+    assert "arrhenius" in names and "arrhenius" in OVER_TEMPERATURE_FIGURES
     fig = next(f for f in files if f.name == "arrhenius")
     assert fig.png.startswith(b"\x89PNG") and fig.svg_path.is_file()
     svg = fig.svg_path.read_text(encoding="utf-8")

@@ -36,9 +36,11 @@ from pnbench.tui.report.plotstyle import (
     title,
 )
 
-#: Names of every figure the report can hold, in report order (file stems).
+#: Names of every figure a run at one temperature can get, in report order (file stems).
 FIGURE_NAMES = ("iv_forward", "iv_reverse", "cv", "mott_schottky", "doping_profile",
-                "admittance", arrhenius.NAME)
+                "admittance")
+#: Figures only a model over several temperatures gets (after the others).
+OVER_TEMPERATURE_FIGURES = (arrhenius.NAME,)
 
 _PNG_DPI = 130
 _LOCK = threading.Lock()  # rc_context changes matplotlib's global settings
@@ -289,7 +291,7 @@ def render_all(an: Analysis, device: str, figures_dir: Path) -> list[FigureFile]
     figures_dir.mkdir(parents=True, exist_ok=True)
     out = []
     with _LOCK, matplotlib.rc_context(STYLE):
-        for name in FIGURE_NAMES:
+        for name in FIGURE_NAMES + OVER_TEMPERATURE_FIGURES:
             fig = _MAKERS[name](an, device)
             png_path, svg_path = figures_dir / f"{name}.png", figures_dir / f"{name}.svg"
             if fig is None:
