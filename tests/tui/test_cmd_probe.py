@@ -109,14 +109,14 @@ def test_simulated_bench_both_roles(capsys):
 
 
 def test_simulated_stage_role_is_read_and_left_where_it_was(capsys):
-    code, out, _ = probe(capsys, "--simulate", "lh-sw200", "--role", "stage", "--json")
+    code, out, _ = probe(capsys, "--simulate", "lh-qt16", "--role", "stage", "--json")
     assert code == 0
     report = json.loads(out)
     assert "thermal stage" in report["identity"]
     assert report["checks"]["set_point_K"] == pytest.approx(300.15)
     assert report["checks"]["temperature_K"] == pytest.approx(300.15, abs=0.1)
     assert report["checks"]["regulating"] == "on"
-    code, out, _ = probe(capsys, "--simulate", "lh-sw200")
+    code, out, _ = probe(capsys, "--simulate", "lh-qt16")
     assert code == 0 and "simulated thermal stage" in out
 
 
@@ -124,6 +124,6 @@ def test_stage_role_needs_a_stage_table(capsys, tmp_path):
     text = default_dialect_text()
     no_stage = tmp_path / "no-stage.toml"
     no_stage.write_text(text[: text.index("[stage]")], encoding="utf-8")
-    code, _, err = probe(capsys, "--simulate", "lh-sw200", "--role", "stage", "--dialect",
+    code, _, err = probe(capsys, "--simulate", "lh-qt16", "--role", "stage", "--dialect",
                          str(no_stage))
     assert code == 2 and "no [stage] table" in err
