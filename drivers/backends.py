@@ -8,6 +8,7 @@ loads no code of its choosing:
     "@ivi"              the user's VISA library if one is configured, else the one
                         pyvisa finds on its own (its standard search and ~/.pyvisarc)
     "@sim", "F.yaml@sim"  pyvisa-sim with its default or a named YAML file (data only)
+    "DUT@pnsim[:time_scale=X]"  pnbench's own simulated bench (drivers.sim.backend)
 
 A path to a VISA library (native code, loaded into this process) is chosen only by the
 user, never by a plan: on the command line (``--visa-library PATH``), in the
@@ -22,6 +23,8 @@ import os
 import tomllib
 from pathlib import Path
 
+from pnbench.drivers.sim.backend import is_sim_backend
+from pnbench.drivers.sim.backend import parse as parse_sim
 from pnbench.errors import BadInput
 
 ENV_VAR = "PNBENCH_VISA_LIBRARY"
@@ -72,6 +75,12 @@ def plan_backend_problem(text: str) -> str | None:
     """Why a plan may not name ``text`` as its backend (None when it may)."""
     if text in PLAN_BACKENDS:
         return None
+    if is_sim_backend(text):
+        try:
+            parse_sim(text)
+        except BadInput as exc:
+            return str(exc)
+        return None
     if text.endswith("@sim") and text[: -len("@sim")].lower().endswith((".yaml", ".yml")):
         return None
     return (f"{text!r} is not a backend a plan may name ({', '.join(PLAN_BACKENDS)} or "
@@ -99,6 +108,9 @@ def describe(backend: str) -> str:
         return "the VISA library pyvisa finds"
     if backend.endswith("@sim"):
         return "pyvisa-sim, simulated"
+    if is_sim_backend(backend):
+        spec = parse_sim(backend)
+        return f"pnbench's simulated bench with {spec.device}, time scale {spec.time_scale:g}"
     user = user_visa_library()
     where = f" chosen by {user[1]}" if user is not None and user[0] == backend else ""
     return f"VISA library{where}"

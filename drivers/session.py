@@ -83,6 +83,7 @@ class Session:
         self._socket = _socket_of(resource)
         self.nodelay = self._set_nodelay()
         self._closed = False
+        self.on_close = None  # called once after closing (the simulated bench's release)
         self._suspect = False
         self._identity: str | None = None
 
@@ -334,6 +335,9 @@ class Session:
         self._closed = True
         with contextlib.suppress(Exception):
             self._resource.close()
+        if self.on_close is not None:
+            with contextlib.suppress(Exception):
+                self.on_close()
 
     def __enter__(self) -> Session:
         return self
@@ -378,8 +382,13 @@ def open_session(
     timeout_ms: int = 2000,
     dialect: Dialect | None = None,
 ) -> Session:
-    """Open `resource` on `backend` with the dialect's terminations and `timeout_ms`."""
+    """Open `resource` on `backend` with the dialect's terminations and `timeout_ms`.
+    A ``DEVICE@pnsim`` backend is the in-process simulated bench (drivers.sim.backend)."""
     dialect = dialect or load_dialect()
+    if "@pnsim" in backend:
+        from pnbench.drivers.sim.backend import open_sim_session
+
+        return open_sim_session(resource, backend, timeout_ms, dialect)
     manager = open_manager(backend)
     if backend.endswith("@sim") and not _sim_knows(manager, resource):
         # pyvisa-sim hands out a dead session instead of failing: check first

@@ -1,11 +1,11 @@
 """Connecting the instruments a plan needs, and always leaving them off.
 
-    with open_bench(plan, simulate="lh-qt16", time_scale=0.0) as bench:
+    with open_bench(plan.on_simulated_bench("lh-qt16@pnsim:time_scale=0")) as bench:
         bench.smu, bench.lcr, bench.instruments    # roles and their identities
         bench.safe_off()                           # {role: confirmed off}
 
-`open_bench` connects the roles the plan's steps use (from the plan's [instruments], or
-from a simulated bench started in-process for ``simulate``), asks each for its identity,
+`open_bench` connects the roles the plan's steps use (from the plan's [instruments], which
+may name the simulated bench as their backend), asks each for its identity,
 optionally compares serial numbers with a previous run's, and turns every output off
 before handing the bench over. Leaving the `with` block, by any path, turns every output
 off again and confirms it. When a session has died (the connection dropped mid-step),
@@ -111,13 +111,16 @@ class Bench:
         if instrument is not None:
             instrument.session.drain_errors(context=context)
 
+    @property
+    def time_scale(self) -> float:
+        """How instrument time passes: 1 for real instruments, the simulated bench's
+        own time scale for it (0: nothing waits)."""
+        return float(self.sim.time_scale) if self.sim is not None else 1.0
+
     def close(self) -> None:
         for instrument in self.roles.values():
             with contextlib.suppress(Exception):
                 instrument.session.close()
-        if self.sim is not None:
-            with contextlib.suppress(Exception):
-                self.sim.close()
 
 
 def set_ramp(smu, rate_V_per_s: float, time_scale: float = 1.0) -> None:
@@ -151,14 +154,11 @@ def _open_role(conn: Connection):
         raise
 
 
-def connections_for(plan: Plan, roles: set[str], sim=None) -> dict[str, Connection]:
-    """Where each needed role is: the simulated bench's sockets, or the plan's table."""
+def connections_for(plan: Plan, roles: set[str]) -> dict[str, Connection]:
+    """Where each needed role is: the plan's table (the simulated bench's resources when
+    ``--simulate`` rewrote it)."""
     found = {}
     for role in sorted(roles):
-        if sim is not None:
-            resource = sim.smu_resource if role == "smu" else sim.lcr_resource
-            found[role] = Connection(role, resource, "@py", None, 5000)
-            continue
         spec = plan.instruments.get(role)
         if spec is None:
             raise BadInput(f"plan {plan.path}: its steps need the {role.upper()} but "
@@ -170,30 +170,31 @@ def connections_for(plan: Plan, roles: set[str], sim=None) -> dict[str, Connecti
 
 
 @contextlib.contextmanager
-def open_bench(plan: Plan, *, simulate: str | None = None, time_scale: float = 0.0,
-               expected: dict | None = None, force_identity: bool = False,
-               off_on_disconnect: bool = True,
+def open_bench(plan: Plan, *, expected: dict | None = None, force_identity: bool = False,
                prime: tuple[str, float] | None = None) -> Iterator[Bench]:
     """Connect, identify, switch everything off; on leaving, switch off and confirm.
 
-    ``expected`` maps role -> identity string of a previous run (resume): a different
-    serial number raises InstrumentError unless ``force_identity``. ``prime`` is the
-    (source, level) an interrupted run left the SMU at, so the first switch-off ramps.
+    A plan whose instruments are on the simulated bench (backend ``DEVICE@pnsim``) gets
+    it started in-process for as long as the bench is open. ``expected`` maps role ->
+    identity string of a previous run (resume): a different serial number raises
+    InstrumentError unless ``force_identity``. ``prime`` is the (source, level) an
+    interrupted run left the SMU at, so the first switch-off ramps.
     """
-    bench = Bench(simulated=simulate)
+    spec = plan.simulated
+    bench = Bench(simulated=spec.device if spec is not None else None)
+    held = None
     try:
-        if simulate is not None:
-            from pnbench.drivers.sim.bench import SimBench
+        if spec is not None:
+            from pnbench.drivers.sim.backend import REGISTRY
 
-            bench.sim = SimBench.start(simulate, time_scale=time_scale,
-                                       off_on_disconnect=off_on_disconnect)
-        bench.connections = connections_for(plan, plan.roles_needed, bench.sim)
+            held = spec.backend
+            bench.sim = REGISTRY.acquire(held)  # one bench for both roles, for the run
+        bench.connections = connections_for(plan, plan.roles_needed)
         for role, conn in bench.connections.items():
             bench.roles[role] = _open_role(conn)
             conn.identity = bench.roles[role].identity
         if bench.smu is not None:
-            set_ramp(bench.smu, plan.limits.ramp_rate_V_per_s,
-                     time_scale if bench.sim is not None else 1.0)
+            set_ramp(bench.smu, plan.limits.ramp_rate_V_per_s, bench.time_scale)
         _check_identities(bench, expected or {}, force_identity)
         if prime is not None and bench.smu is not None:
             prime_source(bench.smu, *prime)
@@ -209,6 +210,10 @@ def open_bench(plan: Plan, *, simulate: str | None = None, time_scale: float = 0
                 bench.safe_off()
         finally:
             bench.close()
+            if held is not None:
+                from pnbench.drivers.sim.backend import REGISTRY
+
+                REGISTRY.release(held)
 
 
 def _check_identities(bench: Bench, expected: dict, force: bool) -> None:

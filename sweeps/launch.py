@@ -1,11 +1,11 @@
 """One run from start to end: folder, bench, fitter, runner, in the right order.
 
-    launch = Launch.new(plan, simulate="lh-qt16", time_scale=0.0, out_dir="runs",
-                        listeners=[queue.put])
+    plan = plan.on_simulated_bench("lh-qt16@pnsim:time_scale=0")   # or real instruments
+    launch = Launch.new(plan, out_dir="runs", listeners=[queue.put])
     outcome = launch.run()       # blocking; or launch.start() + launch.wait() on a thread
     launch.pause(); launch.resume(); launch.abort("why")
 
-    launch = Launch.resume_from(run_dir, simulate=None, force_identity=False)
+    launch = Launch.resume_from(run_dir, force_identity=False)
 
 The command line and the app both use this, so a run started either way leaves the same
 run folder. Connection failures before the first point are recorded in run.json
@@ -31,23 +31,21 @@ from pnbench.sweeps.store import RunFolder, iso, read_run, utc_now
 
 
 class Launch:
-    def __init__(self, plan: Plan, *, simulate: str | None, time_scale: float,
-                 out_dir: str | Path | None = None, run_dir: str | Path | None = None,
-                 force_identity: bool = False, listeners=(), fit: bool = True,
-                 off_on_disconnect: bool = True, guardian: bool = True) -> None:
-        if simulate is None:
-            # A plan that names no instrument for a role it needs is bad input: say so
-            # before a run folder exists (nothing is connected here).
-            connections_for(plan, plan.roles_needed)
+    def __init__(self, plan: Plan, *, out_dir: str | Path | None = None,
+                 run_dir: str | Path | None = None, force_identity: bool = False,
+                 listeners=(), fit: bool = True, guardian: bool = True) -> None:
+        # A plan that names no instrument for a role it needs is bad input: say so
+        # before a run folder exists (nothing is connected here).
+        connections_for(plan, plan.roles_needed)
         self.plan = plan
-        self.simulate = str(simulate) if simulate is not None else None
-        self.time_scale = float(time_scale) if simulate is not None else 1.0
+        sim = plan.simulated  # the simulated bench is a backend of the plan's instruments
+        self.simulate = sim.device if sim is not None else None
+        self.time_scale = sim.time_scale if sim is not None else 1.0
         self.out_dir = Path(out_dir) if out_dir is not None else Path("runs")
         self.resume_dir = Path(run_dir) if run_dir is not None else None
         self.force_identity = force_identity
         self.listeners = list(listeners)
         self.fit_enabled = fit
-        self.off_on_disconnect = off_on_disconnect
         self.use_guardian = guardian
         self.run_dir: Path | None = self.resume_dir
         self.outcome: Outcome | None = None
@@ -59,25 +57,25 @@ class Launch:
 
     # -- constructors -------------------------------------------------------------------
     @classmethod
-    def new(cls, plan: Plan, *, simulate: str | None = None, time_scale: float = 1.0,
-            out_dir: str | Path = "runs", listeners=(), fit: bool = True,
-            off_on_disconnect: bool = True) -> Launch:
-        return cls(plan, simulate=simulate, time_scale=time_scale, out_dir=out_dir,
-                   listeners=listeners, fit=fit, off_on_disconnect=off_on_disconnect)
+    def new(cls, plan: Plan, *, out_dir: str | Path = "runs", listeners=(),
+            fit: bool = True) -> Launch:
+        return cls(plan, out_dir=out_dir, listeners=listeners, fit=fit)
 
     @classmethod
-    def resume_from(cls, run_dir: str | Path, *, simulate: str | None = None,
-                    time_scale: float = 1.0, force_identity: bool = False, listeners=(),
-                    fit: bool = True) -> Launch:
-        """Prepare to continue the run in ``run_dir`` (its own plan.toml); ``simulate``
-        defaults to the device the run was simulated with."""
+    def resume_from(cls, run_dir: str | Path, *, plan: Plan | None = None,
+                    force_identity: bool = False, listeners=(), fit: bool = True) -> Launch:
+        """Prepare to continue the run in ``run_dir`` with its own plan.toml, on the
+        instruments it recorded (a simulated run on the same simulated bench), or with
+        ``plan`` (the same plan, perhaps put on another bench by the caller)."""
         run_dir = Path(run_dir)
         run = read_run(run_dir)
-        plan = plan_of_run(run_dir, run)
-        if simulate is None and run.get("simulated"):
-            simulate = str(run["simulated"])
-        return cls(plan, simulate=simulate, time_scale=time_scale, run_dir=run_dir,
-                   force_identity=force_identity, listeners=listeners, fit=fit)
+        if plan is None:
+            plan = plan_of_run(run_dir, run)
+            backend = simulated_backend(run)
+            if backend is not None:
+                plan = plan.on_simulated_bench(backend)
+        return cls(plan, run_dir=run_dir, force_identity=force_identity,
+                   listeners=listeners, fit=fit)
 
     # -- control ------------------------------------------------------------------------
     def pause(self) -> None:
@@ -174,9 +172,8 @@ class Launch:
             prime = resume_mod.last_smu_level(self.plan, state)
         guardian = None
         try:
-            with open_bench(self.plan, simulate=self.simulate, time_scale=self.time_scale,
-                            expected=expected, force_identity=self.force_identity,
-                            off_on_disconnect=self.off_on_disconnect, prime=prime) as bench:
+            with open_bench(self.plan, expected=expected, force_identity=self.force_identity,
+                            prime=prime) as bench:
                 self.bench = bench
                 folder.update_run(instruments=bench.instruments, guardian=None)
                 if self.simulate is None and self.use_guardian:
@@ -191,7 +188,7 @@ class Launch:
                              "after the last recorded point")
                 fit = self._fit_worker(folder, bus, state)
                 self.runner = Runner(self.plan, folder, bench, bus, fit=fit,
-                                     time_scale=self.time_scale, resume_state=state)
+                                     time_scale=bench.time_scale, resume_state=state)
                 for name, args in self._pending:
                     getattr(self.runner, name)(*args)
                 outcome = self.runner.run()
@@ -271,3 +268,21 @@ def plan_of_run(run_dir: Path, run: dict | None = None) -> Plan:
     source = run.get("plan_source")
     base = Path(source).parent if isinstance(source, str) else Path(run_dir)
     return parse_plan(text, str(file), base_dir=base)
+
+
+def simulated_backend(run: dict, time_scale: float | None = None) -> str | None:
+    """The simulated bench a recorded run ran on (its backend string), with
+    ``time_scale`` instead of the recorded one when given; None for real instruments."""
+    from pnbench.drivers.sim.backend import backend_for, is_sim_backend, parse
+
+    device = run.get("simulated")
+    if not device:
+        return None
+    recorded = ((run.get("instruments") or {}).get("smu") or {}).get("backend") or (
+        ((run.get("instruments") or {}).get("lcr") or {}).get("backend"))
+    if is_sim_backend(recorded):
+        spec = parse(recorded)
+    else:  # a run folder from before the simulated bench was a backend
+        spec = parse(backend_for(str(device), float(run.get("time_scale") or 1.0)))
+    scale = spec.time_scale if time_scale is None else float(time_scale)
+    return backend_for(spec.device, scale, spec.watchdog)

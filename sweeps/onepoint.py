@@ -1,6 +1,7 @@
 """One bias point by hand: source a level on the SMU, read once, switch off.
 
-    result = measure_one(plan, "0.6 V", "10 mA", simulate="lh-vc510")
+    result = measure_one(plan.on_simulated_bench("lh-vc510@pnsim:time_scale=0"), "0.6 V",
+                         "10 mA")
 
 For a first check of a fixture before a sweep. The plan's limits apply as in a sweep:
 the level and the compliance are checked before anything is applied (voltage window,
@@ -82,20 +83,17 @@ def check_request(plan, source: str, level: float, compliance: float) -> StepGua
     return guard
 
 
-def measure_one(plan, level_text: str, compliance_text: str, *, simulate: str | None = None,
-                time_scale: float = 0.0, nplc: float = 1.0) -> OnePoint:
-    """Check, connect the SMU, source one level, read, switch off (always)."""
+def measure_one(plan, level_text: str, compliance_text: str, *,
+                nplc: float = 1.0) -> OnePoint:
+    """Check, connect the SMU (the plan's, or the simulated bench its backend names),
+    source one level, read, switch off (always)."""
     from pnbench.sweeps.bench import Bench, _open_role, connections_for
 
     source, level, compliance = parse_request(level_text, compliance_text)
     guard = check_request(plan, source, level, compliance)
-    bench = Bench(simulated=simulate)
+    bench = Bench()
     try:
-        if simulate is not None:
-            from pnbench.drivers.sim.bench import SimBench
-
-            bench.sim = SimBench.start(simulate, time_scale=time_scale)
-        bench.connections = connections_for(plan, {"smu"}, bench.sim)
+        bench.connections = connections_for(plan, {"smu"})
         smu = bench.roles["smu"] = _open_role(bench.connections["smu"])
         identity = smu.identity
         smu.configure(source, compliance, nplc=nplc)

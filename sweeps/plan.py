@@ -8,7 +8,7 @@ ships as `sim_configs/plans/example_full.toml`. Step tables are read by `planste
 from __future__ import annotations
 
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from pnbench.drivers.backends import plan_backend_problem
@@ -89,6 +89,28 @@ class Plan:
     @property
     def total_points(self) -> int:
         return sum(s.planned for s in self.steps)
+
+    @property
+    def simulated(self):
+        """The simulated bench the instruments are on (a drivers.sim.backend.SimSpec),
+        or None for real instruments."""
+        from pnbench.drivers.sim.backend import is_sim_backend, parse
+
+        for inst in self.instruments.values():
+            if is_sim_backend(inst.backend):
+                return parse(inst.backend)
+        return None
+
+    def on_simulated_bench(self, backend: str) -> Plan:
+        """This plan with every instrument on the simulated bench named by ``backend``
+        (``DEVICE@pnsim[:time_scale=X]``): what ``--simulate`` does to a plan."""
+        from pnbench.drivers.sim.backend import RESOURCES, parse
+
+        parse(backend)  # BadInput for a malformed string
+        instruments = {role: Instrument(role=role, resource=name, backend=backend,
+                                        timeout_ms=5000)
+                       for role, name in RESOURCES.items()}
+        return replace(self, instruments=instruments)
 
 
 def load_plan(path: str | Path) -> Plan:

@@ -104,8 +104,8 @@ def pipeline_per_point_s(n: int, out: Path) -> float:
         if event.kind == "point":
             stamps.append(time.perf_counter())
 
-    launch = Launch.new(plan_of(1, n), simulate=DEVICE, time_scale=0.0, out_dir=out,
-                        listeners=[listener])
+    launch = Launch.new(plan_of(1, n).on_simulated_bench(f"{DEVICE}@pnsim:time_scale=0"),
+                        out_dir=out, listeners=[listener])
     outcome = launch.run()
     if outcome.status != "completed" or len(stamps) != n:
         raise SystemExit(f"pipeline run did not complete: {outcome}")

@@ -49,7 +49,8 @@ def plan_path(name: str) -> Path:
 @pytest.mark.parametrize("device", sorted(EXPECTED))
 def test_bundled_plan_recovers_the_device(device, tmp_path):
     plan = load_plan(plan_path(device))
-    launch = Launch.new(plan, simulate=device, time_scale=0.0, out_dir=tmp_path)
+    launch = Launch.new(plan.on_simulated_bench(f"{device}@pnsim:time_scale=0"),
+                        out_dir=tmp_path)
     outcome = launch.run()
     assert outcome.status == "completed", outcome.reason
     assert outcome.outputs_off_confirmed and outcome.exit_code == 0

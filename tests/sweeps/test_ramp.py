@@ -85,7 +85,7 @@ def test_plan_key_reads_units_and_refuses_absurd_rates():
 
 def test_the_bench_ramps_at_the_plans_rate_and_the_sims_time_scale():
     plan = plan_with('"25 V/s"')
-    with open_bench(plan, simulate="lh-qt16", time_scale=0.0) as bench:
+    with open_bench(plan.on_simulated_bench("lh-qt16@pnsim:time_scale=0")) as bench:
         assert bench.smu.ramp_rate_V_per_s == 25.0 and bench.smu.ramp_time_scale == 0.0
         bench.smu.configure(source="voltage", limit=1e-3)
         bench.smu.output(True)

@@ -21,6 +21,7 @@ from pnbench.tui.app.state import RunState
 from pnbench.tui.app.widgets.banner import MessageStrip, banner_text
 
 SIZES = [(80, 24), (140, 45)]
+SIM = "lh-qt16@pnsim:time_scale=0"  # the simulated bench, as the plan's backend
 
 
 def plan_file(tmp_path, forward=10, reverse=11, **kw):
@@ -134,16 +135,16 @@ def test_the_banner_says_who_switched_the_outputs_off_and_when_nothing_was_conne
 
 def test_one_point_by_hand_keeps_to_the_plans_limits_and_ends_off(tmp_path):
     plan = parse_plan(sweep_plan("LH-QT16-t1", 5, 5), "p.toml")
-    result = measure_one(plan, "0.6 V", "10 mA", simulate="lh-qt16")
+    result = measure_one(plan.on_simulated_bench(SIM), "0.6 V", "10 mA")
     assert result.source == "voltage" and result.outputs_off_confirmed
     assert 0 < result.current_A <= 10e-3 and abs(result.voltage_V - 0.6) < 0.01
     assert "off, confirmed" in result.line()
     with pytest.raises(SafetyStop, match="max_current"):
-        measure_one(plan, "0.6 V", "80 mA", simulate="lh-qt16")  # limit 50 mA
+        measure_one(plan.on_simulated_bench(SIM), "0.6 V", "80 mA")  # limit 50 mA
     with pytest.raises(SafetyStop, match="voltage limits"):
-        measure_one(plan, "-30 V", "1 mA", simulate="lh-qt16")  # limit 20 V reverse
+        measure_one(plan.on_simulated_bench(SIM), "-30 V", "1 mA")  # limit 20 V reverse
     with pytest.raises(SafetyStop, match="max_power"):
-        measure_one(plan, "-20 V", "10 mA", simulate="lh-qt16")  # 200 mW > 50 mW
+        measure_one(plan.on_simulated_bench(SIM), "-20 V", "10 mA")  # 200 mW > 50 mW
 
 
 async def test_bench_screen_identify_answers_and_one_point_is_measured(tmp_path):

@@ -237,7 +237,8 @@ def test_resume_of_a_simulated_run_uses_its_device(tmp_path, capsys):
 
     plan = load_plan(write(tmp_path, GOOD.format(smu="TCPIP0::192.0.2.1::5025::SOCKET",
                                                  points=40)))
-    launch = Launch.new(plan, simulate="lh-zl560", time_scale=0.0, out_dir=tmp_path / "runs")
+    launch = Launch.new(plan.on_simulated_bench("lh-zl560@pnsim:time_scale=0"),
+                        out_dir=tmp_path / "runs")
 
     def listener(event):
         if event.kind == "point" and event["index"] == 15:

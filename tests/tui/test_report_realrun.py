@@ -27,7 +27,7 @@ def demo_report(tmp_path_factory):
 
     plan_file = resources.files("pnbench.sim_configs") / "plans" / "lh-vc510.toml"
     plan = load_plan(str(plan_file))
-    run = launch.Launch.new(plan, simulate="lh-vc510", time_scale=0.0,
+    run = launch.Launch.new(plan.on_simulated_bench("lh-vc510@pnsim:time_scale=0"),
                             out_dir=tmp_path_factory.mktemp("demo"))
     outcome = run.run()
     assert outcome.status == "completed", outcome

@@ -31,8 +31,11 @@ class RunControl:
     def start(self, plan) -> None:
         """Make and start a LiveRun of `plan` (connecting happens on the engine's thread);
         PnbenchError when the engine refuses it before any folder exists."""
-        self.live = self.factory(plan, simulate=self.simulate, time_scale=self.time_scale,
-                                 out_dir=self.out_dir)
+        if self.simulate:  # the simulated bench is a backend of the plan's instruments
+            from pnbench.drivers.sim.backend import backend_for
+
+            plan = plan.on_simulated_bench(backend_for(self.simulate, self.time_scale))
+        self.live = self.factory(plan, out_dir=self.out_dir)
         self.live.start()
 
     def where(self, plan) -> str:

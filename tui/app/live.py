@@ -26,14 +26,13 @@ def event_dict(event: object) -> dict:
 class LiveRun:
     """One run of a plan by this app. Construct, `start()`, then drain and control."""
 
-    def __init__(self, plan, *, simulate: str | None = None, time_scale: float = 1.0,
-                 out_dir: str | Path = "runs"):
+    def __init__(self, plan, *, out_dir: str | Path = "runs"):
+        """``plan`` names its instruments, real or the simulated bench (as a backend)."""
         from pnbench.sweeps.launch import Launch
 
         self.plan = plan
         self.events: queue.SimpleQueue = queue.SimpleQueue()
-        self.launch = Launch.new(plan, simulate=simulate, time_scale=time_scale,
-                                 out_dir=out_dir, listeners=[self.events.put])
+        self.launch = Launch.new(plan, out_dir=out_dir, listeners=[self.events.put])
         self._sim = None
         self._error_reported = False
         self._lock = threading.Lock()

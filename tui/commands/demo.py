@@ -7,7 +7,7 @@ import sys
 from importlib import resources
 from pathlib import Path
 
-from pnbench.tui.commands.run import add_bench_options, check_bench_options
+from pnbench.tui.commands.run import add_bench_options, check_bench_options, on_bench
 
 HELP = "characterize a bundled part on the simulated bench (I-V, C-V, admittance, model card)"
 DEFAULT_DEVICE = "lh-vc510"
@@ -54,6 +54,5 @@ def run(args) -> int:
 
         return run_app(plan_path=plan_path, simulate=simulate, time_scale=args.time_scale,
                        out_dir=args.out, autostart=True, report=not args.no_report)
-    launch = Launch.new(plan, simulate=simulate, time_scale=args.time_scale,
-                        out_dir=args.out)
+    launch = Launch.new(on_bench(plan, args), out_dir=args.out)
     return run_headless(launch, plan, report=not args.no_report)

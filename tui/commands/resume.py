@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from pnbench.tui.commands.run import add_bench_options, check_bench_options
+from pnbench.tui.commands.run import add_bench_options, check_bench_options, on_bench
 
 HELP = "continue an interrupted run at its next point (same instruments, same plan)"
 
@@ -25,7 +25,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args) -> int:
-    from pnbench.sweeps.launch import Launch, plan_of_run
+    from pnbench.drivers.sim.backend import parse
+    from pnbench.sweeps.launch import Launch, plan_of_run, simulated_backend
     from pnbench.sweeps.store import read_run
     from pnbench.tui.headless import run_headless
 
@@ -33,12 +34,13 @@ def run(args) -> int:
     if run_doc.get("status") == "completed":
         print(f"{args.run_dir}: the run is already completed; nothing to resume")
         return 0
-    if args.simulate is None and run_doc.get("simulated"):
-        args.simulate = str(run_doc["simulated"])
+    recorded = simulated_backend(run_doc)
+    if args.simulate is None and recorded is not None:
+        args.simulate = parse(recorded).device
         print(f"simulated run: using the simulated bench with {args.simulate}",
               file=sys.stderr)
-    check_bench_options(args, plan_of_run(args.run_dir, run_doc) if args.simulate else None)
-    launch = Launch.resume_from(args.run_dir, simulate=args.simulate,
-                                time_scale=args.time_scale,
+    plan = plan_of_run(args.run_dir, run_doc)
+    check_bench_options(args, plan if args.simulate else None)
+    launch = Launch.resume_from(args.run_dir, plan=on_bench(plan, args),
                                 force_identity=args.force_identity)
     return run_headless(launch, launch.plan, report=not args.no_report)

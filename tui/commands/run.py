@@ -78,6 +78,15 @@ def run(args) -> int:
         return run_app(plan_path=args.plan, simulate=args.simulate,
                        time_scale=args.time_scale, out_dir=args.out, autostart=True,
                        report=not args.no_report)
-    launch = Launch.new(plan, simulate=args.simulate, time_scale=args.time_scale,
-                        out_dir=args.out)
+    launch = Launch.new(on_bench(plan, args), out_dir=args.out)
     return run_headless(launch, plan, report=not args.no_report)
+
+
+def on_bench(plan, args):
+    """``plan`` on the bench the options choose: with --simulate, its instruments become
+    the simulated bench (a backend string, as pyvisa-sim is one); as written otherwise."""
+    if args.simulate is None:
+        return plan
+    from pnbench.drivers.sim.backend import backend_for
+
+    return plan.on_simulated_bench(backend_for(args.simulate, args.time_scale))

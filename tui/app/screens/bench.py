@@ -219,8 +219,12 @@ class BenchScreen(Screen):
 
         def work() -> None:
             try:
-                result = measure_one(app.plan, level, compliance, simulate=app.simulate,
-                                     time_scale=0.0)
+                plan = app.plan
+                if app.simulate:
+                    from pnbench.drivers.sim.backend import backend_for
+
+                    plan = plan.on_simulated_bench(backend_for(app.simulate, 0.0))
+                result = measure_one(plan, level, compliance)
                 text, error = "one point: " + result.line(), False
             except PnbenchError as exc:
                 text, error = f"one point refused or failed: {exc}", True
