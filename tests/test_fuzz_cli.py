@@ -68,11 +68,12 @@ ODD_OPTIONS = ["nan", "inf", "-inf", "1e308", "-1e308", "1e-308", "0", "-1", "",
                "2.5m", "1k", "1MHz", "5 V", "1e-30", "300 K", "-0", "9.9e37", "1e3"]
 
 
-def invoke(argv: list[str]) -> tuple[int, str]:
-    """Run the command line in-process; (exit code, stdout + stderr)."""
+def invoke(argv: list[str], cwd: str) -> tuple[int, str]:
+    """Run the command line in-process in ``cwd`` (a relative --out lands there);
+    (exit code, stdout + stderr)."""
     out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err), \
-            warnings.catch_warnings(record=True) as caught:
+    with contextlib.chdir(cwd), contextlib.redirect_stdout(out), \
+            contextlib.redirect_stderr(err), warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
             code = main(argv)
@@ -123,7 +124,7 @@ def test_mutated_plans_are_checked_and_run_without_a_traceback(text):
         plan = Path(tmp) / "plan.toml"
         plan.write_text(text, encoding="utf-8", errors="surrogatepass")
         argv = ["check", str(plan)]
-        code, out = invoke(argv)
+        code, out = invoke(argv, tmp)
         assert_clean(argv, code, out)
         if code != 0:
             return
@@ -133,7 +134,7 @@ def test_mutated_plans_are_checked_and_run_without_a_traceback(text):
             return  # a valid plan, just long: the run itself is not what is fuzzed here
         argv = ["run", str(plan), "--simulate", "lh-zl560", "--time-scale", "0",
                 "--headless", "--no-report", "--out", str(Path(tmp) / "runs")]
-        code, out = invoke(argv)
+        code, out = invoke(argv, tmp)
         assert_clean(argv, code, out)
 
 
@@ -144,7 +145,7 @@ def test_mutated_data_files_are_fitted_or_refused_without_a_traceback(text, as_j
         data = Path(tmp) / "data.csv"
         data.write_text(text, encoding="utf-8", errors="surrogatepass")
         argv = ["fit", str(data)] + (["--json"] if as_json else [])
-        code, out = invoke(argv)
+        code, out = invoke(argv, tmp)
         assert_clean(argv, code, out)
 
 
@@ -166,7 +167,7 @@ def test_odd_qpoint_options_without_a_traceback(bias, value, freqs, temperature,
             argv.append(f"--temperature={temperature}")
         if level is not None:
             argv.append(f"--ac-level={level}")
-        code, out = invoke(argv)
+        code, out = invoke(argv, tmp)
         assert_clean(argv, code, out)
         if code == 0:
             assert "nan" not in out.lower()
@@ -183,7 +184,7 @@ def test_odd_fit_and_run_options_without_a_traceback(fit_option, fit_value, run_
         data = Path(tmp) / "iv.csv"
         data.write_text(IV, encoding="utf-8")
         argv = ["fit", str(data), f"{fit_option}={fit_value}"]
-        code, out = invoke(argv)
+        code, out = invoke(argv, tmp)
         assert_clean(argv, code, out)
         plan = Path(tmp) / "plan.toml"
         plan.write_text(PLAN, encoding="utf-8")
@@ -192,5 +193,5 @@ def test_odd_fit_and_run_options_without_a_traceback(fit_option, fit_value, run_
                 f"{run_option}={run_value}", *out_dir]
         if run_option != "--time-scale":
             argv += ["--time-scale", "0"]
-        code, out = invoke(argv)
+        code, out = invoke(argv, tmp)
         assert_clean(argv, code, out)
