@@ -58,8 +58,15 @@ def rescue(run_dir: Path, lock_timeout_s: float = 30.0) -> int:
     import time
 
     from pnbench.errors import PnbenchError
-    from pnbench.sweeps.store import RunFolder, iso, utc_now
+    from pnbench.sweeps.store import RunFolder, iso, read_run, utc_now
 
+    try:  # a run that ended with its record written needs nothing, and no lock: taking
+        # it would make a `resume` started at once find the folder in use
+        ended = read_run(run_dir)
+        if ended.get("status") not in LIVE or ended.get("simulated"):
+            return 0
+    except PnbenchError:
+        pass  # torn or missing: look again under the lock
     end = time.monotonic() + lock_timeout_s
     while True:
         try:
