@@ -260,7 +260,11 @@ def model_from_results(results: Mapping[str, FitResult], temperature_K: float,
                                             "sigma": _finite_or_none(r.sigmas["CFIX"])}
             break
     out.update(extras or {})
-    return ModelSet(values=values, sigmas=sigmas, temperature_K=temperature_K, extras=out)
+    model = ModelSet(values=values, sigmas=sigmas, temperature_K=temperature_K, extras=out)
+    caution = model.breakdown_caution()
+    if caution:  # said where the fit is read, not only in the card's comments
+        model.extras["card_caution"] = caution
+    return model
 
 
 def _shunt(values, sigmas, results, out) -> None:

@@ -138,3 +138,22 @@ def test_rsh_from_pa_level_reverse_data_is_unbiased_with_honest_sigma():
         zs.append((r.values["RSH"] - p.RSH) / r.sigmas["RSH"])
     assert abs(np.mean(vals) / p.RSH - 1) < 0.02
     assert 0.7 < math.sqrt(np.mean(np.square(zs))) < 1.4
+
+
+def test_model_says_when_its_ibv_would_move_the_knee_in_a_simulator():
+    """IBV below IS*BV/Vt: the model's extras carry the caution the card prints."""
+    from pnbench.modeling import joint
+    from pnbench.modeling.fitresult import FitResult
+
+    def result(kind, **values):
+        names = tuple(values)
+        return FitResult(kind=kind, names=names, values=values,
+                         sigmas={k: abs(v) * 0.01 for k, v in values.items()},
+                         covariance=np.diag([(abs(v) * 0.01) ** 2 for v in values.values()]),
+                         correlation=np.eye(len(names)), used=np.ones(5, bool), n_points=5,
+                         reduced_chi2=1.0, success=True, message="by hand",
+                         extras={"IBV_A": 1e-7} if kind == "iv_reverse" else {})
+
+    m = joint.model_from_results({"iv_forward": result("iv_forward", IS=1e-8, N=1.8),
+                                  "iv_reverse": result("iv_reverse", BV=200.0)}, 300.0)
+    assert "IS*BV/Vt" in m.extras["card_caution"]
