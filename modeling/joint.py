@@ -63,7 +63,10 @@ class JointFit:
 def _col(columns: Mapping[str, Any], name: str, n: int | None = None) -> np.ndarray:
     if name not in columns or columns[name] is None:
         return np.full(n if n is not None else 0, np.nan)
-    return np.asarray(columns[name], dtype=float).ravel()
+    out = np.asarray(columns[name], dtype=float).ravel()
+    if out.size == 1 and n is not None and n != 1:  # one value for every point
+        out = np.full(n, out[0])
+    return out
 
 
 def _pool(data: Mapping[str, Mapping[str, Any]], kinds: Sequence[str]) -> dict | None:

@@ -128,3 +128,15 @@ def test_run_folder_states_bv_at_the_plans_breakdown_guard(tmp_path, capsys):
     assert doc["parameters"]["BV"]["value"] == pytest.approx(60.0, rel=0.01)
     assert cli.main(["fit", str(run_dir), "--json", "--ibv", "1m"]) == 0
     assert "BV" not in json.loads(capsys.readouterr().out)["parameters"]
+
+
+def test_stated_instrument_noise_options(tmp_path, capsys, sig):
+    """--smu-noise judges the I-V fit against a stated noise: ngspice's clean data pass
+    a generous one; a malformed option exits 2 naming it."""
+    good = _iv_file(tmp_path / "fwd.csv", sig.forward_v, sig.forward_i)
+    assert cli.main(["fit", str(good), "--json", "--smu-noise", "1e-3,1pA"]) == 0
+    fit = json.loads(capsys.readouterr().out)["fits"]["iv_forward"]
+    assert fit["lack_of_fit"]["chi2_probability"] > 1e-3
+    for bad in ("abc", "2,5pA", "1e-3,lots"):
+        assert cli.main(["fit", str(good), "--smu-noise", bad]) == 2
+        assert "--smu-noise" in capsys.readouterr().err

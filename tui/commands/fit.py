@@ -1,7 +1,8 @@
 """`pnbench fit`: extract the diode model from data files or a run folder.
 
     pnbench fit FILE_OR_RUN_DIR [FILE ...] [--kind iv|cv|auto] [--temperature K]
-                [--area M2] [--ibv A] [--leakage-at V] [--fixture] [--tnom K] [--json]
+                [--area M2] [--ibv A] [--leakage-at V] [--fixture] [--tnom K]
+                [--smu-noise REL,FLOOR] [--lcr-noise REL,FLOOR] [--json]
 
 Several files are fitted into one model, each at its own temperature (its
 ``temperature_K`` metadata, else ``--temperature``); with two temperatures or more EG
@@ -43,6 +44,13 @@ def add_arguments(parser) -> None:
     parser.add_argument("--fixture", action="store_true",
                         help="always fit a parallel (fixture) capacitance in C-V data "
                              "(by default it is fitted when the data determine it)")
+    parser.add_argument("--smu-noise", metavar="REL,FLOOR",
+                        help="the SMU's stated current noise, relative and floor, e.g. "
+                             "2e-4,5pA: the I-V fit is judged against it (chi-square) "
+                             "instead of estimating it")
+    parser.add_argument("--lcr-noise", metavar="REL,FLOOR",
+                        help="the LCR meter's stated noise, relative of |Y| and floor as "
+                             "a capacitance, e.g. 3e-4,2fF")
     parser.add_argument("--json", action="store_true",
                         help="print the model.json document instead of the table")
 
@@ -86,9 +94,16 @@ def run(args) -> int:
             if args.leakage_at else None)
     kinds = data.kinds if args.kind == "auto" else (args.kind,)
     fit_data = {k: data.select(k) for k in kinds if data.select(k) is not None}
+    for kind, level in _run_ac_levels(source, data).items():
+        if kind in fit_data:  # the meter's test level, as the run's own fit used it
+            fit_data[kind] = {**fit_data[kind], "ac_level_V": level}
+    noise = {key: _noise_option(text, option, unit)
+             for key, text, option, unit in (("iv", args.smu_noise, "--smu-noise", "A"),
+                                             ("cv", args.lcr_noise, "--lcr-noise", "F"))
+             if text}
     result = joint.fit_all(fit_data, temperature_K=temperature, area_m2=area,
                            reference_V=leak, ibv_A=ibv, with_fixture=True if args.fixture else None,
-                           extras={"source": str(data.path)})
+                           extras={"source": str(data.path)}, noise=noise or None)
     if not any(r.success for r in result.results.values()):
         reasons = "; ".join(f"{k}: {r.message}" for k, r in result.results.items())
         raise DataFileError(f"{data.path}: nothing could be fitted ({reasons})")
@@ -121,6 +136,63 @@ def _run_breakdown_current(source: str, notes: list[str]) -> float | None:
         notes.append(f"BV is stated at IBV = {ibv:.3g} A, the run's breakdown guard "
                      "(--ibv sets another)")
     return ibv
+
+
+def _noise_option(text: str, option: str, unit: str) -> tuple[float, float]:
+    """(relative, floor) from 'REL,FLOOR' (e.g. 2e-4,5pA); DataFileError naming the
+    option otherwise."""
+    from pnbench.errors import DataFileError
+    from pnbench.sweeps.quantities import parse_quantity
+
+    parts = [p.strip() for p in str(text).split(",")]
+    if len(parts) != 2:
+        raise DataFileError(f"{option}: expected REL,FLOOR such as 2e-4,5p{unit}; "
+                            f"got {text!r}")
+    try:
+        rel = float(parts[0])
+    except ValueError:
+        raise DataFileError(f"{option}: the relative part {parts[0]!r} is not a number "
+                            f"(e.g. 2e-4 for 0.02 %)") from None
+    floor = parse_quantity(parts[1], unit, what=option, low=0.0, high=1.0)
+    if not (0 < rel < 1) or not floor >= 0:
+        raise DataFileError(f"{option}: need 0 < REL < 1 and FLOOR >= 0, got {text!r}")
+    return rel, floor
+
+
+def _run_ac_levels(source: str, data) -> dict:
+    """For a run folder, the LCR test level of every C-V row (from its step in the
+    plan, NaN where unknown), by data kind; {} elsewhere."""
+    import csv
+    from pathlib import Path
+
+    import numpy as np
+
+    from pnbench.errors import PlanError
+    from pnbench.sweeps.plan import load_plan
+
+    folder = Path(source)
+    if not (folder / "plan.toml").is_file() or not (folder / "points.csv").is_file():
+        return {}
+    try:
+        plan = load_plan(folder / "plan.toml")
+        lines = (folder / "points.csv").read_text(encoding="utf-8").splitlines()
+    except (PlanError, OSError, UnicodeDecodeError):
+        return {}  # the plan's trouble is said once already, by _run_breakdown_current
+    level = {s.name: getattr(s, "ac_level_V", None) for s in plan.steps}
+    header = next((ln for ln in lines if ln and not ln.startswith("#")), "")
+    if not header.startswith("step,"):
+        return {}
+    out = {}
+    for kind in data.kinds:
+        rows = data.row_kind == kind
+        values = []
+        for n in np.asarray(data.line_numbers)[rows]:
+            k = int(n) - 1
+            step = next(csv.reader([lines[k]]))[0] if 0 <= k < len(lines) else ""
+            values.append(level.get(step) if level.get(step) is not None else np.nan)
+        if np.any(np.isfinite(values)):
+            out[kind] = np.asarray(values, dtype=float)
+    return out
 
 
 def _json_default(value):
