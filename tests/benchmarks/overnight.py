@@ -13,7 +13,9 @@ own process, fitting on. From each run:
   divided by the points between them;
 * end_tail_s: from the last point to the run process's exit (run start from run.json,
   plus the last point's ``time_s``, against the moment the process was reaped);
-* longest_pause_ms: the longest gap between two consecutive points, and where it was.
+* longest_pause_ms: the longest gap between two consecutive points, and where it was;
+  also the longest within a step (a step's first point waits for the instrument to be
+  configured for it) and the 99.9th percentile of the gaps.
 
 The ratios (second size against the first, and with ``--big`` 1e6 against 1e4) are what
 means something on a shared machine; the absolute figures depend on the machine's load.
@@ -55,10 +57,13 @@ def plan_for(points: int) -> str:
                      limits=limits(max_power="1 W"))
 
 
-def point_times(run_dir: Path) -> np.ndarray:
+def point_times(run_dir: Path) -> tuple[np.ndarray, np.ndarray]:
+    """Each point's time and whether it starts a new step."""
     with open(run_dir / "points.csv", encoding="utf-8") as f:
-        rows = [line for line in f if line[:1] not in ("#", "s")]
-    return np.array([float(r.split(",", 4)[3]) for r in rows])
+        cells = [line.split(",", 4) for line in f if line[:1] not in ("#", "s")]
+    steps = np.array([c[0] for c in cells])
+    first = np.concatenate([[True], steps[1:] != steps[:-1]])
+    return np.array([float(c[3]) for c in cells]), first
 
 
 def one_run(points: int, base: Path) -> dict:
@@ -76,8 +81,9 @@ def one_run(points: int, base: Path) -> dict:
     run_dir = next((out / "runs").iterdir())
     run = json.loads((run_dir / "run.json").read_text(encoding="utf-8"))
     started = datetime.fromisoformat(run["started"].replace("Z", "+00:00")).timestamp()
-    t = point_times(run_dir)
+    t, first = point_times(run_dir)
     gaps = np.diff(t)
+    within = gaps[~first[1:]]
     worst = int(np.argmax(gaps)) if gaps.size else 0
     return {
         "points": int(t.size), "exit_code": proc.returncode, "status": run["status"],
@@ -86,6 +92,9 @@ def one_run(points: int, base: Path) -> dict:
         "end_tail_s": ended - (started + t[-1]),
         "longest_pause_ms": float(gaps.max() * 1e3) if gaps.size else 0.0,
         "longest_pause_after_point": worst + 1,
+        # a step's first point follows the instrument's configuration for that step
+        "longest_pause_within_step_ms": float(within.max() * 1e3) if within.size else 0.0,
+        "pause_p999_ms": float(np.percentile(gaps, 99.9) * 1e3) if gaps.size else 0.0,
         "model_written": (run_dir / "model.json").exists(),
         "stderr_tail": err[-300:] if proc.returncode else "",
     }
@@ -107,7 +116,9 @@ def main() -> None:
             print(f"{r['points']:>8} points: {r['wall_per_point_us']:7.0f} us/point, "
                   f"peak RSS {r['peak_rss_MiB']:6.1f} MiB, end tail {r['end_tail_s']:5.2f} s,"
                   f" longest pause {r['longest_pause_ms']:6.1f} ms (after point "
-                  f"{r['longest_pause_after_point']}), exit {r['exit_code']}", flush=True)
+                  f"{r['longest_pause_after_point']}; within a step "
+                  f"{r['longest_pause_within_step_ms']:.1f} ms, 99.9 % under "
+                  f"{r['pause_p999_ms']:.1f} ms), exit {r['exit_code']}", flush=True)
     first = runs[0]
     ratios = {f"{r['points']}_vs_{first['points']}": {
         "peak_rss": r["peak_rss_MiB"] / first["peak_rss_MiB"],
