@@ -83,3 +83,29 @@ def test_fill_still_refuses_after_caching():
         scpi.fill(":SOUR:VOLT {value}")
     with pytest.raises(ValueError, match="unknown placeholder"):
         scpi.fill(":SOUR:VOLT {level}", value=1.0)
+
+
+def _queries_by_parsing(message: str, separator: str = ";") -> int:
+    """The former count: parse each unit, fall back to its first word when malformed."""
+    count = 0
+    for unit in scpi.split_units(message, separator):
+        try:
+            count += scpi.parse_command(unit).query
+        except ValueError:
+            count += unit.split(None, 1)[0].endswith("?")
+    return count
+
+
+@given(st.lists(st.text(st.sampled_from(list(":SOURVOLT?* 1.5e-3,\"'")), max_size=14),
+                max_size=6))
+def test_counting_queries_by_header_equals_parsing_them(units):
+    from pnbench.drivers.session import count_queries
+
+    message = ";".join(units)
+    try:
+        expected = _queries_by_parsing(message)
+    except ValueError:  # an unterminated quote: both refuse it
+        with pytest.raises(ValueError):
+            count_queries(message)
+        return
+    assert count_queries(message) == expected
