@@ -71,6 +71,9 @@ class SplitModel:
         return y2, np.stack([jac[:, 0, :], jac[:, 0, :] * self.scale[:, None]], axis=1)
 
 
+#: Points evaluated at once in the describing function: its grids are points x phases
+#: complex values, which for a long run's C-V points would take gigabytes at once.
+_CHUNK = 16_384
 #: Samples of the test signal's period in the describing function (the integrand is
 #: periodic and smooth, so the trapezoid rule converges fast; amplitude <~ 2 N*Vt).
 _PHASES = 16
@@ -88,10 +91,17 @@ class MeterModel(fit_cv.AdmittanceModel):
     """
 
     def _y(self, t, x):
-        from pnbench.modeling.smallsignal import junction_admittance
-
         if x.shape[1] < 3 or not np.any(np.nan_to_num(x[:, 2]) > 0):
             return super()._y(t, x)
+        if len(x) > _CHUNK:  # the same values, with temporaries of a bounded size
+            return np.concatenate([self._described(t, x[k:k + _CHUNK])
+                                   for k in range(0, len(x), _CHUNK)])
+        return self._described(t, x)
+
+    def _described(self, t, x):
+        """The describing-function admittance of the rows of x (see the class notes)."""
+        from pnbench.modeling.smallsignal import junction_admittance
+
         p = self.diode(t)
         v, f = x[:, 0], x[:, 1]
         amp = np.sqrt(2.0) * np.nan_to_num(x[:, 2])
