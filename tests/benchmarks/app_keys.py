@@ -63,7 +63,7 @@ async def main() -> dict:
     with tempfile.TemporaryDirectory() as tmp:
         plan = Path(tmp) / "plan.toml"
         plan.write_text(PLAN, encoding="utf-8")
-        app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.0, out_dir=Path(tmp) / "r")
+        app = PnbenchApp(plan, bench="lh-qt16@pnsim:time_scale=0", out_dir=Path(tmp) / "r")
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause(0.5)
             idle, _ = await latencies(app, pilot, running=False)

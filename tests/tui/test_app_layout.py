@@ -24,7 +24,7 @@ def app_with_run(tmp_path):
     plan.write_text(sweep_plan("LH-QT16-t1", 10, 11), encoding="utf-8")
     run = SyntheticRun(tmp_path / "runs" / "20260101-000000_synth")
     run.advance(1000)
-    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.0, out_dir=tmp_path / "runs")
+    app = PnbenchApp(plan, bench="lh-qt16@pnsim:time_scale=0", out_dir=tmp_path / "runs")
     app.last_run_dir = run.folder
     return app
 

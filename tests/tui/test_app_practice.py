@@ -36,7 +36,7 @@ def screen_text(screen) -> str:
 
 @pytest.mark.parametrize("size", SIZES)
 async def test_ui_without_a_plan_opens_the_bundled_example_on_the_plan_screen(size):
-    app = PnbenchApp(simulate="lh-vc510", time_scale=0.0)
+    app = PnbenchApp(bench="lh-vc510@pnsim:time_scale=0")
     async with app.run_test(size=size) as pilot:
         await pilot.pause(0.2)
         assert app.current_mode == "plan"
@@ -47,7 +47,7 @@ async def test_ui_without_a_plan_opens_the_bundled_example_on_the_plan_screen(si
 
 @pytest.mark.parametrize("size", SIZES)
 async def test_f1_leads_with_the_screens_own_keys_and_readable_view_names(tmp_path, size):
-    app = PnbenchApp(plan_file(tmp_path), simulate="lh-qt16", time_scale=0.0)
+    app = PnbenchApp(plan_file(tmp_path), bench="lh-qt16@pnsim:time_scale=0")
     async with app.run_test(size=size) as pilot:
         await pilot.pause(0.2)
         assert app.current_mode == "run"
@@ -70,7 +70,7 @@ async def test_f1_leads_with_the_screens_own_keys_and_readable_view_names(tmp_pa
 @pytest.mark.parametrize("size", SIZES)
 async def test_messages_push_the_screen_down_instead_of_covering_plot_or_last_line(
         tmp_path, size):
-    app = PnbenchApp(plan_file(tmp_path), simulate="lh-qt16", time_scale=0.0)
+    app = PnbenchApp(plan_file(tmp_path), bench="lh-qt16@pnsim:time_scale=0")
     async with app.run_test(size=size) as pilot:
         await pilot.pause(0.2)
         app.notify("a message long enough to wrap on a small terminal " * 2, title="Note")
@@ -86,7 +86,7 @@ async def test_messages_push_the_screen_down_instead_of_covering_plot_or_last_li
 
 
 async def test_ctrl_r_on_the_run_screen_asks_to_start(tmp_path):
-    app = PnbenchApp(plan_file(tmp_path), simulate="lh-qt16", time_scale=0.0)
+    app = PnbenchApp(plan_file(tmp_path), bench="lh-qt16@pnsim:time_scale=0")
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause(0.2)
         assert app.current_mode == "run"
@@ -104,7 +104,7 @@ def test_the_start_question_names_a_hazardous_voltage(tmp_path):
         'max_reverse_voltage = "20 V"',
         'max_reverse_voltage = "90 V"\nacknowledge_hazardous_voltage = "90 V"')
     plan = parse_plan(text, "hv.toml")
-    question = RunControl(None, simulate="lh-qt16").start_question(plan)
+    question = RunControl(None, bench="lh-qt16@pnsim").start_question(plan)
     assert "HAZARDOUS VOLTAGE" in question and "90 V" in question
     safe = parse_plan(sweep_plan("LH-QT16-t1", 5, 5), "safe.toml")
     assert "HAZARDOUS" not in RunControl(None).start_question(safe)
@@ -148,7 +148,7 @@ def test_one_point_by_hand_keeps_to_the_plans_limits_and_ends_off(tmp_path):
 
 
 async def test_bench_screen_identify_answers_and_one_point_is_measured(tmp_path):
-    app = PnbenchApp(plan_file(tmp_path), simulate="lh-qt16", time_scale=0.0)
+    app = PnbenchApp(plan_file(tmp_path), bench="lh-qt16@pnsim:time_scale=0")
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause(0.2)
         app.switch_mode("bench")
@@ -167,7 +167,7 @@ async def test_bench_screen_identify_answers_and_one_point_is_measured(tmp_path)
 
 @pytest.mark.parametrize("report", [True, False])
 async def test_a_sweep_in_the_app_ends_with_its_report_unless_told_not_to(tmp_path, report):
-    app = PnbenchApp(plan_file(tmp_path, 8, 0), simulate="lh-qt16", time_scale=0.0,
+    app = PnbenchApp(plan_file(tmp_path, 8, 0), bench="lh-qt16@pnsim:time_scale=0",
                      out_dir=tmp_path / "runs", autostart=True, report=report)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(pilot, lambda: app.state.finished and not app.live.running,

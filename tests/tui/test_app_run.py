@@ -40,7 +40,7 @@ async def test_start_see_points_and_parameters_pause_then_abort_leaves_outputs_o
         tmp_path):
     # long enough that the abort comes before the end, whenever the first fit arrives
     plan = write_plan(tmp_path, points=300, reverse_points=600)
-    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.3, out_dir=tmp_path / "runs")
+    app = PnbenchApp(plan, bench="lh-qt16@pnsim:time_scale=0.3", out_dir=tmp_path / "runs")
     async with app.run_test(size=(80, 24)) as pilot:
         assert app.current_mode == "run" and app.plan is not None
         await pilot.press("s")  # asks first: a stray key must not switch a source on
@@ -80,7 +80,7 @@ async def test_start_see_points_and_parameters_pause_then_abort_leaves_outputs_o
 
 async def test_quitting_during_a_run_asks_then_aborts_safely(tmp_path):
     plan = write_plan(tmp_path, points=400)
-    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=1.0, out_dir=tmp_path / "runs",
+    app = PnbenchApp(plan, bench="lh-qt16@pnsim", out_dir=tmp_path / "runs",
                      autostart=True)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(pilot, lambda: len(app.state.iv) >= 3, "the first points")
@@ -107,7 +107,7 @@ async def test_quitting_during_a_run_asks_then_aborts_safely(tmp_path):
 async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts(tmp_path):
     plan = tmp_path / "bad.toml"
     plan.write_text(sweep_plan("LH-QT16-t1", 0, 11), encoding="utf-8")
-    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.0, out_dir=tmp_path / "runs",
+    app = PnbenchApp(plan, bench="lh-qt16@pnsim:time_scale=0", out_dir=tmp_path / "runs",
                      autostart=True)
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause(0.2)
@@ -139,7 +139,7 @@ async def test_a_plan_error_is_shown_with_the_engines_message_and_nothing_starts
 
 async def test_a_finished_run_reviews_refits_and_exports_a_card_and_report(tmp_path):
     plan = write_plan(tmp_path, points=25)
-    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.0, out_dir=tmp_path / "runs",
+    app = PnbenchApp(plan, bench="lh-qt16@pnsim:time_scale=0", out_dir=tmp_path / "runs",
                      autostart=True)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(pilot, lambda: app.state.finished and not app.live.running,
@@ -182,7 +182,7 @@ async def test_a_finished_run_reviews_refits_and_exports_a_card_and_report(tmp_p
 async def test_bench_screen_identifies_the_simulated_instruments_and_lists_resources(
         tmp_path):
     plan = write_plan(tmp_path, points=5)
-    app = PnbenchApp(plan, simulate="lh-qt16", time_scale=0.0, out_dir=tmp_path / "runs")
+    app = PnbenchApp(plan, bench="lh-qt16@pnsim:time_scale=0", out_dir=tmp_path / "runs")
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.press("f2")
         await pilot.pause(0.2)

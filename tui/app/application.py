@@ -81,15 +81,16 @@ class PnbenchApp(RunFeed, App):
     source_on = reactive(False)
     status_text = reactive("idle")
 
-    def __init__(self, plan_path: str | Path | None = None, *, simulate: str | None = None,
-                 time_scale: float = 1.0, out_dir: str | Path = "runs",
-                 autostart: bool = False, watch_dir: str | Path | None = None,
-                 live_factory=LiveRun, report: bool = True):
+    def __init__(self, plan_path: str | Path | None = None, *, bench: str | None = None,
+                 out_dir: str | Path = "runs", autostart: bool = False,
+                 watch_dir: str | Path | None = None, live_factory=LiveRun,
+                 report: bool = True):
+        """``bench`` is the simulated bench as a backend string (``DUT@pnsim[:...]``,
+        what --simulate and --time-scale make), or None for the plan's instruments."""
         super().__init__()
         self.autostart = autostart
         self.watch_dir = Path(watch_dir) if watch_dir is not None else None
-        self.control = RunControl(live_factory, simulate=simulate, time_scale=time_scale,
-                                  out_dir=out_dir, report=report)
+        self.control = RunControl(live_factory, bench=bench, out_dir=out_dir, report=report)
         self.doc = PlanDocument()
         self.state = RunState()
         self.tail: FolderTail | None = None
@@ -102,7 +103,7 @@ class PnbenchApp(RunFeed, App):
         if plan_path is not None:
             self.doc.load(plan_path)
         elif self.watch_dir is None:
-            self.doc.load_example(simulate)  # the README's promise: start from an example
+            self.doc.load_example(self.simulate)  # the README's promise: an example
         self._plan_state()
         self.available_modes = ["run"] if self.watch_dir else ["bench", "plan", "run",
                                                                "review"]
@@ -363,14 +364,14 @@ class PnbenchApp(RunFeed, App):
         self.call_from_thread(self.exit, 0)
 
 
-def run_app(plan_path: str | Path | None = None, simulate: str | None = None,
-            time_scale: float = 1.0, out_dir: str | Path = "runs",
-            autostart: bool = False, report: bool = True) -> int:
+def run_app(plan_path: str | Path | None = None, bench: str | None = None,
+            out_dir: str | Path = "runs", autostart: bool = False,
+            report: bool = True) -> int:
     """Open the app (bench, plan, run, review). Returns the exit code: 0, or 4 when
     a sweep this app owned ended in an abort or a safety stop. Every sweep it runs ends
     by writing its report.html unless `report` is False (--no-report)."""
-    app = PnbenchApp(plan_path, simulate=simulate, time_scale=time_scale, out_dir=out_dir,
-                     autostart=autostart, report=report)
+    app = PnbenchApp(plan_path, bench=bench, out_dir=out_dir, autostart=autostart,
+                     report=report)
     previous = safe_exit_on_signals(app)
     try:
         code = app.run()

@@ -9,16 +9,21 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from pnbench.drivers.sim.backend import parse as parse_sim
 from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V
 from pnbench.sweeps.quantities import format_quantity
 
 
 class RunControl:
-    def __init__(self, factory, *, simulate: str | None = None, time_scale: float = 1.0,
-                 out_dir: str | Path = "runs", report: bool = True) -> None:
+    def __init__(self, factory, *, bench: str | None = None, out_dir: str | Path = "runs",
+                 report: bool = True) -> None:
         self.factory = factory
-        self.simulate = simulate
-        self.time_scale = time_scale
+        #: the simulated bench as a backend string (DUT@pnsim[:...]), or None
+        self.bench = bench
+        spec = parse_sim(bench) if bench is not None else None
+        #: for what the screens say: the simulated device and its time scale
+        self.simulate = spec.device if spec is not None else None
+        self.time_scale = spec.time_scale if spec is not None else 1.0
         self.out_dir = Path(out_dir)
         #: write report.html when a sweep ends (off with --no-report)
         self.report = report
@@ -31,10 +36,8 @@ class RunControl:
     def start(self, plan) -> None:
         """Make and start a LiveRun of `plan` (connecting happens on the engine's thread);
         PnbenchError when the engine refuses it before any folder exists."""
-        if self.simulate:  # the simulated bench is a backend of the plan's instruments
-            from pnbench.drivers.sim.backend import backend_for
-
-            plan = plan.on_simulated_bench(backend_for(self.simulate, self.time_scale))
+        if self.bench is not None:  # the simulated bench: a backend of the instruments
+            plan = plan.on_simulated_bench(self.bench)
         self.live = self.factory(plan, out_dir=self.out_dir)
         self.live.start()
 

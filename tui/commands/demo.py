@@ -7,7 +7,12 @@ import sys
 from importlib import resources
 from pathlib import Path
 
-from pnbench.tui.commands.run import add_bench_options, check_bench_options, on_bench
+from pnbench.tui.commands.run import (
+    add_bench_options,
+    check_bench_options,
+    on_bench,
+    sim_backend,
+)
 
 HELP = "characterize a bundled part on the simulated bench (I-V, C-V, admittance, model card)"
 DEFAULT_DEVICE = "lh-vc510"
@@ -52,7 +57,7 @@ def run(args) -> int:
     if not args.headless and sys.stdout.isatty() and app_available():
         from pnbench.tui.app.application import run_app
 
-        return run_app(plan_path=plan_path, simulate=simulate, time_scale=args.time_scale,
-                       out_dir=args.out, autostart=True, report=not args.no_report)
+        return run_app(plan_path=plan_path, bench=sim_backend(args), out_dir=args.out,
+                       autostart=True, report=not args.no_report)
     launch = Launch.new(on_bench(plan, args), out_dir=args.out)
     return run_headless(launch, plan, report=not args.no_report)

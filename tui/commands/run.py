@@ -75,18 +75,24 @@ def run(args) -> int:
     if not args.headless and sys.stdout.isatty() and app_available():
         from pnbench.tui.app.application import run_app
 
-        return run_app(plan_path=args.plan, simulate=args.simulate,
-                       time_scale=args.time_scale, out_dir=args.out, autostart=True,
-                       report=not args.no_report)
+        return run_app(plan_path=args.plan, bench=sim_backend(args), out_dir=args.out,
+                       autostart=True, report=not args.no_report)
     launch = Launch.new(on_bench(plan, args), out_dir=args.out)
     return run_headless(launch, plan, report=not args.no_report)
 
 
-def on_bench(plan, args):
-    """``plan`` on the bench the options choose: with --simulate, its instruments become
-    the simulated bench (a backend string, as pyvisa-sim is one); as written otherwise."""
+def sim_backend(args) -> str | None:
+    """What --simulate and --time-scale choose: the simulated bench as a backend string
+    (``DUT@pnsim:time_scale=X``, as pyvisa-sim is ``FILE.yaml@sim``), or None."""
     if args.simulate is None:
-        return plan
+        return None
     from pnbench.drivers.sim.backend import backend_for
 
-    return plan.on_simulated_bench(backend_for(args.simulate, args.time_scale))
+    return backend_for(args.simulate, args.time_scale)
+
+
+def on_bench(plan, args):
+    """``plan`` on the bench the options choose: with --simulate, its instruments become
+    the simulated bench; as written otherwise."""
+    backend = sim_backend(args)
+    return plan if backend is None else plan.on_simulated_bench(backend)

@@ -45,6 +45,7 @@ def run(args: argparse.Namespace) -> int:
                        "a plan with `pnbench run PLAN --headless` and follow it with "
                        "`pnbench watch RUN_DIR` from a terminal")
     from pnbench.tui.app.application import run_app
+    from pnbench.tui.commands.run import sim_backend
 
-    return run_app(args.plan, simulate=args.simulate, time_scale=args.time_scale,
-                   out_dir=args.out, report=not args.no_report)
+    return run_app(args.plan, bench=sim_backend(args), out_dir=args.out,
+                   report=not args.no_report)
