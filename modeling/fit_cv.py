@@ -225,6 +225,12 @@ def fit_cv(voltage_V, frequency_Hz, capacitance_F, *, compliance=None, use=None,
     state = depletion_state(model, x, y[:, :1], elig[:, :1])
     if isinstance(state, str):
         return empty_result("cv", len(x), state)
+    left = elig[:, 0] & np.isfinite(y[:, 0]) & (y[:, 0] > 0) & ~state.used[:, 0]
+    if left.any():  # points are left out only with a stated reason
+        state.notes.append(
+            f"{int(left.sum())} points from {float(x[left, 0].min()):.3g} V up left out: "
+            f"diffusion capacitance shows there, which C-V data alone cannot model (with "
+            f"I-V data the whole network is fitted)")
     return lsq.to_result(model, state, "cv", len(x), min_rows=MIN_CV_POINTS, x=x, y=y[:, :1])
 
 
