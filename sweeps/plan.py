@@ -240,6 +240,10 @@ def _read_instruments(raw: object, base_dir: Path, problems: Problems) -> dict:
         else:
             dialect = None
         timeout_s = t.quantity("timeout", "s", 2.0, positive=True)
+        if timeout_s is not None and not TIMEOUT_RANGE_S[0] <= timeout_s <= TIMEOUT_RANGE_S[1]:
+            t.problem("timeout", f"{timeout_s:g} s is outside {TIMEOUT_RANGE_S[0]:g} s to "
+                      f"{TIMEOUT_RANGE_S[1]:g} s")
+            timeout_s = 2.0
         ratings = {}
         for key, unit in RATINGS.get(role or "", {}).items():
             value = t.quantity(key, unit, positive=True)
@@ -257,12 +261,24 @@ def _read_instruments(raw: object, base_dir: Path, problems: Problems) -> dict:
     return found
 
 
+#: Sanity ceilings of [limits] (a typo or a hostile file above them, not an instrument)
+#: and of an instrument's I/O timeout. Common practice, no source.
+LIMIT_CEILINGS = {"V": 1e4, "A": 1e3, "W": 1e5}
+TIMEOUT_RANGE_S = (1e-3, 3600.0)
+
+
 def _read_limits(t: TableReader, instruments: dict) -> Limits | None:
     v_max = t.quantity("max_voltage", "V", required=True, nonnegative=True)
     v_rev = t.quantity("max_reverse_voltage", "V", 0.0, nonnegative=True)
     i_max = t.quantity("max_current", "A", required=True, positive=True)
     p_max = t.quantity("max_power", "W", required=True, positive=True)
     ack = t.quantity("acknowledge_hazardous_voltage", "V", positive=True)
+    for key, value, unit in (("max_voltage", v_max, "V"), ("max_reverse_voltage", v_rev, "V"),
+                             ("max_current", i_max, "A"), ("max_power", p_max, "W"),
+                             ("acknowledge_hazardous_voltage", ack, "V")):
+        if value is not None and abs(value) > LIMIT_CEILINGS[unit]:
+            t.problem(key, f"{value:g} {unit} is beyond any bench instrument (at most "
+                      f"{LIMIT_CEILINGS[unit]:g} {unit})")
     ramp = t.quantity("ramp_rate", "V/s", RAMP_RATE_V_PER_S, positive=True)
     if ramp is not None and not RAMP_RATE_RANGE[0] <= ramp <= RAMP_RATE_RANGE[1]:
         t.problem("ramp_rate", f"{ramp:g} V/s is outside {RAMP_RATE_RANGE[0]:g} to "

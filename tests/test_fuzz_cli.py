@@ -30,6 +30,14 @@ name = "LH-ZL560"
 area = "0.25 mm2"
 temperature = "300 K"
 
+[instruments.smu]
+resource = "TCPIP0::192.0.2.31::5025::SOCKET"
+backend = "@py"
+dialect = "default"
+timeout = "2 s"
+max_voltage = "20 V"
+max_current = "1 A"
+
 [limits]
 max_voltage = "2 V"
 max_reverse_voltage = "8 V"

@@ -128,3 +128,26 @@ def test_qpoint_still_answers_for_a_sane_card(tmp_path, capsys):
 def test_other_numeric_options_are_bounded(argv, capsys):
     assert exit_code(argv) == 2
     assert argv[1] in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("table, line, words", [
+    ('[instruments.smu]\nresource = "TCPIP0::192.0.2.1::5025::SOCKET"\ntimeout = "1e308 s"\n',
+     "instruments.smu.timeout", "outside"),
+    ('[instruments.smu]\nresource = "TCPIP0::192.0.2.1::5025::SOCKET"\ntimeout = "0.1 ms"\n',
+     "instruments.smu.timeout", "outside"),
+])
+def test_absurd_plan_numbers_exit_2_naming_the_key(tmp_path, capsys, table, line, words):
+    path = tmp_path / "plan.toml"
+    path.write_text(PLAN.replace("[limits]", table + "\n[limits]"), encoding="utf-8")
+    assert exit_code(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert line in err and words in err and "Traceback" not in err
+
+
+def test_limits_beyond_any_bench_instrument_exit_2(tmp_path, capsys):
+    path = tmp_path / "plan.toml"
+    path.write_text(PLAN.replace('max_power = "100 mW"', 'max_power = "1e308 W"'),
+                    encoding="utf-8")
+    assert exit_code(["check", str(path)]) == 2
+    assert "limits.max_power: 1e+308 W is beyond any bench instrument" in (
+        capsys.readouterr().err)
