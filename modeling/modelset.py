@@ -32,6 +32,8 @@ from pnbench.modeling.params import (
 
 #: Offset between kelvin and degrees Celsius.
 _ZERO_C_K = 273.15
+#: How messages name a model document read without a file name.
+MODEL_DOCUMENT = "the model document (model.json)"
 
 #: Order of parameters on a card (the order simulators document them in).
 CARD_ORDER = ("IS", "N", "RS", "CJO", "VJ", "M", "FC", "TT", "BV", "IBV", "EG", "XTI",
@@ -151,7 +153,7 @@ class ModelSet:
         return {"parameters": parameters, "temperature_K": self.temperature_K, **self.extras}
 
     @classmethod
-    def from_json_dict(cls, document: Any, source: str = "model.json") -> ModelSet:
+    def from_json_dict(cls, document: Any, source: str = MODEL_DOCUMENT) -> ModelSet:
         """Read a model.json document; DataFileError naming ``source`` and the key."""
         if not isinstance(document, dict):
             raise DataFileError(f"{source}: expected a JSON object at the top, "

@@ -11,14 +11,14 @@ Columns (header row; extra columns are kept and ignored by the fits):
 Lines starting with ``#`` are comments; ``# key = value`` comments are metadata
 (``temperature_K``, ``area_m2``, ``device``, ...). Anything that cannot be used raises
 DataFileError naming the file, the line and the column, what was found and what would be
-accepted; no partial guesses. A run folder may end in a half-written line (a run killed
-while writing): that line is left out and counted in ``DataSet.notes``.
+accepted; no partial guesses. A run folder is read by column through the run record
+(`sweeps.record`); it may end in a half-written line (a run killed while writing): that
+line is left out and counted in ``DataSet.notes``.
 """
 
 from __future__ import annotations
 
 import csv
-import json
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from pnbench.errors import BadInput, DataFileError
+from pnbench.sweeps import record
 from pnbench.sweeps.quantities import parse_quantity
 
 IV_COLUMNS = ("voltage_V", "current_A")
@@ -88,26 +89,65 @@ def read_data(path: str | Path, kind: str = "auto") -> DataSet:
 
 
 def read_run_folder(folder: str | Path, kind: str = "auto") -> DataSet:
+    """The points of a run folder, read by column through the run record, checked like a
+    data file (every point a fit would use is finite), with run.json's temperature and
+    area when it has them."""
     folder = Path(folder).expanduser()
-    points = folder / "points.csv"
-    if not points.is_file():
+    if kind not in KINDS:
+        raise BadInput(f"--kind {kind!r}: accepted are {', '.join(KINDS)}")
+    if not record.has(folder, record.layout.POINTS):
         raise DataFileError(f"{folder}: no points.csv here; give a data file (.csv) or the "
                             "folder of a pnbench run")
-    data = read_data_file(points, kind, tolerate_torn_tail=True)
-    temperature, area = data.temperature_K, data.area_m2
-    run_json = folder / "run.json"
-    if run_json.is_file():
-        try:
-            doc = json.loads(run_json.read_text(encoding="utf-8"))
-        except (OSError, ValueError) as exc:
-            raise DataFileError(f"{run_json}: cannot read it as JSON ({exc})") from None
-        device = doc.get("device") if isinstance(doc, dict) else None
+    points = record.read_columns(folder)
+    path = folder / record.layout.POINTS
+    if kind != "auto":
+        points = points.select(points.kind_mask(kind))
+    row_kind = points.kinds().astype(str)
+    lines = points.first_line + np.arange(len(points))
+    _check_finite(points, row_kind, lines, path)
+    meta = {k: (v, 0) for k, v in points.metadata.items()}
+    notes = (f"line {int(lines[-1]) + 1 if len(lines) else points.first_line}: half-written "
+             "last line left out",) if points.torn else ()
+    columns = {n: getattr(points, n) for n in ("voltage_V", "current_A", "frequency_Hz",
+                                               "capacitance_F", "conductance_S", "time_s")}
+    columns["index"] = points.index.astype(float)
+    temperature = _meta_number(meta, "temperature_K", "K", path)
+    area = _meta_number(meta, "area_m2", "m2", path)
+    if record.has(folder, record.layout.RUN):
+        doc = record.read_json_object(folder / record.layout.RUN)
+        device = doc.get("device")
+        run_json = folder / record.layout.RUN
         if isinstance(device, dict):
             temperature = _positive(device.get("temperature_K"), run_json,
                                     "device.temperature_K", "K") or temperature
             area = _positive(device.get("area_m2"), run_json, "device.area_m2", "m2") or area
-    return DataSet(data.path, data.columns, data.row_kind, data.compliance,
-                   data.line_numbers, data.metadata, temperature, area, data.notes)
+    data = DataSet(path=path, columns=columns, row_kind=row_kind,
+                   compliance=points.compliance, line_numbers=lines,
+                   metadata=dict(points.metadata), temperature_K=temperature, area_m2=area,
+                   notes=notes)
+    if not len(data):
+        raise DataFileError(f"{path}: no data rows below the header; {_ACCEPTED}")
+    _check_usable(data, kind)
+    return data
+
+
+def _check_finite(points, row_kind: np.ndarray, lines: np.ndarray, path: Path) -> None:
+    """The cells a fit of each row's kind needs are finite numbers (as for data files)."""
+    for rk, needed in (("iv", IV_COLUMNS), ("cv", CV_COLUMNS)):
+        rows = row_kind == rk
+        for column in needed:
+            values = getattr(points, column)
+            bad = np.flatnonzero(rows & ~np.isfinite(values))
+            if bad.size:
+                raise DataFileError(f"{path}, line {int(lines[bad[0]])}, column {column}: "
+                                    "empty or not a finite number (NaN and infinity cannot "
+                                    f"be fitted); an {rk.upper()} point needs "
+                                    f"{', '.join(needed)}")
+        if rk == "cv":
+            bad = np.flatnonzero(rows & (points.frequency_Hz <= 0))
+            if bad.size:
+                raise DataFileError(f"{path}, line {int(lines[bad[0]])}, column "
+                                    "frequency_Hz: a measurement frequency must be > 0")
 
 
 def _positive(value, path: Path, key: str, unit: str) -> float | None:

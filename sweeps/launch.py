@@ -8,8 +8,11 @@
     launch = Launch.resume_from(run_dir, force_identity=False)
 
 The command line and the app both use this, so a run started either way leaves the same
-run folder. Connection failures before the first point are recorded in run.json
-(status ``failed``) and raised to the caller.
+run folder, report included: the front end passes ``write_report`` (sweeps never import
+the report) and the runner calls it in the end order of `sweeps.ending`. Connection
+failures before the first point are recorded in run.json (status ``failed``) and raised
+to the caller. A resumed run whose steps are all finished only does its end work, from
+the folder, without opening the instruments.
 """
 
 from __future__ import annotations
@@ -20,20 +23,24 @@ from pathlib import Path
 from pnbench import version
 from pnbench.errors import BadInput, DataFileError, PnbenchError
 from pnbench.modeling.modelset import card_name
+from pnbench.sweeps import ending
 from pnbench.sweeps import guardian as guardian_mod
 from pnbench.sweeps import resume as resume_mod
 from pnbench.sweeps.bench import connections_for, open_bench
-from pnbench.sweeps.events import EventBus
+from pnbench.sweeps.check import step_seconds
+from pnbench.sweeps.events import ErrorEvent, EventBus, RunFinished, RunStarted, WarningEvent
 from pnbench.sweeps.fitfeed import FitWorker
 from pnbench.sweeps.plan import Plan, parse_plan
+from pnbench.sweeps.record import RunFolder, iso, plan_path, read_run, utc_now
 from pnbench.sweeps.runner import Outcome, Runner
-from pnbench.sweeps.store import RunFolder, iso, read_run, utc_now
+from pnbench.sweeps.statuses import RunStatus, run_status
 
 
 class Launch:
     def __init__(self, plan: Plan, *, out_dir: str | Path | None = None,
                  run_dir: str | Path | None = None, force_identity: bool = False,
-                 listeners=(), fit: bool = True, guardian: bool = True) -> None:
+                 listeners=(), fit: bool = True, guardian: bool = True,
+                 write_report: ending.ReportWriter | None = None) -> None:
         # A plan that names no instrument for a role it needs is bad input: say so
         # before a run folder exists (nothing is connected here).
         connections_for(plan, plan.roles_needed)
@@ -47,6 +54,8 @@ class Launch:
         self.listeners = list(listeners)
         self.fit_enabled = fit
         self.use_guardian = guardian
+        self.write_report = write_report
+        self._ending = False  # the end work of a resumed, fully measured run
         self.run_dir: Path | None = self.resume_dir
         self.outcome: Outcome | None = None
         self.error: BaseException | None = None
@@ -58,12 +67,14 @@ class Launch:
     # -- constructors -------------------------------------------------------------------
     @classmethod
     def new(cls, plan: Plan, *, out_dir: str | Path = "runs", listeners=(),
-            fit: bool = True) -> Launch:
-        return cls(plan, out_dir=out_dir, listeners=listeners, fit=fit)
+            fit: bool = True, write_report: ending.ReportWriter | None = None) -> Launch:
+        return cls(plan, out_dir=out_dir, listeners=listeners, fit=fit,
+                   write_report=write_report)
 
     @classmethod
     def resume_from(cls, run_dir: str | Path, *, plan: Plan | None = None,
-                    force_identity: bool = False, listeners=(), fit: bool = True) -> Launch:
+                    force_identity: bool = False, listeners=(), fit: bool = True,
+                    write_report: ending.ReportWriter | None = None) -> Launch:
         """Prepare to continue the run in ``run_dir`` with its own plan.toml, on the
         instruments it recorded (a simulated run on the same simulated bench), or with
         ``plan`` (the same plan, perhaps put on another bench by the caller)."""
@@ -75,7 +86,7 @@ class Launch:
             if backend is not None:
                 plan = plan.on_simulated_bench(backend)
         return cls(plan, run_dir=run_dir, force_identity=force_identity,
-                   listeners=listeners, fit=fit)
+                   listeners=listeners, fit=fit, write_report=write_report)
 
     # -- control ------------------------------------------------------------------------
     def pause(self) -> None:
@@ -84,7 +95,8 @@ class Launch:
     def resume(self) -> None:
         self._control("resume")
 
-    def abort(self, reason: str = "stopped by the operator", status: str = "aborted") -> None:
+    def abort(self, reason: str = "stopped by the operator",
+              status: str = RunStatus.ABORTED) -> None:
         self._control("abort", reason, status)
 
     def _control(self, name: str, *args) -> None:
@@ -96,7 +108,7 @@ class Launch:
 
     @property
     def in_shutdown(self) -> bool:
-        return self.runner is not None and self.runner.in_shutdown
+        return self._ending or (self.runner is not None and self.runner.in_shutdown)
 
     # -- running ------------------------------------------------------------------------
     def start(self) -> None:
@@ -131,9 +143,37 @@ class Launch:
         for listener in self.listeners:
             bus.add_listener(listener)
         try:
+            if state is not None and state.end_work_only:
+                return self._finish_only(folder, bus, state)
             return self._run_on_bench(folder, bus, state)
         finally:
             folder.close()
+
+    def _finish_only(self, folder: RunFolder, bus: EventBus, state) -> Outcome:
+        """Every point is on disk: do the end work the previous process did not finish
+        (final fit, model, card, report, status), without the instruments."""
+        self._ending = True
+        finishing = state.finishing or {}
+        status = run_status(finishing.get("status"), RunStatus.COMPLETED)
+        reason = str(finishing.get("reason") or "all steps finished")
+        planned = self.plan.total_points
+        done = sum(state.done.values())
+        bus.emit(RunStarted, None, resumed=True, resume_count=folder.run.get(
+            "resume_count", 0), planned=planned, done=done,
+            steps=[s.name for s in self.plan.steps], run_dir=str(folder.path),
+            progress={n: {"done": state.done[n], "status": state.statuses[n]}
+                      for n in state.done})
+        bus.emit(WarningEvent, None, message="every point was already measured: finishing "
+                 "the end work (fit, model, card, report) without the instruments")
+        folder.log("resume: every step finished; end work only, instruments not used")
+        confirmed = bool(state.outputs_off_confirmed)
+        ending.begin_end_work(folder, status, reason)
+        fit = self._fit_worker(folder, bus, state)
+        ending.finish_run(folder, bus, status=status, reason=reason,
+                          outputs_off_confirmed=confirmed, fit=fit,
+                          write_report=self.write_report, done=done, planned=planned)
+        self.outcome = Outcome(status, reason, confirmed, str(folder.path))
+        return self.outcome
 
     def _open_folder(self):
         if self.resume_dir is None:
@@ -179,16 +219,18 @@ class Launch:
                 if self.simulate is None and self.use_guardian:
                     guardian = guardian_mod.start(folder.path)
                 for change in bench.identity_changes:
-                    bus.emit("warning", None, message=f"--force-identity: {change}")
+                    bus.emit(WarningEvent, None, message=f"--force-identity: {change}")
                     folder.log(f"identity accepted by --force-identity: {change}")
-                if state is not None and (state.previous_status == "running"
+                if state is not None and (state.previous_status == RunStatus.RUNNING
                                           or state.guardian):
-                    bus.emit("warning", None, message="the previous process ended without "
+                    bus.emit(WarningEvent, None, message="the previous process ended without "
                              "closing the run (killed, crashed or power lost); continuing "
                              "after the last recorded point")
                 fit = self._fit_worker(folder, bus, state)
                 self.runner = Runner(self.plan, folder, bench, bus, fit=fit,
-                                     time_scale=bench.time_scale, resume_state=state)
+                                     time_scale=bench.time_scale, resume_state=state,
+                                     write_report=self.write_report,
+                                     seconds_per_point=self._seconds_per_point())
                 for name, args in self._pending:
                     getattr(self.runner, name)(*args)
                 outcome = self.runner.run()
@@ -207,14 +249,14 @@ class Launch:
                 guardian_mod.release(guardian)
 
     def _record_failure(self, folder: RunFolder, bus: EventBus, exc: PnbenchError) -> None:
-        status = "failed"
+        status = RunStatus.FAILED
         # `connected` false: no instrument was ever reached, so nothing was switched on
         # (the viewers say that rather than "outputs off not confirmed")
         connected = self.bench is not None
         folder.update_run(status=status, reason=str(exc), ended=iso(utc_now()),
                           outputs_off_confirmed=False, connected=connected)
-        bus.emit("error", None, message=str(exc))
-        bus.emit("run_finished", None, status=status, reason=str(exc),
+        bus.emit(ErrorEvent, None, message=str(exc))
+        bus.emit(RunFinished, None, status=status, reason=str(exc),
                  outputs_off_confirmed=False, connected=connected)
         folder.log(f"failed before the first point: {exc}")
 
@@ -232,10 +274,17 @@ class Launch:
                 worker.preload(step, state.points.get(step.name, []))
         return worker
 
+    def _seconds_per_point(self) -> dict[str, float]:
+        """The plan's own estimate of each step's seconds per point (`check`), at the
+        simulated bench's time scale: the progress model's ETA until rates are measured."""
+        scale = self.time_scale if self.simulate is not None else 1.0
+        return {s.name: step_seconds(s, self.plan.line_frequency_Hz) * scale
+                / max(s.planned, 1) for s in self.plan.steps}
+
     def _run_doc(self) -> dict:
         plan = self.plan
         return {
-            "status": "running", "reason": "", "device": plan.device.to_json_dict(),
+            "status": RunStatus.RUNNING, "reason": "", "device": plan.device.to_json_dict(),
             "instruments": {}, "software_version": version(), "ended": None,
             "limits": plan.limits.to_json_dict(),
             "steps": [{"name": s.name, "kind": s.kind, "planned": s.planned, "done": 0,
@@ -260,7 +309,7 @@ def plan_of_run(run_dir: Path, run: dict | None = None) -> Plan:
     """The plan a run folder was started with (its plan.toml), validated again; relative
     dialect paths are read from where the original plan was."""
     run = run if run is not None else read_run(run_dir)
-    file = Path(run_dir) / "plan.toml"
+    file = plan_path(run_dir)
     try:
         text = file.read_bytes()
     except OSError as exc:

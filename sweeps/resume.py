@@ -6,7 +6,12 @@ points are numbered 0, 1, 2... without gap or repeat. A step with points but no
 ``step_finished`` event is replayed through the guards: if its last reading had already
 ended it (breakdown guard reached, power, a compliance storm) the step counts as finished,
 exactly as the interrupted process would have decided, so a resume never drives a device
-past a limit it had reached. Otherwise the step continues at the next index.
+past a limit it had reached. Otherwise the step continues at the next index. A run whose
+steps are all finished needs only its end work (`ResumeState.end_work_only`): the final
+fit, model, card and report, without the instruments (see `sweeps.ending`).
+
+Points are read by column (`record.read_columns`); row objects are made only for the
+few a resumed step's guards replay.
 """
 
 from __future__ import annotations
@@ -15,12 +20,16 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 
+import numpy as np
+
 from pnbench.errors import DataFileError, SafetyStop
+from pnbench.sweeps.events import StepFinished
 from pnbench.sweeps.limits import Reading, StepGuard
 from pnbench.sweeps.plan import Plan
-from pnbench.sweeps.store import Point, read_events, read_points, read_run
+from pnbench.sweeps.record import Point, PointColumns, layout, read_columns, read_events, read_run
+from pnbench.sweeps.statuses import StepStatus, step_finished
 
-FINISHED = ("done", "limit", "settled")
+_POINTS_NAME = layout.POINTS
 
 
 @dataclass
@@ -35,74 +44,112 @@ class ResumeState:
     started_epoch_s: float | None = None
     previous_status: str = ""
     guardian: dict | None = None  # what the guardian did after the process died
+    #: {"status", "reason"} the run was ending with when it stopped (end work unfinished)
+    finishing: dict | None = None
+    outputs_off_confirmed: bool = False
 
     @property
     def remaining(self) -> int:
-        return sum(1 for s in self.statuses.values() if s not in FINISHED)
+        return sum(1 for s in self.statuses.values() if not step_finished(s))
+
+    @property
+    def end_work_only(self) -> bool:
+        """Every step is finished: only the end work (fit, model, card, report) is left."""
+        return self.remaining == 0
 
 
 def load_state(run_dir: str | Path, plan: Plan) -> ResumeState:
     run_dir = Path(run_dir)
     run = read_run(run_dir)
+    columns = read_columns(run_dir)
     names = {s.name for s in plan.steps}
-    by_step: dict[str, list[Point]] = {s.name: [] for s in plan.steps}
-    for point in read_points(run_dir):
-        if point.step not in names:
-            raise DataFileError(f"{run_dir}/points.csv: a point of step {point.step!r}, "
-                                "which plan.toml does not have")
-        by_step[point.step].append(point)
+    stray = sorted(set(columns.step_names) - names)
+    if stray:
+        raise DataFileError(f"{run_dir}/{_POINTS_NAME}: a point of step {stray[0]!r}, "
+                            "which plan.toml does not have")
+    by_step: dict[str, PointColumns] = {}
     done = {}
-    for name, pts in by_step.items():
-        for expected, p in enumerate(pts):
-            if p.index != expected:
-                raise DataFileError(f"{run_dir}/points.csv: step {name!r} has point index "
-                                    f"{p.index} where {expected} was due (a gap or a "
-                                    "repeat); the run folder was edited or damaged")
-        done[name] = len(pts)
+    for step in plan.steps:
+        mine = columns.select(columns.step_mask(step.name))
+        bad = np.flatnonzero(mine.index != np.arange(len(mine)))
+        if bad.size:
+            raise DataFileError(f"{run_dir}/{_POINTS_NAME}: step {step.name!r} has point "
+                                f"index {int(mine.index[bad[0]])} where {int(bad[0])} was "
+                                "due (a gap or a repeat); the run folder was edited or "
+                                "damaged")
+        by_step[step.name] = mine
+        done[step.name] = len(mine)
 
-    statuses = {s.name: "pending" for s in plan.steps}
+    statuses: dict[str, str] = {s.name: StepStatus.PENDING for s in plan.steps}
     ended_by: dict[str, str] = {}
     last_seq = 0
     for event in read_events(run_dir):
         last_seq = max(last_seq, event.seq)
-        if event.kind == "step_finished" and event.step in statuses:
-            statuses[event.step] = str(event.get("status", "done"))
-            if event.get("ended_by"):
-                ended_by[event.step] = str(event["ended_by"])
+        if isinstance(event, StepFinished) and event.step in statuses:
+            statuses[event.step] = str(event.status or StepStatus.DONE)
+            if event.ended_by:
+                ended_by[event.step] = str(event.ended_by)
     state = ResumeState(done=done, statuses=statuses, ended_by=ended_by, last_seq=last_seq,
-                        previous_status=str(run.get("status", "")), points=by_step,
+                        previous_status=str(run.status), points=_LazyPoints(by_step),
                         guardian=run.get("guardian") or None,
-                        started_epoch_s=_epoch(run.get("started")))
+                        started_epoch_s=_epoch(run.started), finishing=run.finishing,
+                        outputs_off_confirmed=run.outputs_off_confirmed)
     for step in plan.steps:
-        if statuses[step.name] in FINISHED:
+        if step_finished(statuses[step.name]):
             continue
-        pts = by_step[step.name]
-        if len(pts) >= step.planned:
-            statuses[step.name] = "done"
-            state.newly_finished.append((step.name, "done", ""))
+        mine = by_step[step.name]
+        if len(mine) >= step.planned:
+            statuses[step.name] = StepStatus.DONE
+            state.newly_finished.append((step.name, StepStatus.DONE, ""))
             continue
-        statuses[step.name] = "pending" if not pts else "running"
-        if step.instrument == "smu" and pts:
-            _replay(step, pts, plan, state)
+        statuses[step.name] = StepStatus.PENDING if not len(mine) else StepStatus.RUNNING
+        if step.instrument == "smu" and len(mine):
+            _replay(step, mine, plan, state)
     return state
 
 
-def _replay(step, pts: list[Point], plan: Plan, state: ResumeState) -> None:
+class _LazyPoints(dict):
+    """{step: list[Point]} made on first use from the step's columns (a resume that
+    needs no row objects never makes a million of them)."""
+
+    def __init__(self, columns: dict[str, PointColumns]) -> None:
+        super().__init__()
+        self._columns = columns
+
+    def __missing__(self, name: str) -> list[Point]:
+        if name not in self._columns:
+            raise KeyError(name)
+        rows = list(self._columns[name].rows())
+        self[name] = rows
+        return rows
+
+    def get(self, name, default=None):
+        return self[name] if name in self._columns else default
+
+    def __contains__(self, name) -> bool:
+        return name in self._columns
+
+
+def _replay(step, pts: PointColumns, plan: Plan, state: ResumeState) -> None:
     guard = StepGuard(plan.limits, step.source, step.compliance, step.breakdown_guard_A)
-    for n, p in enumerate(pts):
-        verdict = guard.after(step.points[p.index].level,
-                              Reading(p.voltage_V or 0.0, p.current_A or 0.0, p.compliance))
+    volts = np.nan_to_num(pts.voltage_V, nan=0.0)
+    amps = np.nan_to_num(pts.current_A, nan=0.0)
+    levels = step.levels
+    for n in range(len(pts)):
+        index = int(pts.index[n])
+        verdict = guard.after(levels[index], Reading(float(volts[n]), float(amps[n]),
+                                                     bool(pts.compliance[n])))
         if verdict is None:
             continue
         if verdict.ends == "run":
-            raise SafetyStop(f"step {step.name}, point {p.index}: {verdict.message}; check "
+            raise SafetyStop(f"step {step.name}, point {index}: {verdict.message}; check "
                              "the device and the instrument, then start a new run")
         if n == len(pts) - 1:
-            state.statuses[step.name] = "limit"
+            state.statuses[step.name] = StepStatus.LIMIT
             state.ended_by[step.name] = verdict.kind
-            state.newly_finished.append((step.name, "limit", verdict.message))
+            state.newly_finished.append((step.name, StepStatus.LIMIT, verdict.message))
             return
-    state.tails[step.name] = pts[-3:]
+    state.tails[step.name] = [pts.row(n) for n in range(max(0, len(pts) - 3), len(pts))]
 
 
 def _epoch(text: object) -> float | None:
@@ -117,7 +164,7 @@ def _epoch(text: object) -> float | None:
 def last_smu_level(plan: Plan, state: ResumeState) -> tuple[str, float] | None:
     """(source, level) of the SMU step that was in progress, or None."""
     for step in plan.steps:
-        if step.instrument == "smu" and state.statuses.get(step.name) == "running":
+        if step.instrument == "smu" and state.statuses.get(step.name) == StepStatus.RUNNING:
             done = state.done.get(step.name, 0)
             if done > 0:
                 return step.source, step.points[done - 1].level

@@ -8,7 +8,8 @@ apply and read (settle, average), append the point to points.csv (flushed), emit
 it to the fitter, check the reading. Every way out of `run` (the end, an exception, an
 instrument fault, an abort, Ctrl-C, a signal handled by `stopsignals`) goes through the
 same `finally`: ramp the source to zero, outputs and LCR bias off, read back that they are
-off, and record it in run.json (`outputs_off_confirmed`).
+off, and record it in run.json (`outputs_off_confirmed`); then the end work in the order
+of `sweeps.ending` (final fit, model.json and card, report, and only then the status).
 """
 
 from __future__ import annotations
@@ -18,16 +19,17 @@ from dataclasses import dataclass
 
 from pnbench.errors import InstrumentError, OperatorStop, SafetyStop
 from pnbench.modeling.smallsignal import parallel_from_admittance
+from pnbench.sweeps import ending
+from pnbench.sweeps import events as ev
 from pnbench.sweeps.benchtypes import BenchLike
 from pnbench.sweeps.control import Control
 from pnbench.sweeps.events import EventBus, finite
 from pnbench.sweeps.limits import Reading, StepGuard, Verdict, not_finite
 from pnbench.sweeps.plan import Plan
 from pnbench.sweeps.planstep import Step
-from pnbench.sweeps.store import Point, RunFolder, iso, utc_now
+from pnbench.sweeps.record import Point, RunFolder
+from pnbench.sweeps.statuses import ExitCode, RunStatus, StepStatus, exit_code_for, step_finished
 
-#: Step statuses after which a step takes no more points.
-FINISHED = ("done", "limit", "settled")
 #: run.json is refreshed (done counts) at most this often while points flow.
 RUN_JSON_REFRESH_S = 5.0
 #: At most one compliance event per step in this interval (the points carry the flag).
@@ -36,22 +38,21 @@ COMPLIANCE_EVENT_INTERVAL_S = 1.0
 
 @dataclass(frozen=True)
 class Outcome:
-    status: str  # completed, aborted, interrupted, safety_stop, failed
+    status: RunStatus
     reason: str
     outputs_off_confirmed: bool
     run_dir: str
 
     @property
-    def exit_code(self) -> int:
-        if self.status == "completed":
-            return 0 if self.outputs_off_confirmed else 3
-        return {"failed": 3, "safety_stop": 4, "aborted": 4, "interrupted": 4}.get(
-            self.status, 1)
+    def exit_code(self) -> ExitCode:
+        return exit_code_for(self.status, self.outputs_off_confirmed)
 
 
 class Runner:
     def __init__(self, plan: Plan, folder: RunFolder, bench: BenchLike, bus: EventBus, *,
-                 fit=None, time_scale: float = 1.0, resume_state=None) -> None:
+                 fit=None, time_scale: float = 1.0, resume_state=None,
+                 write_report: ending.ReportWriter | None = None,
+                 seconds_per_point: dict[str, float] | None = None) -> None:
         self.plan = plan
         self.folder = folder
         self.bench = bench
@@ -59,8 +60,10 @@ class Runner:
         self.fit = fit
         self.time_scale = time_scale
         self.state = resume_state
+        self.write_report = write_report
+        self.seconds_per_point = dict(seconds_per_point or {})
         self.done = {s.name: 0 for s in plan.steps}
-        self.step_status = {s.name: "pending" for s in plan.steps}
+        self.step_status: dict[str, str] = {s.name: StepStatus.PENDING for s in plan.steps}
         self.ended_by: dict[str, str] = {}
         if resume_state is not None:
             self.done.update(resume_state.done)
@@ -81,7 +84,8 @@ class Runner:
     def resume(self) -> None:
         self.control.resume()
 
-    def abort(self, reason: str = "stopped by the operator", status: str = "aborted") -> None:
+    def abort(self, reason: str = "stopped by the operator",
+              status: str = RunStatus.ABORTED) -> None:
         self.control.abort(reason, status)
 
     @property
@@ -90,24 +94,24 @@ class Runner:
 
     # -- the run --------------------------------------------------------------------------
     def run(self) -> Outcome:
-        status, reason, failure = "completed", "all steps finished", None
+        status, reason, failure = RunStatus.COMPLETED, "all steps finished", None
         try:
             self._begin()
             for step in self.plan.steps:
-                if self.step_status[step.name] in FINISHED:
+                if step_finished(self.step_status[step.name]):
                     continue
                 self._run_step(step)
         except OperatorStop as exc:
-            status = self.control.status
+            status = RunStatus(self.control.status)
             reason = str(exc)
         except SafetyStop as exc:
-            status, reason = "safety_stop", str(exc)
+            status, reason = RunStatus.SAFETY_STOP, str(exc)
         except InstrumentError as exc:
-            status, reason = "failed", str(exc)
+            status, reason = RunStatus.FAILED, str(exc)
         except KeyboardInterrupt:
-            status, reason = "aborted", "stopped by the operator (Ctrl-C)"
+            status, reason = RunStatus.ABORTED, "stopped by the operator (Ctrl-C)"
         except BaseException as exc:  # noqa: BLE001 - recorded, then raised again below
-            status, reason, failure = "failed", f"internal error: {exc!r}", exc
+            status, reason, failure = RunStatus.FAILED, f"internal error: {exc!r}", exc
         finally:
             confirmed = self._shutdown(status, reason)
         if failure is not None:
@@ -116,25 +120,26 @@ class Runner:
 
     def _begin(self) -> None:
         resumed = self.state is not None
-        self.folder.update_run(status="running", reason="", steps=self._steps_doc())
-        self.bus.emit("run_started", None, resumed=resumed,
+        self.folder.update_run(status=RunStatus.RUNNING, reason="", steps=self._steps_doc())
+        self.bus.emit(ev.RunStarted, None, resumed=resumed,
                       resume_count=self.folder.run.get("resume_count", 0),
                       planned=self.plan.total_points, done=sum(self.done.values()),
                       steps=[s.name for s in self.plan.steps], run_dir=str(self.folder.path),
                       progress={n: {"done": self.done[n], "status": self.step_status[n]}
-                                for n in self.done})
+                                for n in self.done},
+                      seconds_per_point=self.seconds_per_point)
         self.folder.log(("resumed" if resumed else "started") + f": {self.plan.total_points} "
                         f"points planned in {len(self.plan.steps)} steps")
         if not resumed:
             # The plan's own warnings (a large AC level, ...) belong in the run's record,
             # where the app, watch and the report show them.
             for warning in self.plan.warnings:
-                self.bus.emit("warning", None, message=f"plan: {warning}")
+                self.bus.emit(ev.WarningEvent, None, message=f"plan: {warning}")
         for name, status, message in (self.state.newly_finished if resumed else []):
             if message:
-                self.bus.emit("limit", name, guard=self.ended_by.get(name), message=message,
+                self.bus.emit(ev.Limit, name, guard=self.ended_by.get(name), message=message,
                               level=None)
-            self.bus.emit("step_finished", name, status=status, done=self.done[name],
+            self.bus.emit(ev.StepFinished, name, status=status, done=self.done[name],
                           planned=self.plan.step(name).planned,
                           ended_by=self.ended_by.get(name), compliance_count=0)
         if self.fit is not None:
@@ -148,30 +153,24 @@ class Runner:
         finally:
             self.folder.sync()
             if self.current_step is not None:
-                self._finish_step_record(self.current_step,
-                                         "failed" if self.step_failed else "interrupted")
-            self.folder.update_run(status=status, reason=reason, ended=iso(utc_now()),
-                                   outputs_off_confirmed=confirmed, steps=self._steps_doc())
-            self.folder.log(f"{status}: {reason}; outputs off confirmed: {confirmed}")
-            if self.fit is not None:
-                try:
-                    self.fit.finish()
-                except Exception as exc:  # noqa: BLE001 - the run's data are safe already
-                    self.folder.log(f"final fit failed: {exc!r}")
-            self.bus.emit("run_finished", None, status=status, reason=reason,
-                          outputs_off_confirmed=confirmed, done=sum(self.done.values()),
-                          planned=self.plan.total_points)
-            self.folder.sync()
+                self._finish_step_record(self.current_step, StepStatus.FAILED
+                                         if self.step_failed else StepStatus.INTERRUPTED)
+            ending.begin_end_work(self.folder, status, reason,
+                                  outputs_off_confirmed=confirmed, steps=self._steps_doc())
+            ending.finish_run(self.folder, self.bus, status=status, reason=reason,
+                              outputs_off_confirmed=confirmed, fit=self.fit,
+                              write_report=self.write_report, done=sum(self.done.values()),
+                              planned=self.plan.total_points)
         return confirmed
 
     def _all_off(self) -> bool:
         report = self.bench.safe_off()
         for role, ok in report.items():
-            self.bus.emit("output", None, role=role, on=not ok, confirmed=ok)
+            self.bus.emit(ev.Output, None, role=role, on=not ok, confirmed=ok)
         confirmed = all(report.values())
         if not confirmed:
             bad = ", ".join(r for r, ok in report.items() if not ok)
-            self.bus.emit("error", None, message=f"could not confirm that the {bad} "
+            self.bus.emit(ev.ErrorEvent, None, message=f"could not confirm that the {bad} "
                           "output is off: switch it off at the instrument and check the "
                           "fixture before touching it")
         return confirmed
@@ -180,15 +179,15 @@ class Runner:
     def _run_step(self, step: Step) -> None:
         self.current_step = step.name
         start = self.done[step.name]
-        self.step_status[step.name] = "running"
+        self.step_status[step.name] = StepStatus.RUNNING
         self._compliance_count[step.name] = 0
         self.folder.update_run(steps=self._steps_doc())
-        self.bus.emit("step_started", step.name, step_kind=step.kind, planned=step.planned,
+        self.bus.emit(ev.StepStarted, step.name, step_kind=step.kind, planned=step.planned,
                       done=start, instrument=step.instrument)
         self.folder.log(f"step {step.name} ({step.kind}): from point {start} of "
                         f"{step.planned}")
         if self._settled(step):  # a resumed step whose fit had already settled
-            self._finish_step_record(step.name, "settled")
+            self._finish_step_record(step.name, StepStatus.SETTLED)
             self.current_step = None
             return
         if step.instrument == "smu":
@@ -204,12 +203,13 @@ class Runner:
     def _finish_step_record(self, name: str, status: str) -> None:
         self.folder.sync()
         self.step_status[name] = status
-        self.bus.emit("step_finished", name, status=status, done=self.done[name],
+        self.bus.emit(ev.StepFinished, name, status=status, done=self.done[name],
                       planned=self.plan.step(name).planned,
                       ended_by=self.ended_by.get(name),
                       compliance_count=self._compliance_count.get(name, 0))
         self.folder.update_run(steps=self._steps_doc())
-        if self.fit is not None and status != "interrupted":
+        if self.fit is not None and status not in (StepStatus.INTERRUPTED,
+                                                   StepStatus.FAILED):
             self.fit.step_done(name)
 
     def _steps_doc(self) -> list[dict]:
@@ -247,13 +247,13 @@ class Runner:
                 verdict = guard.after(planned.level, reading)
                 if verdict is None and self._settled(step):
                     clean = True
-                    return "settled", None
+                    return StepStatus.SETTLED, None
             if verdict is not None and verdict.ends == "run":
-                self.bus.emit("limit", step.name, guard=verdict.kind,
+                self.bus.emit(ev.Limit, step.name, guard=verdict.kind,
                               message=verdict.message, level=verdict.level)
                 raise SafetyStop(f"step {step.name}: {verdict.message}")
             clean = True
-            return ("done", None) if verdict is None else self._ended(step, verdict)
+            return (StepStatus.DONE, None) if verdict is None else self._ended(step, verdict)
         finally:
             if clean:  # after a fault the shutdown's safe_off (which reconnects) does it
                 self._disarm_smu()
@@ -263,13 +263,13 @@ class Runner:
         smu.configure(source=step.source, limit=step.compliance, nplc=step.nplc,
                       four_wire=step.four_wire)
         smu.output(True)
-        self.bus.emit("output", step.name, role="smu", on=True)
+        self.bus.emit(ev.Output, step.name, role="smu", on=True)
 
     def _disarm_smu(self) -> None:
         smu = self.bench.smu
         smu.ramp_to_zero()
         smu.output(False)
-        self.bus.emit("output", self.current_step, role="smu", on=False)
+        self.bus.emit(ev.Output, self.current_step, role="smu", on=False)
 
     def _approach(self, step: Step, index: int, guard: StepGuard) -> Verdict | None:
         """Bring the source back to the level before ``index`` through at most ten of the
@@ -330,29 +330,29 @@ class Runner:
                 self._record(step, point)
                 if self._settled(step):
                     clean = True
-                    return "settled", None
+                    return StepStatus.SETTLED, None
             clean = True
-            return "done", None
+            return StepStatus.DONE, None
         finally:
             if clean:
                 lcr.bias(False)
-                self.bus.emit("output", step.name, role="lcr", on=False)
+                self.bus.emit(ev.Output, step.name, role="lcr", on=False)
 
     def _arm_lcr(self, step: Step) -> None:
         lcr = self.bench.lcr
         lcr.configure(ac_level_V=step.ac_level_V)
         lcr.bias(True)
-        self.bus.emit("output", step.name, role="lcr", on=True)
+        self.bus.emit(ev.Output, step.name, role="lcr", on=True)
 
     # -- per point ----------------------------------------------------------------------
     def _record(self, step: Step, point: Point) -> None:
         self.folder.append_point(point)
         self.done[step.name] = point.index + 1
-        self.bus.emit("point", step.name, index=point.index, point_kind=point.kind,
-                      voltage_V=point.voltage_V, current_A=point.current_A,
-                      frequency_Hz=point.frequency_Hz, capacitance_F=point.capacitance_F,
-                      conductance_S=point.conductance_S, compliance=point.compliance,
-                      time_s=point.time_s, planned=step.planned)
+        self.bus.emit(ev.PointTaken, step.name, time_s=point.time_s, index=point.index,
+                      point_kind=point.kind, voltage_V=point.voltage_V,
+                      current_A=point.current_A, frequency_Hz=point.frequency_Hz,
+                      capacitance_F=point.capacitance_F, conductance_S=point.conductance_S,
+                      compliance=point.compliance, planned=step.planned)
         if self.fit is not None:
             self.fit.submit(step, point)
         if point.compliance:
@@ -369,15 +369,15 @@ class Runner:
         if now - self._last_compliance_event.get(step.name, -1e9) >= \
                 COMPLIANCE_EVENT_INTERVAL_S:
             self._last_compliance_event[step.name] = now
-            self.bus.emit("compliance", step.name, index=point.index,
+            self.bus.emit(ev.Compliance, step.name, index=point.index,
                           voltage_V=finite(point.voltage_V), current_A=finite(point.current_A),
                           limit=step.compliance, count=count)
 
     def _ended(self, step: Step, verdict: Verdict) -> tuple[str, Verdict]:
-        self.bus.emit("limit", step.name, guard=verdict.kind, message=verdict.message,
+        self.bus.emit(ev.Limit, step.name, guard=verdict.kind, message=verdict.message,
                       level=verdict.level)
         self.folder.log(f"step {step.name} ended by {verdict.kind}: {verdict.message}")
-        return "limit", verdict
+        return StepStatus.LIMIT, verdict
 
     def _settled(self, step: Step) -> bool:
         return (step.end_when_settled is not None and self.fit is not None
@@ -407,13 +407,13 @@ class Runner:
             self._disarm_smu()
         else:
             self.bench.lcr.bias(False)
-            self.bus.emit("output", step.name, role="lcr", on=False)
-        self.folder.update_run(status="paused", steps=self._steps_doc())
-        self.bus.emit("paused", step.name, done=self.done[step.name])
+            self.bus.emit(ev.Output, step.name, role="lcr", on=False)
+        self.folder.update_run(status=RunStatus.PAUSED, steps=self._steps_doc())
+        self.bus.emit(ev.Paused, step.name, done=self.done[step.name])
         self.folder.log(f"paused in step {step.name} (outputs off)")
         self.control.wait_while_paused()
-        self.folder.update_run(status="running")
-        self.bus.emit("resumed", step.name, done=self.done[step.name])
+        self.folder.update_run(status=RunStatus.RUNNING)
+        self.bus.emit(ev.Resumed, step.name, done=self.done[step.name])
         self.folder.log(f"resumed step {step.name}")
         return True
 

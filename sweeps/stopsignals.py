@@ -8,7 +8,8 @@
 A signal only asks the runner to stop (`abort`): the runner finishes the point in hand,
 ramps the source down, turns every output off, confirms it and records why. SIGTERM and
 SIGHUP (the terminal or SSH session went away) record status ``interrupted``; Ctrl-C
-records ``aborted`` (the operator). A second Ctrl-C raises KeyboardInterrupt to cut a
+records ``aborted`` (the operator): `statuses.status_for_signal`, the rule the app follows
+too. A second Ctrl-C raises KeyboardInterrupt to cut a
 long wait short, except while the outputs are being switched off or the run folder is
 being finished (final fit, model, card, report), which nothing interrupts: a signal then
 is reported on stderr (written straight to the file descriptor: a handler must not
@@ -30,9 +31,8 @@ import signal
 import threading
 from collections.abc import Iterator
 
-_NAMES = {signal.SIGTERM: "SIGTERM", signal.SIGINT: "Ctrl-C (SIGINT)"}
-if hasattr(signal, "SIGHUP"):
-    _NAMES[signal.SIGHUP] = "SIGHUP (terminal or SSH session closed)"
+from pnbench.sweeps.statuses import SIGNAL_NAMES as _NAMES
+from pnbench.sweeps.statuses import reason_for_signal, status_for_signal
 
 
 def signal_name(signum: int) -> str:
@@ -84,10 +84,7 @@ class Signals:
         self._abort(signum, name)
 
     def _abort(self, signum, name: str) -> None:
-        if signum == signal.SIGINT:
-            self.target.abort(f"stopped by the operator ({name})", "aborted")
-        else:
-            self.target.abort(f"stopped by {name}", "interrupted")
+        self.target.abort(reason_for_signal(signum), status_for_signal(signum))
 
 
 def ignored(signum: int) -> bool:

@@ -6,40 +6,39 @@ four times a second, with limits, warnings and errors printed above it as they c
 the output is not a terminal (a log file, a pipe) it writes one timestamped line per
 happening and a progress line every `LINE_INTERVAL_S`. A closed terminal (SSH gone) stops
 the output quietly: the run goes on and its folder keeps everything.
+
+Done, planned and the ETA come from the shared progress model (`sweeps.progress`), the
+same the app and `watch` show; events are dispatched on their class.
 """
 
 from __future__ import annotations
 
 import collections
-import math
 import sys
 import threading
 import time
+from pathlib import Path
 
+from pnbench.modeling.params import UNITS
+from pnbench.sweeps import events as ev
+from pnbench.sweeps.progress import ProgressModel, format_duration
 from pnbench.sweeps.quantities import format_quantity
 from pnbench.tui.app.words import guard_words, status_words
+
+__all__ = ["Progress", "bar", "format_duration", "format_parameter", "leakage_text",
+           "run_headless"]
 
 LINE_INTERVAL_S = 15.0
 REDRAW_S = 0.25
 BAR = 24
-_UNITS = {"IS": "A", "RS": "ohm", "RSH": "ohm", "CJO": "F", "VJ": "V", "TT": "s", "BV": "V",
-          "IBV": "A", "CFIX": "F"}
-
-
-def format_duration(seconds: float) -> str:
-    if not math.isfinite(seconds) or seconds < 0:
-        return "--:--"
-    seconds = int(round(seconds))
-    h, rest = divmod(seconds, 3600)
-    m, s = divmod(rest, 60)
-    return f"{h}:{m:02d}:{s:02d}" if h else f"{m:02d}:{s:02d}"
 
 
 def format_parameter(name: str, entry: dict) -> str:
     value, sigma = entry.get("value"), entry.get("sigma")
     if value is None:
         return f"{name} = ?"
-    text = format_quantity(value, _UNITS.get(name, ""), 3) if name in _UNITS else f"{value:.4g}"
+    unit = "F" if name == "CFIX" else UNITS.get(name, "")  # CFIX: the fixture's capacitance
+    text = format_quantity(value, unit, 3) if unit else f"{value:.4g}"
     if sigma is not None and value:
         text += f" ±{abs(sigma / value):.1%}"
     label = "fixture CFIX" if name == "CFIX" else name  # the bench's, not the device's
@@ -82,16 +81,14 @@ class Progress:
         self.stream = stream or sys.stdout
         self.tty = self.stream.isatty() if tty is None else tty
         self.plan = plan
-        self.steps = {s.name: {"kind": s.kind, "planned": s.planned, "done": 0,
-                               "status": "pending"} for s in plan.steps}
+        self.model = ProgressModel()
+        self.model.set_plan([(s.name, s.kind, s.planned) for s in plan.steps])
         self.params: dict[str, dict] = {}
         self.fits: dict[str, object] = {}  # step -> its latest fit event
         self._queue: collections.deque = collections.deque()
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._drawn = 0
-        self._t0: float | None = None
-        self._done0 = 0
         self._last_line = 0.0
         self._broken = False
         self.current: str | None = None
@@ -127,94 +124,80 @@ class Progress:
         while self._queue:
             self._apply(self._queue.popleft())
 
-    def _apply(self, e) -> None:
-        kind, step = e.kind, e.step
-        if kind == "point":
-            info = self.steps.get(step)
-            if info is not None:
-                info["done"] = e.get("index", info["done"]) + 1
-            if self._t0 is None:
-                self._t0 = time.monotonic()
-                self._done0 = self.total_done() - 1
-            return
-        if kind == "run_started":
-            for name, known in (e.get("progress") or {}).items():
-                if name in self.steps:
-                    self.steps[name].update(done=int(known.get("done", 0)),
-                                            status=str(known.get("status", "pending")))
-            self.say(f"run {'resumed' if e.get('resumed') else 'started'}: "
-                     f"{e.get('planned')} points in {len(self.steps)} steps"
-                     + (f", {e.get('done')} already on disk" if e.get("done") else ""))
-        elif kind == "step_started":
-            self.current = step
-            self.steps[step].update(status="running", done=e.get("done", 0))
-            self.say(f"step {step} ({e.get('step_kind')}): {e.get('planned')} points"
-                     + (f", continuing at point {e.get('done')}" if e.get("done") else ""))
-        elif kind == "step_finished":
-            self.steps[step].update(status=e.get("status"), done=e.get("done", 0))
-            why = f", ended by {guard_words(e.get('ended_by'))}" if e.get("ended_by") else ""
-            self.say(f"step {step} finished ({e.get('status')}{why}): "
-                     f"{e.get('done')}/{e.get('planned')} points")
-        elif kind == "fit":
-            self.params[step] = e.get("parameters") or {}
-            self.fits[step] = e
-            if e.get("final"):  # the step's last fit comes after its step_finished
-                self.say(f"fit {step}: " + self.param_text(step))
-        elif kind in ("limit", "warning", "error"):
-            self.say(f"{kind}{' in ' + step if step else ''}: {e.get('message')}")
-        elif kind == "compliance":
-            self.say(f"compliance in {step} at point {e.get('index')} "
-                     f"({e.get('count')} so far in this step)")
-        elif kind in ("paused", "resumed"):
-            self.say(f"{kind} in step {step}" + (" (outputs off)" if kind == "paused" else ""))
-        elif kind == "run_finished":
-            self.current = None
-            if e.get("connected") is False:
-                off = "the instruments were never connected, so no output was switched on"
-            else:
-                off = f"outputs off confirmed: {'yes' if e.get('outputs_off_confirmed') else 'NO'}"
-            self.say(f"run finished: {status_words(e.get('status'))} ({e.get('reason')}); "
-                     f"{off}")
+    @property
+    def steps(self):
+        """Progress per step (`sweeps.progress.StepProgress`)."""
+        return self.model.steps
+
+    def _apply(self, e: ev.Event) -> None:
+        self.model.apply(e)
+        step = e.step
+        match e:
+            case ev.PointTaken():
+                return
+            case ev.RunStarted():
+                self.say(f"run {'resumed' if e.resumed else 'started'}: "
+                         f"{e.planned} points in {len(self.steps)} steps"
+                         + (f", {e.done} already on disk" if e.done else ""))
+            case ev.StepStarted():
+                self.current = step
+                self.say(f"step {step} ({e.step_kind}): {e.planned} points"
+                         + (f", continuing at point {e.done}" if e.done else ""))
+            case ev.StepFinished():
+                why = f", ended by {guard_words(e.ended_by)}" if e.ended_by else ""
+                self.say(f"step {step} finished ({e.status}{why}): {e.done}/{e.planned} "
+                         "points")
+            case ev.Fit():
+                self.params[step] = e.parameters or {}
+                self.fits[step] = e
+                if e.final:  # the step's last fit comes after its step_finished
+                    self.say(f"fit {step}: " + self.param_text(step))
+            case ev.Limit() | ev.WarningEvent() | ev.ErrorEvent():
+                self.say(f"{e.kind}{' in ' + step if step else ''}: {e.message}")
+            case ev.Compliance():
+                self.say(f"compliance in {step} at point {e.index} ({e.count} so far in "
+                         "this step)")
+            case ev.Paused() | ev.Resumed():
+                self.say(f"{e.kind} in step {step}"
+                         + (" (outputs off)" if isinstance(e, ev.Paused) else ""))
+            case ev.RunFinished():
+                self.current = None
+                if e.connected is False:
+                    off = "the instruments were never connected, so no output was switched on"
+                else:
+                    off = f"outputs off confirmed: {'yes' if e.outputs_off_confirmed else 'NO'}"
+                self.say(f"run finished: {status_words(e.status)} ({e.reason}); {off}")
 
     # -- text -----------------------------------------------------------------------------
     def total_done(self) -> int:
-        return sum(i["done"] for i in self.steps.values())
+        return self.model.total_done()
 
     def total_planned(self) -> int:
         """Planned points, counting a step that ended early (limit, settled) as done."""
-        return sum(i["done"] if i["status"] in ("done", "limit", "settled") else i["planned"]
-                   for i in self.steps.values())
+        return self.model.total_planned()
 
     def eta_s(self) -> float:
-        if self._t0 is None:
-            return math.nan
-        taken = self.total_done() - self._done0
-        if taken <= 0:
-            return math.nan
-        rate = taken / max(time.monotonic() - self._t0, 1e-9)
-        left = sum(i["planned"] - i["done"] for i in self.steps.values()
-                   if i["status"] in ("pending", "running"))
-        return left / rate
+        return self.model.eta_s()[1]
 
     def param_text(self, step: str) -> str:
         """The step's latest fit in one line: its estimates, then what else it found or
         why it found nothing (a reverse step: leakage, and BV's current or no breakdown)."""
         e = self.fits.get(step)
         params = self.params.get(step, {})
-        reverse = e is not None and e.get("fit_kind") == "iv_reverse"
-        ibv = e.get("ibv_A") if reverse else None
+        reverse = e is not None and e.fit_kind == "iv_reverse"
+        ibv = e.ibv_A if reverse else None
         ibv_text = f"IBV = {format_quantity(ibv, 'A', 3)}" if ibv else ""
         shown = [format_parameter(n, p) + (f" at {ibv_text}" if n == "BV" and ibv else "")
                  for n, p in params.items()]
         notes = []
         if reverse and "BV" not in params:
             notes.append("no breakdown" + (f" ({ibv_text} not reached)" if ibv else ""))
-        if reverse and e.get("leakage"):
-            notes.append(leakage_text(e.get("leakage")))
-        if e is not None and e.get("not_determined"):
-            notes.append(f"{', '.join(e.get('not_determined'))} not determined")
+        if reverse and e.leakage:
+            notes.append(leakage_text(e.leakage))
+        if e is not None and e.not_determined:
+            notes.append(f"{', '.join(e.not_determined)} not determined")
         if e is not None and not shown and not notes:
-            notes.append(first_clause(str(e.get("message") or "nothing determined yet")))
+            notes.append(first_clause(str(e.message or "nothing determined yet")))
         return "; ".join(filter(None, ["  ".join(shown), *notes]))
 
     def say(self, text: str) -> None:
@@ -228,7 +211,7 @@ class Progress:
 
     def _progress_line(self) -> None:
         step = self.steps[self.current]
-        self.say(f"{self.current}: {step['done']}/{step['planned']} points; total "
+        self.say(f"{self.current}: {step.done}/{step.planned} points; total "
                  f"{self.total_done()}/{self.total_planned()}; ETA {format_duration(self.eta_s())}")
 
     def block(self) -> list[str]:
@@ -236,9 +219,9 @@ class Progress:
         lines = []
         for name, info in self.steps.items():
             mark = {"running": ">", "done": " ", "limit": "!", "settled": "~"}.get(
-                info["status"], " ")
-            lines.append(f"{mark}{name:<{width}} {bar(info['done'], info['planned'])} "
-                         f"{info['done']:>6}/{info['planned']:<6} {info['status']}")
+                info.status, " ")
+            lines.append(f"{mark}{name:<{width}} {bar(info.done, info.planned)} "
+                         f"{info.done:>6}/{info.planned:<6} {info.status}")
         total, planned = self.total_done(), self.total_planned()
         lines.append(f" {'total':<{width}} {bar(total, planned)} {total:>6}/{planned:<6} "
                      f"ETA {format_duration(self.eta_s())}")
@@ -264,32 +247,43 @@ class Progress:
             self._broken = True  # the terminal is gone; the run folder has it all
 
 
-def finish_report(run_dir, stream=None) -> None:
+def finish_report(run_dir, stream=None) -> Path | None:
     """Write the report of a run folder when the report module is there; a failure is a
-    warning (the run's data are already safe)."""
+    warning (the run's data are already safe). The engine calls this at the end of a
+    run, before the status that says completed (`sweeps.ending`)."""
     stream = stream or sys.stderr
     try:
         from pnbench.tui.report import write_report
     except ImportError:
-        return
+        return None
     try:
-        path = write_report(run_dir)
-        print(f"report: {path}", file=sys.stdout)
+        return write_report(run_dir)
     except Exception as exc:  # noqa: BLE001 - never lose a run over its report
         print(f"warning: the report could not be written ({type(exc).__name__}: {exc}); "
               f"the run folder is complete, try `pnbench report {run_dir}`", file=stream)
+        return None
 
 
 def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
                  report: bool = True) -> int:
     """Run `launch` on this thread with progress output; signals stop it gracefully.
-    The signal handlers stay until the report is written: a SIGTERM or SIGHUP in the end
-    work is reported, the folder is finished, and the exit code is 4.
-    Returns the exit code; connection errors before the first point propagate."""
+    The report is part of the run's end work (`sweeps.ending`), under the same signal
+    handlers: a SIGTERM or SIGHUP in the end work is reported, the folder is finished,
+    and the exit code is 4. Returns the exit code; connection errors before the first
+    point propagate."""
     from pnbench.sweeps.stopsignals import stop_on_signals
 
     progress = Progress(plan, stream=stream, tty=tty)
     launch.listeners.append(progress.listener)
+    written: list[Path] = []
+    if report:
+        def write(run_dir: Path) -> Path | None:
+            path = finish_report(run_dir)
+            if path is not None:
+                written.append(path)
+            return path
+
+        launch.write_report = write
     progress.start()
     outcome = None
     with stop_on_signals(launch) as signals:
@@ -300,8 +294,8 @@ def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
             progress.stop()
             if launch.run_dir is not None:
                 print(f"run folder: {launch.run_dir}", file=progress.stream)
-        if report:
-            finish_report(launch.run_dir)
+    for path in written:
+        print(f"report: {path}", file=sys.stdout)
     if outcome.exit_code != 0:
         print(f"pnbench: run {outcome.status}: {outcome.reason}"
               + ("" if outcome.outputs_off_confirmed else
@@ -309,7 +303,7 @@ def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
     elif signals.late:
         print(f"pnbench: the run had ended when {', '.join(signals.late)} came; its folder "
               "is complete", file=sys.stderr)
-    return signals.exit_code(outcome.exit_code)
+    return int(signals.exit_code(outcome.exit_code))
 
 
 def app_available() -> bool:

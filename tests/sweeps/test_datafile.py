@@ -133,7 +133,7 @@ def test_run_folder_with_a_damaged_run_json(tmp_path):
     with pytest.raises(DataFileError, match="device.temperature_K must be a number"):
         read_data(path)
     (path / "run.json").write_text("{not json")
-    with pytest.raises(DataFileError, match="cannot read it as JSON"):
+    with pytest.raises(DataFileError, match="not valid JSON"):
         read_data(path)
 
 

@@ -85,7 +85,7 @@ def test_kill_9_then_resume(bench, tmp_path, repetition):
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
     try:
         assert wait_for(lambda: any(out.glob("*/points.csv")), 30), "no run folder"
-        run_dir = next(out.glob("*"))
+        run_dir = next(out.glob("*/points.csv")).parent
         assert wait_for(lambda: data_lines(run_dir) > 0, 30)
         delay = rng.uniform(0.0, 1.5)
         time.sleep(delay)

@@ -1,6 +1,7 @@
 """The app in a real pseudo-terminal, losing it: a hung-up SSH link (SIGHUP) or a
-SIGTERM during a sweep must abort the sweep, confirm the outputs off and end the
-process, although Textual can no longer draw."""
+SIGTERM during a sweep must stop the sweep, confirm the outputs off and end the
+process, although Textual can no longer draw; and record the same status and reason as
+a headless run given the same signal (tests/tui/test_cmd_run.py checks that side)."""
 
 from __future__ import annotations
 
@@ -14,6 +15,8 @@ from pathlib import Path
 
 import pytest
 from plantext import sweep_plan
+
+from pnbench.sweeps.statuses import reason_for_signal, status_for_signal
 
 PLAN = sweep_plan("LH-QT16-hup", 2000)
 
@@ -92,7 +95,9 @@ def test_losing_the_terminal_aborts_the_sweep_with_outputs_off(tmp_path, how):
             pass
     doc = _run_json(out)
     assert doc is not None
-    assert doc["status"] == "aborted", doc
+    signum = signal.SIGHUP if how == "hangup" else signal.SIGTERM
+    assert doc["status"] == status_for_signal(signum) == "interrupted", doc
+    assert doc["reason"] == reason_for_signal(signum), doc
     assert doc["outputs_off_confirmed"] is True
     assert _points(out) < 2000  # it really stopped early
     assert os.WIFEXITED(status) and os.WEXITSTATUS(status) == 4

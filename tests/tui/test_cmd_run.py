@@ -16,6 +16,7 @@ import pytest
 from plantext import Raw, cv, forward, limits, plan_text, table
 
 from pnbench.drivers.sim.bench import SimBench
+from pnbench.sweeps.statuses import reason_for_signal, status_for_signal
 from pnbench.sweeps.store import read_points, read_run
 from pnbench.tui.cli import main
 
@@ -210,7 +211,7 @@ def test_signals_stop_gracefully_with_outputs_off(slow_bench, tmp_path, signum, 
         end = time.monotonic() + 30
         while time.monotonic() < end and not list(out.glob("*/points.csv")):
             time.sleep(0.01)
-        run_dir = next(out.glob("*"))
+        run_dir = next(out.glob("*/points.csv")).parent
         while time.monotonic() < end and run_dir.joinpath("points.csv").read_text().count(
                 "\n") < 8:
             time.sleep(0.01)
@@ -224,6 +225,8 @@ def test_signals_stop_gracefully_with_outputs_off(slow_bench, tmp_path, signum, 
     assert "Traceback" not in stderr
     run = read_run(run_dir)
     assert run["status"] == status and run["outputs_off_confirmed"] is True
+    # the one rule both front ends follow (the app's side: test_app_signals.py)
+    assert status == status_for_signal(signum) and run["reason"] == reason_for_signal(signum)
     assert slow_bench.outputs() == {"smu_output": False, "lcr_bias": False}
     assert f"run folder: {run_dir}" in stdout
     assert 0 < run["steps"][0]["done"] < 400

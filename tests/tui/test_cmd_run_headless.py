@@ -4,11 +4,10 @@ log, and silence (not a crash) when the terminal goes away."""
 from __future__ import annotations
 
 import io
-import time
 
 from plantext import forward, limits, plan_text
 
-from pnbench.sweeps.events import Event
+from pnbench.sweeps.events import KIND_CLASSES
 from pnbench.sweeps.plan import parse_plan
 from pnbench.tui.headless import Progress, bar, format_duration, format_parameter, leakage_text
 
@@ -24,13 +23,14 @@ def feed(progress, events):
     progress._drain()
 
 
-def ev(kind, step=None, **data):
-    return Event(0, 0.0, kind, step, data)
+def ev(kind, step=None, time_s=0.0, **data):
+    return KIND_CLASSES[kind].build({"seq": 0, "time_s": time_s, "step": step}, data)
 
 
 def test_helpers():
-    assert format_duration(59) == "00:59" and format_duration(3725) == "1:02:05"
-    assert format_duration(float("nan")) == "--:--"
+    # one duration format for headless, the app and watch (sweeps.progress)
+    assert format_duration(59) == "0:59" and format_duration(3725) == "1:02:05"
+    assert format_duration(float("nan")) == "--"
     assert bar(5, 10, 10) == "[#####-----]"
     text = format_parameter("IS", {"value": 2.5e-9, "sigma": 2.5e-11, "settled": True})
     assert text.startswith("IS = 2.5 nA") and "1.0%" in text and text.endswith("✓")
@@ -102,15 +102,14 @@ def test_terminal_bars_with_eta_and_parameters():
     p = Progress(PLAN, stream=out, tty=True)
     feed(p, [ev("run_started", planned=40, progress={}),
              ev("step_started", "forward", step_kind="iv_forward", planned=10, done=0),
-             ev("point", "forward", index=0)])
-    time.sleep(0.05)
-    feed(p, [ev("point", "forward", index=k) for k in range(1, 10)]
+             ev("point", "forward", index=0, time_s=1.0)])
+    feed(p, [ev("point", "forward", index=k, time_s=1.0 + 0.2 * k) for k in range(1, 10)]
          + [ev("fit", "forward", parameters={"IS": {"value": 1e-14, "sigma": 1e-16,
                                                     "settled": True}})])
     block = p.block()
     assert block[0].startswith(">forward ") and "[" + "#" * 24 + "]" in block[0]
     assert "10/10" in block[0] and "0/30" in block[1]
-    assert "ETA" in block[2] and "--:--" not in block[2]
+    assert "ETA 0:06" in block[2]  # 30 points left at the measured 0.2 s per point
     assert "IS = 10 fA" in block[3]
     p._redraw()
     p.say("limit in forward: x")
@@ -122,7 +121,7 @@ def test_resumed_run_shows_what_was_done():
     feed(p, [ev("run_started", resumed=True, planned=40, done=25,
                 progress={"forward": {"done": 10, "status": "done"},
                           "forward2": {"done": 15, "status": "running"}})])
-    assert p.total_done() == 25 and p.steps["forward"]["status"] == "done"
+    assert p.total_done() == 25 and p.steps["forward"].status == "done"
 
 
 class Gone(io.StringIO):

@@ -40,6 +40,21 @@ class Columns:
             self.step_names.append(step)
         self.step_ids.append(number)
 
+    def extend(self, values: dict[str, np.ndarray], steps: np.ndarray) -> None:
+        """Many points at once: a column per name (missing ones NaN), a step per point."""
+        n = len(steps)
+        for name in self.names:
+            column = values.get(name)
+            self.data[name].frombytes((np.full(n, math.nan) if column is None
+                                       else np.asarray(column, dtype=float)).tobytes())
+        for step in dict.fromkeys(steps.tolist()):
+            if step not in self._ids:
+                self._ids[step] = len(self.step_names)
+                self.step_names.append(step)
+        codes = np.array([self._ids[s] for s in steps.tolist()], dtype=np.int32) \
+            if n < 64 else _codes(steps, self._ids)
+        self.step_ids.frombytes(codes.astype(np.int32).tobytes())
+
     def __len__(self) -> int:
         return len(self.step_ids)
 
@@ -94,3 +109,10 @@ class Snapshot:
 
     def step_kind(self, name: str) -> str:
         return self.step_kinds.get(name, "")
+
+
+def _codes(steps: np.ndarray, ids: dict[str, int]) -> np.ndarray:
+    out = np.empty(len(steps), dtype=np.int32)
+    for name, number in ids.items():
+        out[steps == name] = number
+    return out

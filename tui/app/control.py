@@ -38,7 +38,7 @@ class RunControl:
         PnbenchError when the engine refuses it before any folder exists."""
         if self.bench is not None:  # the simulated bench: a backend of the instruments
             plan = plan.on_simulated_bench(self.bench)
-        self.live = self.factory(plan, out_dir=self.out_dir)
+        self.live = self.factory(plan, out_dir=self.out_dir, report=self.report)
         self.live.start()
 
     def where(self, plan) -> str:

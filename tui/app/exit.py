@@ -14,9 +14,15 @@ import os
 import signal
 import threading
 import time
-from pathlib import Path
 
 from pnbench.errors import PnbenchError
+from pnbench.sweeps.statuses import (
+    ExitCode,
+    RunStatus,
+    exit_code_for,
+    reason_for_signal,
+    status_for_signal,
+)
 
 #: Seconds the hang-up guard waits for the sweep's ramp-down and off check, then for the
 #: app's own exit, before it ends the process itself.
@@ -43,8 +49,8 @@ def safe_exit_on_signals(app) -> dict:
         app.stopped_by_signal = signal.Signals(signum).name
         live = app.live
         if live is not None and live.running:
-            live.abort(f"the app got {signal.Signals(signum).name} (terminal hung up or "
-                       "asked to stop)")
+            # the same status and reason as a headless run given the same signal
+            live.abort(reason_for_signal(signum), status_for_signal(signum))
         threading.Thread(target=_hangup_guard, args=(app, live), daemon=True,
                          name="pnbench-hangup").start()
         with contextlib.suppress(Exception):
@@ -62,10 +68,8 @@ def safe_exit_on_signals(app) -> dict:
 
 def _hangup_guard(app, live) -> None:
     if live is not None:
-        live.wait(HANGUP_RUN_WAIT_S)  # the runner's ramp-down, outputs off, files closed
-    report = getattr(app, "report_done", None)
-    if report is not None:
-        report.wait(HANGUP_REPORT_WAIT_S)  # a report being written is finished first
+        # the runner's ramp-down, outputs off, then its end work (report included)
+        live.wait(HANGUP_RUN_WAIT_S + HANGUP_REPORT_WAIT_S)
     deadline = time.monotonic() + HANGUP_EXIT_WAIT_S
     while time.monotonic() < deadline:
         if not app.is_running:
@@ -89,29 +93,17 @@ def exit_code(app, code: object = 0) -> int:
             return int(error.exit_code)
         if error is not None:
             return 1
-    if app.state.status in ("aborted", "safety_stop", "interrupted"):
-        return 4
-    if app.state.status == "failed":
-        return 3
-    return int(code or 0) if isinstance(code, int) else 0
+    if app.state.status in (RunStatus.ABORTED, RunStatus.SAFETY_STOP, RunStatus.INTERRUPTED,
+                            RunStatus.FAILED):
+        return int(exit_code_for(app.state.status))
+    return int(code or 0) if isinstance(code, int) else int(ExitCode.OK)
 
 
 def finish_end_work(app) -> None:
-    """After the app has ended: the report of its last sweep is finished (or written here,
-    when the app ended before it began), so the folder is complete before the process
-    ends. Called while the signal handlers are still in place."""
+    """After the app has ended: its last sweep's end work (final fit, model, card and the
+    report, which the engine writes before the status, `sweeps.ending`) is waited for, so
+    the folder is complete before the process ends. Called while the signal handlers are
+    still in place."""
     live = app.live
-    control = getattr(app, "control", None)
-    if live is None or live.run_dir is None or live.running:
-        return
-    if control is not None and not getattr(control, "report", True):
-        return
-    done = getattr(app, "report_done", None)
-    if done is not None and getattr(app, "report_dir", None) == Path(live.run_dir):
-        done.wait(HANGUP_REPORT_WAIT_S)
-        return
-    if getattr(live.launch, "outcome", None) is None:
-        return  # failed before the first point: nothing to report
-    from pnbench.tui.headless import finish_report
-
-    finish_report(live.run_dir)
+    if live is not None:
+        live.wait(HANGUP_REPORT_WAIT_S)

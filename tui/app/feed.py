@@ -1,15 +1,16 @@
 """Keeping the app's RunState fresh: the live sweep's queue drained on a UI timer, a
-watched folder polled, the banner and status words updated, and the report written on a
-worker when a sweep this app ran has ended. A mixin of the app class (it uses the app's
-`control`, `state`, `notify` and workers); no screen calls it."""
+watched folder polled, the banner and status words updated, and word of the report when a
+sweep this app ran has ended (the engine writes it in its end work, before the status).
+A mixin of the app class (it uses the app's `control`, `state`, `notify` and workers); no
+screen calls it."""
 
 from __future__ import annotations
 
 import math
-import threading
 from pathlib import Path
 
 from pnbench.errors import PnbenchError
+from pnbench.sweeps import record
 from pnbench.tui.app.folder import FolderTail, apply_batch
 from pnbench.tui.app.widgets.banner import banner_text
 from pnbench.tui.app.words import status_words
@@ -21,8 +22,8 @@ class RunFeed:
         if live is None:
             return
         was_active = self._was_active
-        for doc in live.drain():
-            self.state.apply_event(doc)
+        for event in live.drain():
+            self.state.apply_event(event)
         if live.run_dir is not None:
             self.last_run_dir = Path(live.run_dir)
         problem = live.failure()
@@ -34,41 +35,24 @@ class RunFeed:
             self.refresh_bindings()
             if live.run_dir is not None:
                 self._apply_model(FolderTail(live.run_dir))
-                self._write_report(Path(live.run_dir))
+                self._report_written(Path(live.run_dir))
             if self.state.finished:
                 self.notify(f"Run {status_words(self.state.status)}. F5 reviews it: refit, "
                             "card, report.", timeout=8)
         self._update_status()
 
-    def _write_report(self, run_dir: Path) -> None:
-        """The report of a finished sweep, on a worker (every run ends with one, as
-        headless runs do), unless --no-report said otherwise."""
+    def _report_written(self, run_dir: Path) -> None:
+        """Say where the sweep's report is (the engine wrote it in the run's end work, as
+        for headless runs), unless --no-report said otherwise."""
         if not self.control.report:
             return
-        done = self.report_done = threading.Event()  # the end work waits for it
-        self.report_dir = run_dir
+        path = record.report_path(run_dir)
+        if path.exists():
+            self.notify(f"report written: {path}", timeout=8)
+        else:
+            self.notify(f"the report could not be written (see the log); try "
+                        f"`pnbench report {run_dir}`", severity="error", timeout=12)
 
-        def work() -> None:
-            from pnbench.tui.report import write_report
-
-            try:
-                path = write_report(run_dir)
-            except Exception as exc:  # noqa: BLE001 - never lose a run over its report
-                self._tell(f"the report could not be written ({exc}); try "
-                           f"`pnbench report {run_dir}`", severity="error", timeout=12)
-                return
-            finally:
-                done.set()
-            self._tell(f"report written: {path}", timeout=8)
-
-        self.run_worker(work, thread=True, group="report")
-
-    def _tell(self, message: str, **options) -> None:
-        """A notice from a worker; nothing when the app has already ended."""
-        try:
-            self.call_from_thread(self.notify, message, **options)
-        except Exception:  # noqa: BLE001 - the app is gone (a signal ended it)
-            pass
 
     def poll_folder(self) -> None:
         if self.tail is None:

@@ -14,25 +14,24 @@ import threading
 from pathlib import Path
 
 
-def event_dict(event: object) -> dict:
-    """An event (sweeps.events.Event or a mapping) as a flat dict, as in events.jsonl."""
-    if isinstance(event, dict):
-        return dict(event)
-    if hasattr(event, "to_json_dict"):
-        return event.to_json_dict()
-    return dict(getattr(event, "__dict__", {}))
+def _write_report(run_dir: Path) -> Path:
+    """The engine's end-of-run report hook (the same report `pnbench run` writes)."""
+    from pnbench.tui.report import write_report
+
+    return write_report(run_dir)
 
 
 class LiveRun:
     """One run of a plan by this app. Construct, `start()`, then drain and control."""
 
-    def __init__(self, plan, *, out_dir: str | Path = "runs"):
+    def __init__(self, plan, *, out_dir: str | Path = "runs", report: bool = True):
         """``plan`` names its instruments, real or the simulated bench (as a backend)."""
         from pnbench.sweeps.launch import Launch
 
         self.plan = plan
         self.events: queue.SimpleQueue = queue.SimpleQueue()
-        self.launch = Launch.new(plan, out_dir=out_dir, listeners=[self.events.put])
+        self.launch = Launch.new(plan, out_dir=out_dir, listeners=[self.events.put],
+                                 write_report=_write_report if report else None)
         self._sim = None
         self._error_reported = False
         self._lock = threading.Lock()
@@ -60,8 +59,9 @@ class LiveRun:
     def resume(self) -> None:
         self.launch.resume()
 
-    def abort(self, reason: str = "aborted by the operator from the app") -> None:
-        self.launch.abort(reason)
+    def abort(self, reason: str = "aborted by the operator from the app",
+              status: str = "aborted") -> None:
+        self.launch.abort(reason, status)
 
     def wait(self, timeout_s: float | None = None) -> bool:
         return self.launch.wait(timeout_s)
@@ -74,11 +74,12 @@ class LiveRun:
         self.launch.wait(timeout_s)
 
     # -- reading (UI thread) ---------------------------------------------------------------
-    def drain(self, limit: int = 20000) -> list[dict]:
+    def drain(self, limit: int = 20000) -> list:
+        """The typed events (`sweeps.events`) that arrived since the last call."""
         out = []
         for _ in range(limit):
             try:
-                out.append(event_dict(self.events.get_nowait()))
+                out.append(self.events.get_nowait())
             except queue.Empty:
                 break
         return out

@@ -1,6 +1,7 @@
 """Reviewing a finished run folder: its points, which of them a refit uses, the refit.
 
-The folder is read with the engine's own readers (`sweeps.store`); the refit goes
+The folder is read with the run record (`sweeps.record`): points as columns, typed
+events, run.json and model.json; the refit goes
 through the same seam the runner uses (`sweeps.fitmodel.run_model` over
 `modeling.joint.fit_run`), with only the points the user kept. Blocking calls (reading,
 refitting) run on worker threads; everything here returns values.
@@ -8,7 +9,6 @@ refitting) run on worker threads; everything here returns values.
 
 from __future__ import annotations
 
-import dataclasses
 import json
 import math
 from dataclasses import dataclass, field
@@ -19,6 +19,8 @@ import numpy as np
 
 from pnbench.errors import DataFileError, PnbenchError
 from pnbench.modeling.modelset import card_name
+from pnbench.sweeps.events import Fit, PointTaken
+from pnbench.sweeps.record import PointColumns
 from pnbench.tui.app.state import Estimate, RunState
 
 
@@ -28,9 +30,9 @@ class Review:
 
     run_dir: Path
     run_doc: dict
-    points: list  # sweeps.store.Point, in the order taken
+    columns: PointColumns  # every point, in the order taken
     used: np.ndarray  # bool per point
-    events: list[dict] = field(default_factory=list)
+    events: list = field(default_factory=list)  # typed events (sweeps.events)
     model_doc: dict | None = None  # model.json as the run wrote it
     refit_doc: dict | None = None  # model.json document of the last refit
     refit_model: object | None = None  # its ModelSet
@@ -44,6 +46,11 @@ class Review:
         value = (self.run_doc.get("device") or {}).get("temperature_K")
         return float(value) if isinstance(value, (int, float)) and value > 0 else 300.15
 
+    @property
+    def points(self) -> _Rows:
+        """The points as row objects, made when asked (tables show a page at a time)."""
+        return _Rows(self.columns)
+
     def step_kinds(self) -> dict[str, str]:
         return {str(s.get("name")): str(s.get("kind", "")) for s in
                 self.run_doc.get("steps") or [] if s.get("name")}
@@ -51,25 +58,41 @@ class Review:
 
 def load_review(run_dir: str | Path) -> Review:
     """Read a run folder (raises DataFileError naming what is missing)."""
-    from pnbench.sweeps import store
+    from pnbench.sweeps import record
 
     run_dir = Path(run_dir).expanduser()
     if not run_dir.is_dir():
         raise DataFileError(f"{run_dir}: no such folder; give a run folder (named like "
                             "20250101-120000_device under the runs folder)")
-    run_doc = store.read_run(run_dir)
-    points = store.read_points(run_dir)
-    events = [e.to_json_dict() for e in store.read_events(run_dir)]
-    model_doc = None
-    model_path = run_dir / "model.json"
-    if model_path.exists():
-        try:
-            model_doc = json.loads(model_path.read_text(encoding="utf-8"))
-        except (OSError, ValueError) as exc:
-            raise DataFileError(f"{model_path}: cannot read it ({exc})") from None
+    run_doc = record.read_run(run_dir).doc
+    columns = record.read_columns(run_dir)
+    events = record.read_events(run_dir)
+    model_doc = record.read_model_doc(run_dir)
     # every point starts in use: the fitters treat compliance points themselves
-    used = np.ones(len(points), dtype=bool)
-    return Review(run_dir, run_doc, points, used, events, model_doc)
+    used = np.ones(len(columns), dtype=bool)
+    return Review(run_dir, run_doc, columns, used, events, model_doc)
+
+
+class _Rows:
+    """Row objects of columns, by index (a sequence made lazily)."""
+
+    def __init__(self, columns: PointColumns) -> None:
+        self._columns = columns
+
+    def __len__(self) -> int:
+        return len(self._columns)
+
+    def __getitem__(self, n: int):
+        if isinstance(n, slice):
+            return [self._columns.row(k) for k in range(*n.indices(len(self)))]
+        if n < 0:
+            n += len(self)
+        if not 0 <= n < len(self):
+            raise IndexError(n)
+        return self._columns.row(n)
+
+    def __iter__(self):
+        return self._columns.rows()
 
 
 def estimates(model_doc: dict | None) -> dict[str, Estimate]:
@@ -91,12 +114,9 @@ def review_state(review: Review, only_used: bool = False) -> RunState:
     """A RunState of the review for the plots and tables (refit estimates if any)."""
     state = RunState()
     state.apply_run_json(review.run_doc)
-    for point, used in zip(review.points, review.used, strict=True):
-        if only_used and not used:
-            continue
-        state.add_point(dataclasses.asdict(point))
+    state.add_points(review.columns.select(review.used) if only_used else review.columns)
     for event in review.events:
-        if event.get("kind") not in ("fit", "point"):
+        if not isinstance(event, (Fit, PointTaken)):
             state.apply_event(event)
     state.apply_run_json(review.run_doc)
     state.parameters = estimates(review.refit_doc or review.model_doc)
@@ -108,9 +128,7 @@ def toggle(review: Review, index: int) -> None:
 
 
 def set_step(review: Review, step: str, used: bool) -> None:
-    for n, point in enumerate(review.points):
-        if point.step == step:
-            review.used[n] = used
+    review.used[review.columns.step_mask(step)] = used
 
 
 def refit(review: Review):
@@ -118,7 +136,7 @@ def refit(review: Review):
     raises DataFileError when no point is left). Blocking: call on a worker thread."""
     from pnbench.sweeps.fitmodel import run_model
 
-    chosen = [p for p, used in zip(review.points, review.used, strict=True) if used]
+    chosen = list(review.columns.select(review.used).rows())
     if not chosen:
         raise DataFileError(f"{review.run_dir}: no point is in use; keep some points "
                             "(space toggles one, t a step, a all) before refitting")

@@ -16,19 +16,25 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from pnbench.sweeps.events import (
+    Event,
+    Fit,
+    Output,
+    Paused,
+    PointTaken,
+    Resumed,
+    RunFinished,
+    RunStarted,
+    StepStarted,
+)
+from pnbench.sweeps.progress import ProgressModel, StepProgress, format_duration
+from pnbench.sweeps.record import PointColumns
+from pnbench.sweeps.statuses import RUN_FINAL, RunStatus
 from pnbench.tui.app.columns import Columns, FrozenColumns, Snapshot, to_number
-from pnbench.tui.app.events import LOG_TAGS, LogEntry, describe, format_duration
+from pnbench.tui.app.events import LOG_TAGS, LogEntry, as_event, describe
 
-__all__ = ["ENDED_COMPLETE", "FINAL_STATUSES", "Estimate", "LogEntry", "RunState",
-           "Snapshot", "StepProgress", "describe", "format_duration"]
-
-#: Step statuses of a step that has ended with nothing left to do (it may have ended
-#: early: a limit reached, its parameters settled); an aborted step is not among them.
-ENDED_COMPLETE = ("done", "completed", "finished", "limit", "settled", "ended_early",
-                  "skipped")
-
-#: Run statuses after which nothing more will happen.
-FINAL_STATUSES = ("completed", "aborted", "safety_stop", "failed", "interrupted")
+__all__ = ["Estimate", "LogEntry", "RunState", "Snapshot", "StepProgress", "describe",
+           "format_duration"]
 
 
 @dataclass
@@ -38,29 +44,6 @@ class Estimate:
     value: float
     sigma: float | None
     settled: bool
-
-
-@dataclass
-class StepProgress:
-    """Progress of one plan step; `planned` may be unknown (0) until run.json says."""
-
-    name: str
-    kind: str = ""
-    planned: int = 0
-    done: int = 0
-    status: str = "pending"
-    first_time_s: float = math.nan
-    last_time_s: float = math.nan
-
-    def seconds_per_point(self) -> float:
-        if self.done < 2 or not math.isfinite(self.first_time_s):
-            return math.nan
-        return (self.last_time_s - self.first_time_s) / (self.done - 1)
-
-    def remaining_points(self) -> int:
-        if self.status not in ("pending", "running", "paused"):
-            return 0  # done, ended by a limit or by settling, aborted, skipped
-        return max(self.planned - self.done, 0)
 
 
 @dataclass
@@ -76,7 +59,8 @@ class RunState:
     #: log entries ever added (the deque keeps only the newest)
     log_total: int = 0
     counts: dict[str, int] = field(default_factory=dict)
-    steps: dict[str, StepProgress] = field(default_factory=dict)
+    #: done/planned per step and the ETA: the model headless and watch use too
+    progress: ProgressModel = field(default_factory=ProgressModel)
     status: str = "idle"
     reason: str = ""
     outputs: dict[str, bool] = field(default_factory=dict)
@@ -89,7 +73,6 @@ class RunState:
     instruments: dict = field(default_factory=dict)
     temperature_K: float = 300.15
     last_time_s: float = 0.0
-    current_step: str | None = None
     #: increases at every change, so a screen redraws only when something changed
     version: int = 0
     _wall_at_last_time: float = field(default=math.nan, repr=False)
@@ -109,63 +92,71 @@ class RunState:
         if not kind:
             kind = "cv" if math.isfinite(values["capacitance_F"]) else "iv"
         (self.cv if kind == "cv" else self.iv).append(values, step)
-        progress = self._step(step) if step else None
-        if progress is not None:
-            progress.done += 1
-            t = values["time_s"]
-            if math.isfinite(t):
-                if not math.isfinite(progress.first_time_s):
-                    progress.first_time_s = t
-                progress.last_time_s = t
-            if progress.status == "pending":
-                progress.status = "running"
+        if step:
+            self.progress.add_points(step, [values["time_s"]])
         self._note_time(values["time_s"])
         self.version += 1
 
-    def apply_event(self, event: dict) -> None:
-        """One event of the stream (a dict as in events.jsonl)."""
-        kind = str(event.get("kind", ""))
-        step = event.get("step")
-        t = to_number(event.get("time_s"))
-        if kind == "point":
-            self.add_point(event)
+    def apply_event(self, event: Event | dict) -> None:
+        """One event of the stream (typed, or a dict as in events.jsonl)."""
+        event = as_event(event)
+        if isinstance(event, PointTaken):
+            self.add_point(_point_row(event))
             return
+        step = event.step
+        t = to_number(event.time_s)
         self._note_time(t)
-        self.counts[kind] = self.counts.get(kind, 0) + 1
-        if kind == "fit":
-            for name, entry in (event.get("parameters") or {}).items():
-                if isinstance(entry, dict):
-                    sigma = entry.get("sigma")
-                    self.parameters[name] = Estimate(
-                        to_number(entry.get("value")),
-                        None if sigma is None else to_number(sigma),
-                        bool(entry.get("settled", False)))
-        elif kind == "step_started" and step:
-            progress = self._step(step)
-            progress.status = "running"
-            progress.kind = str(event.get("step_kind", event.get("sweep", progress.kind)))
-            planned = event.get("planned")
-            if isinstance(planned, (int, float)) and planned > 0:
-                progress.planned = int(planned)
-            self.current_step = step
-        elif kind == "step_finished" and step:
-            progress = self._step(step)
-            progress.status = str(event.get("status", "completed"))
-        elif kind == "paused":
-            self.status = "paused"
-        elif kind == "resumed":
-            self.status = "running"
-        elif kind == "run_started":
-            self.status = "running"
-        elif kind == "run_finished":
-            self.status = str(event.get("status", "completed"))
-            self.reason = str(event.get("reason", self.reason) or "")
-            self.outputs_off_confirmed = bool(event.get("outputs_off_confirmed", False))
-            self.connected = event.get("connected") is not False
-        elif kind == "output":
-            self.outputs[str(event.get("role", "source"))] = bool(event.get("on"))
-        if kind in LOG_TAGS:
-            self.add_log(LogEntry(t, LOG_TAGS[kind], step, describe(event)))
+        self.counts[event.kind] = self.counts.get(event.kind, 0) + 1
+        self.progress.apply(event)
+        match event:
+            case Fit():
+                for name, entry in (event.parameters or {}).items():
+                    if isinstance(entry, dict):
+                        sigma = entry.get("sigma")
+                        self.parameters[name] = Estimate(
+                            to_number(entry.get("value")),
+                            None if sigma is None else to_number(sigma),
+                            bool(entry.get("settled", False)))
+            case StepStarted() if step and not event.step_kind:
+                progress = self._step(step)
+                progress.kind = str(event.extra.get("sweep") or progress.kind)
+            case Paused():
+                self.status = RunStatus.PAUSED
+            case Resumed() | RunStarted():
+                self.status = RunStatus.RUNNING
+            case RunFinished():
+                self.status = str(event.status or RunStatus.COMPLETED)
+                self.reason = str(event.reason or self.reason or "")
+                self.outputs_off_confirmed = bool(event.outputs_off_confirmed)
+                self.connected = event.connected is not False
+            case Output():
+                self.outputs[str(event.role or "source")] = bool(event.on)
+        if event.kind in LOG_TAGS:
+            self.add_log(LogEntry(t, LOG_TAGS[event.kind], step, describe(event)))
+        self.version += 1
+
+    def add_points(self, points: PointColumns) -> None:
+        """Many points at once (a run folder read or followed): columns, not rows."""
+        n = len(points)
+        if not n:
+            return
+        steps = points.steps()
+        for kind, target in (("cv", self.cv), ("iv", self.iv)):
+            mask = points.kind_mask(kind)
+            if mask.any():
+                chosen = points.select(mask)
+                values = {name: getattr(chosen, name) for name in target.names
+                          if name != "compliance"}
+                if "compliance" in target.names:
+                    values["compliance"] = chosen.compliance.astype(float)
+                target.extend(values, steps[mask])
+        for name in points.step_names:
+            mine = points.step_mask(name)
+            if mine.any():
+                self.progress.add_points(name, points.time_s[mine])
+        times = points.time_s[np.isfinite(points.time_s)]
+        if times.size:
+            self._note_time(float(times.max()))
         self.version += 1
 
     def apply_run_json(self, doc: dict) -> None:
@@ -182,31 +173,16 @@ class RunState:
         temperature = to_number(self.device.get("temperature_K"))
         if math.isfinite(temperature) and temperature > 0:
             self.temperature_K = temperature
-        for entry in doc.get("steps") or []:
-            name = str(entry.get("name", ""))
-            if not name:
-                continue
-            progress = self._step(name)
-            progress.kind = str(entry.get("kind", progress.kind))
-            planned = entry.get("planned")
-            if isinstance(planned, (int, float)) and planned > 0:
-                progress.planned = int(planned)
-            # "done" is not taken from here: every point is counted from points.csv
-            # or the point events, and run.json may lag behind or run ahead of them
-            progress.status = str(entry.get("status", progress.status))
-            if progress.status == "running":
-                self.current_step = name
-        if self.status in FINAL_STATUSES and self.outputs_off_confirmed:
+        self.progress.apply_run_doc(doc)
+        if self.status in RUN_FINAL and self.outputs_off_confirmed:
             self.outputs = {role: False for role in self.outputs}
         self.version += 1
 
-    def set_plan_steps(self, steps: list[tuple[str, str, int]]) -> None:
-        """Steps known before the run starts: (name, kind, planned points)."""
-        for name, kind, planned in steps:
-            progress = self._step(name)
-            progress.kind = kind or progress.kind
-            if planned > 0:
-                progress.planned = planned
+    def set_plan_steps(self, steps: list[tuple[str, str, int]],
+                       seconds_per_point: dict[str, float] | None = None) -> None:
+        """Steps known before the run starts: (name, kind, planned points), and the
+        plan's estimate of seconds per point (for the ETA before points come)."""
+        self.progress.set_plan(steps, seconds_per_point)
         self.version += 1
 
     def apply_model_json(self, doc: dict) -> None:
@@ -253,7 +229,7 @@ class RunState:
 
     @property
     def finished(self) -> bool:
-        return self.status in FINAL_STATUSES
+        return self.status in RUN_FINAL
 
     def step_kind(self, name: str) -> str:
         progress = self.steps.get(name)
@@ -265,46 +241,27 @@ class RunState:
                         {name: p.kind for name, p in self.steps.items()},
                         self.temperature_K, self.version)
 
-    def eta_s(self) -> tuple[float, float]:
-        """Seconds left in the current step and in the whole run (NaN when unknown).
+    @property
+    def steps(self) -> dict[str, StepProgress]:
+        return self.progress.steps
 
-        Per step, the seconds per point measured in that step; steps not yet started
-        borrow the mean rate of finished steps of the same I-V or C-V family, else the
-        overall rate."""
+    @property
+    def current_step(self) -> str | None:
+        return self.progress.current
+
+    @current_step.setter
+    def current_step(self, name: str | None) -> None:
+        self.progress.current = name
+
+    def eta_s(self) -> tuple[float, float]:
+        """Seconds left in the current step and in the whole run (NaN when unknown):
+        the shared progress model's (`sweeps.progress`)."""
         if self.finished:
             return 0.0, 0.0
-        rates: dict[str, list[float]] = {}
-        for progress in self.steps.values():
-            rate = progress.seconds_per_point()
-            if math.isfinite(rate):
-                rates.setdefault(_family(progress.kind), []).append(rate)
-        every = [r for values in rates.values() for r in values]
-        overall = float(np.mean(every)) if every else math.nan
-        step_left = math.nan
-        total = 0.0
-        for progress in self.steps.values():
-            left = progress.remaining_points()
-            if left == 0:
-                continue
-            rate = progress.seconds_per_point()
-            if not math.isfinite(rate):
-                family = rates.get(_family(progress.kind))
-                rate = float(np.mean(family)) if family else overall
-            seconds = left * rate
-            total += seconds
-            if progress.name == self.current_step:
-                step_left = seconds
-        if not math.isfinite(total):
-            return step_left, math.nan
-        return step_left, total
+        return self.progress.eta_s()
 
     def progress_fraction(self) -> float:
-        planned = sum(p.planned for p in self.steps.values())
-        if planned <= 0:
-            return math.nan
-        done = sum(p.planned if p.status in ENDED_COMPLETE else min(p.done, p.planned)
-                   for p in self.steps.values())
-        return min(done / planned, 1.0)
+        return self.progress.fraction()
 
     def elapsed_s(self) -> float:
         """Run time now: the last event time plus wall time since it, while running."""
@@ -314,10 +271,7 @@ class RunState:
 
     # ----------------------------------------------------------------- helpers
     def _step(self, name: str) -> StepProgress:
-        progress = self.steps.get(name)
-        if progress is None:
-            progress = self.steps[name] = StepProgress(name)
-        return progress
+        return self.progress.step(name)
 
     def _note_time(self, t: float) -> None:
         if math.isfinite(t) and t >= self.last_time_s:
@@ -325,8 +279,8 @@ class RunState:
             self._wall_at_last_time = time.monotonic()
 
 
-def _family(kind: str) -> str:
-    kind = kind.lower()
-    return "cv" if ("cv" in kind or "c-v" in kind or "adm" in kind) else "iv"
-
-
+def _point_row(event: PointTaken) -> dict:
+    return {"step": event.step, "kind": event.point_kind, "time_s": event.time_s,
+            "voltage_V": event.voltage_V, "current_A": event.current_A,
+            "frequency_Hz": event.frequency_Hz, "capacitance_F": event.capacitance_F,
+            "conductance_S": event.conductance_S, "compliance": event.compliance}

@@ -117,13 +117,13 @@ def run(args) -> int:
 def _run_breakdown_current(source: str, notes: list[str]) -> float | None:
     """For a run folder, the current its plan states BV at (the breakdown guard), so a
     refit agrees with the run's own model.json; None elsewhere (the fitter's 1 mA)."""
-    from pathlib import Path
 
     from pnbench.errors import PlanError
     from pnbench.sweeps.fitmodel import breakdown_current_A
     from pnbench.sweeps.plan import load_plan
+    from pnbench.sweeps.record import plan_path as run_plan_path
 
-    plan_path = Path(source) / "plan.toml"
+    plan_path = run_plan_path(source)
     if not plan_path.is_file():
         return None
     try:

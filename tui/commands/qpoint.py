@@ -50,10 +50,12 @@ def load_model(path_text: str):
 
     path = Path(path_text)
     if path.is_dir():
-        if not (path / "model.json").is_file():
+        from pnbench.sweeps import record
+
+        if not record.has(path, record.layout.MODEL):
             raise DataFileError(f"{path}: a folder without model.json; give a model.json, "
                                 f"a model-card file, or a run folder that has a fitted model")
-        path = path / "model.json"
+        path = Path(record.model_source(path))
     if not path.is_file():
         raise DataFileError(f"{path}: no such file or folder; give a model.json, a "
                             f"model-card file or a run folder")

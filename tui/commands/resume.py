@@ -7,7 +7,8 @@ import sys
 
 from pnbench.tui.commands.run import add_bench_options, check_bench_options, on_bench
 
-HELP = "continue an interrupted run at its next point (same instruments, same plan)"
+HELP = ("continue an interrupted run at its next point (same instruments, same plan), or "
+        "finish its end work (model, card, report) when every point was measured")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -27,11 +28,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     from pnbench.drivers.sim.backend import parse
     from pnbench.sweeps.launch import Launch, plan_of_run, simulated_backend
-    from pnbench.sweeps.store import read_run
+    from pnbench.sweeps.record import read_run
+    from pnbench.sweeps.statuses import RunStatus
     from pnbench.tui.headless import run_headless
 
-    run_doc = read_run(args.run_dir)
-    if run_doc.get("status") == "completed":
+    run_doc = read_run(args.run_dir)  # a folder where nothing was measured says so
+    if run_doc.status == RunStatus.COMPLETED:
         print(f"{args.run_dir}: the run is already completed; nothing to resume")
         return 0
     recorded = simulated_backend(run_doc)

@@ -10,13 +10,8 @@ report of what exists, saying what is missing; a damaged folder raises DataFileE
 from __future__ import annotations
 
 import datetime as _dt
-import os
-import threading
 from dataclasses import dataclass
 from pathlib import Path
-
-REPORT_NAME = "report.html"
-FIGURES_DIR = "figures"
 
 
 @dataclass(frozen=True)
@@ -35,6 +30,7 @@ def build_report(run_dir: Path | str) -> Report:
     that is not JSON, garbage rows in points.csv, or none of the run files at all.
     """
     from pnbench import version
+    from pnbench.sweeps import record
     from pnbench.tui.report import analysis as report_analysis
     from pnbench.tui.report import data as report_data
     from pnbench.tui.report import figures as report_figures
@@ -43,14 +39,12 @@ def build_report(run_dir: Path | str) -> Report:
     run_dir = Path(run_dir)
     data = report_data.load_run(run_dir)
     analysis = report_analysis.analyze(data)
-    figures = report_figures.render_all(analysis, data.device_name, run_dir / FIGURES_DIR)
+    figures = report_figures.render_all(analysis, data.device_name, record.figures_dir(run_dir))
     made_at = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
     missing = report_analysis.missing_items(data, analysis)
     page = report_html.render(data, analysis, figures, missing, version(), made_at)
-    path = run_dir / REPORT_NAME
-    tmp = path.with_name(f".{REPORT_NAME}.{os.getpid()}.{threading.get_ident()}.tmp")
-    tmp.write_text(page, encoding="utf-8")
-    tmp.replace(path)
+    path = record.report_path(run_dir)
+    record.atomic_write(path, page)
     files = tuple(p for f in figures for p in (f.png_path, f.svg_path))
     return Report(path=path, figures=files, missing=tuple(missing))
 

@@ -16,6 +16,9 @@ from pnbench.errors import DataFileError
 from pnbench.modeling import smallsignal
 from pnbench.modeling.modelset import ModelSet
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
+from pnbench.sweeps.events import Limit
+from pnbench.sweeps.record import model_source
+from pnbench.sweeps.record.layout import MODEL as MODEL_FILE
 from pnbench.tui.report.data import Points, RunData
 
 #: A C-V curve needs this many biases at one frequency; a spectrum this many frequencies.
@@ -180,7 +183,7 @@ def read_correlations(model: ModelSet) -> list[tuple[str, tuple[str, ...], np.nd
 def model_from_json(data: RunData) -> ModelSet | None:
     if data.model_json is None:
         return None
-    model = ModelSet.from_json_dict(data.model_json, source=str(data.run_dir / "model.json"))
+    model = ModelSet.from_json_dict(data.model_json, source=model_source(data.run_dir))
     try:
         model.to_params()
     except ValueError as exc:  # from_json_dict checks this too; keep the message clear
@@ -198,7 +201,7 @@ def analyze(data: RunData) -> Analysis:
     out.model = model_from_json(data)
     if out.model is not None:
         out.params = out.model.to_params()
-        out.model_source = "model.json"
+        out.model_source = MODEL_FILE
         out.correlations = read_correlations(out.model)
         out.fits = fit_records(out.model.extras)
         if not out.correlations and len(out.model.values) > 1:
@@ -239,9 +242,10 @@ def _breakdown(out: Analysis, data: RunData) -> None:
         out.breakdown_V, out.breakdown_label = -bv, f"BV = {bv:.4g} V (model)"
         return
     for event in data.events:
-        text = f"{event.get('guard', '')} {event.get('message', '')}"
-        if event.get("kind") == "limit" and "breakdown" in text:
-            in_step = np.array([s == event.get("step") for s in rev.step])
+        if not isinstance(event, Limit):
+            continue
+        if "breakdown" in f"{event.guard or ''} {event.message or ''}":
+            in_step = np.asarray(rev.step == event.step, dtype=bool)
             volts = rev.voltage_V[in_step] if in_step.any() else rev.voltage_V
             out.breakdown_V = float(np.min(volts))
             out.breakdown_label = f"breakdown guard tripped at {out.breakdown_V:.4g} V"

@@ -1,17 +1,17 @@
 """Read a run folder for the report: what exists, what is missing, what is damaged.
 
-The files are read through the run store's readers (`pnbench.sweeps.store`), so the
-report understands exactly what the runner writes. A run killed at any instant may
-leave a half-written last line in ``points.csv`` or ``events.jsonl``: the readers leave
-it out and the report says so. What cannot be read (``run.json`` or ``model.json``
-that is not JSON, garbage rows in ``points.csv``, a folder with none of the run files)
-is a damaged folder: ``DataFileError`` naming the file, which the command line turns
-into exit 2.
+The files are read through the run record (`pnbench.sweeps.record`), so the report
+understands exactly what the runner writes, and reads the points by column (a
+million points cost about a second and their columns' memory). A run killed at any
+instant may leave a half-written last line in ``points.csv`` or ``events.jsonl``: the
+record leaves it out and the report says so. What cannot be read (``run.json`` or
+``model.json`` that is not JSON, a malformed line, a folder with none of the run files)
+is a damaged folder: ``DataFileError`` naming the file and line, which the command
+line turns into exit 2.
 """
 
 from __future__ import annotations
 
-import json
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,7 +19,8 @@ from pathlib import Path
 import numpy as np
 
 from pnbench.errors import DataFileError
-from pnbench.sweeps import store
+from pnbench.sweeps import record
+from pnbench.sweeps.events import Event
 
 #: Point kinds the report draws.
 KINDS = ("iv", "cv")
@@ -29,7 +30,7 @@ KINDS = ("iv", "cv")
 class Points:
     """Points of one kind as arrays (SI units; NaN where a cell does not apply)."""
 
-    step: tuple[str, ...]
+    step: np.ndarray  # the step name of each point (object array)
     voltage_V: np.ndarray
     current_A: np.ndarray
     frequency_Hz: np.ndarray
@@ -45,7 +46,7 @@ class Points:
         if not mask.any():
             return None
         return Points(
-            step=tuple(s for s, m in zip(self.step, mask, strict=True) if m),
+            step=self.step[mask],
             voltage_V=self.voltage_V[mask], current_A=self.current_A[mask],
             frequency_Hz=self.frequency_Hz[mask], capacitance_F=self.capacitance_F[mask],
             conductance_S=self.conductance_S[mask], compliance=self.compliance[mask],
@@ -61,7 +62,7 @@ class RunData:
     iv: Points | None = None
     cv: Points | None = None
     metadata: dict[str, str] = field(default_factory=dict)
-    events: list[dict] = field(default_factory=list)
+    events: list[Event] = field(default_factory=list)
     model_json: dict | None = None
     plan_text: str | None = None
     card_text: str | None = None
@@ -106,82 +107,47 @@ class RunData:
         return text.strip() or None
 
 
-def _read_text(path: Path) -> str:
-    try:
-        return path.read_text(encoding="utf-8")
-    except UnicodeDecodeError as exc:
-        raise DataFileError(f"{path}: not UTF-8 text (byte {exc.start}); the file is "
-                            "damaged") from None
-    except OSError as exc:
-        raise DataFileError(f"{path}: cannot be read ({exc.strerror})") from None
-
-
-def _read_json_object(path: Path) -> dict:
-    text = _read_text(path)
-    try:
-        doc = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise DataFileError(
-            f"{path}: not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg}); "
-            "the file is damaged (expected one JSON object as the run writes it)"
-        ) from None
-    if not isinstance(doc, dict):
-        raise DataFileError(f"{path}: expected a JSON object, found {type(doc).__name__}")
-    return doc
-
-
-def _torn(path: Path) -> bool:
-    """True when the file's last line has no newline (a write cut short)."""
-    with open(path, "rb") as f:
-        size = f.seek(0, 2)
-        if size == 0:
-            return False
-        f.seek(size - 1)
-        return f.read(1) != b"\n"
-
-
-def _arrays(points: list[store.Point], kind: str) -> Points | None:
-    chosen = [p for p in points if p.kind == kind]
-    if not chosen:
+def _arrays(points: record.PointColumns, kind: str) -> Points | None:
+    mask = points.kind_mask(kind)
+    if not mask.any():
         return None
-
-    def col(name: str) -> np.ndarray:
-        return np.array([math.nan if getattr(p, name) is None else getattr(p, name)
-                         for p in chosen], dtype=float)
-
-    return Points(step=tuple(p.step for p in chosen), voltage_V=col("voltage_V"),
-                  current_A=col("current_A"), frequency_Hz=col("frequency_Hz"),
-                  capacitance_F=col("capacitance_F"), conductance_S=col("conductance_S"),
-                  compliance=np.array([p.compliance for p in chosen], dtype=bool))
+    chosen = points.select(mask)
+    return Points(step=chosen.steps(), voltage_V=chosen.voltage_V,
+                  current_A=chosen.current_A, frequency_Hz=chosen.frequency_Hz,
+                  capacitance_F=chosen.capacitance_F, conductance_S=chosen.conductance_S,
+                  compliance=chosen.compliance)
 
 
 def _load_points(data: RunData) -> None:
-    path = data.run_dir / "points.csv"
-    _read_text(path)  # a clear message for binary garbage
-    data.metadata = store.read_metadata(data.run_dir)
-    points = store.read_points(data.run_dir)
-    if _torn(path):
+    points = record.read_columns(data.run_dir)
+    data.metadata = dict(points.metadata)
+    if points.torn:
         data.missing.append("points.csv: the last line was cut short (the run was stopped "
                             "while writing it) and is left out")
     data.iv, data.cv = _arrays(points, "iv"), _arrays(points, "cv")
-    others = sorted({p.kind for p in points} - set(KINDS))
+    others = sorted(set(points.kind_names) - set(KINDS))
     if others:
         data.missing.append(f"points.csv: points of kind {', '.join(others)} are not drawn "
                             f"(the report knows {', '.join(KINDS)})")
-    if not points:
+    if not len(points):
         data.missing.append("points.csv holds no points yet")
 
 
 def _load_events(data: RunData) -> None:
-    path = data.run_dir / "events.jsonl"
-    lines = [ln for ln in _read_text(path).split("\n")[:-1] if ln.strip()]
-    data.events = [e.to_json_dict() for e in store.read_events(data.run_dir)]
-    if _torn(path):
+    log = record.read_event_log(data.run_dir)
+    data.events = log.events
+    if log.torn:
         data.missing.append("events.jsonl: the last line was cut short and is left out")
-    unread = len(lines) - len(data.events)
-    if unread > 0:
-        data.missing.append(f"events.jsonl: {unread} line(s) could not be read as events "
-                            "and are left out")
+
+
+def _run_doc(info: record.RunInfo) -> dict:
+    """run.json as the report shows it: while the end work runs (the report is part of
+    it), the status the run is ending with."""
+    doc = dict(info.doc)
+    if info.finishing:
+        doc["status"] = str(info.end_status)
+        doc["reason"] = str(info.finishing.get("reason") or doc.get("reason") or "")
+    return doc
 
 
 def load_run(run_dir: Path | str) -> RunData:
@@ -191,37 +157,31 @@ def load_run(run_dir: Path | str) -> RunData:
         raise DataFileError(f"{run_dir}: not a run folder (no such directory); give the "
                             "folder of a pnbench run, named like 20260101-120000_device")
     data = RunData(run_dir=run_dir)
-    present = {name: (run_dir / name).is_file()
-               for name in ("run.json", "points.csv", "events.jsonl", "model.json",
-                            "plan.toml")}
-    if not (present["run.json"] or present["points.csv"]):
+    present = record.present(run_dir)
+    if not (present["run"] or present["points"]):
         raise DataFileError(
             f"{run_dir}: neither run.json nor points.csv is there, so there is nothing to "
             "report; a run folder holds run.json, points.csv, events.jsonl and model.json "
             "as the run writes them"
         )
-    if present["run.json"]:
-        _read_json_object(run_dir / "run.json")  # line and column of a JSON fault
-        data.run = store.read_run(run_dir)
+    if present["run"]:
+        data.run = _run_doc(record.read_run(run_dir))
     else:
         data.missing.append("run.json is missing: status, instruments, limits and steps "
                             "are unknown")
-    if present["points.csv"]:
+    if present["points"]:
         _load_points(data)
     else:
         data.missing.append("points.csv is missing: there are no measured points")
-    if present["events.jsonl"]:
+    if present["events"]:
         _load_events(data)
     else:
         data.missing.append("events.jsonl is missing: no warnings or events to show")
-    if present["model.json"]:
-        data.model_json = _read_json_object(run_dir / "model.json")
-    if present["plan.toml"]:
-        data.plan_text = _read_text(run_dir / "plan.toml")
-    else:
+    data.model_json = record.read_model_doc(run_dir)
+    data.plan_text = record.read_plan(run_dir)
+    if data.plan_text is None:
         data.missing.append("plan.toml is missing: the plan as run is unknown")
-    cards = sorted(run_dir.glob("*.lib"))
-    if cards:
-        data.card_name = cards[0].name
-        data.card_text = _read_text(cards[0])
+    card = record.read_card(run_dir)
+    if card is not None:
+        data.card_name, data.card_text = card
     return data

@@ -10,6 +10,7 @@ from __future__ import annotations
 import base64
 import json
 
+from pnbench.sweeps.events import Compliance, ErrorEvent, Event, Fit, Limit, WarningEvent
 from pnbench.tui.report import arrhenius
 from pnbench.tui.report.analysis import Analysis
 from pnbench.tui.report.data import RunData
@@ -63,7 +64,8 @@ _TITLES = {"iv_forward": "Forward I\u2013V", "iv_reverse": "Reverse I\u2013V",
            "cv": "C\u2013V", "mott_schottky": "Mott\u2013Schottky (1/C\u00b2)",
            "doping_profile": "Doping profile N(W)", "admittance": "Admittance",
            arrhenius.NAME: arrhenius.TITLE}
-_NOTICE_KINDS = ("warning", "compliance", "limit", "error")
+_NOTICES = (WarningEvent, Compliance, Limit, ErrorEvent)
+_BAD = (ErrorEvent, Limit)
 _EVENT_ROWS = 400
 _DETAIL_CHARS = 400  # an event's detail column is cut after this many characters
 
@@ -170,8 +172,8 @@ def _plain(value: object) -> str:
     return value if isinstance(value, str) else json.dumps(value)
 
 
-def _event_detail(event: dict) -> str:
-    rest = {k: v for k, v in event.items() if k not in ("seq", "time_s", "kind", "step")}
+def _event_detail(event: Event) -> str:
+    rest = event.payload()
     message = rest.pop("message", None)
     text = "; ".join(f"{k} = {_plain(v)}" for k, v in rest.items())
     detail = " \u2014 ".join(x for x in (message and str(message), text) if x)
@@ -181,31 +183,29 @@ def _event_detail(event: dict) -> str:
 def _events(data: RunData) -> str:
     events = data.events
     parts = ['<h2 id="events">Warnings and events</h2>']
-    notices = [e for e in events if e.get("kind") in _NOTICE_KINDS]
+    notices = [e for e in events if isinstance(e, _NOTICES)]
     if notices:
-        lis = "".join(f"<li><strong>{esc(e.get('kind'))}</strong>"
-                      f"{esc(' in ' + str(e['step']) if e.get('step') else '')}: "
+        lis = "".join(f"<li><strong>{esc(e.kind)}</strong>"
+                      f"{esc(' in ' + str(e.step) if e.step else '')}: "
                       f"{esc(_event_detail(e))}</li>" for e in notices)
         parts.append(f'<div class="box"><strong>{len(notices)} warning(s), compliance or '
                      f"limit event(s) and error(s)</strong><ul>{lis}</ul></div>")
     else:
         parts.append("<p>No warnings, compliance, limit or error events.</p>")
-    fits = sum(1 for e in events if e.get("kind") == "fit")
-    shown = [e for e in events if e.get("kind") != "fit"]
+    fits = sum(1 for e in events if isinstance(e, Fit))
+    shown = [e for e in events if not isinstance(e, Fit)]
     if fits:
         parts.append(f"<p>{fits} fit updates are in events.jsonl and not listed here.</p>")
     if len(shown) > _EVENT_ROWS:
         parts.append(f"<p>The first {_EVENT_ROWS} of {len(shown)} events are listed.</p>")
     rows, classes = [], []
     for e in shown[:_EVENT_ROWS]:
-        t = e.get("time_s")
-        rows.append([num(esc(e.get("seq", ""))),
+        t = e.time_s
+        rows.append([num(esc(e.seq)),
                      num(esc(f"{t:.3f} s" if isinstance(t, (int, float)) else "")),
-                     esc(e.get("kind", "")), esc(e.get("step") or ""),
-                     esc(_event_detail(e))])
-        kind = e.get("kind")
-        classes.append("bad" if kind in ("error", "limit") else
-                       "warn" if kind in _NOTICE_KINDS else "")
+                     esc(e.kind), esc(e.step or ""), esc(_event_detail(e))])
+        classes.append("bad" if isinstance(e, _BAD) else
+                       "warn" if isinstance(e, _NOTICES) else "")
     if rows:
         parts.append(table(["#", "Time", "Kind", "Step", "Detail"], rows,
                             row_classes=classes))

@@ -4,14 +4,14 @@ hand within the plan's limits. Every instrument call runs on a worker."""
 
 from __future__ import annotations
 
-import json
-
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Static
 
+from pnbench.errors import PnbenchError
+from pnbench.sweeps import record
 from pnbench.tui.app.bench import (
     InstrumentRow,
     identify_rows,
@@ -69,8 +69,8 @@ class BenchScreen(Screen):
         live = app.live
         if live is not None and live.run_dir is not None:
             try:
-                doc = json.loads((live.run_dir / "run.json").read_text(encoding="utf-8"))
-            except (OSError, ValueError):
+                doc = record.read_run_doc(live.run_dir)
+            except PnbenchError:
                 doc = {}
             state = "in use by the sweep" if app.live_active else "released"
             rows = with_run_identities(plan_rows(app.plan, app.simulate), doc, state)

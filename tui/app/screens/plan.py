@@ -16,6 +16,7 @@ from textual.containers import Horizontal, VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Static, TextArea
 
+from pnbench.sweeps.record.layout import PLAN as PLAN_FILE
 from pnbench.tui.app.messages import (
     PlanChanged,
     PlanCheck,
@@ -128,7 +129,7 @@ class PlanScreen(Screen):
         self.post_message(PlanExample())
 
     def action_save(self) -> None:
-        suggestion = str(self.app.plan_path or Path.cwd() / "plan.toml")
+        suggestion = str(self.app.plan_path or Path.cwd() / PLAN_FILE)
 
         def chosen(path: str | None) -> None:
             if path:

@@ -1,5 +1,5 @@
-"""The run folder: exact round trips, torn lines cut on reopen, atomic documents, the lock,
-and following a live run."""
+"""The run record: exact round trips, torn lines cut on reopen, malformed lines named,
+columns, atomic documents and folders, the lock, and following a live run."""
 
 from __future__ import annotations
 
@@ -8,23 +8,25 @@ import os
 import threading
 from datetime import UTC, datetime
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from pnbench.errors import BadInput, DataFileError
 from pnbench.sweeps.events import Event, EventBus
-from pnbench.sweeps.store import (
-    HEADER,
+from pnbench.sweeps.record import (
+    FolderTail,
     Point,
-    PointTail,
     RunFolder,
     folder_name,
+    read_columns,
     read_events,
     read_metadata,
     read_points,
     read_run,
 )
+from pnbench.sweeps.record.layout import HEADER, STAGING
 
 
 def make(tmp_path, name="LH-T1"):
@@ -118,19 +120,24 @@ def test_a_folder_open_for_writing_is_locked(tmp_path):
     RunFolder.reopen(folder.path).close()
 
 
-def test_point_tail_follows_a_live_run(tmp_path):
+def test_folder_tail_follows_a_live_run(tmp_path):
     folder = make(tmp_path)
-    tail = PointTail(folder.path)
-    assert tail.read_new()[0] == []
+    tail = FolderTail(folder.path)
+    first = tail.poll()
+    assert len(first.points) == 0 and first.run is not None
+    assert first.metadata["device"] == "LH-T1"
     folder.append_point(Point("a", 0, "iv", 0.0, 0.1, 1e-9))
     folder._points.write("a,1,iv,0.1,0.2")  # half a row, not yet flushed as a line
     folder._points.flush()
-    got, _ = tail.read_new()
-    assert [p.index for p in got] == [0]
+    got = tail.poll().points
+    assert got.index.tolist() == [0]
     folder._points.write(",2e-09,,,,0\n")
     folder._points.flush()
-    got, _ = tail.read_new()
-    assert [(p.index, p.current_A) for p in got] == [(1, 2e-9)]
+    EventBus(sink=folder.append_event).emit("warning", "a", message="hot")
+    batch = tail.poll()
+    assert [(p.index, p.current_A) for p in batch.points.rows()] == [(1, 2e-9)]
+    assert [(e.kind, e.message) for e in batch.events] == [("warning", "hot")]
+    assert batch.run is None  # run.json has not changed
     folder.close()
 
 
@@ -141,8 +148,92 @@ def test_damaged_folders_name_the_file(tmp_path):
     folder.close()
     with open(folder.path / "points.csv", "a") as f:
         f.write("fwd,zero,iv,0,,,,,,0\n")
-    with pytest.raises(DataFileError, match="points.csv"):
+    with pytest.raises(DataFileError, match=r"points.csv, line 4: row cannot be read"):
         read_points(folder.path)
+
+
+def test_a_malformed_event_line_is_named(tmp_path):
+    folder = make(tmp_path)
+    bus = EventBus(sink=folder.append_event)
+    bus.emit("run_started")
+    folder.close()
+    with open(folder.path / "events.jsonl", "a") as f:
+        f.write("{not json\n")
+        f.write('{"seq": 3, "time_s": 1.0, "kind": "warning", "step": null, "message": "x"}\n')
+    with pytest.raises(DataFileError, match=r"events.jsonl, line 2: unreadable event"):
+        read_events(folder.path)
+    batch = FolderTail(folder.path).poll()  # a live viewer says so and goes on
+    assert [e.seq for e in batch.events] == [1, 3]
+    assert any("line 2: unreadable event" in p for p in batch.problems)
+
+
+def test_columns_read_every_row_with_codes_and_nan_for_empty_cells(tmp_path):
+    folder = make(tmp_path)
+    for k in range(300):  # interleaved steps (worst case for the step codes)
+        if k % 2:
+            folder.append_point(Point("fwd", k // 2, "iv", 0.01 * k, 0.5, 1e-3 * k,
+                                      compliance=k % 7 == 1))
+        else:
+            folder.append_point(Point("cv", k // 2, "cv", 0.01 * k, -1.0, None, 1e5,
+                                      1e-12 * k, 1e-6))
+    folder.close()
+    cols = read_columns(folder.path)
+    assert len(cols) == 300 and set(cols.step_names) == {"fwd", "cv"}
+    fwd = cols.select(cols.step_mask("fwd"))
+    assert fwd.index.tolist() == list(range(150))
+    assert fwd.current_A.tolist() == [1e-3 * k for k in range(1, 300, 2)]
+    assert np.isnan(fwd.capacitance_F).all() and not np.isnan(fwd.current_A).any()
+    assert fwd.compliance.tolist() == [k % 7 == 1 for k in range(1, 300, 2)]
+    cv = cols.select(cols.kind_mask("cv"))
+    assert np.isnan(cv.current_A).all() and cv.frequency_Hz.tolist() == [1e5] * 150
+    assert list(cols.rows()) == read_points(folder.path)
+    assert cols.row(1) == Point("fwd", 0, "iv", 0.01, 0.5, 1e-3, compliance=True)
+
+
+def test_columns_of_a_large_file_read_in_blocks(tmp_path, monkeypatch):
+    """Many blocks: rows cut between two blocks are read whole, once."""
+    from pnbench.sweeps.record import columns
+
+    monkeypatch.setattr(columns, "BLOCK_BYTES", 1000)
+    folder = make(tmp_path)
+    for k in range(2000):
+        folder.append_point(Point("fwd", k, "iv", 0.001 * k, 0.001 * k, 1e-9 * k))
+    folder.close()
+    cols = read_columns(folder.path)
+    assert cols.index.tolist() == list(range(2000))
+    assert np.allclose(cols.voltage_V, 0.001 * np.arange(2000))
+
+
+def test_a_new_folder_appears_only_with_its_run_json(tmp_path):
+    folder = make(tmp_path)
+    assert (folder.path / "run.json").is_file() and not folder.path.name.startswith(".")
+    assert [p.name for p in tmp_path.iterdir()] == [folder.path.name]  # no staging left
+    folder.update_run(status="completed")  # files opened before the rename still work
+    folder.append_point(Point("a", 0, "iv", 0.0, 0.1, 1e-9))
+    folder.close()
+    assert read_run(folder.path)["status"] == "completed"
+    assert len(read_points(folder.path)) == 1
+
+
+def test_a_folder_killed_while_being_created_says_nothing_was_measured(tmp_path):
+    partial = tmp_path / STAGING / "20310405-060708_X.123"
+    partial.mkdir(parents=True)
+    (partial / "plan.toml").write_text("# plan\n")
+    with pytest.raises(DataFileError, match="nothing was measured here"):
+        read_run(partial)
+
+
+def test_run_info_is_typed_and_reads_like_the_document(tmp_path):
+    folder = make(tmp_path)
+    folder.update_run(status="interrupted", steps=[{"name": "a", "kind": "iv_forward",
+                                                    "planned": 5, "done": 2,
+                                                    "status": "interrupted"}],
+                      finishing={"status": "aborted", "reason": "x"}, extra_key=1)
+    folder.close()
+    info = read_run(folder.path)
+    assert info.status == "interrupted" and info.end_status == "aborted"
+    assert info.steps[0].planned == 5 and info.steps[0].status == "interrupted"
+    assert info["extra_key"] == 1 and info.get("missing", 7) == 7
 
 
 def test_events_are_numbered_without_gaps_across_threads(tmp_path):

@@ -1,0 +1,278 @@
+"""points.csv: one row per point written by the runner, read back by column.
+
+`Point` is one row (the runner writes them one at a time). `PointColumns` is the whole
+file as numpy columns, which is how every reader takes it: `read_columns` parses the file
+in blocks with numpy's C parser, so a million points read in about a second, and its
+memory is the columns plus one block, never one Python object per row. A malformed row
+raises DataFileError naming the file and the line; a torn last line (a write cut short
+by a kill) is left out and said in ``torn``.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from pnbench.errors import DataFileError
+from pnbench.sweeps.record.layout import COLUMNS, HEADER
+
+#: bytes parsed at once (bounds the memory a read needs beyond its columns)
+BLOCK_BYTES = 8 << 20
+_FLOATS = ("time_s", "voltage_V", "current_A", "frequency_Hz", "capacitance_F",
+           "conductance_S")
+
+
+@dataclass(frozen=True, slots=True)
+class Point:
+    """One row of points.csv. ``kind`` is ``iv`` or ``cv``; absent cells are None."""
+
+    step: str
+    index: int
+    kind: str
+    time_s: float
+    voltage_V: float | None = None
+    current_A: float | None = None
+    frequency_Hz: float | None = None
+    capacitance_F: float | None = None
+    conductance_S: float | None = None
+    compliance: bool = False
+
+    def to_row(self) -> str:
+        """The CSV line, newline included (floats in shortest round-trip form)."""
+        return (f"{self.step},{self.index},{self.kind},{self.time_s:.6f},"
+                f"{_cell(self.voltage_V)},{_cell(self.current_A)},{_cell(self.frequency_Hz)},"
+                f"{_cell(self.capacitance_F)},{_cell(self.conductance_S)},"
+                f"{1 if self.compliance else 0}\n")
+
+    @classmethod
+    def from_row(cls, line: str) -> Point:
+        cells = line.rstrip("\r\n").split(",")
+        if len(cells) != len(COLUMNS):
+            raise ValueError(f"{len(cells)} cells, expected {len(COLUMNS)}")
+        if cells[9] not in ("0", "1"):
+            raise ValueError(f"compliance {cells[9]!r}, expected 0 or 1")
+        return cls(cells[0], int(cells[1]), cells[2], float(cells[3]),
+                   *(float(c) if c else None for c in cells[4:9]), cells[9] == "1")
+
+
+def _cell(value: float | None) -> str:
+    return "" if value is None else repr(float(value))
+
+
+def _none(value: float) -> float | None:
+    return None if math.isnan(value) else float(value)
+
+
+@dataclass(frozen=True)
+class PointColumns:
+    """Points as columns (SI units; NaN where a cell is empty), in the order taken.
+
+    ``step`` and ``kind`` are small integer codes into ``step_names`` and
+    ``kind_names``; `step_of`, `kind_of` and `select` read them by name."""
+
+    step_names: tuple[str, ...]
+    step_code: np.ndarray
+    kind_names: tuple[str, ...]
+    kind_code: np.ndarray
+    index: np.ndarray
+    time_s: np.ndarray
+    voltage_V: np.ndarray
+    current_A: np.ndarray
+    frequency_Hz: np.ndarray
+    capacitance_F: np.ndarray
+    conductance_S: np.ndarray
+    compliance: np.ndarray
+    #: file line of the first data row (rows follow one per line)
+    first_line: int = 0
+    metadata: dict[str, str] = field(default_factory=dict)
+    torn: bool = False
+
+    def __len__(self) -> int:
+        return int(self.index.size)
+
+    @classmethod
+    def empty(cls) -> PointColumns:
+        return _assemble([], [], {}, 0, {}, False)
+
+    def step_mask(self, *names: str) -> np.ndarray:
+        codes = [k for k, n in enumerate(self.step_names) if n in names]
+        return np.isin(self.step_code, codes)
+
+    def kind_mask(self, kind: str) -> np.ndarray:
+        codes = [k for k, n in enumerate(self.kind_names) if n == kind]
+        return np.isin(self.kind_code, codes)
+
+    def steps(self) -> np.ndarray:
+        """The step name of every row (an object array; for small selections)."""
+        return np.asarray(self.step_names, dtype=object)[self.step_code] \
+            if self.step_names else np.array([], dtype=object)
+
+    def kinds(self) -> np.ndarray:
+        return np.asarray(self.kind_names, dtype=object)[self.kind_code] \
+            if self.kind_names else np.array([], dtype=object)
+
+    def select(self, mask: np.ndarray) -> PointColumns:
+        """The rows where ``mask`` holds (or rows at the given indices)."""
+        cut = {name: getattr(self, name)[mask] for name in _ARRAYS}
+        return PointColumns(self.step_names, kind_names=self.kind_names,
+                            first_line=self.first_line, metadata=self.metadata,
+                            torn=self.torn, **cut)
+
+    def row(self, n: int) -> Point:
+        return Point(self.step_names[self.step_code[n]], int(self.index[n]),
+                     self.kind_names[self.kind_code[n]], float(self.time_s[n]),
+                     *(_none(getattr(self, c)[n]) for c in _FLOATS[1:]),
+                     bool(self.compliance[n]))
+
+    def rows(self) -> Iterator[Point]:
+        """Row objects, one at a time (for small selections: a step's tail, a table)."""
+        for n in range(len(self)):
+            yield self.row(n)
+
+    def fit_columns(self) -> dict[str, np.ndarray]:
+        """The mapping the fitters take (voltage_V ... conductance_S, compliance)."""
+        return {name: getattr(self, name) for name in (*_FLOATS[1:], "compliance")}
+
+
+_ARRAYS = ("step_code", "kind_code", "index", *_FLOATS, "compliance")
+
+
+def read_columns(path: Path) -> PointColumns:
+    """Every complete row of the points.csv at ``path``, as columns."""
+    metadata: dict[str, str] = {}
+    header_line = 0
+    blocks: list[tuple[np.ndarray, ...]] = []
+    steps: dict[bytes, int] = {}
+    kinds: dict[bytes, int] = {}
+    line = 0
+    torn = False
+    try:
+        handle = open(path, "rb")
+    except FileNotFoundError:
+        raise DataFileError(f"{path}: missing; not a pnbench run folder") from None
+    except OSError as exc:
+        raise DataFileError(f"{path}: cannot be read ({exc.strerror or exc})") from None
+    with handle:
+        rest = b""
+        while True:
+            chunk = handle.read(BLOCK_BYTES)
+            data = rest + chunk
+            if not chunk:
+                torn = bool(data.strip())
+                break
+            end = data.rfind(b"\n") + 1
+            body, rest = data[:end], data[end:]
+            if not header_line:
+                body, line, header_line = _head(body, path, metadata, line)
+                if not header_line:
+                    rest = body + rest
+                    continue
+            if body:
+                blocks.append(_parse_block(body, path, line, steps, kinds))
+                line += body.count(b"\n")
+    return _assemble(blocks, [*steps], kinds, header_line + 1, metadata, torn)
+
+
+def _head(body: bytes, path: Path, metadata: dict, line: int) -> tuple[bytes, int, int]:
+    """Metadata and header lines at the top: (the rest, lines read, header's line)."""
+    pos = 0
+    while pos < len(body):
+        nl = body.find(b"\n", pos)
+        raw = body[pos:nl]
+        line += 1
+        pos = nl + 1
+        if b"\x00" in raw:
+            raise DataFileError(f"{path}, line {line}: binary content (a NUL byte), not "
+                                "UTF-8 text; the file is damaged")
+        try:
+            text = raw.decode("utf-8").strip()
+        except UnicodeDecodeError as exc:
+            raise DataFileError(f"{path}, line {line}: not UTF-8 text (byte {exc.start}); "
+                                "the file is damaged") from None
+        if not text:
+            continue
+        if text.startswith("#"):
+            key, sep, value = text[1:].partition("=")
+            if sep:
+                metadata[key.strip()] = value.strip()
+            continue
+        if text != HEADER:
+            raise DataFileError(f"{path}, line {line}: header is {text[:120]!r}, expected "
+                                f"{HEADER!r}")
+        return body[pos:], line, line
+    return b"", line, 0
+
+
+def _parse_block(body: bytes, path: Path, line: int, steps: dict, kinds: dict):
+    """One block of complete rows (``line`` rows of the file before it)."""
+    filled = body.replace(b",,", b",nan,").replace(b",,", b",nan,")
+    try:
+        numbers = np.loadtxt(io.BytesIO(filled), delimiter=",", usecols=(1, 3, 4, 5, 6, 7, 8,
+                                                                        9),
+                             dtype=float, ndmin=2, comments=None)
+        text = np.loadtxt(io.BytesIO(body), delimiter=",", usecols=(0, 2), dtype="S64",
+                          ndmin=2, comments=None)
+        if len(numbers) != body.count(b"\n"):
+            raise ValueError("blank lines")
+    except (ValueError, UnicodeDecodeError):
+        _find_bad_line(body, path, line)
+        raise  # pragma: no cover - _find_bad_line raises
+    compliance = numbers[:, 7]
+    if not np.isin(compliance, (0.0, 1.0)).all():
+        _find_bad_line(body, path, line)
+    return (_codes(text[:, 0], steps), _codes(text[:, 1], kinds),
+            numbers[:, 0].astype(np.int64), *(numbers[:, k] for k in range(1, 7)),
+            compliance == 1.0)
+
+
+def _codes(values: np.ndarray, table: dict[bytes, int]) -> np.ndarray:
+    """Integer codes of a text column whose values come in long runs (steps, kinds)."""
+    out = np.empty(len(values), dtype=np.int32)
+    if not len(values):
+        return out
+    starts = np.flatnonzero(np.concatenate(([True], values[1:] != values[:-1])))
+    if len(starts) > 64:  # interleaved: one comparison per distinct value
+        todo = np.ones(len(values), dtype=bool)
+        while todo.any():
+            value = values[int(np.argmax(todo))]
+            same = values == value
+            out[same] = table.setdefault(bytes(value), len(table))
+            todo &= ~same
+        return out
+    ends = np.append(starts[1:], len(values))
+    for a, b in zip(starts, ends, strict=True):
+        out[a:b] = table.setdefault(bytes(values[a]), len(table))
+    return out
+
+
+def _find_bad_line(body: bytes, path: Path, line: int) -> None:
+    """Raise DataFileError for the first row of ``body`` that is not a point."""
+    for n, raw in enumerate(body.split(b"\n")[:-1], start=line + 1):
+        try:
+            Point.from_row(raw.decode("utf-8"))
+        except UnicodeDecodeError as exc:
+            raise DataFileError(f"{path}, line {n}: not UTF-8 text (byte {exc.start}); the "
+                                "file is damaged") from None
+        except ValueError as exc:
+            shown = raw[:120].decode("utf-8", "replace")
+            raise DataFileError(f"{path}, line {n}: row cannot be read ({exc}): "
+                                f"{shown!r}") from None
+    raise DataFileError(f"{path}: rows after line {line} cannot be read")
+
+
+def _assemble(blocks, step_names, kinds, first_line, metadata, torn) -> PointColumns:
+    if blocks:
+        cols = [np.concatenate(parts) for parts in zip(*blocks, strict=True)]
+        blocks.clear()
+    else:
+        cols = [np.empty(0, np.int32), np.empty(0, np.int32), np.empty(0, np.int64),
+                *(np.empty(0) for _ in _FLOATS), np.empty(0, bool)]
+    names = tuple(n.decode("utf-8") for n in step_names)
+    kind_names = tuple(k.decode("utf-8") for k in kinds)
+    return PointColumns(names, cols[0], kind_names, cols[1], *cols[2:],
+                        first_line=first_line, metadata=metadata, torn=torn)
