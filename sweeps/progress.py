@@ -34,22 +34,15 @@ from pnbench.sweeps.events import (
     StepFinished,
     StepStarted,
 )
+from pnbench.sweeps.quantities import format_duration
 from pnbench.sweeps.statuses import RUN_FINAL, RunStatus, StepStatus, step_finished
+
+__all__ = ["ProgressModel", "StepProgress", "format_duration"]
 
 #: Weight of the plan's estimate, in measured intervals.
 PRIOR_POINTS = 8
 #: An interval longer than this many times the step's mean so far is a gap, not rate.
 GAP_FACTOR = 20.0
-
-
-def format_duration(seconds: float) -> str:
-    """'1:02:03' or '2:05' for durations and ETAs; '--' when unknown."""
-    if not math.isfinite(seconds):
-        return "--"
-    seconds = max(int(round(seconds)), 0)
-    h, rest = divmod(seconds, 3600)
-    m, s = divmod(rest, 60)
-    return f"{h}:{m:02d}:{s:02d}" if h else f"{m}:{s:02d}"
 
 
 @dataclass

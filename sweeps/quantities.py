@@ -84,3 +84,14 @@ def format_quantity(value: float, unit: str, prec: int = 4) -> str:
     if math.isinf(value):
         return f"{'-' if value < 0 else ''}inf {unit}".strip()
     return Quantity(value, unit).render(prec=prec)
+
+
+def format_duration(seconds: float) -> str:
+    """'1:02:03' or '2:05' for durations and ETAs; '--' when unknown (the one format of
+    headless progress, the app, watch and `check`)."""
+    if not math.isfinite(seconds):
+        return "--"
+    seconds = max(int(round(seconds)), 0)
+    h, rest = divmod(seconds, 3600)
+    m, s = divmod(rest, 60)
+    return f"{h}:{m:02d}:{s:02d}" if h else f"{m}:{s:02d}"

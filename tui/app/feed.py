@@ -35,10 +35,11 @@ class RunFeed:
             self.refresh_bindings()
             if live.run_dir is not None:
                 self._apply_model(FolderTail(live.run_dir))
-                self._report_written(Path(live.run_dir))
             if self.state.finished:
                 self.notify(f"Run {status_words(self.state.status)}. F5 reviews it: refit, "
                             "card, report.", timeout=8)
+            if live.run_dir is not None:
+                self._report_written(Path(live.run_dir))
         self._update_status()
 
     def _report_written(self, run_dir: Path) -> None:

@@ -61,7 +61,7 @@ def run(args) -> int:
     from pnbench.sweeps.check import estimate
     from pnbench.sweeps.limits import HAZARDOUS_VOLTAGE_V
     from pnbench.sweeps.plan import load_plan
-    from pnbench.sweeps.progress import format_duration
+    from pnbench.sweeps.quantities import format_duration
     from pnbench.sweeps.quantities import format_quantity as q
 
     plan = load_plan(args.plan)
