@@ -131,3 +131,55 @@ def test_kill_9_then_resume(bench, tmp_path, repetition):
                    for e in read_events(run_dir) if e.kind == "warning"), what
         seqs = [e.seq for e in read_events(run_dir)]
         assert seqs == list(range(1, len(seqs) + 1)), what
+
+
+def test_kill_9_in_the_end_work_then_resume_finishes_it(bench, tmp_path):
+    """Killed after the last point, while the model and the report are being made: the
+    run is not "completed"; resume finishes the end work from the folder alone."""
+    plan = tmp_path / "plan.toml"
+    plan.write_text(plan_for(bench))
+    out = tmp_path / "runs"
+    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
+    proc = subprocess.Popen(pnbench("run", str(plan), "--headless", "--out", str(out)),
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
+
+    def ending() -> bool:
+        try:
+            return bool(read_run(next(out.glob("*/run.json")).parent).get("finishing"))
+        except (StopIteration, Exception):  # noqa: BLE001 - not there, or being replaced
+            return False
+
+    try:
+        assert wait_for(ending, 120), "the end work never began"
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(10)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    run_dir = next(out.glob("*/run.json")).parent
+    assert wait_for(lambda: read_run(run_dir).get("guardian") is not None, 20)
+    killed = read_run(run_dir)
+    assert killed["status"] == "interrupted" and killed["finishing"]["status"] == "completed"
+    points = (run_dir / "points.csv").read_bytes()
+
+    done = subprocess.run(pnbench("resume", str(run_dir)), capture_output=True, text=True,
+                          env=env, timeout=120)
+    assert done.returncode == 0, done.stderr
+    run = read_run(run_dir)
+    assert run["status"] == "completed" and run["finishing"] is None
+    assert (run_dir / "points.csv").read_bytes() == points  # nothing measured again
+    assert "end work only, instruments not used" in (run_dir / "run.log").read_text()
+    assert (run_dir / "report.html").exists() and (run_dir / "LH-ZL560.lib").exists()
+    assert read_events(run_dir)[-1].kind == "run_finished"
+
+
+def test_a_folder_killed_while_being_created_is_said_to_hold_nothing(tmp_path):
+    """A kill in the first milliseconds leaves only the staging folder; resume of it says
+    plainly that nothing was measured there (exit 2, no traceback)."""
+    staging = tmp_path / ".pnbench-partial" / "20310405-060708_LH-ZL560.4242.1"
+    staging.mkdir(parents=True)
+    (staging / "plan.toml").write_text("# the plan\n")
+    done = subprocess.run(pnbench("resume", str(staging)), capture_output=True, text=True,
+                          timeout=60)
+    assert done.returncode == 2 and "nothing was measured here" in done.stderr
+    assert "Traceback" not in done.stderr
