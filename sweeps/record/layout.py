@@ -1,7 +1,7 @@
 """The names and shapes of the files of a run folder (nowhere else in pnbench).
 
 One folder per run under ``--out``, named ``YYYYmmdd-HHMMSS_<device>`` from the start
-time (UTC) and the device name. DEVELOPERS.md ("The run folder and the event stream")
+time (UTC) and the device name. docs/run-folder.md
 describes every file; this module is where the code learns their names.
 """
 

@@ -1,6 +1,6 @@
 """Writing a run folder: create it atomically, append points and events, reopen it.
 
-Durability rules (DEVELOPERS.md, "The run folder and the event stream"):
+Durability rules (docs/run-folder.md):
 
 - a new folder is built under a hidden temporary name inside ``--out`` and renamed to
   its final name once run.json exists, so a folder under a run's name always has one;

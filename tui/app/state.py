@@ -1,7 +1,7 @@
 """What the screens know about one run: points, estimates, log, progress, outputs.
 
 A pure, single-threaded model fed by two kinds of input, both described in the run-folder
-contract of DEVELOPERS.md: points (a row of points.csv, or the in-process `point` event)
+contract of docs/run-folder.md: points (a row of points.csv, or the in-process `point` event)
 and events (one object of events.jsonl), plus the run.json document. The live app and
 `pnbench watch` feed it the same way, so both show the same thing. No Textual, no
 threads, no files: the screens read it on the UI thread after draining their queue.
