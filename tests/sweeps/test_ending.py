@@ -15,7 +15,7 @@ from pnbench.sweeps.launch import Launch
 from pnbench.sweeps.plan import parse_plan
 from pnbench.sweeps.record import RunFolder
 
-PLAN = plan_text(forward(points=25), cv(bias_points=5), device="LH-SW200-end")
+PLAN = plan_text(forward(points=25), cv(bias_points=5), device="LH-QT16-end")
 
 
 class Killed(BaseException):
@@ -35,7 +35,7 @@ def report_writer(calls: list):
 
 def new_launch(tmp_path, calls):
     plan = parse_plan(PLAN.encode(), "plan.toml")
-    return Launch.new(plan, simulate="lh-sw200", time_scale=0.0, out_dir=tmp_path,
+    return Launch.new(plan, simulate="lh-qt16", time_scale=0.0, out_dir=tmp_path,
                       write_report=report_writer(calls))
 
 
