@@ -35,7 +35,8 @@ def report_writer(calls: list):
 
 def new_launch(tmp_path, calls):
     plan = parse_plan(PLAN.encode(), "plan.toml")
-    return Launch.new(plan, simulate="lh-qt16", time_scale=0.0, out_dir=tmp_path,
+    plan = plan.on_simulated_bench("lh-qt16@pnsim:time_scale=0")
+    return Launch.new(plan, out_dir=tmp_path,
                       write_report=report_writer(calls))
 
 
