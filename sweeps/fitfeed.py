@@ -189,7 +189,7 @@ class FitWorker:
         True when the stop mark was met."""
         run: list[Point] = []
         run_step = None
-        for item in [*batch, None]:
+        for k, item in enumerate([*batch, None]):
             if item is not None and item is not _STOP and item[1] is not None \
                     and item[0] == run_step:
                 run.append(item[1])
@@ -206,7 +206,8 @@ class FitWorker:
             name, point = item
             if point is None:
                 self._snapshot(name, final=True)
-                self._write_model(final=False)
+                if batch[k + 1:k + 2] != [_STOP]:  # else the run's model comes next
+                    self._write_model(final=False)
             else:
                 run, run_step = [point], name
         return False

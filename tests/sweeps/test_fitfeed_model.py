@@ -9,6 +9,7 @@ with seeded Gaussian noise).
 from __future__ import annotations
 
 import json
+import time
 
 import numpy as np
 import pytest
@@ -41,6 +42,9 @@ def _run(names, monkeypatch):
             worker.submit(step, p)
             points.append(p)
         worker.step_done(step.name)
+        deadline = time.monotonic() + 60
+        while len(written) <= plan.steps.index(step) and time.monotonic() < deadline:
+            time.sleep(0.005)  # as in a run, the next step comes a while later
     worker.finish()
     return plan, points, written, calls
 
@@ -82,3 +86,17 @@ def test_columns_grow_and_keep_absent_cells_as_nan():
     assert np.isnan(view["capacitance_F"]).all()
     assert cols.view(140)["voltage_V"][0] == pytest.approx(14.0)
     assert fitmodel.arrays(rows, {"s"})["current_A"][3] == pytest.approx(3e-3)
+
+
+def test_no_provisional_model_just_before_the_run_model():
+    """When the run's end follows a step's end at once, only the run's model is written
+    (a provisional one would be replaced a moment later)."""
+    from pnbench.sweeps.fitfeed import _STOP
+
+    plan = plan_of(["forward"])
+    written = []
+    worker = FitWorker(plan.steps, EventBus(), temperature_K=T_K, write_model=written.append)
+    rng = np.random.default_rng(510)
+    batch = [("forward", p) for p in step_points("forward", rng)]
+    assert worker._handle([*batch, ("forward", None), _STOP]) is True
+    assert len(written) == 1 and "provisional" not in written[0].extras
