@@ -76,6 +76,7 @@ class RunState:
     #: increases at every change, so a screen redraws only when something changed
     version: int = 0
     _wall_at_last_time: float = field(default=math.nan, repr=False)
+    _misfits_logged: set = field(default_factory=set, repr=False)
 
     # ----------------------------------------------------------------- input
     def add_point(self, row: dict) -> None:
@@ -198,6 +199,14 @@ class RunState:
             self.parameters[name] = Estimate(
                 float(entry["value"]),
                 float(sigma) if isinstance(sigma, (int, float)) else None, True)
+        for kind, fit in (doc.get("fits") or {}).items():  # a model that misfits says so
+            lack = fit.get("lack_of_fit") if isinstance(fit, dict) else None
+            text = fit.get("message") if isinstance(fit, dict) else None
+            if isinstance(lack, dict) and lack.get("misfit") and isinstance(text, str) \
+                    and (kind, text) not in self._misfits_logged:
+                self._misfits_logged.add((kind, text))
+                self.add_log(LogEntry(self.last_time_s, LOG_TAGS["warning"], None,
+                                      f"fit {kind}: {text}"))
         fixture = doc.get("fixture_capacitance_F")  # the bench's, shown marked as such
         if isinstance(fixture, dict) and isinstance(fixture.get("value"), (int, float)):
             sigma = fixture.get("sigma")
