@@ -1,10 +1,9 @@
-"""How the app ends a sweep's end work: the report of its last sweep is finished before
-the process ends (written by run_app when the app ended before it began), and a SIGHUP
-or SIGTERM that came meanwhile makes the exit code 4 although the run completed."""
+"""How the app ends a sweep's end work: the engine's end work (final fit, model, card,
+report) is waited for before the process ends, and a SIGHUP or SIGTERM that came
+meanwhile makes the exit code 4 although the run completed."""
 
 from __future__ import annotations
 
-import threading
 from types import SimpleNamespace
 
 from pnbench.sweeps.launch import Launch
@@ -30,30 +29,24 @@ compliance = "50 mA"
 """
 
 
-def finished_app(tmp_path, **extra):
+def test_the_end_work_is_waited_for_and_a_signal_meanwhile_gives_exit_4(tmp_path):
     plan = parse_plan(PLAN, "p.toml").on_simulated_bench("lh-zl560@pnsim:time_scale=0")
-    launch = Launch.new(plan, out_dir=tmp_path)
-    assert launch.run().status == "completed"
-    live = SimpleNamespace(launch=launch, run_dir=launch.run_dir, running=False)
-    return SimpleNamespace(live=live, control=SimpleNamespace(report=True),
-                           state=SimpleNamespace(status="completed"), **extra)
+    from pnbench.tui.report import write_report
 
-
-def test_the_report_is_written_when_the_app_ended_before_it_began(tmp_path):
-    app = finished_app(tmp_path)
-    finish_end_work(app)
-    assert (app.live.run_dir / "report.html").is_file()
+    launch = Launch.new(plan, out_dir=tmp_path, write_report=write_report)
+    launch.start()  # the engine's thread: the run, then its end work
+    live = SimpleNamespace(launch=launch, run_dir=None, running=True, wait=launch.wait)
+    app = SimpleNamespace(live=live, state=SimpleNamespace(status="running"))
+    finish_end_work(app)  # returns once the engine has finished the folder
+    assert not launch.is_alive()
+    assert launch.outcome.status == "completed"
+    assert (launch.run_dir / "report.html").is_file()
     assert exit_code(app, 0) == 0
-
-
-def test_a_report_in_progress_is_waited_for_and_a_signal_gives_exit_4(tmp_path):
-    done = threading.Event()
-    app = finished_app(tmp_path, report_done=done, stopped_by_signal="SIGTERM")
-    app.report_dir = app.live.run_dir
-    waited = []
-    timer = threading.Timer(0.2, lambda: (waited.append(True), done.set()))
-    timer.start()
-    finish_end_work(app)  # returns once the worker's report is done
-    assert waited == [True]
-    assert not (app.live.run_dir / "report.html").exists()  # the worker's job, not redone
+    app.stopped_by_signal = "SIGTERM"
     assert exit_code(app, 0) == 4
+
+
+def test_finishing_without_a_sweep_does_nothing():
+    app = SimpleNamespace(live=None, state=SimpleNamespace(status="idle"))
+    finish_end_work(app)
+    assert exit_code(app, 0) == 0
