@@ -95,3 +95,32 @@ def format_duration(seconds: float) -> str:
     h, rest = divmod(seconds, 3600)
     m, s = divmod(rest, 60)
     return f"{h}:{m:02d}:{s:02d}" if h else f"{m}:{s:02d}"
+
+
+def estimate_digits(value: float, sigma: float | None, least: int = 3, most: int = 6) -> int:
+    """Significant digits that show `value` down to the second significant digit of its
+    standard error `sigma` (the usual way of quoting an estimate: the uncertainty to at
+    most two significant digits and the value rounded to the same place; JCGM 100:2008
+    (GUM) 7.2.6), never fewer than `least` nor more than `most`."""
+    if (sigma is None or not math.isfinite(value) or value == 0 or not math.isfinite(sigma)
+            or sigma <= 0):
+        return least
+    digits = math.floor(math.log10(abs(value))) - math.floor(math.log10(sigma)) + 2
+    return max(least, min(most, digits))
+
+
+def format_estimate(value: float, sigma: float | None, unit: str, least: int = 3,
+                    most: int = 6) -> str:
+    """`value` with as many significant digits as its `sigma` supports, zeros kept
+    ("4.00 fA" and "4.0123 fA" say different things; "4 fA" says neither)."""
+    if not math.isfinite(value):
+        return format_quantity(value, unit)
+    digits = estimate_digits(value, sigma, least, most)
+    if unit in ("", "-"):
+        return _plain(value, digits)
+    return Quantity(value, unit).render(prec=digits - 1, strip_zeros=False)
+
+
+def _plain(value: float, digits: int) -> str:
+    text = f"{value:#.{digits}g}"
+    return text[:-1] if text.endswith(".") else text

@@ -22,7 +22,7 @@ from pathlib import Path
 from pnbench.modeling.params import UNITS
 from pnbench.sweeps import events as ev
 from pnbench.sweeps.progress import ProgressModel, format_duration
-from pnbench.sweeps.quantities import format_quantity
+from pnbench.sweeps.quantities import format_estimate, format_quantity
 from pnbench.tui.app.words import guard_words, status_words
 
 __all__ = ["Progress", "bar", "format_duration", "format_parameter", "leakage_text",
@@ -38,7 +38,7 @@ def format_parameter(name: str, entry: dict) -> str:
     if value is None:
         return f"{name} = ?"
     unit = "F" if name == "CFIX" else UNITS.get(name, "")  # CFIX: the fixture's capacitance
-    text = format_quantity(value, unit, 3) if unit else f"{value:.4g}"
+    text = format_estimate(value, sigma, unit)
     if sigma is not None and value:
         text += f" ±{abs(sigma / value):.1%}"
     label = "fixture CFIX" if name == "CFIX" else name  # the bench's, not the device's

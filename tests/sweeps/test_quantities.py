@@ -66,3 +66,16 @@ def test_format_then_parse_round_trips():
     for value in (3.3e-9, -0.65, 47e3, 1.0):
         assert parse_quantity(format_quantity(value, "V", prec=12), "V") == \
             pytest.approx(value, rel=1e-12)
+
+
+def test_estimates_show_the_digits_their_sigma_supports():
+    """The standard error to two significant digits and the value rounded to the same
+    place (JCGM 100:2008, GUM 7.2.6), at least three significant digits."""
+    from pnbench.sweeps.quantities import estimate_digits, format_estimate
+
+    assert format_estimate(4.0123e-15, 4.0e-18, "A") == "4.0123 fA"   # 0.1 %: five digits
+    assert format_estimate(4.0e-15, 4.0e-16, "A") == "4.00 fA"        # 10 %: zeros kept
+    assert format_estimate(0.62012, 1.3e-3, "ohm") == "620.1 mohm"    # one spelling: ohm
+    assert format_estimate(1.0312, 2.3e-3, "") == "1.0312"  # sigma 0.0023
+    assert format_estimate(2.0, None, "V") == "2.00 V"
+    assert estimate_digits(1.0, 0.5) == 3 and estimate_digits(1.0, 1e-12) == 6

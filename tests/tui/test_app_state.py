@@ -213,8 +213,9 @@ def test_decade_ticks_sit_on_whole_decades_with_si_labels():
 
 def test_parameter_rows_show_value_sigma_and_settled_mark():
     table = rows({"N": Estimate(1.05, 0.021, False), "IS": Estimate(2e-14, 4e-16, True)})
-    assert table[0] == ("IS", "20 fA", "2.0%", "ok")
-    assert table[1] == ("N", "1.05", "2.0%", "..")
+    # the value down to the sigma's second significant digit, zeros kept
+    assert table[0] == ("IS", "20.00 fA", "2.0%", "ok")
+    assert table[1] == ("N", "1.050", "2.0%", "..")
     detailed = rows({"IS": Estimate(2e-14, 4e-16, True)}, detailed=True)
     assert detailed[0][2] == "400 aA (2.0%)"
 
@@ -231,10 +232,10 @@ def test_qpoint_rule_of_thumb_rd_is_26_ohm_at_1_mA():
     rd_ohm = float(lines["rd"].split()[0])
     assert rd_ohm == pytest.approx(vt / 1e-3, rel=1e-3)  # N*Vt/I, shown to 4 digits
     assert 25.0 < rd_ohm < 27.0  # the trade's "26 ohm at 1 mA"
-    assert lines["RS"] == "2 Ohm"
+    assert lines["RS"] == "2 ohm"  # one spelling of the ohm everywhere
     assert "|Z| 1 kHz" in lines and "|Z| 1 MHz" in lines
     partial = dict(qpoint_rows(p, choice, 300.15, known={"IS", "N", "RS"}))
-    assert partial["Cd"] == "-- (TT not extracted yet)" and partial["RS"] == "2 Ohm"
+    assert partial["Cd"] == "-- (TT not extracted yet)" and partial["RS"] == "2 ohm"
 
 
 def test_qpoint_choice_rejects_bad_input_with_a_message():

@@ -33,7 +33,7 @@ def test_helpers():
     assert format_duration(float("nan")) == "--"
     assert bar(5, 10, 10) == "[#####-----]"
     text = format_parameter("IS", {"value": 2.5e-9, "sigma": 2.5e-11, "settled": True})
-    assert text.startswith("IS = 2.5 nA") and "1.0%" in text and text.endswith("✓")
+    assert text.startswith("IS = 2.500 nA") and "1.0%" in text and text.endswith("✓")
 
 
 def test_plain_lines_when_not_a_terminal():
@@ -59,7 +59,7 @@ def test_plain_lines_when_not_a_terminal():
     assert any("limit in forward: power guard" in x for x in lines)
     assert any("ended by the power limit" in x for x in lines)
     assert [x.split(" ", 1)[1] for x in lines if " fit " in x] == [
-        "fit forward: N = 1.05 ±1.0%"]
+        "fit forward: N = 1.050 ±1.0%"]
     assert "outputs off confirmed: yes" in lines[-1]
 
 
@@ -81,7 +81,7 @@ def test_reverse_fit_line_says_what_it_found_or_why_not():
     bv = {"BV": {"value": 34.19, "sigma": 0.01, "settled": True}}
     assert fit_line(ev("fit", "forward", fit_kind="iv_reverse", parameters=bv,
                        final=True, ibv_A=1e-5)) == (
-        "fit forward: BV = 34.19 V ±0.0% ✓ at IBV = 10 uA")
+        "fit forward: BV = 34.190 V ±0.0% ✓ at IBV = 10 uA")
     # within two standard errors of zero: below what the instrument resolves
     assert leakage_text({"voltage_V": -32.0, "current_A": -5e-13, "sigma_A": 3e-13}) == (
         "leakage below 1.1 pA at -32 V")
@@ -91,7 +91,7 @@ def test_fit_line_names_what_was_not_determined_or_why_nothing():
     line = fit_line(ev("fit", "forward", fit_kind="admittance",
                        parameters={"TT": {"value": 2e-9, "sigma": 3e-11, "settled": False}},
                        not_determined={"VJ": "x", "M": "y"}, final=True))
-    assert line == "fit forward: TT = 2 ns ±1.5%; VJ, M not determined"
+    assert line == "fit forward: TT = 2.000 ns ±1.5%; VJ, M not determined"
     line = fit_line(ev("fit", "forward", fit_kind="iv_forward", parameters={},
                        message="too few forward points (3; need 4); more", final=True))
     assert line == "fit forward: too few forward points (3; need 4)"
@@ -110,7 +110,7 @@ def test_terminal_bars_with_eta_and_parameters():
     assert block[0].startswith(">forward ") and "[" + "#" * 24 + "]" in block[0]
     assert "10/10" in block[0] and "0/30" in block[1]
     assert "ETA 0:06" in block[2]  # 30 points left at the measured 0.2 s per point
-    assert "IS = 10 fA" in block[3]
+    assert "IS = 10.00 fA" in block[3]
     p._redraw()
     p.say("limit in forward: x")
     assert "\x1b[4F\x1b[J" in out.getvalue()  # the block is cleared before a message

@@ -86,7 +86,7 @@ def test_the_page_holds_the_tables_the_issue_asks_for(full_run):
     # parameters with sigma, correlation and fit quality
     for name in ("IS", "N", "RS", "CJO", "VJ", "M", "TT", "BV", "IBV"):
         assert name in text
-    assert "20 fA" in text and "800 m\u03a9" in text and "Correlation of the estimates" in text
+    assert "20.00 fA" in text and "800.0 mohm" in text and "Correlation of the estimates" in text
     assert "+0.97" in text and "\u22120.62" in text.replace("-0.62", "\u22120.62")
     # instruments, identities, plan, limits, steps, events, version, temperature
     for needle in ("Simulated,SMU-SIM,0001,1.0", "Simulated,LCR-SIM,0002,1.0",

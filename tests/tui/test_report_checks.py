@@ -129,8 +129,8 @@ def test_linear_axes_take_one_si_prefix():
 
 def test_values_print_with_prefix_and_unit():
     assert qty(2e-14, "A") == "20 fA"
-    assert qty(0.8, "ohm") == "800 m\u03a9"
+    assert qty(0.8, "ohm") == "800 mohm"  # one spelling of the ohm everywhere
     assert qty(3.2e-6, "A") == "3.2 \u00b5A"
-    assert qty(math.inf, "ohm") == "\u221e \u03a9"
+    assert qty(math.inf, "ohm") == "\u221e ohm"
     assert qty(1.05, "") == "1.05"
     assert qty(None, "V") == "\u2014"

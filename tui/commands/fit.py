@@ -208,7 +208,7 @@ def _json_default(value):
 def parameter_lines(model) -> list[str]:
     """One line per parameter of a ModelSet: value, sigma, relative sigma."""
     from pnbench.modeling.params import UNITS
-    from pnbench.sweeps.quantities import format_quantity
+    from pnbench.sweeps.quantities import format_estimate, format_quantity
 
     lines = [f"  {'parameter':<10}{'value':>16}{'sigma':>16}{'rel. sigma':>12}"]
     for name in UNITS:
@@ -216,7 +216,7 @@ def parameter_lines(model) -> list[str]:
             continue
         value, sigma, unit = model.values[name], model.sigma(name), UNITS[name]
         plain = not unit or "/" in unit  # per-kelvin coefficients: plain numbers
-        val = f"{value:.6g}" if plain else format_quantity(value, unit)
+        val = format_estimate(value, sigma, "" if plain else unit)
         if sigma is None:
             sig, rel = "stated" if name == "IBV" else "-", ""
         else:

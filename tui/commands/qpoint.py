@@ -221,9 +221,9 @@ def format_table(doc: dict, source: str) -> str:
         ("model", f"{source}" + (f" ({doc['model']})" if doc.get("model") else "")),
         ("temperature", f"{doc['temperature_K']:.6g} K"),
         ("bias", f"{q(doc['bias_voltage_V'], 'V')}   {q(doc['bias_current_A'], 'A')}"),
-        ("rd / gd", f"{q(doc['rd_ohm'], 'Ohm')}   {q(doc['gd_S'], 'S')}"),
+        ("rd / gd", f"{q(doc['rd_ohm'], 'ohm')}   {q(doc['gd_S'], 'S')}"),
         ("Cj / Cd", f"{q(doc['cj_F'], 'F')}   {q(doc['cd_F'], 'F')}"),
-        ("RS / RSH", f"{q(doc['rs_ohm'], 'Ohm')}   {q(doc['rsh_ohm'], 'Ohm')}"),
+        ("RS / RSH", f"{q(doc['rs_ohm'], 'ohm')}   {q(doc['rsh_ohm'], 'ohm')}"),
     ]
     lines = [f"{name:<12} {value}" for name, value in rows]
     if doc["admittance"]:
@@ -232,8 +232,8 @@ def format_table(doc: dict, source: str) -> str:
         lines.append("  ".join(f"{h:>12}" for h in head))
         for e in doc["admittance"]:
             cells = (q(e["frequency_Hz"], "Hz"), q(e["conductance_S"], "S"),
-                     q(e["susceptance_S"], "S"), q(e["resistance_ohm"], "Ohm"),
-                     q(e["reactance_ohm"], "Ohm"))
+                     q(e["susceptance_S"], "S"), q(e["resistance_ohm"], "ohm"),
+                     q(e["reactance_ohm"], "ohm"))
             lines.append("  ".join(f"{c:>12}" for c in cells))
     if "ac_level" in doc:
         lines.append("")

@@ -15,6 +15,7 @@ from quantiphy import Quantity
 
 from pnbench.modeling.modelset import card_name
 from pnbench.modeling.params import UNITS
+from pnbench.sweeps.quantities import format_estimate
 from pnbench.tui.report.analysis import Analysis
 from pnbench.tui.report.data import RunData
 
@@ -29,11 +30,11 @@ def esc(value: object) -> str:
 
 
 def qty(value: float | None, unit: str, prec: int = 4) -> str:
-    """A value with SI prefix and unit for people ("2.5 mA", "800 m\u03a9")."""
+    """A value with SI prefix and unit for people ("2.5 mA", "800 mohm": the ohm is
+    spelt "ohm" everywhere pnbench prints, as in the app and on the terminal)."""
     if value is None:
         return "\u2014"
     value = float(value)
-    unit = "\u03a9" if unit == "ohm" else unit
     if math.isnan(value):
         return "n/a"
     if math.isinf(value):
@@ -82,7 +83,10 @@ def parameters(data: RunData, an: Analysis) -> str:
             continue
         value, sigma = m.values[name], m.sigma(name)
         rel = "\u2014" if sigma is None or value == 0 else f"{100 * sigma / abs(value):.3g} %"
-        rows.append([f"<strong>{esc(name)}</strong>", num(esc(qty(value, UNITS[name]))),
+        shown = format_estimate(value, sigma, UNITS[name]) if UNITS[name] else None
+        rows.append([f"<strong>{esc(name)}</strong>",
+                     num(esc(_MICRO.sub(" \u00b5", shown) if shown else
+                             format_estimate(value, sigma, ""))),
                      num(esc(qty(sigma, UNITS[name], prec=2) if sigma is not None else "unknown")),
                      num(esc(rel))])
     parts.append(table(["Parameter", "Value", "\u03c3", "\u03c3 / value"], rows))

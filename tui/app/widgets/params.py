@@ -7,7 +7,7 @@ import math
 from textual.widgets import DataTable
 
 from pnbench.modeling.params import UNITS
-from pnbench.sweeps.quantities import format_quantity
+from pnbench.sweeps.quantities import format_estimate, format_quantity
 from pnbench.tui.app.state import Estimate
 
 #: Display order: DC first, then capacitance, then transit time; others after.
@@ -21,12 +21,14 @@ SETTLED_MARK = "ok"
 MOVING_MARK = ".."
 
 
-def format_value(value: float, unit: str) -> str:
+def format_value(value: float, unit: str, sigma: float | None = None) -> str:
+    """The value with the digits its sigma supports (3 at least); ohm spelt "ohm"."""
     if not math.isfinite(value):
         return "inf" if math.isinf(value) else "--"
-    if unit in ("", "-"):
-        return f"{value:.4g}"
-    return format_quantity(value, unit, prec=3).replace("ohm", "Ohm")
+    if sigma is None:
+        return format_quantity(value, unit, prec=3) if unit not in ("", "-") else (
+            f"{value:.4g}")
+    return format_estimate(value, sigma, unit)
 
 
 def format_sigma(estimate: Estimate, unit: str, detailed: bool = False) -> str:
@@ -52,7 +54,7 @@ def rows(parameters: dict[str, Estimate],
         estimate = parameters[name]
         unit = UNITS.get(name, "F" if name == "CFIX" else "")
         out.append((FIXTURE_LABEL if name == "CFIX" else name,
-                    format_value(estimate.value, unit),
+                    format_value(estimate.value, unit, estimate.sigma),
                     format_sigma(estimate, unit, detailed),
                     SETTLED_MARK if estimate.settled else MOVING_MARK))
     return out
