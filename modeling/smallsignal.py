@@ -115,6 +115,27 @@ def operating_point(params: DiodeParams, *, voltage: float | None = None,
     )
 
 
+#: A junction is "off" for the small-signal equivalent when its voltage lies this many
+#: N*Vt below zero: exp(vd / N*Vt) < 0.7 %, so its diffusion conductance and diffusion
+#: capacitance are negligible and the figures of the exact model (1e-90 S and the like)
+#: say nothing a bench could see: leakage sets the conductance there.
+OFF_JUNCTION_NVT = 5.0
+
+
+def junction_off(q: QPoint) -> bool:
+    """Whether the junction is reverse biased beyond OFF_JUNCTION_NVT * N*Vt."""
+    nvt = q.params.N * junction.thermal_voltage(q.temperature_K)
+    return q.junction_voltage_V < -OFF_JUNCTION_NVT * nvt
+
+
+def off_rd_bound_ohm(q: QPoint) -> float:
+    """A lower bound on the junction's small-signal resistance when it is off: its
+    diffusion conductance IS/(N*Vt)*exp(vd/(N*Vt)) stays below IS/(N*Vt) for vd < 0,
+    so rd > N*Vt/IS (Shockley diode law; from memory)."""
+    nvt = q.params.N * junction.thermal_voltage(q.temperature_K)
+    return nvt / q.params.IS if q.params.IS > 0 else math.inf
+
+
 # --- what LCR meters report ------------------------------------------------------------
 
 def parallel_from_admittance(y, frequency_Hz):

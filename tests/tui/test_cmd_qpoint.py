@@ -114,3 +114,26 @@ def test_bad_input_exits_2_with_a_message_and_no_traceback(argv, fragment, tmp_p
     err = capsys.readouterr().err
     assert code == 2
     assert fragment in err and "Traceback" not in err
+
+
+def test_reverse_bias_says_the_junction_is_off_with_a_bound_and_the_leakage(model_json,
+                                                                            tmp_path, capsys):
+    """Reverse biased, the diffusion conductance IS/(N*Vt)*exp(vd/(N*Vt)) is below
+    IS/(N*Vt) (Shockley law; from memory): rd > N*Vt/IS. No 1e90-ohm figure is printed."""
+    assert cli.main(["qpoint", str(model_json), "--bias-voltage=-5", "--freq", "1k"]) == 0
+    out = capsys.readouterr().out
+    assert "junction off (reverse biased)" in out and "Cd negligible" in out
+    assert "leakage-limited" in out
+    assert not any(f"e{k}" in out for k in range(20, 400))  # no 37.826e69-style values
+    doc = _json_run(capsys, model_json, "--bias-voltage=-5")
+    vt = junction.thermal_voltage(300.15)
+    assert doc["junction_off"] is True
+    assert doc["rd_bound_ohm"] == pytest.approx(vt / 4e-14, rel=1e-9)
+    # with a shunt in the model the leakage conductance is 1/RSH
+    shunt = ModelSet(values={**MODEL.values, "RSH": 2e8}, sigmas={}, temperature_K=300.15)
+    path = tmp_path / "shunt.json"
+    path.write_text(json.dumps(shunt.to_json_dict()))
+    doc = _json_run(capsys, path, "--bias-voltage=-5")
+    assert doc["leakage_conductance_S"] == pytest.approx(5e-9) and doc["leakage_from"] == "RSH"
+    forward = _json_run(capsys, model_json, "--bias-current", "1mA")
+    assert forward["junction_off"] is False and "rd_bound_ohm" not in forward

@@ -195,7 +195,10 @@ def _evaluate(model, t, bias_voltage_V, bias_current_A, frequencies_Hz, ac_level
         "rsh_ohm": _finite_or_none(q.rsh_ohm),
         "admittance": admittance,
         "notes": notes,
+        "junction_off": smallsignal.junction_off(q),
     }
+    if doc["junction_off"]:
+        doc.update(off_figures(q, model.extras.get("leakage")))
     if ac_level_V_rms is not None:
         check = aclevel.check_ac_level(
             params, ac_level_V_rms, bias_voltage_V=q.bias_voltage_V,
@@ -208,6 +211,44 @@ def _evaluate(model, t, bias_voltage_V, bias_current_A, frequencies_Hz, ac_level
             "message": check.message,
         }
     return doc
+
+
+def off_figures(q, leakage) -> dict:
+    """What can be said of a junction that is off: a lower bound on its rd (N*Vt/IS), and
+    the conductance that leakage sets instead: 1/RSH, or the measured leakage current
+    over its voltage (a chord conductance), or an upper bound when it was below the
+    floor."""
+    from pnbench.modeling import smallsignal
+
+    out: dict = {"rd_bound_ohm": smallsignal.off_rd_bound_ohm(q)}
+    if math.isfinite(q.rsh_ohm):
+        out["leakage_conductance_S"] = 1.0 / q.rsh_ohm
+        out["leakage_from"] = "RSH"
+    elif isinstance(leakage, dict) and leakage.get("voltage_V"):
+        v = abs(float(leakage["voltage_V"]))
+        if leakage.get("current_A") is not None:
+            out["leakage_conductance_S"] = abs(float(leakage["current_A"])) / v
+            out["leakage_from"] = f"measured leakage at {leakage['voltage_V']:.4g} V"
+        elif leakage.get("below_A") is not None:
+            out["leakage_conductance_below_S"] = abs(float(leakage["below_A"])) / v
+            out["leakage_from"] = f"leakage below the floor at {leakage['voltage_V']:.4g} V"
+    return out
+
+
+def off_lines(doc: dict, q) -> list[tuple[str, str]]:
+    """The rd/gd and Cj/Cd rows of a junction that is off, in words and bounds."""
+    rd = f"junction off (reverse biased): rd > {q(doc['rd_bound_ohm'], 'ohm')} (N*Vt/IS)"
+    if "leakage_conductance_S" in doc:
+        g = doc["leakage_conductance_S"]
+        leak = (f"leakage-limited: about {q(g, 'S')} ({q(1.0 / g, 'ohm')}) from "
+                f"{doc['leakage_from']}")
+    elif "leakage_conductance_below_S" in doc:
+        leak = (f"leakage-limited: below {q(doc['leakage_conductance_below_S'], 'S')} "
+                f"({doc['leakage_from']})")
+    else:
+        leak = "leakage-limited: measure the leakage for the real conductance"
+    return [("rd / gd", rd), ("", leak),
+            ("Cj / Cd", f"{q(doc['cj_F'], 'F')}   Cd negligible (no stored charge when off)")]
 
 
 def format_table(doc: dict, source: str) -> str:
@@ -225,6 +266,8 @@ def format_table(doc: dict, source: str) -> str:
         ("Cj / Cd", f"{q(doc['cj_F'], 'F')}   {q(doc['cd_F'], 'F')}"),
         ("RS / RSH", f"{q(doc['rs_ohm'], 'ohm')}   {q(doc['rsh_ohm'], 'ohm')}"),
     ]
+    if doc.get("junction_off"):
+        rows[3:5] = off_lines(doc, q)
     lines = [f"{name:<12} {value}" for name, value in rows]
     if doc["admittance"]:
         lines.append("")

@@ -15,6 +15,7 @@ from quantiphy import Quantity
 
 from pnbench.modeling.modelset import card_name
 from pnbench.modeling.params import UNITS
+from pnbench.modeling.smallsignal import junction_off, off_rd_bound_ohm
 from pnbench.sweeps.quantities import format_estimate
 from pnbench.tui.report.analysis import Analysis
 from pnbench.tui.report.data import RunData
@@ -233,10 +234,15 @@ def qpoints(an: Analysis) -> str:
     rows = []
     for row in an.qrows:
         q = row.point
+        rd, gd, cd = qty(q.rd_ohm, "ohm"), qty(q.gd_S, "S"), qty(q.cd_F, "F")
+        if junction_off(q):  # the exact model's 1e-90 S says nothing a bench could see
+            rd = f"junction off: > {qty(off_rd_bound_ohm(q), 'ohm', 3)}"
+            gd = (f"leakage: {qty(1.0 / q.rsh_ohm, 'S', 3)} (RSH)"
+                  if math.isfinite(q.rsh_ohm) else "leakage-limited")
+            cd = "negligible"
         cells = [esc(row.origin), num(esc(qty(q.bias_voltage_V, "V"))),
-                 num(esc(qty(q.bias_current_A, "A"))), num(esc(qty(q.rd_ohm, "ohm"))),
-                 num(esc(qty(q.gd_S, "S"))), num(esc(qty(q.cj_F, "F"))),
-                 num(esc(qty(q.cd_F, "F"))), num(esc(qty(q.rs_ohm, "ohm")))]
+                 num(esc(qty(q.bias_current_A, "A"))), num(esc(rd)), num(esc(gd)),
+                 num(esc(qty(q.cj_F, "F"))), num(esc(cd)), num(esc(qty(q.rs_ohm, "ohm")))]
         for f in freqs:
             text = qty(row.impedance_ohm[f], "ohm")
             if f in row.measured_ohm:

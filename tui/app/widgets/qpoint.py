@@ -14,7 +14,7 @@ from textual.widgets import Static
 
 from pnbench.errors import BadInput
 from pnbench.modeling.params import DiodeParams
-from pnbench.modeling.smallsignal import operating_point
+from pnbench.modeling.smallsignal import junction_off, off_rd_bound_ohm, operating_point
 from pnbench.sweeps.quantities import format_quantity, parse_quantity
 from pnbench.tui.app.widgets.params import format_value
 
@@ -78,6 +78,12 @@ def qpoint_rows(params: DiodeParams, choice: QChoice, temperature_K: float,
         ("RS", format_value(q.rs_ohm, "ohm")),
         ("T", f"{temperature_K:.2f} K"),
     ]
+    if junction_off(q):  # the exact model's 1e-90 S says nothing a bench could see
+        words = {"rd": f"off: > {format_value(off_rd_bound_ohm(q), 'ohm')}",
+                 "gd": (f"leakage {format_value(1.0 / q.rsh_ohm, 'S')} (RSH)"
+                        if math.isfinite(q.rsh_ohm) else "leakage-limited"),
+                 "Cd": "negligible (junction off)"}
+        out = [(label, words.get(label, value)) for label, value in out]
     if known is not None:
         out = [(label, value if NEEDS.get(label, "IS") in known
                 else f"-- ({NEEDS[label]} not extracted yet)") for label, value in out]
