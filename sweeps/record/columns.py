@@ -22,7 +22,7 @@ from pnbench.errors import DataFileError
 from pnbench.sweeps.record.layout import COLUMNS, HEADER
 
 #: bytes parsed at once (bounds the memory a read needs beyond its columns)
-BLOCK_BYTES = 8 << 20
+BLOCK_BYTES = 4 << 20
 _FLOATS = ("time_s", "voltage_V", "current_A", "frequency_Hz", "capacitance_F",
            "conductance_S")
 
@@ -118,7 +118,8 @@ class PointColumns:
 
     def select(self, mask: np.ndarray) -> PointColumns:
         """The rows where ``mask`` holds (or rows at the given indices)."""
-        cut = {name: getattr(self, name)[mask] for name in _ARRAYS}
+        count = int(np.count_nonzero(mask)) if mask.dtype == bool else len(mask)
+        cut = {name: _take(getattr(self, name), mask, count) for name in _ARRAYS}
         return PointColumns(self.step_names, kind_names=self.kind_names,
                             first_line=self.first_line, metadata=self.metadata,
                             torn=self.torn, **cut)
@@ -140,24 +141,42 @@ class PointColumns:
 
 
 _ARRAYS = ("step_code", "kind_code", "index", *_FLOATS, "compliance")
+#: the numeric fields a reader may choose (the others it skips, costing no memory)
+FIELDS = ("index", *_FLOATS)
+#: file column of each number (step and kind are columns 0 and 2)
+_COLUMN = {"index": 1, "time_s": 3, "voltage_V": 4, "current_A": 5, "frequency_Hz": 6,
+           "capacitance_F": 7, "conductance_S": 8, "compliance": 9}
 
 
-def read_columns(path: Path) -> PointColumns:
-    """Every complete row of the points.csv at ``path``, as columns."""
+def _take(values: np.ndarray, mask: np.ndarray, count: int) -> np.ndarray:
+    if values.ndim == 1 and values.strides == (0,):  # a skipped field: still nothing
+        return np.broadcast_to(values[:1] if values.size else values, (count,))
+    return values[mask]
+
+
+def _skipped(name: str, n: int) -> np.ndarray:
+    fill = np.int64(-1) if name == "index" else np.float64(np.nan)
+    return np.broadcast_to(fill, (n,))
+
+
+def read_columns(path: Path, fields: tuple[str, ...] | None = None) -> PointColumns:
+    """Every complete row of the points.csv at ``path``, as columns. ``fields`` names the
+    numeric columns wanted (all of `FIELDS` by default); the others read as NaN (index:
+    -1) and take no memory. The file is read twice in blocks: once to count its lines,
+    so the columns are allocated once, then to parse it."""
+    wanted = FIELDS if fields is None else tuple(f for f in FIELDS if f in fields)
+    lines_at_most = _count_lines(path)
+    out = {name: np.empty(lines_at_most, dtype=np.float64 if name in _FLOATS else
+                          np.int64 if name == "index" else np.int32)
+           for name in ("step_code", "kind_code", *wanted)}
+    out["compliance"] = np.empty(lines_at_most, dtype=bool)
     metadata: dict[str, str] = {}
     header_line = 0
-    blocks: list[tuple[np.ndarray, ...]] = []
     steps: dict[bytes, int] = {}
     kinds: dict[bytes, int] = {}
-    line = 0
+    line = filled = 0
     torn = False
-    try:
-        handle = open(path, "rb")
-    except FileNotFoundError:
-        raise DataFileError(f"{path}: missing; not a pnbench run folder") from None
-    except OSError as exc:
-        raise DataFileError(f"{path}: cannot be read ({exc.strerror or exc})") from None
-    with handle:
+    with open(path, "rb") as handle:
         rest = b""
         while True:
             chunk = handle.read(BLOCK_BYTES)
@@ -167,15 +186,40 @@ def read_columns(path: Path) -> PointColumns:
                 break
             end = data.rfind(b"\n") + 1
             body, rest = data[:end], data[end:]
+            del data
             if not header_line:
                 body, line, header_line = _head(body, path, metadata, line)
                 if not header_line:
                     rest = body + rest
                     continue
             if body:
-                blocks.append(_parse_block(body, path, line, steps, kinds))
+                block = _parse_block(body, path, line, steps, kinds, wanted)
+                count = len(block["compliance"])
+                for name, values in block.items():
+                    out[name][filled:filled + count] = values
+                filled += count
                 line += body.count(b"\n")
-    return _assemble(blocks, [*steps], kinds, header_line + 1, metadata, torn)
+    cols = {name: values[:filled] for name, values in out.items()}
+    for name in FIELDS:
+        if name not in cols:
+            cols[name] = _skipped(name, filled)
+    return PointColumns(tuple(n.decode("utf-8") for n in steps),
+                        kind_names=tuple(k.decode("utf-8") for k in kinds),
+                        first_line=header_line + 1, metadata=metadata, torn=torn, **cols)
+
+
+def _count_lines(path: Path) -> int:
+    try:
+        handle = open(path, "rb")
+    except FileNotFoundError:
+        raise DataFileError(f"{path}: missing; not a pnbench run folder") from None
+    except OSError as exc:
+        raise DataFileError(f"{path}: cannot be read ({exc.strerror or exc})") from None
+    count = 0
+    with handle:
+        while chunk := handle.read(BLOCK_BYTES):
+            count += chunk.count(b"\n")
+    return count
 
 
 def _head(body: bytes, path: Path, metadata: dict, line: int) -> tuple[bytes, int, int]:
@@ -208,13 +252,16 @@ def _head(body: bytes, path: Path, metadata: dict, line: int) -> tuple[bytes, in
     return b"", line, 0
 
 
-def _parse_block(body: bytes, path: Path, line: int, steps: dict, kinds: dict):
-    """One block of complete rows (``line`` rows of the file before it)."""
+def _parse_block(body: bytes, path: Path, line: int, steps: dict, kinds: dict,
+                 fields: tuple[str, ...] = FIELDS) -> dict[str, np.ndarray]:
+    """One block of complete rows (``line`` rows of the file before it), as columns."""
+    names = (*fields, "compliance")
     filled = body.replace(b",,", b",nan,").replace(b",,", b",nan,")
     try:
-        numbers = np.loadtxt(io.BytesIO(filled), delimiter=",", usecols=(1, 3, 4, 5, 6, 7, 8,
-                                                                        9),
-                             dtype=float, ndmin=2, comments=None)
+        numbers = np.loadtxt(io.BytesIO(filled), delimiter=",",
+                             usecols=[_COLUMN[n] for n in names], dtype=float, ndmin=2,
+                             comments=None)
+        del filled
         text = np.loadtxt(io.BytesIO(body), delimiter=",", usecols=(0, 2), dtype="S64",
                           ndmin=2, comments=None)
         if len(numbers) != body.count(b"\n"):
@@ -222,12 +269,18 @@ def _parse_block(body: bytes, path: Path, line: int, steps: dict, kinds: dict):
     except (ValueError, UnicodeDecodeError):
         _find_bad_line(body, path, line)
         raise  # pragma: no cover - _find_bad_line raises
-    compliance = numbers[:, 7]
+    if (np.char.str_len(text) >= 64).any():  # a long step name: split those rows here
+        rows = body.split(b"\n")[:-1]
+        cells = [r.split(b",", 3) for r in rows]
+        text = np.array([[c[0], c[2]] for c in cells], dtype=object)
+    compliance = numbers[:, -1]
     if not np.isin(compliance, (0.0, 1.0)).all():
         _find_bad_line(body, path, line)
-    return (_codes(text[:, 0], steps), _codes(text[:, 1], kinds),
-            numbers[:, 0].astype(np.int64), *(numbers[:, k] for k in range(1, 7)),
-            compliance == 1.0)
+    out = {"step_code": _codes(text[:, 0], steps), "kind_code": _codes(text[:, 1], kinds)}
+    for k, name in enumerate(fields):
+        out[name] = numbers[:, k].astype(np.int64) if name == "index" else numbers[:, k]
+    out["compliance"] = compliance == 1.0
+    return out
 
 
 def _codes(values: np.ndarray, table: dict[bytes, int]) -> np.ndarray:
@@ -265,14 +318,20 @@ def _find_bad_line(body: bytes, path: Path, line: int) -> None:
     raise DataFileError(f"{path}: rows after line {line} cannot be read")
 
 
-def _assemble(blocks, step_names, kinds, first_line, metadata, torn) -> PointColumns:
-    if blocks:
-        cols = [np.concatenate(parts) for parts in zip(*blocks, strict=True)]
-        blocks.clear()
-    else:
-        cols = [np.empty(0, np.int32), np.empty(0, np.int32), np.empty(0, np.int64),
-                *(np.empty(0) for _ in _FLOATS), np.empty(0, bool)]
-    names = tuple(n.decode("utf-8") for n in step_names)
+def _assemble(blocks: list[dict], step_names, kinds, first_line, metadata,
+              torn) -> PointColumns:
+    n = sum(len(b["compliance"]) for b in blocks)
+    cols = {}
+    for name in _ARRAYS:
+        parts = [b[name] for b in blocks if name in b]
+        if parts:
+            cols[name] = np.concatenate(parts)
+        elif name in FIELDS:
+            cols[name] = _skipped(name, n)
+        else:
+            cols[name] = np.empty(0, dtype=bool if name == "compliance" else np.int32)
+    blocks.clear()
+    names = tuple(s.decode("utf-8") for s in step_names)
     kind_names = tuple(k.decode("utf-8") for k in kinds)
-    return PointColumns(names, cols[0], kind_names, cols[1], *cols[2:],
-                        first_line=first_line, metadata=metadata, torn=torn)
+    return PointColumns(names, kind_names=kind_names, first_line=first_line,
+                        metadata=metadata, torn=torn, **cols)

@@ -163,9 +163,11 @@ def read_run(run_dir: str | Path) -> RunInfo:
     return run_info(Path(run_dir), read_run_doc(run_dir))
 
 
-def read_columns(run_dir: str | Path) -> PointColumns:
-    """Every complete point of a run folder as columns (a torn last line left out)."""
-    return _columns(Path(run_dir) / layout.POINTS)
+def read_columns(run_dir: str | Path, fields: tuple[str, ...] | None = None) -> PointColumns:
+    """Every complete point of a run folder as columns (a torn last line left out);
+    ``fields`` limits the numeric columns kept (`columns.FIELDS`; the others read as NaN
+    and take no memory)."""
+    return _columns(Path(run_dir) / layout.POINTS, fields)
 
 
 def read_points(run_dir: str | Path) -> list[Point]:

@@ -257,3 +257,15 @@ def test_events_are_numbered_without_gaps_across_threads(tmp_path):
     assert [e.seq for e in written] == list(range(11, 811))
     assert len(got) == 1600
     assert Event.from_json_dict(written[0].to_json_dict()) == written[0]
+
+
+def test_columns_not_asked_for_read_as_nan_and_take_no_memory(tmp_path):
+    folder = make(tmp_path)
+    for k in range(50):
+        folder.append_point(Point("fwd", k, "iv", 0.1 * k, 0.01 * k, 1e-9 * k))
+    folder.close()
+    cols = read_columns(folder.path, fields=("voltage_V", "current_A"))
+    assert cols.voltage_V.tolist() == [0.01 * k for k in range(50)]
+    assert np.isnan(cols.time_s).all() and (cols.index == -1).all()
+    assert cols.time_s.strides == (0,)  # one value seen 50 times, not 50 values
+    assert len(cols.select(cols.step_mask("fwd")).time_s) == 50

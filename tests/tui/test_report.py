@@ -195,3 +195,30 @@ def report_analysis_of(run_dir):
     from pnbench.tui.report.data import load_run
 
     return analyze(load_run(run_dir))
+
+
+def test_a_long_run_is_drawn_thinned_to_what_the_figure_shows():
+    """Markers beyond THIN_ABOVE keep the first point in each cell of a fine grid: the
+    same picture (every occupied cell still has a marker), drawn in bounded time."""
+    import numpy as np
+
+    from pnbench.tui.report.plotstyle import THIN_ABOVE, THIN_CELLS, thin
+
+    small = np.arange(100.0)
+    assert len(thin(small, small)[0]) == 100
+    rng = np.random.default_rng(1)
+    v = np.tile(np.linspace(0.3, 0.8, 200), 2000)  # 400 000 points, 200 voltages
+    i = 1e-14 * np.exp(v / 0.0259) * (1 + 0.003 * rng.standard_normal(v.size))
+    x, y = thin(v, i)
+    assert THIN_ABOVE < v.size and len(x) < v.size / 20
+    assert set(np.unique(x)) == set(np.unique(v))  # every voltage still drawn
+
+    def cells(a, log):
+        a = np.log10(a) if log else a
+        return np.minimum(((a - a.min()) / np.ptp(a) * THIN_CELLS).astype(int),
+                          THIN_CELLS - 1)
+
+    every = set(zip(cells(v, False), cells(i, True), strict=True))
+    drawn = set(zip(cells(np.append(x, [v.min(), v.max()]), False)[:-2],
+                    cells(np.append(y, [i.min(), i.max()]), True)[:-2], strict=True))
+    assert drawn == every

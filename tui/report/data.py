@@ -45,11 +45,18 @@ class Points:
         """The points where ``mask`` holds, or None when there are none."""
         if not mask.any():
             return None
+        count = int(np.count_nonzero(mask))
+
+        def cut(values: np.ndarray) -> np.ndarray:
+            if values.strides == (0,):  # a column empty for every point stays one NaN
+                return np.broadcast_to(np.nan, (count,))
+            return values[mask]
+
         return Points(
             step=self.step[mask],
-            voltage_V=self.voltage_V[mask], current_A=self.current_A[mask],
-            frequency_Hz=self.frequency_Hz[mask], capacitance_F=self.capacitance_F[mask],
-            conductance_S=self.conductance_S[mask], compliance=self.compliance[mask],
+            voltage_V=cut(self.voltage_V), current_A=cut(self.current_A),
+            frequency_Hz=cut(self.frequency_Hz), capacitance_F=cut(self.capacitance_F),
+            conductance_S=cut(self.conductance_S), compliance=self.compliance[mask],
         )
 
 
@@ -108,23 +115,45 @@ class RunData:
 
 
 def _arrays(points: record.PointColumns, kind: str) -> Points | None:
+    """The points of one kind; a column that is empty for all of them (the C-V columns
+    of I-V points) is one read-only NaN, not a million."""
     mask = points.kind_mask(kind)
-    if not mask.any():
+    count = int(np.count_nonzero(mask))
+    if not count:
         return None
-    chosen = points.select(mask)
-    return Points(step=chosen.steps(), voltage_V=chosen.voltage_V,
-                  current_A=chosen.current_A, frequency_Hz=chosen.frequency_Hz,
-                  capacitance_F=chosen.capacitance_F, conductance_S=chosen.conductance_S,
-                  compliance=chosen.compliance)
+
+    def column(name: str) -> np.ndarray:
+        values = getattr(points, name)
+        if values.strides == (0,) or _all_nan(values, mask):
+            return np.broadcast_to(np.nan, (count,))
+        return values[mask]
+
+    names = np.asarray(points.step_names, dtype=object)
+    return Points(step=names[points.step_code[mask]], voltage_V=column("voltage_V"),
+                  current_A=column("current_A"), frequency_Hz=column("frequency_Hz"),
+                  capacitance_F=column("capacitance_F"),
+                  conductance_S=column("conductance_S"), compliance=points.compliance[mask])
+
+
+def _all_nan(values: np.ndarray, mask: np.ndarray, chunk: int = 1 << 16) -> bool:
+    """Whether every selected value is NaN (looked at a chunk at a time)."""
+    return all(np.isnan(values[k:k + chunk][mask[k:k + chunk]]).all()
+               for k in range(0, len(values), chunk))
+
+
+#: The columns the report uses (index and time are not read: a million points of them
+#: would be 16 MB for nothing).
+FIELDS = ("voltage_V", "current_A", "frequency_Hz", "capacitance_F", "conductance_S")
 
 
 def _load_points(data: RunData) -> None:
-    points = record.read_columns(data.run_dir)
+    points = record.read_columns(data.run_dir, FIELDS)
     data.metadata = dict(points.metadata)
     if points.torn:
         data.missing.append("points.csv: the last line was cut short (the run was stopped "
                             "while writing it) and is left out")
-    data.iv, data.cv = _arrays(points, "iv"), _arrays(points, "cv")
+    data.cv = _arrays(points, "cv")  # the small one first: less held at once
+    data.iv = _arrays(points, "iv")
     others = sorted(set(points.kind_names) - set(KINDS))
     if others:
         data.missing.append(f"points.csv: points of kind {', '.join(others)} are not drawn "

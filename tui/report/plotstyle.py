@@ -112,8 +112,65 @@ def _mantissa_labels(value: float, _pos=None) -> str:
 RASTER_ABOVE = 2000
 
 
+#: Above this many points a marker set is thinned to one marker per cell of a
+#: THIN_CELLS x THIN_CELLS grid over its range (finer than the figure's pixels), which
+#: looks the same and draws in a time that no longer grows with the run.
+THIN_ABOVE = 20_000
+THIN_CELLS = 1200
+
+
+_THIN_CHUNK = 65_536
+
+
+def _span(values: np.ndarray) -> tuple[float, float, bool]:
+    """(low, high, by decade) of an axis's finite values."""
+    finite = values[np.isfinite(values)] if not np.isfinite(values).all() else values
+    if not finite.size:
+        return 0.0, 0.0, False
+    lo, hi = float(finite.min()), float(finite.max())
+    if lo > 0 and hi > 100 * lo:
+        return math.log10(lo), math.log10(hi), True
+    return lo, hi, False
+
+
+def _cells(values: np.ndarray, span: tuple[float, float, bool]) -> np.ndarray:
+    lo, hi, log = span
+    if log:
+        values = np.log10(values)
+    if not hi > lo:
+        return np.zeros(values.size, dtype=np.int64)
+    return np.clip(((values - lo) * (THIN_CELLS / (hi - lo))).astype(np.int64), 0,
+                   THIN_CELLS - 1)
+
+
+def thin(x, y) -> tuple[np.ndarray, np.ndarray]:
+    """The points to draw: all of them up to THIN_ABOVE, else the first point in each
+    occupied grid cell, in the order taken (fits and counts use every point). Worked a
+    chunk at a time, so it needs little memory beyond what it returns."""
+    x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    if x.size <= THIN_ABOVE:
+        return x, y
+    sx, sy = _span(x), _span(y)
+    seen = np.zeros(THIN_CELLS * THIN_CELLS, dtype=bool)
+    keep = []
+    for start in range(0, x.size, _THIN_CHUNK):
+        cx, cy = x[start:start + _THIN_CHUNK], y[start:start + _THIN_CHUNK]
+        ok = np.flatnonzero(np.isfinite(cx) & np.isfinite(cy))
+        if not ok.size:
+            continue
+        key = _cells(cx[ok], sx) * THIN_CELLS + _cells(cy[ok], sy)
+        cells, first = np.unique(key, return_index=True)
+        new = ~seen[cells]
+        seen[cells[new]] = True
+        keep.append(start + ok[first[new]])
+    chosen = np.sort(np.concatenate(keep)) if keep else np.empty(0, dtype=np.int64)
+    return x[chosen], y[chosen]
+
+
 def marks(ax, x, y, marker: str, colour, *, small: bool = False, **kw):
-    """Measured points as open markers, smaller and rasterized when there are many."""
+    """Measured points as open markers, smaller and rasterized when there are many
+    (thinned to what the figure can show, `thin`, when there are very many)."""
+    x, y = thin(x, y)
     n = len(x)
     size = 3.5 if small else 4.5
     if n > 300:
