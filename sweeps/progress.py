@@ -163,6 +163,8 @@ class ProgressModel:
         progress.note_times(times)
         if progress.status == StepStatus.PENDING:
             progress.status = StepStatus.RUNNING
+        if progress.status == StepStatus.RUNNING:
+            self.current = step
 
     def apply_run_doc(self, doc: dict) -> None:
         """run.json's steps (planned, status) and status; done counts come from points."""
