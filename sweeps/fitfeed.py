@@ -205,8 +205,11 @@ class FitWorker:
                 return True
             name, point = item
             if point is None:
-                self._snapshot(name, final=True)
-                if batch[k + 1:k + 2] != [_STOP]:  # else the run's model comes next
+                # when the run's end follows at once, its model (fitted from every point)
+                # comes next: the step's last snapshot needs no refit, no provisional model
+                ending = batch[k + 1:k + 2] == [_STOP]
+                self._snapshot(name, final=True, refit=not ending)
+                if not ending:
                     self._write_model(final=False)
             else:
                 run, run_step = [point], name
@@ -241,14 +244,14 @@ class FitWorker:
             self._snapshot(name)
         self._last_snapshot = time.monotonic()
 
-    def _snapshot(self, name: str, final: bool = False) -> None:
+    def _snapshot(self, name: str, final: bool = False, refit: bool = True) -> None:
         self._dirty.discard(name)
         fitter = self._fitters.get(name)
         if fitter is None or name in self._broken:
             return
         step = self.steps[name]
         try:
-            if final:  # the step's last word: optional parameters decided afresh
+            if final and refit:  # the step's last word: optional parameters decided afresh
                 fitter.refit()
             result = fitter.snapshot()
         except Exception as exc:  # noqa: BLE001

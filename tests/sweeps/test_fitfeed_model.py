@@ -88,10 +88,15 @@ def test_columns_grow_and_keep_absent_cells_as_nan():
     assert fitmodel.arrays(rows, {"s"})["current_A"][3] == pytest.approx(3e-3)
 
 
-def test_no_provisional_model_just_before_the_run_model():
+def test_no_provisional_model_just_before_the_run_model(monkeypatch):
     """When the run's end follows a step's end at once, only the run's model is written
-    (a provisional one would be replaced a moment later)."""
+    (a provisional one would be replaced a moment later), and the step's last live
+    snapshot skips its full refit (the run's fit from every point follows)."""
+    from pnbench.modeling.incremental import IncrementalFitter
     from pnbench.sweeps.fitfeed import _STOP
+
+    refits = []
+    monkeypatch.setattr(IncrementalFitter, "refit", lambda self: refits.append(self))
 
     plan = plan_of(["forward"])
     written = []
@@ -100,3 +105,6 @@ def test_no_provisional_model_just_before_the_run_model():
     batch = [("forward", p) for p in step_points("forward", rng)]
     assert worker._handle([*batch, ("forward", None), _STOP]) is True
     assert len(written) == 1 and "provisional" not in written[0].extras
+    assert refits == []
+    worker._handle([("forward", None)])  # a step's end alone: refit and provisional model
+    assert len(refits) == 1 and written[-1].extras.get("provisional")
