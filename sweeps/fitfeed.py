@@ -209,6 +209,7 @@ class FitWorker:
                 # comes next: the step's last snapshot needs no refit, no provisional model
                 ending = batch[k + 1:k + 2] == [_STOP]
                 self._snapshot(name, final=True, refit=not ending)
+                self._fitters.pop(name, None)  # done: its result stays, its copy goes
                 if not ending:
                     self._write_model(final=False)
             else:
