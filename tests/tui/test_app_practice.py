@@ -7,6 +7,7 @@ sweep run in the app (or not, with --no-report)."""
 
 from __future__ import annotations
 
+import numpy as np
 import pytest
 from plantext import sweep_plan
 from test_app_run import wait_for
@@ -189,3 +190,62 @@ def test_the_hazardous_voltage_message_has_no_internal_aside():
     message = str(err.value)
     assert "acknowledge_hazardous_voltage" in message and "60 V" in message
     assert "from memory" not in message and "…" not in message
+
+
+def _admittance_state(biases) -> RunState:
+    state = RunState()
+    state.set_plan_steps([("adm", "admittance", len(biases) * 4)])
+    for bias in biases:
+        for f in (1e5, 3e5, 1e6, 2e6):
+            state.add_point({"step": "adm", "point_kind": "cv", "voltage_V": bias,
+                             "frequency_Hz": f, "capacitance_F": 1e-10 * (1 + bias),
+                             "conductance_S": 1e-3 * bias, "time_s": 0.0})
+    return state
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_the_admittance_legend_shows_every_bias(tmp_path, size):
+    from pnbench.tui.app.plots import plot_data
+    from pnbench.tui.app.widgets.plot import SweepPlot
+
+    biases = [0.50, 0.52, 0.55, 0.58, 0.60, 0.62, 0.64]  # 7, as in a bundled plan
+    data = plot_data("yc", _admittance_state(biases))
+    labels = [s.label for s in data.series if not s.line]
+    assert labels == [f"{b:+.3g} V" for b in biases]
+    assert len(set(s.marker for s in data.series if not s.line)) == 7
+    app = PnbenchApp(plan_file(tmp_path), bench="lh-qt16@pnsim:time_scale=0")
+    async with app.run_test(size=size) as pilot:
+        await pilot.pause(0.2)
+        plot = app.screen.query_one(SweepPlot)
+        plot.show(data, "6/7")
+        await pilot.pause(0.2)
+        title = plot.query_one(".plot-title")
+        shown = "\n".join(line.text for line in title.render_lines(title.region.reset_offset))
+        for label in labels:
+            assert label in shown.replace("\n", " "), (label, shown)
+    many = plot_data("yc", _admittance_state([0.3 + 0.02 * k for k in range(13)]))
+    assert "10 of 13 biases shown" in many.note
+
+
+def test_the_residual_rms_leaves_out_reverse_points_at_the_noise_floor():
+    """A forward fit that is good, and reverse points at a 10 pA floor that the model's
+    femtoamperes cannot meet: the rms stated is the forward one."""
+    from pnbench.modeling import junction
+    from pnbench.modeling.params import DiodeParams
+    from pnbench.tui.app.plots import plot_data
+    from pnbench.tui.app.state import Estimate
+
+    p = DiodeParams(IS=1e-14, N=1.05, RS=0.5, RSH=1e12)
+    state = RunState()
+    state.set_plan_steps([("fwd", "iv_forward", 30), ("rev", "iv_reverse", 30)])
+    for v in np.linspace(0.3, 0.7, 30):
+        i = float(junction.current(v, p, 300.15)) * 1.01
+        state.add_point({"step": "fwd", "point_kind": "iv", "voltage_V": v, "current_A": i})
+    for v in np.linspace(-0.1, -5, 30):
+        state.add_point({"step": "rev", "point_kind": "iv", "voltage_V": v,
+                         "current_A": -1e-11})
+    state.parameters = {name: Estimate(getattr(p, name), None, True)
+                        for name in ("IS", "N", "RS", "RSH")}
+    data = plot_data("resid", state)
+    assert data.note.startswith("forward rms 0.00")  # a 1 % misfit is 0.004 decades
+    assert any(s.label == "reverse" for s in data.series)  # still drawn

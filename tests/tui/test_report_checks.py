@@ -134,3 +134,21 @@ def test_values_print_with_prefix_and_unit():
     assert qty(math.inf, "ohm") == "\u221e ohm"
     assert qty(1.05, "") == "1.05"
     assert qty(None, "V") == "\u2014"
+
+
+def test_a_step_ended_at_its_breakdown_guard_is_not_missing():
+    """A reverse step that stops at its guard current did what the plan asked; a step
+    ended by another guard is listed, in words."""
+    from types import SimpleNamespace
+
+    from pnbench.tui.report.analysis import missing_items
+
+    run = {"status": "completed", "steps": [
+        {"name": "breakdown", "done": 111, "planned": 401, "status": "limit",
+         "ended_by": "breakdown_guard"},
+        {"name": "forward", "done": 40, "planned": 90, "status": "limit",
+         "ended_by": "compliance_storm"}]}
+    items = missing_items(SimpleNamespace(run=run, missing=[]), SimpleNamespace(missing=[]))
+    assert not [i for i in items if "breakdown" in i]
+    assert len(items) == 1 and "forward: 40 of 90" in items[0]
+    assert "compliance_storm" not in items[0] and "repeated compliance" in items[0]

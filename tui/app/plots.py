@@ -46,8 +46,8 @@ MAX_DRAWN = 800
 THIN_GRID = 400
 
 #: Markers for data series, distinct without colour.
-MARKERS = ("o", "+", "x", "*", "#", "@")
-STYLES = ("bold", "bold", "bold", "bold", "bold", "bold")
+MARKERS = ("o", "+", "x", "*", "#", "@", "%", "&", "=", "$")
+STYLES = ("bold",) * len(MARKERS)
 
 
 @dataclass
@@ -222,21 +222,25 @@ def iv_residuals(state: RunState | Snapshot, params: DiodeParams,
 
 def _residual(view: str, state: RunState, params: DiodeParams | None) -> PlotData:
     """Forward points against the fit; reverse points too once the fit has a reverse
-    part (RSH or BV): before that the model cannot be expected to meet them."""
+    part (RSH or BV): before that the model cannot be expected to meet them. The rms is
+    that of the forward points: reverse points sit mostly at the meter's noise floor,
+    where the ratio to a femtoampere fit says nothing about the fit."""
     data = PlotData(view, dict(VIEWS)[view], "V", "log10(I/Ifit)", "V", "dec")
     if params is None or not has_dc_fit(state.parameters) or len(state.iv) == 0:
         data.note = "needs I-V points and an I-V fit"
         return data
     v, r = iv_residuals(state, params, reverse=False)
     data.series.append(Series(*_thin(v, r), "forward", marker="o"))
+    rms = float(np.sqrt(np.mean(r ** 2))) if len(r) else math.nan
     if {"RSH", "BV"} & set(state.parameters):
         v_rev, r_rev = iv_residuals(state, params, reverse=True)
         data.series.append(Series(*_thin(v_rev, r_rev), "reverse", marker="+"))
-        v, r = np.concatenate([v, v_rev]), np.concatenate([r, r_rev])
+        v = np.concatenate([v, v_rev])
     if len(v):
         data.series.append(Series(np.array([v.min(), v.max()]), np.zeros(2), "zero",
                                   line=True))
-        data.note = f"rms {float(np.sqrt(np.mean(r ** 2))):.3f} decades"
+        data.note = (f"forward rms {rms:.3f} decades" if math.isfinite(rms)
+                     else "no forward points")
     return data
 
 
@@ -306,8 +310,10 @@ def _admittance(view: str, state: RunState, params: DiodeParams | None) -> PlotD
     f = state.cv.column("frequency_Hz")[mask]
     y = state.cv.column("capacitance_F" if capacitive else "conductance_S")[mask]
     biases = np.unique(v[np.isfinite(v)])
+    every = biases.size
     if biases.size > len(MARKERS):  # show a spread of biases, lowest to highest
         biases = biases[np.linspace(0, biases.size - 1, len(MARKERS)).round().astype(int)]
+        data.note = f"{biases.size} of {every} biases shown, lowest to highest"
     for n, bias in enumerate(biases):
         at = (v == bias) & np.isfinite(f) & (f > 0)
         order = np.argsort(f[at])

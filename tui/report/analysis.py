@@ -19,6 +19,7 @@ from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
 from pnbench.sweeps.events import Limit
 from pnbench.sweeps.record import model_source
 from pnbench.sweeps.record.layout import MODEL as MODEL_FILE
+from pnbench.tui.app.words import guard_words, status_words
 from pnbench.tui.report.data import Points, RunData
 
 #: A C-V curve needs this many biases at one frequency; a spectrum this many frequencies.
@@ -323,10 +324,12 @@ def missing_items(data: RunData, an: Analysis) -> list[str]:
         if not isinstance(step, dict):
             continue
         done, planned = step.get("done", 0), step.get("planned", 0)
+        if step.get("ended_by") == "breakdown_guard":
+            continue  # a reverse step ends at its guard current by design: nothing missing
         if isinstance(done, int) and isinstance(planned, int) and done < planned:
-            why = str(step.get("status") or "status unknown")
+            why = status_words(step.get("status") or "status unknown")
             if step.get("ended_by"):
-                why += f": ended by {step['ended_by']}"
+                why += f": ended by {guard_words(step['ended_by'])}"
             items.append(f"step {step.get('name')}: {done} of {planned} planned points "
                          f"measured ({why})")
     return items + list(data.missing) + list(an.missing)

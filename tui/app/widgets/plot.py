@@ -73,7 +73,7 @@ class SweepPlot(Vertical):
 
     DEFAULT_CSS = """
     SweepPlot { height: 1fr; }
-    SweepPlot > .plot-title { height: 1; text-style: bold; }
+    SweepPlot > .plot-title { height: auto; max-height: 3; text-style: bold; }
     SweepPlot > PlotWidget { height: 1fr; }
     """
 
