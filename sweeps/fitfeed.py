@@ -37,7 +37,7 @@ from collections.abc import Callable
 from pnbench.sweeps import fitmodel
 from pnbench.sweeps.events import EventBus, finite
 from pnbench.sweeps.planstep import Step
-from pnbench.sweeps.store import Point
+from pnbench.sweeps.record import Point
 
 _STOP = object()
 #: Most points taken off the queue at once (added to a fitter as one batch).

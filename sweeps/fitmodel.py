@@ -12,7 +12,7 @@ import importlib.util
 import numpy as np
 
 from pnbench.modeling.smallsignal import admittance_from_parallel
-from pnbench.sweeps.store import Point
+from pnbench.sweeps.record import Point
 
 #: The fitter kind of each step kind (the same names).
 FIT_KIND = {"iv_forward": "iv_forward", "iv_reverse": "iv_reverse", "cv": "cv",

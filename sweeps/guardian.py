@@ -58,7 +58,7 @@ def rescue(run_dir: Path, lock_timeout_s: float = 30.0) -> int:
     import time
 
     from pnbench.errors import PnbenchError
-    from pnbench.sweeps.store import RunFolder, iso, read_run, utc_now
+    from pnbench.sweeps.record import RunFolder, iso, read_run, utc_now
 
     try:  # a run that ended with its record written needs nothing, and no lock: taking
         # it would make a `resume` started at once find the folder in use

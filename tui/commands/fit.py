@@ -161,37 +161,35 @@ def _noise_option(text: str, option: str, unit: str) -> tuple[float, float]:
 
 def _run_ac_levels(source: str, data) -> dict:
     """For a run folder, the LCR test level of every C-V row (from its step in the
-    plan, NaN where unknown), by data kind; {} elsewhere."""
-    import csv
+    plan, NaN where unknown), by data kind; {} elsewhere. The folder is read through the
+    run record (the step of each row, by column)."""
     from pathlib import Path
 
     import numpy as np
 
-    from pnbench.errors import PlanError
+    from pnbench.errors import PnbenchError
+    from pnbench.sweeps import record
     from pnbench.sweeps.plan import load_plan
 
     folder = Path(source)
-    if not (folder / "plan.toml").is_file() or not (folder / "points.csv").is_file():
+    if not (folder.is_dir() and record.has(folder, record.layout.PLAN)
+            and record.has(folder, record.layout.POINTS)):
         return {}
     try:
-        plan = load_plan(folder / "plan.toml")
-        lines = (folder / "points.csv").read_text(encoding="utf-8").splitlines()
-    except (PlanError, OSError, UnicodeDecodeError):
+        plan = load_plan(record.plan_path(folder))
+        steps = record.read_columns(folder, fields=())
+    except (PnbenchError, OSError):
         return {}  # the plan's trouble is said once already, by _run_breakdown_current
     level = {s.name: getattr(s, "ac_level_V", None) for s in plan.steps}
-    header = next((ln for ln in lines if ln and not ln.startswith("#")), "")
-    if not header.startswith("step,"):
-        return {}
+    names = steps.steps()
     out = {}
     for kind in data.kinds:
-        rows = data.row_kind == kind
-        values = []
-        for n in np.asarray(data.line_numbers)[rows]:
-            k = int(n) - 1
-            step = next(csv.reader([lines[k]]))[0] if 0 <= k < len(lines) else ""
-            values.append(level.get(step) if level.get(step) is not None else np.nan)
+        at = np.asarray(data.line_numbers)[data.row_kind == kind] - steps.first_line
+        ok = (at >= 0) & (at < len(names))
+        values = np.full(at.size, np.nan)
+        values[ok] = [np.nan if level.get(s) is None else level[s] for s in names[at[ok]]]
         if np.any(np.isfinite(values)):
-            out[kind] = np.asarray(values, dtype=float)
+            out[kind] = values
     return out
 
 
