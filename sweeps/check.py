@@ -31,11 +31,12 @@ class Estimate:
     step_power_W: list[float | None]  # worst case without the power guard; None for LCR
     worst_power_W: float
     guarded_steps: list[str]  # steps whose worst case is above max_power
+    thermal_s: float = 0.0  # a run over temperature: the stage's ramps, waits and soaks
 
     def to_json_dict(self) -> dict:
         return {"total_s": self.total_s, "step_s": self.step_s,
                 "step_power_W": self.step_power_W, "worst_power_W": self.worst_power_W,
-                "guarded_steps": self.guarded_steps}
+                "guarded_steps": self.guarded_steps, "thermal_s": self.thermal_s}
 
 
 def step_seconds(step: Step, line_frequency_Hz: float = 50.0) -> float:
@@ -62,5 +63,10 @@ def estimate(plan: Plan) -> Estimate:
     worst = max((p for p in power if p is not None), default=0.0)
     guarded = [s.name for s, p in zip(plan.steps, power, strict=True)
                if p is not None and p > plan.limits.max_power_W]
-    return Estimate(total_s=sum(per_step), step_s=per_step, step_power_W=power,
-                    worst_power_W=worst, guarded_steps=guarded)
+    thermal = 0.0
+    if plan.temperature is not None:
+        from pnbench.sweeps.thermalplan import thermal_seconds
+
+        thermal = thermal_seconds(plan.temperature)
+    return Estimate(total_s=sum(per_step) + thermal, step_s=per_step, step_power_W=power,
+                    worst_power_W=worst, guarded_steps=guarded, thermal_s=thermal)

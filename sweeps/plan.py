@@ -22,10 +22,16 @@ from pnbench.sweeps.limits import (
 )
 from pnbench.sweeps.planread import Problems, TableReader
 from pnbench.sweeps.planstep import Step, read_step
+from pnbench.sweeps.thermalplan import (
+    TemperaturePlan,
+    expand_steps,
+    read_stage_ratings,
+    read_temperature,
+)
 from pnbench.sweeps.tomllines import key_lines
 
 PLAN_FORMAT = 1
-ROLES = ("smu", "lcr")
+ROLES = ("smu", "lcr", "stage")
 #: Rating keys an instrument table may carry (the instrument's own maxima), per role.
 RATINGS = {
     "smu": {"max_voltage": "V", "max_current": "A"},
@@ -75,6 +81,7 @@ class Plan:
     steps: tuple[Step, ...]
     line_frequency_Hz: float = 50.0
     warnings: tuple[str, ...] = ()
+    temperature: TemperaturePlan | None = None  # a run over temperature (thermalplan)
 
     def step(self, name: str) -> Step:
         for s in self.steps:
@@ -84,7 +91,8 @@ class Plan:
 
     @property
     def roles_needed(self) -> set[str]:
-        return {s.instrument for s in self.steps}
+        roles = {s.instrument for s in self.steps}
+        return roles | {"stage"} if self.temperature is not None else roles
 
     @property
     def total_points(self) -> int:
@@ -172,6 +180,7 @@ def _read(doc: dict, text: str, filename: str, base_dir: Path, problems: Problem
     limits = _read_limits(TableReader(top.raw("limits", True, "a [limits] table") or {},
                                       ("limits",), problems), instruments)
     steps_raw = top.raw("steps", True, "at least one [[steps]] table")
+    temperature_raw = top.raw("temperature")
     top.finish()
 
     steps: list[Step] = []
@@ -191,11 +200,19 @@ def _read(doc: dict, text: str, filename: str, base_dir: Path, problems: Problem
                                  "an earlier step; each step needs its own name")
                 names.add(step.name)
                 steps.append(step)
+    temperature = None
+    if temperature_raw is not None:
+        stage = instruments.get("stage")
+        temperature = read_temperature(
+            TableReader(temperature_raw, ("temperature",), problems),
+            {s.name for s in steps}, stage.ratings if stage else None, warnings)
     if problems.items or limits is None or device is None:
         return None
+    if temperature is not None:
+        steps = list(expand_steps(tuple(steps), temperature))
     return Plan(path=filename, text=text, title=title, device=device, limits=limits,
                 instruments=instruments, steps=tuple(steps), line_frequency_Hz=line_hz,
-                warnings=tuple(warnings))
+                warnings=tuple(warnings), temperature=temperature)
 
 
 def _read_device(t: TableReader) -> Device | None:
@@ -249,6 +266,8 @@ def _read_instruments(raw: object, base_dir: Path, problems: Problems) -> dict:
             value = t.quantity(key, unit, positive=True)
             if value is not None:
                 ratings[key] = value
+        if role == "stage":
+            ratings = read_stage_ratings(t)
         t.finish()
         if role is None or resource is None:
             continue

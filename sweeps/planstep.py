@@ -48,6 +48,7 @@ class Step:
     four_wire: bool = False
     end_when_settled: float | None = None  # target relative error of the fitted values
     min_points: int = 8
+    set_point_K: float | None = None  # a run over temperature: the stage set point
 
     @property
     def instrument(self) -> str:

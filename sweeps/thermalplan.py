@@ -238,3 +238,42 @@ def _read_only(t: TableReader, step_names: set[str], points: list[float]) -> dic
             chosen.append(k)
         out[name] = tuple(chosen)
     return out
+
+
+def step_label(set_point_K: float) -> str:
+    """How a set point shows in a step's name: "iv@298.15K"."""
+    return f"{set_point_K:.6g}K"
+
+
+def expand_steps(steps: tuple, plan: TemperaturePlan) -> tuple:
+    """The steps of a run over temperature, in run order: for each set point, each step
+    that runs there, renamed ``NAME@<T>K`` and carrying its ``set_point_K``."""
+    from dataclasses import replace
+
+    return tuple(replace(step, name=f"{step.name}@{step_label(t)}", set_point_K=t)
+                 for t in plan.set_points_K for step in steps if plan.runs_at(step.name, t))
+
+
+def thermal_seconds(plan: TemperaturePlan, start_K: float = DEFAULT_STANDBY_K) -> float:
+    """The time the stage needs over the run: each ramp at the plan's rate (none counted
+    without one), the stability window and the soak at each set point, and the ramp back
+    to standby. The stage's own lag is not known here and comes on top."""
+    rate = plan.ramp_K_per_min
+    path = [start_K, *plan.set_points_K, plan.standby_K]
+    ramps = sum(abs(b - a) for a, b in zip(path, path[1:], strict=False))
+    ramp_s = 60.0 * ramps / rate if rate else 0.0
+    return ramp_s + len(plan.set_points_K) * (plan.stable_for_s + plan.soak_s)
+
+
+def describe(plan: TemperaturePlan) -> str:
+    """One line for `pnbench check`."""
+    c = [f"{t - ZERO_C_K:.4g}" for t in plan.set_points_K]
+    ramp = f"ramp {plan.ramp_K_per_min:g} K/min" if plan.ramp_K_per_min else \
+        "ramp as fast as the stage goes"
+    rated = (f", device rated {plan.device_rated_K[0] - ZERO_C_K:.4g} to "
+             f"{plan.device_rated_K[1] - ZERO_C_K:.4g} degC" if plan.device_rated_K else "")
+    return (f"temperature: {len(c)} set points {', '.join(c)} degC; {ramp}; stable within "
+            f"+-{plan.stable_within_K:g} K for {plan.stable_for_s:g} s, soak "
+            f"{plan.soak_s:g} s, at most {plan.timeout_s:g} s each; standby "
+            f"{plan.standby_K - ZERO_C_K:.4g} degC; stage limits "
+            f"{plan.lowest_K - ZERO_C_K:.4g} to {plan.highest_K - ZERO_C_K:.4g} degC{rated}")

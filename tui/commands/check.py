@@ -53,6 +53,7 @@ def summary(plan) -> dict:
                   for s, t, p in zip(plan.steps, est.step_s, est.step_power_W, strict=True)],
         "total_points": plan.total_points, "estimate": est.to_json_dict(),
         "warnings": list(plan.warnings),
+        "temperature": plan.temperature.to_json_dict() if plan.temperature else None,
     }
 
 
@@ -79,7 +80,11 @@ def run(args) -> int:
           + (f"; fits the simulated bench with {args.simulate}" if args.simulate else ""))
     print(f"device {d.name}" + (f", {d.material}" if d.material else "")
           + (f", area {d.area_m2:.4g} m^2" if d.area_m2 else "")
-          + f", {d.temperature_K:.2f} K")
+          + (f", {d.temperature_K:.2f} K" if plan.temperature is None else ""))
+    if plan.temperature is not None:
+        from pnbench.sweeps.thermalplan import describe as describe_temperature
+
+        print(describe_temperature(plan.temperature))
     print(f"limits: {q(lim.max_voltage_V, 'V', 3)} forward, "
           f"{q(lim.max_reverse_voltage_V, 'V', 3)} reverse, {q(lim.max_current_A, 'A', 3)}, "
           f"{q(lim.max_power_W, 'W', 3)}")
@@ -101,7 +106,9 @@ def run(args) -> int:
         print(f"{n:>2} {s.name:<{width}} {s.kind:<11} {s.planned:>6} {format_duration(t):>8} "
               f"{power:>9}  {_range(s)}")
     print(f"\n{plan.total_points} points, estimated {format_duration(est.total_s)} "
-          "(points x (settle + integration + overhead))")
+          "(points x (settle + integration + overhead)"
+          + (f"; the stage's ramps, stability and soaks {format_duration(est.thermal_s)})"
+             if est.thermal_s else ")"))
     print(f"worst-case power without the power guard: {q(est.worst_power_W, 'W', 3)}"
           + (f"; above max_power in {', '.join(est.guarded_steps)}: the runner predicts "
              "each level's power and ends the step before it" if est.guarded_steps else ""))
