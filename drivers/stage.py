@@ -64,6 +64,7 @@ class ThermalStage(_Role):
         self.limits = limits or StageLimits(3.0, 1273.15)
         self.set_point_K: float | None = None
         self.ramp_K_per_min: float | None = None
+        self.standby_K = DEFAULT_STANDBY_K  # where safe_off sends the stage
 
     # --- units --------------------------------------------------------------------------
     def _to_stage(self, t_K: float) -> float:
@@ -168,3 +169,7 @@ class ThermalStage(_Role):
         if reading.regulating is False:
             problems.append("the stage reports regulation off at standby")
         return problems
+
+    def safe_off(self) -> list[str]:
+        """The stage's part of every way out: standby (see `standby`). Idempotent."""
+        return self.standby(self.standby_K)

@@ -44,6 +44,7 @@ class Connection:
     dialect_path: str | None
     timeout_ms: int
     identity: str = ""
+    stage: dict | None = None  # the stage role's limits and standby (thermal_settings)
 
     def to_json_dict(self) -> dict:
         return {"resource": self.resource, "backend": self.backend,
@@ -60,6 +61,11 @@ class Bench:
     simulated: str | None = None
     last_off: dict = field(default_factory=dict)
     identity_changes: list = field(default_factory=list)
+    clock: object | None = None  # the stage's time: WallClock, or the simulated bench's
+
+    @property
+    def stage(self):
+        return self.roles.get("stage")
 
     @property
     def smu(self):
@@ -74,8 +80,10 @@ class Bench:
         return {role: c.to_json_dict() for role, c in self.connections.items()}
 
     def safe_off(self) -> dict[str, bool]:
-        """Ramp to zero and turn off every role's output; {role: confirmed off}."""
-        report = {role: self._off(role) for role in self.roles}
+        """Ramp to zero and turn off every role's output, then send a thermal stage to
+        its standby temperature (sources first); {role: confirmed}."""
+        report = {role: self._off(role) for role in sorted(self.roles,
+                                                           key=lambda r: r == "stage")}
         self.last_off = report
         return report
 
@@ -148,6 +156,12 @@ def _open_role(conn: Connection):
     session = open_session(conn.resource, backend=conn.backend, timeout_ms=conn.timeout_ms,
                            dialect=dialect)
     try:
+        if conn.role == "stage":
+            from pnbench.drivers.stage import ThermalStage
+
+            stage = ThermalStage(session, dialect, (conn.stage or {}).get("limits"))
+            stage.standby_K = (conn.stage or {}).get("standby_K", stage.standby_K)
+            return stage
         return Smu(session, dialect) if conn.role == "smu" else LcrMeter(session, dialect)
     except Exception:
         session.close()
@@ -165,8 +179,22 @@ def connections_for(plan: Plan, roles: set[str]) -> dict[str, Connection]:
                            f"[instruments] has no {role!r} entry; add one (resource, "
                            "backend, dialect) or rehearse with --simulate DEVICE")
         found[role] = Connection(role, spec.resource, spec.backend, spec.dialect,
-                                 spec.timeout_ms)
+                                 spec.timeout_ms,
+                                 stage=thermal_settings(plan) if role == "stage" else None)
     return found
+
+
+def thermal_settings(plan: Plan) -> dict:
+    """The stage role's limits (the plan's lowest/highest, the stage's ramp rating) and
+    standby temperature."""
+    from pnbench.drivers.stage import StageLimits
+
+    t = plan.temperature
+    if t is None:
+        return {}
+    spec = plan.instruments.get("stage")
+    fastest = (spec.ratings if spec else {}).get("max_ramp_rate", float("inf"))
+    return {"limits": StageLimits(t.lowest_K, t.highest_K, fastest), "standby_K": t.standby_K}
 
 
 @contextlib.contextmanager
@@ -189,6 +217,11 @@ def open_bench(plan: Plan, *, expected: dict | None = None, force_identity: bool
 
             held = spec.backend
             bench.sim = REGISTRY.acquire(held)  # one bench for both roles, for the run
+            bench.clock = bench.sim.clock  # the stage's time: the runner drives it
+        else:
+            from pnbench.sweeps.thermal import WallClock
+
+            bench.clock = WallClock()
         bench.connections = connections_for(plan, plan.roles_needed)
         for role, conn in bench.connections.items():
             bench.roles[role] = _open_role(conn)

@@ -243,6 +243,37 @@ class RunFinished(Event):
 
 
 @dataclass(frozen=True, kw_only=True, slots=True)
+class StageRamping(Event):
+    """A run over temperature: the stage was sent to a set point; the wait begins."""
+
+    KIND: ClassVar[str] = "stage_ramping"
+    set_point_K: float = 0.0
+    temperature_K: float | None = None  # the reading when it was sent
+    ramp_K_per_min: float | None = None
+
+
+@dataclass(frozen=True, kw_only=True, slots=True)
+class StageStable(Event):
+    """Every reading stayed within the band for the stability window; the soak follows."""
+
+    KIND: ClassVar[str] = "stage_stable"
+    set_point_K: float = 0.0
+    temperature_K: float | None = None
+    waited_s: float | None = None
+
+
+@dataclass(frozen=True, kw_only=True, slots=True)
+class StageDrifting(Event):
+    """A warning: a reading beyond the band during a soak or a step (once per excursion)."""
+
+    KIND: ClassVar[str] = "stage_drifting"
+    set_point_K: float = 0.0
+    temperature_K: float | None = None
+    band_K: float | None = None
+    during: str | None = None
+
+
+@dataclass(frozen=True, kw_only=True, slots=True)
 class OtherEvent(Event):
     """An event of a kind this version does not know (read from a newer file)."""
 
@@ -259,7 +290,7 @@ class OtherEvent(Event):
 #: Every kind of event, in the order a run usually produces them, with its class.
 EVENT_CLASSES = (RunStarted, StepStarted, PointTaken, Compliance, Limit, WarningEvent, Fit,
                  StepFinished, Paused, Resumed, Output, ErrorEvent,
-                 RunFinished)
+                 RunFinished, StageRamping, StageStable, StageDrifting)
 KIND_CLASSES: dict[str, type[Event]] = {c.KIND: c for c in EVENT_CLASSES}
 KINDS = tuple(KIND_CLASSES)
 _FIELDS: dict[type, frozenset[str]] = {

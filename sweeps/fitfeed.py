@@ -34,7 +34,7 @@ import threading
 import time
 from collections.abc import Callable
 
-from pnbench.sweeps import fitmodel
+from pnbench.sweeps import fitmodel, thermalfit
 from pnbench.sweeps.events import EventBus, finite
 from pnbench.sweeps.planstep import Step
 from pnbench.sweeps.record import Point
@@ -230,7 +230,8 @@ class FitWorker:
             if fitter is None:
                 held = (fitmodel.admittance_holds(self.latest.values())
                         if step.kind == "admittance" else None)
-                fitter = fitmodel.new_fitter(step.kind, self.temperature_K, held,
+                t = step.set_point_K if step.set_point_K is not None else self.temperature_K
+                fitter = fitmodel.new_fitter(step.kind, t, held,
                                              fitmodel.breakdown_current_A(
                                                  self.steps.values()))
                 self._fitters[name] = fitter
@@ -280,7 +281,12 @@ class FitWorker:
         if self.write_model is None:
             return
         try:
-            if final:
+            if final and thermalfit.over_temperature(self.steps):
+                columns = {name: c.view() for name, c in self._columns.items()}
+                model = thermalfit.model_over_temperature(
+                    self.steps, columns, area_m2=self.area_m2, extras=self.extras,
+                    ibv_A=fitmodel.breakdown_current_A(self.steps.values()))
+            elif final:
                 columns = {name: c.view() for name, c in self._columns.items()}
                 model = fitmodel.model_of_columns(self.steps, columns, self.temperature_K,
                                                   area_m2=self.area_m2, extras=self.extras)

@@ -11,10 +11,11 @@ It blocks reading its stdin. When the pipe closes it takes the run folder's lock
 once the run process has gone), reads run.json, and if the run is still marked
 ``running`` or ``paused`` it connects to each recorded instrument, ramps the source to
 zero at the plan's ramp rate (as every other way out does), turns outputs and bias
-off, confirms, and records it in run.json (status
-``interrupted``, ``guardian``) and run.log. A run that ended normally is left alone.
-It ignores SIGINT and SIGHUP so a Ctrl-C or a closed terminal cannot take it down with
-the run. Runs on the in-process simulated bench need none (the bench dies with them).
+off, then sends a thermal stage to the plan's standby temperature, confirms, and
+records it in run.json (status ``interrupted``, ``guardian``) and run.log. A run that
+ended normally is left alone. It ignores SIGINT and SIGHUP so a Ctrl-C or a closed
+terminal cannot take it down with the run. Runs on the in-process simulated bench need
+none (the bench dies with them).
 """
 
 from __future__ import annotations
@@ -81,8 +82,9 @@ def rescue(run_dir: Path, lock_timeout_s: float = 30.0) -> int:
         if run.get("status") not in LIVE or run.get("simulated"):
             return 0
         prime, ramp = _last_level(run_dir)
-        report = {role: _off(role, info, prime, ramp)
-                  for role, info in (run.get("instruments") or {}).items()}
+        instruments = run.get("instruments") or {}
+        report = {role: _off(role, info, prime, ramp, run_dir)  # sources first, stage last
+                  for role, info in sorted(instruments.items(), key=lambda x: x[0] == "stage")}
         confirmed = bool(report) and all(ok for ok, _ in report.values())
         detail = "; ".join(f"{role}: {text}" for role, (_, text) in report.items())
         folder.update_run(status="interrupted", ended=iso(utc_now()),
@@ -98,12 +100,13 @@ def rescue(run_dir: Path, lock_timeout_s: float = 30.0) -> int:
 
 
 def _off(role: str, info: dict, prime: tuple[str, float] | None,
-         ramp: tuple[float, float] | None) -> tuple[bool, str]:
+         ramp: tuple[float, float] | None, run_dir: Path | None = None) -> tuple[bool, str]:
     from pnbench.sweeps.bench import Connection, _open_role, prime_source, set_ramp
 
     try:
         conn = Connection(role, info["resource"], info.get("backend") or "@py",
-                          info.get("dialect"), 2000)
+                          info.get("dialect"), 2000,
+                          stage=_stage_settings(run_dir) if role == "stage" else None)
         instrument = _open_role(conn)
     except Exception as exc:  # noqa: BLE001 - reported in run.json
         return False, f"cannot connect ({exc})"
@@ -115,6 +118,8 @@ def _off(role: str, info: dict, prime: tuple[str, float] | None,
                 if prime[0] == "current":
                     instrument.limit = ramp[1]
         instrument.safe_off()
+        if role == "stage":
+            return True, f"standby at {instrument.standby_K:.6g} K, set point confirmed"
         return True, "off, confirmed"
     except Exception as exc:  # noqa: BLE001
         return False, f"NOT confirmed off ({exc})"
@@ -138,6 +143,17 @@ def _last_level(run_dir: Path) -> tuple[tuple[str, float] | None,
         return last_smu_level(plan, load_state(run_dir, plan)), ramp
     except Exception:  # noqa: BLE001
         return None, ramp
+
+
+def _stage_settings(run_dir: Path | None) -> dict | None:
+    """The stage's limits and standby from the run's plan (the defaults without it)."""
+    try:
+        from pnbench.sweeps.bench import thermal_settings
+        from pnbench.sweeps.launch import plan_of_run
+
+        return thermal_settings(plan_of_run(run_dir))
+    except Exception:  # noqa: BLE001 - standby at 25 degC still goes out
+        return None
 
 
 if __name__ == "__main__":

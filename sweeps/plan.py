@@ -115,8 +115,11 @@ class Plan:
         from pnbench.drivers.sim.backend import RESOURCES, parse
 
         parse(backend)  # BadInput for a malformed string
+        stage = self.instruments.get("stage")  # its ratings bound the plan's ramp
         instruments = {role: Instrument(role=role, resource=name, backend=backend,
-                                        timeout_ms=5000)
+                                        timeout_ms=5000,
+                                        ratings=stage.ratings if role == "stage" and stage
+                                        else {})
                        for role, name in RESOURCES.items()}
         return replace(self, instruments=instruments)
 

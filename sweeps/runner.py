@@ -29,6 +29,7 @@ from pnbench.sweeps.plan import Plan
 from pnbench.sweeps.planstep import Step
 from pnbench.sweeps.record import Point, RunFolder
 from pnbench.sweeps.statuses import ExitCode, RunStatus, StepStatus, exit_code_for, step_finished
+from pnbench.sweeps.thermalrun import StageRun
 
 #: run.json is refreshed (done counts) at most this often while points flow.
 RUN_JSON_REFRESH_S = 5.0
@@ -76,6 +77,8 @@ class Runner:
         self._last_refresh = 0.0
         self._last_compliance_event: dict[str, float] = {}
         self._compliance_count: dict[str, int] = {}
+        self.stage = StageRun(plan, bench, lambda kind, step, data: self.bus.emit(
+            kind, step, **data), self._stage_should_stop, folder.log)
 
     # -- control (any thread) -----------------------------------------------------------
     def pause(self) -> None:
@@ -177,6 +180,8 @@ class Runner:
 
     # -- steps ------------------------------------------------------------------------------
     def _run_step(self, step: Step) -> None:
+        self.stage.before_step(step)
+        self.control.check()
         self.current_step = step.name
         start = self.done[step.name]
         self.step_status[step.name] = StepStatus.RUNNING
@@ -416,6 +421,11 @@ class Runner:
         self.bus.emit(ev.Resumed, step.name, done=self.done[step.name])
         self.folder.log(f"resumed step {step.name}")
         return True
+
+    def _stage_should_stop(self) -> bool:
+        """Asked at every poll of the stage: an abort raises OperatorStop at once."""
+        self.control.check()
+        return False
 
     def _sleep(self, seconds: float) -> None:
         self.control.sleep(seconds * self.time_scale)

@@ -3,7 +3,7 @@
     backend  = "lh-vc510@pnsim"                     (time scale 1)
     backend  = "lh-vc510@pnsim:time_scale=0"        (as fast as possible)
     backend  = "my-dut.toml@pnsim:time_scale=0.5,watchdog=off"
-    resource = "PNSIM::SMU" or "PNSIM::LCR"
+    resource = "PNSIM::SMU", "PNSIM::LCR" or "PNSIM::STAGE"
 
 The part before ``@pnsim`` is a bundled device name or a device file; the options after
 ``:`` are the bench's time scale and whether its connection watchdog switches an output
@@ -24,7 +24,7 @@ from dataclasses import dataclass
 from pnbench.errors import BadInput
 
 SUFFIX = "@pnsim"
-RESOURCES = {"smu": "PNSIM::SMU", "lcr": "PNSIM::LCR"}
+RESOURCES = {"smu": "PNSIM::SMU", "lcr": "PNSIM::LCR", "stage": "PNSIM::STAGE"}
 
 
 @dataclass(frozen=True)
@@ -85,7 +85,7 @@ def role_of(resource: str) -> str:
         if resource.strip().upper() == name:
             return role
     raise BadInput(f"resource {resource!r}: the simulated bench has "
-                   f"{' and '.join(RESOURCES.values())}")
+                   f"{', '.join(RESOURCES.values())}")
 
 
 class _Registry:
@@ -98,14 +98,18 @@ class _Registry:
 
     def acquire(self, backend: str):
         from pnbench.drivers.sim.bench import SimBench
+        from pnbench.drivers.sim.stage import SimClock
 
         spec = parse(backend)
         key = spec.backend
         with self._lock:
             entry = self._benches.get(key)
             if entry is None:
+                # In-process: the runner waits through the bench's clock (a stage's soak
+                # at time scale 0 takes no wall time), so the clock is a driven one.
                 bench = SimBench.start(spec.device, time_scale=spec.time_scale,
-                                       off_on_disconnect=spec.watchdog)
+                                       off_on_disconnect=spec.watchdog,
+                                       clock=SimClock(spec.time_scale, driven=True))
                 entry = self._benches[key] = [bench, 0]
             entry[1] += 1
             return entry[0]
@@ -140,7 +144,7 @@ def open_sim_session(resource: str, backend: str, timeout_ms: int, dialect):
     role = role_of(resource)
     bench = REGISTRY.acquire(backend)
     try:
-        address = bench.smu_resource if role == "smu" else bench.lcr_resource
+        address = getattr(bench, f"{role}_resource")
         session = open_session(address, "@py", timeout_ms, dialect)
     except BaseException:
         REGISTRY.release(backend)
