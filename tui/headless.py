@@ -24,6 +24,7 @@ from pnbench.sweeps import events as ev
 from pnbench.sweeps.progress import ProgressModel, format_duration
 from pnbench.sweeps.quantities import format_estimate, format_quantity
 from pnbench.tui.app.words import guard_words, status_words
+from pnbench.tui.stagelines import stage_line, temperature_text
 
 __all__ = ["Progress", "bar", "format_duration", "format_parameter", "leakage_text",
            "run_headless"]
@@ -31,6 +32,14 @@ __all__ = ["Progress", "bar", "format_duration", "format_parameter", "leakage_te
 LINE_INTERVAL_S = 15.0
 REDRAW_S = 0.25
 BAR = 24
+
+
+def set_point_of(plan, step: str | None) -> float | None:
+    """The stage set point a step of a run over temperature runs at (None otherwise)."""
+    try:
+        return plan.step(step).set_point_K if plan is not None and step else None
+    except (KeyError, AttributeError):
+        return None
 
 
 def format_parameter(name: str, entry: dict) -> str:
@@ -141,7 +150,9 @@ class Progress:
                          + (f", {e.done} already on disk" if e.done else ""))
             case ev.StepStarted():
                 self.current = step
+                at = set_point_of(self.plan, step)
                 self.say(f"step {step} ({e.step_kind}): {e.planned} points"
+                         + (f" at {temperature_text(at)}" if at is not None else "")
                          + (f", continuing at point {e.done}" if e.done else ""))
             case ev.StepFinished():
                 why = f", ended by {guard_words(e.ended_by)}" if e.ended_by else ""
@@ -157,6 +168,8 @@ class Progress:
             case ev.Compliance():
                 self.say(f"compliance in {step} at point {e.index} ({e.count} so far in "
                          "this step)")
+            case ev.StageRamping() | ev.StageStable() | ev.StageDrifting():
+                self.say(stage_line(e.kind, e.payload()))
             case ev.Paused() | ev.Resumed():
                 self.say(f"{e.kind} in step {step}"
                          + (" (outputs off)" if isinstance(e, ev.Paused) else ""))

@@ -90,7 +90,8 @@ def identify_rows(rows: list[InstrumentRow], plan,
         from pnbench.drivers.sim.bench import SimBench
 
         sim = SimBench.start(simulate, time_scale=0.0)
-        resources = {"smu": (sim.smu_resource, "@py"), "lcr": (sim.lcr_resource, "@py")}
+        resources = {"smu": (sim.smu_resource, "@py"), "lcr": (sim.lcr_resource, "@py"),
+                     "stage": (sim.stage_resource, "@py")}
     out = []
     try:
         for row in rows:

@@ -77,9 +77,10 @@ def arrhenius(an: Analysis, device: str):
     top.set_xlabel("1000 / T (1/K)")
     top.set_ylabel("IS (A)")
     top.legend(loc="upper right")
+    handles = []
     n = [(r["temperature_K"], r["N"], r.get("N_sigma")) for r in data if _num(r.get("N"))]
     if n:
-        marks(low, [a for a, _, _ in n], [b for _, b, _ in n], "o", MEASURED, label="N")
+        handles += marks(low, [a for a, _, _ in n], [b for _, b, _ in n], "o", MEASURED, label="N")
         if "N" in m.values:
             low.axhline(m.values["N"], color=MODEL, linewidth=1.0)
     low.set_xlabel("Temperature T (K)")
@@ -87,13 +88,15 @@ def arrhenius(an: Analysis, device: str):
     rs = [(r["temperature_K"], r["RS"]) for r in data if _num(r.get("RS"))]
     if rs:
         twin = low.twinx()
-        marks(twin, [a for a, _ in rs], [b for _, b in rs], "s", ACCENT, label="RS")
+        handles += marks(twin, [a for a, _ in rs], [b for _, b in rs], "s", ACCENT, label="RS")
         if "RS" in m.values:
             g = np.linspace(t.min(), t.max(), 50)
             twin.plot(g, [tm.series_resistance(m.values["RS"], m.values.get("TRS", 0.0),
                                                m.values.get("TRS2", 0.0), a, tnom)
                           for a in g], "--", color=ACCENT, linewidth=1.0)
         twin.set_ylabel("RS (\u03a9)")
+    if handles:
+        low.legend(handles=handles, loc="upper left", fontsize=7)
     for ax in (top, low):
         grids(ax)
     title(fig, TITLE, f"{device}: {len(data)} temperatures, {t.min():.5g} to {t.max():.5g} K; "

@@ -23,7 +23,8 @@ from pnbench.tui.app.bench import (
 from pnbench.tui.app.widgets.banner import MessageStrip, ScreenBar, SourceBanner
 
 REFRESH_S = 0.5
-ROLE_NAMES = {"smu": "SMU (source-measure unit)", "lcr": "LCR meter"}
+ROLE_NAMES = {"smu": "SMU (source-measure unit)", "lcr": "LCR meter",
+              "stage": "thermal stage (hot surface; cold: dry purge)"}
 
 
 class BenchScreen(Screen):
