@@ -30,7 +30,8 @@ def _events(run_dir: Path) -> list[dict]:
 @pytest.mark.parametrize("device", ["lh-vc510", "lh-hm27"])
 def test_the_bundled_plan_ends_with_eg_and_xti(device, tmp_path):
     plan = load_plan(PLAN)
-    launch = Launch.new(plan, simulate=device, time_scale=0.0, out_dir=tmp_path)
+    launch = Launch.new(plan.on_simulated_bench(f"{device}@pnsim:time_scale=0"),
+                        out_dir=tmp_path)
     outcome = launch.run()
     assert outcome.status == "completed", outcome.reason
     assert outcome.outputs_off_confirmed and outcome.exit_code == 0
@@ -70,7 +71,8 @@ def test_a_stage_that_cannot_reach_its_set_point_stops_the_run_safely(tmp_path):
                       '[stage]\nreach_high_K = 360.0\n', encoding="utf-8")
     text = PLAN.read_text(encoding="utf-8").replace('timeout = "1800 s"', 'timeout = "900 s"')
     plan = parse_plan(text, str(PLAN))
-    launch = Launch.new(plan, simulate=str(device), time_scale=0.0, out_dir=tmp_path / "runs")
+    launch = Launch.new(plan.on_simulated_bench(f"{device}@pnsim:time_scale=0"),
+                        out_dir=tmp_path / "runs")
     outcome = launch.run()
     assert outcome.status == "failed" and outcome.exit_code == 3
     assert "did not reach and hold 398.15 K within 900 s" in outcome.reason
