@@ -24,6 +24,9 @@ def test_the_command_of_the_issue(tmp_path, capsys):
     assert "EG=" in next(run_dir.glob("*.lib")).read_text()
     page = (run_dir / "report.html").read_text(encoding="utf-8")
     assert 'id="fig-arrhenius"' in page and (run_dir / "figures" / "arrhenius.png").is_file()
+    assert 'id="fig-iv_over_temperature"' in page
+    # the forward I-V figure shows the set point at TNOM against the model there
+    assert "DUT over temperature at 298.1" in (run_dir / "figures" / "iv_forward.svg").read_text()
     assert "step forward@248.15K (iv_forward): 37 points at 248.15 K (-25 degC)" in out
     assert "stage: to 398.15 K (125 degC) at 20 K/min" in out
     assert "stage: stable at 398.15 K (125 degC)" in out

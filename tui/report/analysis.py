@@ -75,6 +75,8 @@ class Analysis:
     table_frequencies_measured: bool = False
     qrows: list[QRow] = field(default_factory=list)
     missing: list[str] = field(default_factory=list)
+    #: a run over temperature: every forward point (``forward`` keeps those at TNOM)
+    forward_all_temperatures: Points | None = None
 
 
 def split_iv(iv: Points) -> tuple[Points | None, Points | None]:
@@ -212,6 +214,9 @@ def analyze(data: RunData) -> Analysis:
                            "figures show the measured points without a model")
     if data.iv is not None:
         out.forward, out.reverse = split_iv(data.iv)
+        from pnbench.tui.report.arrhenius import keep_tnom
+
+        keep_tnom(out)  # a run over temperature: the I-V figures at TNOM
     if out.forward is None:
         out.missing.append("no forward I-V points: the semilog I-V figure is missing")
     if out.reverse is None:

@@ -9,22 +9,31 @@ EG, XTI, N and TRS at TNOM is the line. A model without two temperatures has no 
 from __future__ import annotations
 
 import math
+import re
 
 import numpy as np
 
+from pnbench.modeling import junction
 from pnbench.modeling import temperature as tm
 from pnbench.tui.report.analysis import Analysis
 from pnbench.tui.report.plotstyle import (
     ACCENT,
     MEASURED,
     MODEL,
+    colours,
     grids,
+    log_axis,
     marks,
     new_figure,
     title,
 )
 
 NAME = "arrhenius"
+IV_NAME = "iv_over_temperature"
+IV_TITLE = "Forward I\u2013V at every temperature"
+IV_CAPTION = ("Forward I\u2013V of every stage set point with the model moved to that "
+              "temperature by the card's temperature law (EG, XTI, TRS at TNOM).")
+_AT = re.compile(r"@([0-9.]+)K$")
 TITLE = "IS against temperature (Arrhenius)"
 CAPTION = ("Saturation current of each temperature's own fit against 1000/T with one "
            "sigma, and the model's IS(T) from EG and XTI (the line); below, N and RS of "
@@ -101,4 +110,63 @@ def arrhenius(an: Analysis, device: str):
         grids(ax)
     title(fig, TITLE, f"{device}: {len(data)} temperatures, {t.min():.5g} to {t.max():.5g} K; "
           f"model values at TNOM = {tnom:.5g} K")
+    return fig
+
+
+def set_point_of(step: str) -> float | None:
+    """The set point in a step name of a run over temperature ("forward@248.15K")."""
+    m = _AT.search(step)
+    return float(m.group(1)) if m else None
+
+
+def keep_tnom(an: Analysis) -> None:
+    """A run over temperature: the I-V figures keep the points at the set point nearest
+    TNOM (and say the model's TNOM); every forward point stays for the I-V figure at every
+    temperature. Nothing changes for a run at one temperature."""
+    model = an.model
+    if model is None or "temperatures" not in model.extras:
+        return
+    tnom = model.temperature_K
+    for attr in ("forward", "reverse"):
+        pts = getattr(an, attr)
+        if pts is None:
+            continue
+        sps = {set_point_of(s) for s in pts.step} - {None}
+        if len(sps) < 2:
+            continue
+        nearest = min(sps, key=lambda t: abs(t - tnom))
+        if attr == "forward":
+            an.forward_all_temperatures = pts
+        setattr(an, attr, pts.subset(np.array([set_point_of(s) == nearest
+                                               for s in pts.step])))
+    an.temperature_K = tnom
+
+
+def iv_over_temperature(an: Analysis, device: str):
+    pts, model = an.forward_all_temperatures, an.model
+    if pts is None or model is None:
+        return None
+    groups: dict[float, np.ndarray] = {}
+    for sp in sorted({set_point_of(s) for s in pts.step} - {None}):
+        groups[sp] = np.array([set_point_of(s) == sp for s in pts.step])
+    fig, axes = new_figure(1, 1)
+    ax = axes[0, 0]
+    params = model.to_params()
+    for (sp, mask), colour in zip(groups.items(), colours(len(groups)), strict=True):
+        v, i = pts.voltage_V[mask], np.abs(pts.current_A[mask])
+        marks(ax, v, i, "o", colour, label=f"{sp:.5g} K")
+        try:
+            p = tm.params_at(params, sp, model.temperature_K)
+        except ValueError:
+            continue
+        grid = np.linspace(v.min(), v.max(), 200)
+        ax.plot(grid, np.abs(np.asarray(junction.current(grid, p, sp))), "-",
+                color=colour, linewidth=1.0)
+    log_axis(ax, "y", np.abs(pts.current_A))
+    ax.set_xlabel("Voltage V (V)")
+    ax.set_ylabel("Current |I| (A)")
+    ax.legend(title="set point", loc="lower right")
+    grids(ax)
+    title(fig, IV_TITLE, f"{device}: markers measured, lines the model at each set point "
+          f"(values at TNOM = {model.temperature_K:.5g} K)")
     return fig

@@ -40,7 +40,7 @@ from pnbench.tui.report.plotstyle import (
 FIGURE_NAMES = ("iv_forward", "iv_reverse", "cv", "mott_schottky", "doping_profile",
                 "admittance")
 #: Figures only a model over several temperatures gets (after the others).
-OVER_TEMPERATURE_FIGURES = (arrhenius.NAME,)
+OVER_TEMPERATURE_FIGURES = (arrhenius.NAME, arrhenius.IV_NAME)
 
 _PNG_DPI = 130
 _LOCK = threading.Lock()  # rc_context changes matplotlib's global settings
@@ -301,6 +301,7 @@ _MAKERS: dict[str, Callable] = {
     "iv_forward": forward_iv, "iv_reverse": reverse_iv, "cv": cv,
     "mott_schottky": mott_schottky, "doping_profile": doping_profile,
     "admittance": admittance, arrhenius.NAME: arrhenius.arrhenius,
+    arrhenius.IV_NAME: arrhenius.iv_over_temperature,
 }
 
 

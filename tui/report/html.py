@@ -58,12 +58,12 @@ _CAPTIONS = {
     "doping_profile": "Doping against depletion depth from the local slope of 1/C\u00b2.",
     "admittance": "Parallel conductance and capacitance against frequency at the "
                   "admittance biases, with the small-signal model's prediction.",
-    arrhenius.NAME: arrhenius.CAPTION,
+    arrhenius.NAME: arrhenius.CAPTION, arrhenius.IV_NAME: arrhenius.IV_CAPTION,
 }
 _TITLES = {"iv_forward": "Forward I\u2013V", "iv_reverse": "Reverse I\u2013V",
            "cv": "C\u2013V", "mott_schottky": "Mott\u2013Schottky (1/C\u00b2)",
            "doping_profile": "Doping profile N(W)", "admittance": "Admittance",
-           arrhenius.NAME: arrhenius.TITLE}
+           arrhenius.NAME: arrhenius.TITLE, arrhenius.IV_NAME: arrhenius.IV_TITLE}
 _NOTICES = (WarningEvent, Compliance, Limit, ErrorEvent)
 _BAD = (ErrorEvent, Limit)
 _EVENT_ROWS = 400
