@@ -44,6 +44,10 @@ EXAMPLES = {
     ev.ErrorEvent: dict(message="could not confirm"),
     ev.RunFinished: dict(status="aborted", reason="stopped", outputs_off_confirmed=True,
                          done=20, planned=40),
+    ev.StageRamping: dict(set_point_K=398.15, temperature_K=300.1, ramp_K_per_min=20.0),
+    ev.StageStable: dict(set_point_K=398.15, temperature_K=398.12, waited_s=324.0),
+    ev.StageDrifting: dict(set_point_K=398.15, temperature_K=398.4, band_K=0.1,
+                           during="forward@398.15K"),
 }
 
 
@@ -51,7 +55,8 @@ def test_every_kind_has_a_class_and_an_example():
     assert set(EXAMPLES) == set(ev.EVENT_CLASSES)
     assert ev.KINDS == ("run_started", "step_started", "point", "compliance", "limit",
                         "warning", "fit", "step_finished", "paused", "resumed", "output",
-                        "error", "run_finished")
+                        "error", "run_finished", "stage_ramping", "stage_stable",
+                        "stage_drifting")
 
 
 @pytest.mark.parametrize("cls", ev.EVENT_CLASSES, ids=lambda c: c.KIND)
