@@ -109,7 +109,8 @@ class Columns:
 
 
 #: The value columns of points.csv a fit uses, in Columns' row order.
-VALUE_COLUMNS = ("voltage_V", "current_A", "frequency_Hz", "capacitance_F", "conductance_S")
+VALUE_COLUMNS = ("voltage_V", "current_A", "frequency_Hz", "capacitance_F", "conductance_S",
+                 "temperature_K")
 
 
 def add_points(fitter, step_kind: str, points: list[Point]) -> None:

@@ -179,7 +179,8 @@ class Launch:
         if self.resume_dir is None:
             try:
                 folder = RunFolder.create(self.out_dir, self.plan.text, self._run_doc(),
-                                          self._metadata())
+                                          self._metadata(),
+                                          temperature_column=self.plan.temperature is not None)
             except OSError as exc:
                 raise BadInput(f"cannot create a run folder in {self.out_dir} "
                                f"({exc.strerror or exc}); give another output folder "

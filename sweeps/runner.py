@@ -248,7 +248,8 @@ class Runner:
                                 reading.current_A)
                 self._record(step, Point(step.name, planned.index, "iv", self.bus.elapsed_s(),
                                          reading.voltage_V, reading.current_A,
-                                         compliance=reading.compliance))
+                                         compliance=reading.compliance,
+                                         temperature_K=self.stage.temperature_K(step.name)))
                 verdict = guard.after(planned.level, reading)
                 if verdict is None and self._settled(step):
                     clean = True
@@ -331,7 +332,8 @@ class Runner:
                 cp, gp = parallel_from_admittance(y, f)
                 self._judgeable(step, planned.index, bias, cp, gp, frequency_Hz=f)
                 point = Point(step.name, planned.index, "cv", self.bus.elapsed_s(),
-                              float(readings[-1].bias_V), None, float(f), float(cp), float(gp))
+                              float(readings[-1].bias_V), None, float(f), float(cp), float(gp),
+                              temperature_K=self.stage.temperature_K(step.name))
                 self._record(step, point)
                 if self._settled(step):
                     clean = True

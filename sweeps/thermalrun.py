@@ -58,7 +58,7 @@ class StageRun:
             return False
         self.at_K = sp
         self.watch = Watch(self.stage, self.clock, sp, self.plan,
-                           lambda kind, data: self.emit(kind, data.get("during"), data))
+                           lambda kind, data: self.emit(kind, data.get("during"), data), done)
         return True
 
     def temperature_K(self, step_name: str | None = None) -> float | None:

@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from pnbench.errors import DataFileError
-from pnbench.sweeps.record.layout import COLUMNS, HEADER
+from pnbench.sweeps.record.layout import COLUMNS, HEADER, HEADER_T
 
 #: bytes parsed at once (bounds the memory a read needs beyond its columns)
 BLOCK_BYTES = 4 << 20
@@ -41,23 +41,28 @@ class Point:
     capacitance_F: float | None = None
     conductance_S: float | None = None
     compliance: bool = False
+    temperature_K: float | None = None  # a run over temperature: the stage's reading
 
-    def to_row(self) -> str:
-        """The CSV line, newline included (floats in shortest round-trip form)."""
+    def to_row(self, temperature: bool = False) -> str:
+        """The CSV line, newline included (floats in shortest round-trip form); with
+        ``temperature`` the temperature_K cell of a run over temperature ends it."""
         return (f"{self.step},{self.index},{self.kind},{self.time_s:.6f},"
                 f"{_cell(self.voltage_V)},{_cell(self.current_A)},{_cell(self.frequency_Hz)},"
                 f"{_cell(self.capacitance_F)},{_cell(self.conductance_S)},"
-                f"{1 if self.compliance else 0}\n")
+                f"{1 if self.compliance else 0}"
+                + (f",{_cell(self.temperature_K)}\n" if temperature else "\n"))
 
     @classmethod
     def from_row(cls, line: str) -> Point:
         cells = line.rstrip("\r\n").split(",")
-        if len(cells) != len(COLUMNS):
-            raise ValueError(f"{len(cells)} cells, expected {len(COLUMNS)}")
+        if len(cells) not in (len(COLUMNS), len(COLUMNS) + 1):
+            raise ValueError(f"{len(cells)} cells, expected {len(COLUMNS)} (or "
+                             f"{len(COLUMNS) + 1} with temperature_K)")
         if cells[9] not in ("0", "1"):
             raise ValueError(f"compliance {cells[9]!r}, expected 0 or 1")
+        t = float(cells[10]) if len(cells) > len(COLUMNS) and cells[10] else None
         return cls(cells[0], int(cells[1]), cells[2], float(cells[3]),
-                   *(float(c) if c else None for c in cells[4:9]), cells[9] == "1")
+                   *(float(c) if c else None for c in cells[4:9]), cells[9] == "1", t)
 
 
 def _cell(value: float | None) -> str:
@@ -87,6 +92,8 @@ class PointColumns:
     capacitance_F: np.ndarray
     conductance_S: np.ndarray
     compliance: np.ndarray
+    #: the stage's reading at each point (a run over temperature; NaN otherwise)
+    temperature_K: np.ndarray
     #: file line of the first data row (rows follow one per line)
     first_line: int = 0
     metadata: dict[str, str] = field(default_factory=dict)
@@ -128,7 +135,7 @@ class PointColumns:
         return Point(self.step_names[self.step_code[n]], int(self.index[n]),
                      self.kind_names[self.kind_code[n]], float(self.time_s[n]),
                      *(_none(getattr(self, c)[n]) for c in _FLOATS[1:]),
-                     bool(self.compliance[n]))
+                     bool(self.compliance[n]), _none(self.temperature_K[n]))
 
     def rows(self) -> Iterator[Point]:
         """Row objects, one at a time (for small selections: a step's tail, a table)."""
@@ -137,21 +144,37 @@ class PointColumns:
 
     def fit_columns(self) -> dict[str, np.ndarray]:
         """The mapping the fitters take (voltage_V ... conductance_S, compliance)."""
-        return {name: getattr(self, name) for name in (*_FLOATS[1:], "compliance")}
+        return {name: getattr(self, name) for name in (*_FLOATS[1:], "compliance",
+                                                       "temperature_K")}
 
 
-_ARRAYS = ("step_code", "kind_code", "index", *_FLOATS, "compliance")
+_ARRAYS = ("step_code", "kind_code", "index", *_FLOATS, "compliance", "temperature_K")
 #: the numeric fields a reader may choose (the others it skips, costing no memory)
 FIELDS = ("index", *_FLOATS)
+#: the last column of a run over temperature (read when the header has it)
+TEMPERATURE = "temperature_K"
 #: file column of each number (step and kind are columns 0 and 2)
 _COLUMN = {"index": 1, "time_s": 3, "voltage_V": 4, "current_A": 5, "frequency_Hz": 6,
-           "capacitance_F": 7, "conductance_S": 8, "compliance": 9}
+           "capacitance_F": 7, "conductance_S": 8, "compliance": 9, TEMPERATURE: 10}
 
 
 def _take(values: np.ndarray, mask: np.ndarray, count: int) -> np.ndarray:
     if values.ndim == 1 and values.strides == (0,):  # a skipped field: still nothing
         return np.broadcast_to(values[:1] if values.size else values, (count,))
     return values[mask]
+
+
+def _has_temperature(path: Path) -> bool:
+    """Whether the header of the points.csv at ``path`` ends with temperature_K."""
+    try:
+        with open(path, "rb") as f:
+            for raw in f:
+                text = raw.decode("utf-8", "replace").strip()
+                if text and not text.startswith("#"):
+                    return text == HEADER_T
+    except OSError:
+        pass
+    return False
 
 
 def _skipped(name: str, n: int) -> np.ndarray:
@@ -165,6 +188,8 @@ def read_columns(path: Path, fields: tuple[str, ...] | None = None) -> PointColu
     -1) and take no memory. The file is read twice in blocks: once to count its lines,
     so the columns are allocated once, then to parse it."""
     wanted = FIELDS if fields is None else tuple(f for f in FIELDS if f in fields)
+    if (fields is None or TEMPERATURE in fields) and _has_temperature(path):
+        wanted += (TEMPERATURE,)
     lines_at_most = _count_lines(path)
     out = {name: np.empty(lines_at_most, dtype=np.float64 if name in _FLOATS else
                           np.int64 if name == "index" else np.int32)
@@ -200,7 +225,7 @@ def read_columns(path: Path, fields: tuple[str, ...] | None = None) -> PointColu
                 filled += count
                 line += body.count(b"\n")
     cols = {name: values[:filled] for name, values in out.items()}
-    for name in FIELDS:
+    for name in (*FIELDS, TEMPERATURE):
         if name not in cols:
             cols[name] = _skipped(name, filled)
     return PointColumns(tuple(n.decode("utf-8") for n in steps),
@@ -245,9 +270,9 @@ def _head(body: bytes, path: Path, metadata: dict, line: int) -> tuple[bytes, in
             if sep:
                 metadata[key.strip()] = value.strip()
             continue
-        if text != HEADER:
+        if text not in (HEADER, HEADER_T):
             raise DataFileError(f"{path}, line {line}: header is {text[:120]!r}, expected "
-                                f"{HEADER!r}")
+                                f"{HEADER!r} (a run over temperature adds ',temperature_K')")
         return body[pos:], line, line
     return b"", line, 0
 
@@ -255,8 +280,12 @@ def _head(body: bytes, path: Path, metadata: dict, line: int) -> tuple[bytes, in
 def _parse_block(body: bytes, path: Path, line: int, steps: dict, kinds: dict,
                  fields: tuple[str, ...] = FIELDS) -> dict[str, np.ndarray]:
     """One block of complete rows (``line`` rows of the file before it), as columns."""
-    names = (*fields, "compliance")
+    with_t = body[:body.find(b"\n")].count(b",") == len(COLUMNS)  # temperature_K last
+    parsed = tuple(f for f in fields if f != TEMPERATURE or with_t)
+    names = (*parsed, "compliance")
     filled = body.replace(b",,", b",nan,").replace(b",,", b",nan,")
+    if with_t:
+        filled = filled.replace(b",\n", b",nan\n")
     try:
         numbers = np.loadtxt(io.BytesIO(filled), delimiter=",",
                              usecols=[_COLUMN[n] for n in names], dtype=float, ndmin=2,
@@ -277,8 +306,10 @@ def _parse_block(body: bytes, path: Path, line: int, steps: dict, kinds: dict,
     if not np.isin(compliance, (0.0, 1.0)).all():
         _find_bad_line(body, path, line)
     out = {"step_code": _codes(text[:, 0], steps), "kind_code": _codes(text[:, 1], kinds)}
-    for k, name in enumerate(fields):
+    for k, name in enumerate(parsed):
         out[name] = numbers[:, k].astype(np.int64) if name == "index" else numbers[:, k]
+    if TEMPERATURE in fields and not with_t:
+        out[TEMPERATURE] = np.full(len(numbers), np.nan)
     out["compliance"] = compliance == 1.0
     return out
 
@@ -326,7 +357,7 @@ def _assemble(blocks: list[dict], step_names, kinds, first_line, metadata,
         parts = [b[name] for b in blocks if name in b]
         if parts:
             cols[name] = np.concatenate(parts)
-        elif name in FIELDS:
+        elif name in (*FIELDS, TEMPERATURE):
             cols[name] = _skipped(name, n)
         else:
             cols[name] = np.empty(0, dtype=bool if name == "compliance" else np.int32)

@@ -27,6 +27,9 @@ STAGING = ".pnbench-partial"
 COLUMNS = ("step", "index", "kind", "time_s", "voltage_V", "current_A", "frequency_Hz",
            "capacitance_F", "conductance_S", "compliance")
 HEADER = ",".join(COLUMNS)
+#: A run over temperature adds the stage's reading at each point as a last column.
+TEMPERATURE_COLUMN = "temperature_K"
+HEADER_T = HEADER + "," + TEMPERATURE_COLUMN
 #: the columns that hold numbers, in file order (after step; kind is text)
 NUMBER_COLUMNS = ("index", "time_s", "voltage_V", "current_A", "frequency_Hz",
                   "capacitance_F", "conductance_S", "compliance")

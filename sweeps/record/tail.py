@@ -133,7 +133,7 @@ class FolderTail:
                     self.metadata[key.strip()] = batch.metadata[key.strip()] = value.strip()
             elif text:
                 self._header_seen = True
-                if text != layout.HEADER:
+                if text not in (layout.HEADER, layout.HEADER_T):
                     batch.problems.append(f"{path}, line {line}: header is {text[:80]!r}, "
                                           f"expected {layout.HEADER!r}")
         return data[pos:], line

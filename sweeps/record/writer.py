@@ -87,6 +87,19 @@ def _drop_bad_last_event(path: Path) -> None:
             f.truncate(start)
 
 
+def _has_temperature_column(points: Path) -> bool:
+    """Whether the header of points.csv ends with temperature_K (a run over temperature)."""
+    try:
+        with open(points, "rb") as f:
+            for raw in f:
+                text = raw.decode("utf-8", "replace").strip()
+                if text and not text.startswith("#"):
+                    return text == layout.HEADER_T
+    except OSError:
+        pass
+    return False
+
+
 class RunFolder:
     """A run folder open for writing (a live run or a resumed one)."""
 
@@ -100,15 +113,18 @@ class RunFolder:
         self._lock = threading.Lock()
         self._last_sync = time.monotonic()
         self._dirty = False
+        self.temperature_column = _has_temperature_column(self.path / layout.POINTS)
 
     # -- creating and reopening -------------------------------------------------------
     @classmethod
     def create(cls, out_dir: str | Path, plan_text: str, run_doc: dict,
-               metadata: dict, started: datetime | None = None) -> RunFolder:
+               metadata: dict, started: datetime | None = None,
+               temperature_column: bool = False) -> RunFolder:
         """Make a new run folder under ``out_dir`` (created if needed).
 
         ``run_doc`` is the first run.json (``device.name`` names the folder);
-        ``metadata`` becomes the ``# key = value`` lines at the top of points.csv. The
+        ``metadata`` becomes the ``# key = value`` lines at the top of points.csv;
+        ``temperature_column`` adds temperature_K (a run over temperature). The
         folder appears under its final name only once run.json is in it.
         """
         started = started or utc_now()
@@ -122,7 +138,8 @@ class RunFolder:
         tmp.mkdir()
         (tmp / layout.PLAN).write_text(plan_text, encoding="utf-8")
         lines = [f"# {key} = {value}\n" for key, value in metadata.items()]
-        (tmp / layout.POINTS).write_text("".join(lines) + HEADER + "\n", encoding="utf-8")
+        header = layout.HEADER_T if temperature_column else HEADER
+        (tmp / layout.POINTS).write_text("".join(lines) + header + "\n", encoding="utf-8")
         (tmp / layout.EVENTS).touch()
         (tmp / layout.LOG).touch()
         folder = cls(tmp)
@@ -173,7 +190,7 @@ class RunFolder:
     # -- writing ------------------------------------------------------------------------
     def append_point(self, point: Point) -> None:
         """Write one point and flush it; fsync when a second has passed since the last."""
-        self._points.write(point.to_row())
+        self._points.write(point.to_row(self.temperature_column))
         self._points.flush()
         self._dirty = True
         now = time.monotonic()
