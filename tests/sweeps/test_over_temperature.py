@@ -18,7 +18,7 @@ import pytest
 from pnbench.drivers.sim.device import resolve_device
 from pnbench.sweeps.launch import Launch
 from pnbench.sweeps.plan import load_plan, parse_plan
-from pnbench.sweeps.store import read_points, read_run
+from pnbench.sweeps.store import read_columns, read_points, read_run
 
 PLAN = Path(str(resources.files("pnbench.sim_configs") / "plans" / "over_temperature.toml"))
 
@@ -56,6 +56,13 @@ def test_the_bundled_plan_ends_with_eg_and_xti(device, tmp_path):
             sp = plan.step(e["step"]).set_point_K
             before = [x for x in events if x["seq"] < e["seq"] and x["kind"] == "stage_stable"]
             assert before and math.isclose(before[-1]["set_point_K"], sp)
+    # every point records the stage's temperature, within the band of its set point
+    header = [ln for ln in (run_dir / "points.csv").read_text().splitlines()
+              if not ln.startswith("#")][0]
+    assert header.endswith(",temperature_K")
+    cols = read_columns(run_dir)
+    for name, t in zip(cols.steps(), cols.temperature_K, strict=True):
+        assert abs(t - plan.step(name).set_point_K) <= 0.1, (name, t)
     points = read_points(run_dir)
     run = read_run(run_dir)
     for step in run["steps"]:
