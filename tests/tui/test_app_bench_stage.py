@@ -19,3 +19,17 @@ def test_the_stage_is_a_row_and_answers():
     answered = identify_rows(rows, plan, "lh-vc510")
     stage = next(r for r in answered if r.role == "stage")
     assert stage.state == "answered" and "thermal stage" in stage.identity
+
+
+def test_stage_events_read_in_the_app_log():
+    from pnbench.sweeps import events as ev
+    from pnbench.tui.app.events import LOG_TAGS, describe
+
+    ramp = ev.StageRamping(set_point_K=398.15, temperature_K=300.1, ramp_K_per_min=20.0)
+    drift = ev.StageDrifting(set_point_K=398.15, temperature_K=398.4, band_K=0.1,
+                             during="forward@398.15K")
+    assert LOG_TAGS["stage_ramping"] == "STAGE" and LOG_TAGS["stage_drifting"] == "DRIFT"
+    assert describe(ramp) == "stage: to 398.15 K (125 degC) at 20 K/min, now 300.1 K (26.95 degC)"
+    assert "drifting during forward@398.15K" in describe(drift)
+    off = ev.Output(role="stage", on=False, confirmed=True)
+    assert describe(off) == "stage to its standby temperature (set point confirmed)"

@@ -14,6 +14,9 @@ from pnbench.sweeps.events import (
     Resumed,
     RunFinished,
     RunStarted,
+    StageDrifting,
+    StageRamping,
+    StageStable,
     StepFinished,
     StepStarted,
 )
@@ -32,6 +35,9 @@ LOG_TAGS = {
     "step_finished": "STEP",
     "run_started": "RUN",
     "run_finished": "RUN",
+    "stage_ramping": "STAGE",
+    "stage_stable": "STAGE",
+    "stage_drifting": "DRIFT",
 }
 
 
@@ -69,6 +75,9 @@ def describe(event: Event | dict) -> str:
     event = as_event(event)
     message = event.get("message") or event.get("text")
     match event:
+        case Output() if event.role == "stage":
+            return "stage to its standby temperature" + (
+                " (set point confirmed)" if event.confirmed else " (NOT confirmed)")
         case Output():
             state = "ON" if event.on else "off"
             confirmed = " (confirmed)" if event.confirmed else ""
@@ -95,6 +104,10 @@ def describe(event: Event | dict) -> str:
             return (message or "reading in compliance") + where
         case Paused() | Resumed():
             return f"{event.kind} after {event.done} points of the step"
+        case StageRamping() | StageStable() | StageDrifting():
+            from pnbench.tui.stagelines import stage_line
+
+            return stage_line(event.kind, event.payload())
     extras = [f"{key}={_short(value)}" for key, value in event.payload().items()
               if key not in ("message", "text") and not isinstance(value, (dict, list))
               and value is not None]
