@@ -30,3 +30,9 @@ def test_the_command_of_the_issue(tmp_path, capsys):
     assert "step forward@248.15K (iv_forward): 37 points at 248.15 K (-25 degC)" in out
     assert "stage: to 398.15 K (125 degC) at 20 K/min" in out
     assert "stage: stable at 398.15 K (125 degC)" in out
+    # pnbench fit on the run folder fits it per set point, as the run did
+    assert cli.main(["fit", str(run_dir), "--json"]) == 0
+    refit = json.loads(capsys.readouterr().out)
+    eg = model["parameters"]["EG"]
+    assert abs(refit["parameters"]["EG"]["value"] - eg["value"]) <= eg["sigma"]
+    assert len(refit["temperatures"]) == 4

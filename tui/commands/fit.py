@@ -65,7 +65,7 @@ def run(args) -> int:
     from pnbench.sweeps.datafile import read_data
     from pnbench.sweeps.quantities import parse_quantity
 
-    if len(args.source) > 1 or args.tnom is not None:
+    if len(args.source) > 1 or args.tnom is not None or _over_temperature(args):
         from pnbench.tui.commands import fit_over
 
         return fit_over.run(args)
@@ -112,6 +112,13 @@ def run(args) -> int:
         return 0
     print(format_table(result, data, temperature, notes, math))
     return 0
+
+
+def _over_temperature(args) -> bool:
+    """A run folder of a run over temperature (fitted per set point)."""
+    from pnbench.tui.commands.fit_over import run_folder_sets
+
+    return run_folder_sets(args.source[0], args.kind) is not None
 
 
 def _run_breakdown_current(source: str, notes: list[str]) -> float | None:

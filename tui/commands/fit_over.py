@@ -10,6 +10,43 @@ TRS, TCV, N's drift when the data show them) and the model holds its values at T
 from __future__ import annotations
 
 
+def run_folder_sets(folder, kind: str = "auto") -> list[tuple[float, dict, str]] | None:
+    """A run folder over temperature as (temperature, data, label) per stage set point
+    (steps named NAME@<T>K); the temperature is the mean of the points' temperature_K
+    readings, else the set point. None for a run at one temperature."""
+    from pathlib import Path
+
+    import numpy as np
+
+    from pnbench.sweeps import record
+    from pnbench.tui.report.arrhenius import set_point_of
+
+    folder = Path(folder)
+    if not (folder.is_dir() and record.has(folder, record.layout.POINTS)):
+        return None
+    points = record.read_columns(folder)
+    set_points = {set_point_of(name) for name in points.step_names} - {None}
+    if len(set_points) < 2:
+        return None
+    steps = points.steps()
+    kinds = points.kinds().astype(str)
+    out = []
+    for sp in sorted(set_points):
+        rows = np.array([set_point_of(s) == sp for s in steps], dtype=bool)
+        t = points.temperature_K[rows]
+        t = t[np.isfinite(t)]
+        data = {}
+        for k in ("iv", "cv"):
+            pick = rows & (kinds == k)
+            if pick.any() and kind in ("auto", k):
+                data[k] = {n: getattr(points, n)[pick] for n in (
+                    "voltage_V", "current_A", "frequency_Hz", "capacitance_F",
+                    "conductance_S", "compliance")}
+        if data:
+            out.append((float(np.mean(t)) if t.size else sp, data, f"{folder} @ {sp:g} K"))
+    return out
+
+
 def run(args) -> int:
     import json
 
@@ -41,6 +78,13 @@ def run(args) -> int:
     notes: list[str] = []
     sets, files = [], []
     for source in args.source:
+        over_t = run_folder_sets(source, args.kind)
+        if over_t is not None:
+            for t, fit_data, label in over_t:
+                sets.append((t, fit_data))
+                files.append((_Label(label, fit_data), t))
+            notes.append(f"{source}: a run over temperature, fitted per stage set point")
+            continue
         data = read_data(source, args.kind)
         notes += [f"{data.path}: {n}" for n in data.notes]
         if data.temperature_K is not None:
@@ -73,6 +117,18 @@ def run(args) -> int:
         return 0
     print(format_table(fit, files, notes))
     return 0
+
+
+class _Label:
+    """A set point of a run folder, shown like a file in the table."""
+
+    def __init__(self, label: str, data: dict) -> None:
+        import numpy as np
+
+        self.path = label
+        self.kinds = tuple(data)
+        self.row_kind = np.concatenate([np.full(len(data[k]["voltage_V"]), k)
+                                        for k in self.kinds])
 
 
 def format_table(fit, files, notes) -> str:
