@@ -33,3 +33,20 @@ def test_stage_events_read_in_the_app_log():
     assert "drifting during forward@398.15K" in describe(drift)
     off = ev.Output(role="stage", on=False, confirmed=True)
     assert describe(off) == "stage to its standby temperature (set point confirmed)"
+
+
+def test_the_run_screen_summary_shows_the_stage():
+    """The stage's set point, state, time to stable and reading in the progress line."""
+    from pnbench.sweeps import events as ev
+    from pnbench.tui.app.state import RunState
+    from pnbench.tui.app.widgets.progress import stage_text, summary_line
+
+    state = RunState()
+    assert stage_text(state.stage) == ""
+    state.apply_event(ev.StageRamping(seq=1, set_point_K=398.15, temperature_K=300.1))
+    assert "stage 398.15 K: ramping, reads 300.1 K" in summary_line(state)
+    state.apply_event(ev.StageStable(seq=2, set_point_K=398.15, temperature_K=398.12,
+                                     waited_s=324.0))
+    assert "stage 398.15 K: stable \u2713 after 5:24, reads 398.12 K" in summary_line(state)
+    state.apply_event(ev.Output(seq=3, role="stage", on=False, confirmed=True))
+    assert state.stage["state"] == "standby" and "stage" not in state.outputs

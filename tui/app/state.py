@@ -25,6 +25,9 @@ from pnbench.sweeps.events import (
     Resumed,
     RunFinished,
     RunStarted,
+    StageDrifting,
+    StageRamping,
+    StageStable,
     StepStarted,
 )
 from pnbench.sweeps.progress import ProgressModel, StepProgress, format_duration
@@ -64,6 +67,8 @@ class RunState:
     status: str = "idle"
     reason: str = ""
     outputs: dict[str, bool] = field(default_factory=dict)
+    #: a run over temperature: the stage's last news (set point, reading, state, wait)
+    stage: dict = field(default_factory=dict)
     outputs_off_confirmed: bool = False
     #: who confirmed the outputs off: the runner, or the guardian after a killed run
     outputs_off_by: str = "runner"
@@ -130,8 +135,15 @@ class RunState:
                 self.reason = str(event.reason or self.reason or "")
                 self.outputs_off_confirmed = bool(event.outputs_off_confirmed)
                 self.connected = event.connected is not False
+            case Output() if event.role == "stage":
+                self.stage = {**self.stage, "state": "standby"}
             case Output():
                 self.outputs[str(event.role or "source")] = bool(event.on)
+            case StageRamping() | StageStable() | StageDrifting():
+                self.stage = {"set_point_K": event.set_point_K,
+                              "temperature_K": event.temperature_K,
+                              "state": event.kind.removeprefix("stage_"),
+                              "waited_s": getattr(event, "waited_s", None)}
         if event.kind in LOG_TAGS:
             self.add_log(LogEntry(t, LOG_TAGS[event.kind], step, describe(event)))
         self.version += 1

@@ -37,7 +37,22 @@ def summary_line(state: RunState) -> str:
         where += f" {current.done}/{current.planned or '?'}"
     return (f"ETA run {format_duration(run_eta)}, step {format_duration(step_eta)} | "
             f"{where} | {format_duration(state.elapsed_s())} elapsed | "
-            f"{state.point_count} pts")
+            f"{state.point_count} pts" + stage_text(state.stage))
+
+
+def stage_text(stage: dict) -> str:
+    """A run over temperature: ' | stage 398.15 K: stable (324 s), reads 398.12 K'."""
+    if not stage:
+        return ""
+    sp, now, what = stage.get("set_point_K"), stage.get("temperature_K"), stage.get("state")
+    mark = {"stable": "stable \u2713", "drifting": "DRIFTING", "ramping": "ramping",
+            "standby": "to standby"}.get(what, str(what))
+    waited = stage.get("waited_s")
+    took = f" after {format_duration(waited)}" if what == "stable" and waited else ""
+    reads = f", reads {now:.5g} K" if isinstance(now, (int, float)) and what != "standby" \
+        else ""
+    at = f" {sp:.5g} K" if isinstance(sp, (int, float)) else ""
+    return f" | stage{at}: {mark}{took}{reads}"
 
 
 class RunProgress(Vertical):
