@@ -50,3 +50,34 @@ def test_the_run_screen_summary_shows_the_stage():
     assert "stage 398.15 K: stable \u2713 after 5:24, reads 398.12 K" in summary_line(state)
     state.apply_event(ev.Output(seq=3, role="stage", on=False, confirmed=True))
     assert state.stage["state"] == "standby" and "stage" not in state.outputs
+
+
+def test_the_arrhenius_view_draws_each_temperature_and_the_fit():
+    """Data from the project's temperature model (modeling.temperature, checked against
+    ngspice in tests/modeling/test_temperature_ngspice.py)."""
+    import numpy as np
+
+    from pnbench.modeling import junction
+    from pnbench.modeling import temperature as tm
+    from pnbench.modeling.fit_temperature import fit_over_temperature
+    from pnbench.modeling.params import DiodeParams
+    from pnbench.tui.app.plots import plot_data
+    from pnbench.tui.app.state import RunState
+
+    card = DiodeParams(IS=1e-14, N=1.02, RS=0.8, EG=1.12, XTI=3.0)
+    rng = np.random.default_rng(8)
+    sets = []
+    for t in (260.0, 300.0, 340.0):
+        p = tm.params_at(card, t, 300.15)
+        v = junction.voltage(np.logspace(-8, -2, 20), p, t)
+        i = junction.current(v, p, t) * (1 + 2e-3 * rng.standard_normal(v.size))
+        sets.append((t, {"iv": {"voltage_V": v, "current_A": i}}))
+    state = RunState()
+    state.apply_model_json(fit_over_temperature(sets).model.to_json_dict())
+    data = plot_data("arr", state.snapshot())
+    points, fit = data.series
+    assert np.allclose(points.x, 1000.0 / np.array([260.0, 300.0, 340.0]))
+    assert fit.line and "EG 1.1" in data.note
+    # the fitted line passes through each temperature's IS
+    assert np.interp(points.x[::-1], fit.x[::-1], fit.y[::-1]) == \
+        __import__("pytest").approx(points.y[::-1], abs=0.01)

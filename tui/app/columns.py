@@ -106,6 +106,9 @@ class Snapshot:
     step_kinds: dict
     temperature_K: float
     version: int
+    #: a model over temperature: each temperature's own fit (model.json "temperatures")
+    temperatures: tuple = ()
+    model_temperature_K: float | None = None
 
     def step_kind(self, name: str) -> str:
         return self.step_kinds.get(name, "")

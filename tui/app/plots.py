@@ -27,7 +27,10 @@ VIEWS: tuple[tuple[str, str], ...] = (
     ("mott", "Mott-Schottky"),
     ("yc", "admittance C"),
     ("yg", "admittance G"),
+    ("arr", "Arrhenius IS(T)"),
 )
+#: Views only a model over several temperatures fills.
+OVER_TEMPERATURE_VIEWS = ("arr",)
 
 #: The view that shows a step kind best (the run screen follows the running step).
 VIEW_OF_KIND = {"iv_forward": "fwd", "iv_reverse": "rev", "cv": "cv", "admittance": "yc"}
@@ -159,7 +162,7 @@ def plot_data(view: str, state: RunState | Snapshot) -> PlotData:
     UI thread, or a Snapshot of one on any thread)."""
     params = model_params(state.parameters)
     builder = {"fwd": _iv, "rev": _iv, "resid": _residual, "cv": _cv, "mott": _mott,
-               "yc": _admittance, "yg": _admittance}[view]
+               "yc": _admittance, "yg": _admittance, "arr": _arrhenius}[view]
     return builder(view, state, params)
 
 
@@ -333,3 +336,28 @@ def _admittance(view: str, state: RunState, params: DiodeParams | None) -> PlotD
 
 def _si(value: float, unit: str) -> str:
     return format_quantity(value, unit, prec=3)
+
+
+def _arrhenius(view: str, state: RunState | Snapshot, params: DiodeParams | None) -> PlotData:
+    """log10 IS of each temperature's own fit against 1000/T, and the model's IS(T)."""
+    from pnbench.modeling import temperature as tm
+
+    data = PlotData(view, dict(VIEWS)[view], "1000/T", "IS", "1/K", "A", y_log=True)
+    rows = [r for r in state.temperatures
+            if isinstance(r.get("temperature_K"), (int, float)) and r["temperature_K"] > 0
+            and isinstance(r.get("IS"), (int, float)) and r["IS"] > 0]
+    if len(rows) < 2:
+        data.note = "a model over two temperatures or more (a run over temperature)"
+        return data
+    t = np.array([r["temperature_K"] for r in rows])
+    data.series.append(Series(1000.0 / t, np.log10([r["IS"] for r in rows]),
+                              "each temperature", marker="o"))
+    p, tnom = state.parameters, state.model_temperature_K
+    if tnom and all(k in p for k in ("IS", "N", "EG")):
+        xti = p["XTI"].value if "XTI" in p else 3.0
+        grid = np.linspace(t.min(), t.max(), 80)
+        law = [math.log10(p["IS"].value) + tm.log_saturation_ratio(
+            p["N"].value, p["EG"].value, xti, g, tnom) / math.log(10.0) for g in grid]
+        data.series.append(Series(1000.0 / grid, np.array(law), "fit", line=True))
+        data.note = f"EG {p['EG'].value:.4g} eV, XTI {xti:.3g}"
+    return data

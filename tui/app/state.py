@@ -77,6 +77,9 @@ class RunState:
     device: dict = field(default_factory=dict)
     instruments: dict = field(default_factory=dict)
     temperature_K: float = 300.15
+    #: a model over temperature (model.json): each temperature's fit, and its TNOM
+    temperatures: tuple = ()
+    model_temperature_K: float | None = None
     last_time_s: float = 0.0
     #: increases at every change, so a screen redraws only when something changed
     version: int = 0
@@ -203,6 +206,11 @@ class RunState:
         the end) replaces the live estimates: a name it leaves out (say RS, once all the
         data show no series resistance) is no longer shown."""
         self.parameters.clear()
+        rows = doc.get("temperatures")
+        self.temperatures = tuple(r for r in rows if isinstance(r, dict)) \
+            if isinstance(rows, list) else ()
+        tnom = doc.get("temperature_K")
+        self.model_temperature_K = float(tnom) if isinstance(tnom, (int, float)) else None
         for name, entry in (doc.get("parameters") or {}).items():
             if not isinstance(entry, dict) or not isinstance(entry.get("value"),
                                                                (int, float)):
@@ -260,7 +268,8 @@ class RunState:
         return Snapshot(FrozenColumns(self.iv), FrozenColumns(self.cv),
                         dict(self.parameters),
                         {name: p.kind for name, p in self.steps.items()},
-                        self.temperature_K, self.version)
+                        self.temperature_K, self.version, self.temperatures,
+                        self.model_temperature_K)
 
     @property
     def steps(self) -> dict[str, StepProgress]:
