@@ -191,7 +191,8 @@ def read_columns(path: Path, fields: tuple[str, ...] | None = None) -> PointColu
     if (fields is None or TEMPERATURE in fields) and _has_temperature(path):
         wanted += (TEMPERATURE,)
     lines_at_most = _count_lines(path)
-    out = {name: np.empty(lines_at_most, dtype=np.float64 if name in _FLOATS else
+    floats = (*_FLOATS, TEMPERATURE)
+    out = {name: np.empty(lines_at_most, dtype=np.float64 if name in floats else
                           np.int64 if name == "index" else np.int32)
            for name in ("step_code", "kind_code", *wanted)}
     out["compliance"] = np.empty(lines_at_most, dtype=bool)
