@@ -41,3 +41,26 @@ def test_probe_of_the_lcr_meter_prints_quantities_not_a_dict(capsys):
     line = next(x for x in out.splitlines() if "reading_1kHz" in x)
     assert "{" not in line and "'" not in line
     assert "Cp = " in line and " pF" in line and "Gp = " in line and "at 1 kHz" in line
+
+
+def test_demo_with_a_device_file_of_ones_own_characterizes_that_device(tmp_path, capsys):
+    """A device file with its own part name gets a plan fitted to it, and the run folder
+    and the model card are named after that part (not after the bundled varactor)."""
+    from importlib import resources
+
+    text = (resources.files("pnbench.sim_configs") / "lh-vh720.toml").read_text()
+    mine = tmp_path / "my-device.toml"
+    mine.write_text(text.replace('part = "LH-VH720"', 'part = "MY-PART-9"'),
+                    encoding="utf-8")
+    out = tmp_path / "runs"
+    code = cli.main(["demo", "--simulate", str(mine), "--time-scale", "0", "--headless",
+                     "--out", str(out), "--no-report"])
+    assert code == 0, capsys.readouterr().err
+    runs = [p for p in out.iterdir() if p.is_dir()]
+    assert len(runs) == 1 and runs[0].name.endswith("_MY-PART-9")
+    assert (runs[0] / "MY-PART-9.lib").exists()
+    assert "VC510" not in (runs[0] / "plan.toml").read_text()
+    # a bundled part named by its file is still run with its own bundled plan
+    from pnbench.tui.commands.demo import plan_for
+
+    assert plan_for("lh-hm27", str(out)).name == "lh-hm27.toml"

@@ -42,6 +42,28 @@ def demo_plan(simulate: str) -> Path:
     return plans.get(key, plans[DEFAULT_DEVICE])
 
 
+def plan_for(simulate: str, out_dir: str) -> Path:
+    """The bundled plan of a bundled part (by name, file name or the part named in the
+    device file); for a device file of one's own, a plan fitted to it, written under
+    `out_dir` so the run folder keeps a copy as always."""
+    from pnbench.drivers.sim.device import resolve_device
+    from pnbench.tui.commands.demoplan import fitted_plan_text
+
+    plans = bundled_plans()
+    key = Path(simulate).name.lower().removesuffix(".toml")
+    if key in plans:
+        return plans[key]
+    device = resolve_device(simulate)  # DeviceFileError names the file and key
+    part = device.part.lower()
+    if part in plans:
+        return plans[part]
+    folder = Path(out_dir)
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / f"{key}-demo-plan.toml"
+    path.write_text(fitted_plan_text(device), encoding="utf-8")
+    return path
+
+
 def run(args) -> int:
     from pnbench.sweeps.launch import Launch
     from pnbench.sweeps.plan import load_plan
@@ -49,7 +71,7 @@ def run(args) -> int:
 
     simulate = args.simulate or DEFAULT_DEVICE
     args.simulate = simulate
-    plan_path = demo_plan(simulate)
+    plan_path = plan_for(simulate, args.out)
     plan = load_plan(plan_path)
     check_bench_options(args, plan)
     print(f"demo: plan {plan_path.name} on the simulated bench with {simulate} "
