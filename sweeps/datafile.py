@@ -80,12 +80,14 @@ class DataSet:
         return {k: self.select(k) for k in self.kinds}
 
 
-def read_data(path: str | Path, kind: str = "auto") -> DataSet:
-    """A data file, or the points.csv of a run folder (with run.json's temperature)."""
+def read_data(path: str | Path, kind: str = "auto",
+              columns: dict[str, str] | None = None) -> DataSet:
+    """A data file, or the points.csv of a run folder (with run.json's temperature).
+    `columns` maps a file's own column names to pnbench's (V -> voltage_V)."""
     p = Path(path).expanduser()
     if p.is_dir():
         return read_run_folder(p, kind)
-    return read_data_file(p, kind)
+    return read_data_file(p, kind, columns=columns)
 
 
 def read_run_folder(folder: str | Path, kind: str = "auto") -> DataSet:
@@ -199,7 +201,8 @@ def _meta_number(meta: dict, key: str, unit: str, path: Path) -> float | None:
 
 
 def read_data_file(path: str | Path, kind: str = "auto", *,
-                   tolerate_torn_tail: bool = False) -> DataSet:
+                   tolerate_torn_tail: bool = False,
+                   columns: dict[str, str] | None = None) -> DataSet:
     """Read and validate one CSV file (see the module notes for the format)."""
     path = Path(path).expanduser()
     if kind not in KINDS:
@@ -221,6 +224,12 @@ def read_data_file(path: str | Path, kind: str = "auto", *,
             body.append((n, stripped))
     if header is None:
         raise DataFileError(f"{path}: empty (no header row and no data); {_ACCEPTED}")
+    if columns:
+        absent = [name for name in columns if name not in header]
+        if absent:
+            raise DataFileError(f"{path}, line {header_line}: no column {absent[0]!r} to "
+                                f"rename (the header has: {', '.join(header)})")
+        header = [columns.get(h, h) for h in header]
     dup = {h for h in header if header.count(h) > 1}
     if dup:
         raise DataFileError(f"{path}, line {header_line}: column {sorted(dup)[0]!r} appears "

@@ -64,3 +64,32 @@ def test_demo_with_a_device_file_of_ones_own_characterizes_that_device(tmp_path,
     from pnbench.tui.commands.demo import plan_for
 
     assert plan_for("lh-hm27", str(out)).name == "lh-hm27.toml"
+
+
+def test_fit_maps_a_files_own_column_names(tmp_path, capsys):
+    """A file with columns V,I is read with --column-names V=voltage_V,I=current_A; a
+    name the header lacks, or a target pnbench does not know, is bad input (exit 2)."""
+    import numpy as np
+
+    from pnbench.modeling import junction
+    from pnbench.modeling.params import DiodeParams
+
+    p = DiodeParams(IS=2e-14, N=1.04, RS=1.5)
+    v = np.linspace(0.3, 0.85, 60)
+    i = junction.current(v, p, 300.15)
+    path = tmp_path / "theirs.csv"
+    path.write_text("V,I\n" + "".join(f"{float(a)!r},{float(b)!r}\n"
+                                       for a, b in zip(v, i, strict=True)),
+                    encoding="utf-8")
+    assert cli.main(["fit", str(path)]) == 2  # unnamed columns: refused, as before
+    assert "voltage_V" in capsys.readouterr().err
+    assert cli.main(["fit", str(path), "--column-names", "V=voltage_V,I=current_A",
+                     "--json"]) == 0
+    import json
+
+    doc = json.loads(capsys.readouterr().out)
+    assert abs(doc["parameters"]["N"]["value"] - 1.04) < 0.01
+    assert cli.main(["fit", str(path), "--column-names", "U=voltage_V,I=current_A"]) == 2
+    assert "'U'" in capsys.readouterr().err
+    assert cli.main(["fit", str(path), "--column-names", "V=volts,I=current_A"]) == 2
+    assert "not a pnbench column" in capsys.readouterr().err

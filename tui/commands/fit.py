@@ -51,8 +51,34 @@ def add_arguments(parser) -> None:
     parser.add_argument("--lcr-noise", metavar="REL,FLOOR",
                         help="the LCR meter's stated noise, relative of |Y| and floor as "
                              "a capacitance, e.g. 3e-4,2fF")
+    parser.add_argument("--column-names", metavar="FILE=OURS,...", default=None,
+                        help="read a file whose columns are named otherwise, e.g. "
+                        "'V=voltage_V,I=current_A' (pnbench's names: voltage_V, "
+                        "current_A, frequency_Hz, capacitance_F, conductance_S)")
     parser.add_argument("--json", action="store_true",
                         help="print the model.json document instead of the table")
+
+
+def column_names(text: str | None) -> dict[str, str] | None:
+    """--column-names 'V=voltage_V,I=current_A' as {file name: pnbench name}."""
+    from pnbench.errors import BadInput
+    from pnbench.sweeps.datafile import NUMERIC
+
+    if text is None:
+        return None
+    found: dict[str, str] = {}
+    for part in (p.strip() for p in text.split(",") if p.strip()):
+        theirs, sep, ours = (x.strip() for x in part.partition("="))
+        if not sep or not theirs or not ours:
+            raise BadInput(f"--column-names {text!r}: write FILE_NAME=PNBENCH_NAME pairs "
+                           "separated by commas, e.g. V=voltage_V,I=current_A")
+        if ours not in NUMERIC:
+            raise BadInput(f"--column-names: {ours!r} is not a pnbench column (accepted: "
+                           f"{', '.join(NUMERIC)})")
+        found[theirs] = ours
+    if not found:
+        raise BadInput("--column-names: give at least one FILE_NAME=PNBENCH_NAME pair")
+    return found
 
 
 def run(args) -> int:
@@ -70,7 +96,7 @@ def run(args) -> int:
 
         return fit_over.run(args)
     source = args.source[0]
-    data = read_data(source, args.kind)
+    data = read_data(source, args.kind, column_names(args.column_names))
     notes = list(data.notes)
     if args.temperature is not None:
         temperature = parse_quantity(args.temperature, "K", what="--temperature",

@@ -54,6 +54,9 @@ def run(args) -> int:
     from pnbench.modeling.fit_temperature import fit_over_temperature
     from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
     from pnbench.sweeps.datafile import read_data
+    from pnbench.tui.commands.fit import column_names
+
+    names = column_names(getattr(args, "column_names", None))
     from pnbench.sweeps.quantities import parse_quantity
 
     default_t = None
@@ -85,7 +88,7 @@ def run(args) -> int:
                 files.append((_Label(label, fit_data), t))
             notes.append(f"{source}: a run over temperature, fitted per stage set point")
             continue
-        data = read_data(source, args.kind)
+        data = read_data(source, args.kind, names)
         notes += [f"{data.path}: {n}" for n in data.notes]
         if data.temperature_K is not None:
             t = data.temperature_K
