@@ -152,3 +152,14 @@ def test_a_step_ended_at_its_breakdown_guard_is_not_missing():
     assert not [i for i in items if "breakdown" in i]
     assert len(items) == 1 and "forward: 40 of 90" in items[0]
     assert "compliance_storm" not in items[0] and "repeated compliance" in items[0]
+
+
+def test_the_doping_is_stated_once_with_one_sigma():
+    """model.json's own doping digest is not repeated under "other results": the depletion
+    section states the doping and its sigma once."""
+    from pnbench.tui.report.tables import _extras
+
+    extras = {"doping": {"doping_per_m3": 1e22, "doping_sigma_per_m3": 3e20},
+              "leakage": {"voltage_V": -5.0, "current_A": 1e-9}}
+    text = _extras(extras)
+    assert "doping" not in text and "leakage" in text

@@ -214,8 +214,8 @@ def mott_schottky(an: Analysis, device: str):
     lines = [f"intercept {ms.intercept_V:.3f} V",
              f"Vbi = {ms.vbi_V:.3f} \u00b1 {ms.vbi_sigma_V:.2g} V"]
     if ms.doping_m3 is not None:
-        lines.append(f"N = {ms.doping_m3 * 1e-6:.3e} \u00b1 {ms.doping_sigma_m3 * 1e-6:.1e}"
-                     " cm\u207b\u00b3")
+        lines.append(f"N = {ms.doping_m3 * 1e-6:.4g} \u00b1 {ms.doping_sigma_m3 * 1e-6:.2g}"
+                     " cm\u207b\u00b3")  # as the depletion table states it
         lines.append(f"({ms.material}, area from the run)")
     else:
         lines.append("doping: not available")

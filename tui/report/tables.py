@@ -183,7 +183,8 @@ def _extras(extras: dict) -> str:
         else:
             rows.append([esc(" / ".join(path)), esc(_extra_value(path[-1], node))])
 
-    walk({k: v for k, v in extras.items() if k != "fits"}, ())
+    # the doping is stated once, with one sigma, in the depletion section
+    walk({k: v for k, v in extras.items() if k not in ("fits", "doping")}, ())
     if not rows:
         return ""
     return "<h3>Other results in model.json</h3>" + table(["Key", "Value"], rows)
