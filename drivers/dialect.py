@@ -79,6 +79,9 @@ class LcrCommands:
     read_fields: tuple[str, ...]
     open_correction: str
     short_correction: str
+    #: the correction data at the frequency set: open G, B [S]; short R, X [ohm]
+    open_data_query: str = ""
+    short_data_query: str = ""
 
 
 @dataclass(frozen=True)
@@ -178,7 +181,11 @@ _LCR_KINDS = {
     "read_fields": "fields",
     "open_correction": "setting?",
     "short_correction": "setting?",
+    "open_data_query": "query?",
+    "short_data_query": "query?",
 }
+#: Keys a dialect file may leave out (they read as empty): added after format 1 began.
+_OPTIONAL_KEYS = {"lcr": ("open_data_query", "short_data_query")}
 _STAGE_KINDS = {
     "temperature_unit": "unit",
     "set_point": "value",
@@ -249,6 +256,7 @@ def _check_fields(value: Any, allowed: tuple[str, ...], needed: tuple[str, ...],
 
 
 def _build(cls: type, table: dict, kinds: dict, source: str, name: str) -> Any:
+    table = {**{k: "" for k in _OPTIONAL_KEYS.get(name, ())}, **table}
     _check_keys(table, kinds, source, name)
     values = {}
     for key, kind in kinds.items():

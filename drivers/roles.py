@@ -412,6 +412,20 @@ class LcrMeter(_Role):
         """Run the short correction (fixture shorted) and wait for it to finish."""
         self._correction("short", timeout_ms)
 
+    def correction_data(self, which: str, frequency_Hz: float) -> tuple[float, float] | None:
+        """What the ``which`` ("open"/"short") correction measured at ``frequency_Hz``:
+        the open's (G [S], B [S]) or the short's (R [ohm], X [ohm]); None when the
+        dialect has no query for it."""
+        query = getattr(self.commands, f"{which}_data_query")
+        if not query:
+            return None
+        frequency_Hz = _positive("LCR frequency", frequency_Hz)
+        message = self.dialect.join([self.dialect.fill(self.commands.frequency,
+                                                       value=frequency_Hz), query])
+        units = self.session.ask(message)
+        values = _fields(self.session, units[0], ("primary", "secondary"), message)
+        return values["primary"], values["secondary"]
+
     def safe_off(self) -> list[str]:
         """Bias to zero and off, confirmed by query when the dialect has one. Idempotent.
 

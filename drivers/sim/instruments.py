@@ -12,7 +12,11 @@ device file and turns autorange off; a reading beyond a fixed range (by more tha
 answers the overflow marker.
 
 LCR meter after *RST: 1 kHz, 1 V rms, bias 0 V and off, form parallel (Cp, Gp); open and short
-corrections are kept (they live in the meter's memory, not in its settings). The AC level
+corrections are kept (they live in the meter's memory, not in its settings). An open
+correction leaves `OPEN_RESIDUAL` of the fixture's stray capacitance in the readings, a
+short correction none of its series resistance; `:SENS:CORR:OPEN:DATA?` answers the open's
+G, B and `:SENS:CORR:SHOR:DATA?` the short's R, X at the frequency set (zeros before the
+correction was run). The AC level
 is the rms voltage across the device. The bias source sags to hold its current limit.
 """
 
@@ -261,6 +265,12 @@ class SimSmu(SimInstrumentWithOutput):
         return self.last_reading
 
 
+#: The fraction of the fixture's stray capacitance an open correction leaves: the open
+#: is measured once, with the fixture's leads not quite where they are with a part in
+#: it (a few tenths of a percent, common practice, no source).
+OPEN_RESIDUAL = 0.003
+
+
 class SimLcr(SimInstrumentWithOutput):
     """An LCR meter with its DC bias source, measuring the diode."""
 
@@ -298,6 +308,19 @@ class SimLcr(SimInstrumentWithOutput):
         self.reset()
 
     def commands(self) -> list[tuple[str, bool, Handler]]:
+        def data(which: str) -> Handler:
+            def ask(command: scpi.Command) -> str:
+                no_arguments(command)
+                w = 2.0 * math.pi * self.frequency_Hz
+                if which == "open":
+                    measured = self.spec["fixture_capacitance_F"] * (1.0 - OPEN_RESIDUAL)
+                    pair = (0.0, w * measured) if self.open_corrected else (0.0, 0.0)
+                else:
+                    r = self.spec["fixture_resistance_ohm"]
+                    pair = (r, 0.0) if self.short_corrected else (0.0, 0.0)
+                return ",".join(scpi.format_value(v) for v in pair)
+            return ask
+
         def correction(attr: str) -> Handler:
             def run(command: scpi.Command) -> None:
                 no_arguments(command)
@@ -309,6 +332,8 @@ class SimLcr(SimInstrumentWithOutput):
             *self._output_commands(":SOURce:BIAS:STATe"),
             (":SENSe:CORRection:OPEN[:EXECute]", False, correction("open_corrected")),
             (":SENSe:CORRection:SHORt[:EXECute]", False, correction("short_corrected")),
+            (":SENSe:CORRection:OPEN:DATA", True, data("open")),
+            (":SENSe:CORRection:SHORt:DATA", True, data("short")),
             (":READ:IMPedance", True, self._read),
             (":FETCh:IMPedance", True, self._fetch),
         ]
@@ -329,8 +354,8 @@ class SimLcr(SimInstrumentWithOutput):
         y = simphysics.fundamental_admittance(bias, self.frequency_Hz, self.ac_level_V,
                                               self.params, self.temperature_K)
         w = 2.0 * math.pi * self.frequency_Hz
-        if not self.open_corrected:
-            y += 1j * w * spec["fixture_capacitance_F"]
+        stray = spec["fixture_capacitance_F"]
+        y += 1j * w * stray * (OPEN_RESIDUAL if self.open_corrected else 1.0)
         if not self.short_corrected and spec["fixture_resistance_ohm"] > 0:
             y = y / (1.0 + spec["fixture_resistance_ohm"] * y)
         return y

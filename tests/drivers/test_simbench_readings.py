@@ -19,6 +19,7 @@ from pnbench.drivers.session import open_session
 from pnbench.drivers.sim import physics as simphysics
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.device import parse_device
+from pnbench.drivers.sim.instruments import OPEN_RESIDUAL
 from pnbench.modeling import junction, smallsignal
 
 NOISY = """
@@ -232,17 +233,38 @@ def test_large_ac_level_at_forward_bias_reads_a_distorted_conductance():
     assert small[0].admittance_S.real == pytest.approx(g_small_signal, rel=0.02)
     assert large[0].admittance_S.real > 1.1 * g_small_signal
     expected = simphysics.fundamental_admittance(0.6, 1e4, 0.05, p, t)
+    expected += 2j * math.pi * 1e4 * OPEN_RESIDUAL * device.lcr["fixture_capacitance_F"]
     assert large[0].admittance_S == pytest.approx(expected, rel=1e-9)
 
 
 def test_open_correction_removes_the_fixture_capacitance():
+    """The open correction leaves only its small residual of the 0.5 pF stray."""
     device = parse_device(QUIET)
     _, raw = _lcr_sweep(QUIET, [-5.0], 1e6, 0.01)
     _, corrected = _lcr_sweep(QUIET, [-5.0], 1e6, 0.01, correct=True)
     c_true = complex(smallsignal.device_admittance(-5.0, 1e6, device.params)).imag / (
         2 * math.pi * 1e6)
-    assert corrected[0].primary == pytest.approx(c_true, rel=1e-9)
+    assert 0 < OPEN_RESIDUAL < 0.01
+    assert corrected[0].primary == pytest.approx(c_true + OPEN_RESIDUAL * 5e-13, rel=1e-9)
     assert raw[0].primary == pytest.approx(c_true + 5e-13, rel=1e-6)
+    assert abs(corrected[0].primary - c_true) < 0.01 * (raw[0].primary - c_true)
+
+
+def test_the_meter_reports_what_its_corrections_measured():
+    """Open data: G, B of the stray it subtracts; short data: the fixture's series R; both
+    zero before the correction ran. B = 2*pi*f*C (definition of susceptance)."""
+    text = QUIET + "fixture_resistance_ohm = 0.25\n"
+    device = parse_device(text)
+    with SimBench.start(device) as bench, open_session(bench.lcr_resource) as session:
+        lcr = LcrMeter(session)
+        assert lcr.correction_data("open", 1e6) == (0.0, 0.0)
+        lcr.open_correction()
+        lcr.short_correction()
+        g, b = lcr.correction_data("open", 2e5)
+        r, x = lcr.correction_data("short", 2e5)
+    stray = device.lcr["fixture_capacitance_F"]
+    assert g == 0.0 and b == pytest.approx(2 * math.pi * 2e5 * stray * (1 - OPEN_RESIDUAL))
+    assert (r, x) == (device.lcr["fixture_resistance_ohm"], 0.0)
 
 
 def test_series_form_reads_cs_and_rs():
@@ -254,6 +276,7 @@ def test_series_form_reads_cs_and_rs():
         session.write(":SOUR:BIAS:STAT OFF")
     cs, rs = (float(x) for x in reading.split(","))
     expected = smallsignal.series_from_admittance(
-        smallsignal.device_admittance(-2.0, 1e6, device.params), 1e6)
+        smallsignal.device_admittance(-2.0, 1e6, device.params)
+        + 2j * math.pi * 1e6 * OPEN_RESIDUAL * device.lcr["fixture_capacitance_F"], 1e6)
     assert form == "SER"
     assert (cs, rs) == pytest.approx((float(expected[0]), float(expected[1])), rel=1e-9)
