@@ -221,6 +221,27 @@ class Output(Event):
 
 
 @dataclass(frozen=True, kw_only=True, slots=True)
+class OperatorPrompt(Event):
+    """The runner waits for the operator to do something and confirm it (answered
+    through the launch's ``answer``)."""
+
+    KIND: ClassVar[str] = "operator_prompt"
+    topic: str = ""  # e.g. "open_correction"
+    message: str = ""
+
+
+@dataclass(frozen=True, kw_only=True, slots=True)
+class Correction(Event):
+    """The LCR meter's fixture correction was run; ``values`` per correction kind, as far
+    as the meter reports them."""
+
+    KIND: ClassVar[str] = "lcr_correction"
+    corrections: list = field(default_factory=list)
+    confirmed: bool = False
+    values: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True, kw_only=True, slots=True)
 class ErrorEvent(Event):
     KIND: ClassVar[str] = "error"
     message: str = ""
@@ -289,8 +310,8 @@ class OtherEvent(Event):
 
 #: Every kind of event, in the order a run usually produces them, with its class.
 EVENT_CLASSES = (RunStarted, StepStarted, PointTaken, Compliance, Limit, WarningEvent, Fit,
-                 StepFinished, Paused, Resumed, Output, ErrorEvent,
-                 RunFinished, StageRamping, StageStable, StageDrifting)
+                 StepFinished, Paused, Resumed, Output, OperatorPrompt, Correction,
+                 ErrorEvent, RunFinished, StageRamping, StageStable, StageDrifting)
 KIND_CLASSES: dict[str, type[Event]] = {c.KIND: c for c in EVENT_CLASSES}
 KINDS = tuple(KIND_CLASSES)
 _FIELDS: dict[type, frozenset[str]] = {

@@ -169,8 +169,36 @@ def model_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
     data = {kind: parts[0] if len(parts) == 1 else
             {c: np.concatenate([p[c] for p in parts]) for c in parts[0]}
             for kind, parts in by_kind.items()}
-    return fit_run(data, temperature_K=temperature_K, area_m2=area_m2, extras=extras,
-                   ibv_A=breakdown_current_A(steps.values()))
+    model = fit_run(data, temperature_K=temperature_K, area_m2=area_m2, extras=extras,
+                    ibv_A=breakdown_current_A(steps.values()))
+    return note_correction(model, (extras or {}).get("lcr_correction"))
+
+
+#: What the C-V and admittance fits say when the meter's open correction was run.
+OPEN_CORRECTED = ("open correction applied by the meter: the stray capacitance of the "
+                  "fixture is subtracted from the readings, and a fitted CFIX is only what "
+                  "the correction left (the residual after correction)")
+
+
+def open_corrected(record: object) -> bool:
+    """Whether a run's ``lcr_correction`` record (run.json) says the open correction
+    was run."""
+    return (isinstance(record, dict) and bool(record.get("done"))
+            and "open" in (record.get("corrections") or ()))
+
+
+def note_correction(model, record: object):
+    """The model with its C-V/admittance fit messages stating the meter's open
+    correction (model extras ``open_corrected``); unchanged without one."""
+    if model is None or not open_corrected(record):
+        return model
+    model.extras["open_corrected"] = True
+    fits = model.extras.get("fits")
+    for kind in ("cv", "admittance"):
+        fit = fits.get(kind) if isinstance(fits, dict) else None
+        if isinstance(fit, dict) and OPEN_CORRECTED not in str(fit.get("message", "")):
+            fit["message"] = f"{fit.get('message', '')}; {OPEN_CORRECTED}"
+    return model
 
 
 def model_of_snapshots(steps: dict, latest: dict, temperature_K: float, *,
@@ -191,4 +219,5 @@ def model_of_snapshots(steps: dict, latest: dict, temperature_K: float, *,
     if area_m2 is not None:
         more["area_m2"] = float(area_m2)
     more["provisional"] = True
-    return model_from_results(results, temperature_K, more)
+    return note_correction(model_from_results(results, temperature_K, more),
+                           more.get("lcr_correction"))

@@ -99,6 +99,10 @@ class Launch:
               status: str = RunStatus.ABORTED) -> None:
         self._control("abort", reason, status)
 
+    def answer(self, ok: bool) -> None:
+        """Answer the runner's operator_prompt (a fixture state set and confirmed)."""
+        self._control("answer", ok)
+
     def _control(self, name: str, *args) -> None:
         runner = self.runner
         if runner is None:
@@ -269,7 +273,9 @@ class Launch:
         worker = FitWorker(self.plan.steps, bus, temperature_K=self.plan.device.temperature_K,
                            write_model=write_model,
                            enabled=self.fit_enabled, area_m2=self.plan.device.area_m2,
-                           extras={"device": self.plan.device.name})
+                           extras={"device": self.plan.device.name,
+                                   **({"lcr_correction": folder.run["lcr_correction"]}
+                                      if folder.run.get("lcr_correction") else {})})
         if state is not None:
             for step in self.plan.steps:
                 worker.preload(step, state.points.get(step.name, []))

@@ -70,6 +70,27 @@ class Instrument:
                 "ratings": dict(self.ratings)}
 
 
+#: The LCR meter's fixture corrections a plan may ask for, in the order they run.
+CORRECTIONS = ("open", "short")
+
+
+@dataclass(frozen=True)
+class Correction:
+    """Open/short correction of the LCR meter, run before its first step.
+
+    ``confirmed`` False: the operator is asked to set each fixture state (open, then
+    shorted) and confirm it. True: the states are prepared in advance (unattended runs);
+    a device left in the fixture then becomes part of the "open" and is subtracted from
+    every reading after it.
+    """
+
+    which: tuple[str, ...]
+    confirmed: bool = False
+
+    def to_json_dict(self) -> dict:
+        return {"corrections": list(self.which), "confirmed": self.confirmed}
+
+
 @dataclass(frozen=True)
 class Plan:
     path: str
@@ -82,6 +103,7 @@ class Plan:
     line_frequency_Hz: float = 50.0
     warnings: tuple[str, ...] = ()
     temperature: TemperaturePlan | None = None  # a run over temperature (thermalplan)
+    correction: Correction | None = None  # [lcr_correction]; None: none asked
 
     def step(self, name: str) -> Step:
         for s in self.steps:
@@ -182,6 +204,7 @@ def _read(doc: dict, text: str, filename: str, base_dir: Path, problems: Problem
     instruments = _read_instruments(top.raw("instruments"), base_dir, problems)
     limits = _read_limits(TableReader(top.raw("limits", True, "a [limits] table") or {},
                                       ("limits",), problems), instruments)
+    correction = _read_correction(top.raw("lcr_correction"), problems)
     steps_raw = top.raw("steps", True, "at least one [[steps]] table")
     temperature_raw = top.raw("temperature")
     top.finish()
@@ -203,6 +226,9 @@ def _read(doc: dict, text: str, filename: str, base_dir: Path, problems: Problem
                                  "an earlier step; each step needs its own name")
                 names.add(step.name)
                 steps.append(step)
+    if correction is not None and not any(s.instrument == "lcr" for s in steps):
+        problems.add(("lcr_correction",), "the plan has no step on the LCR meter, so "
+                     "there is nothing to correct for; remove the table or add a step")
     temperature = None
     if temperature_raw is not None:
         stage = instruments.get("stage")
@@ -215,7 +241,26 @@ def _read(doc: dict, text: str, filename: str, base_dir: Path, problems: Problem
         steps = list(expand_steps(tuple(steps), temperature))
     return Plan(path=filename, text=text, title=title, device=device, limits=limits,
                 instruments=instruments, steps=tuple(steps), line_frequency_Hz=line_hz,
-                warnings=tuple(warnings), temperature=temperature)
+                warnings=tuple(warnings), temperature=temperature,
+                correction=correction)
+
+
+def _read_correction(raw: object, problems: Problems) -> Correction | None:
+    if raw is None:
+        return None
+    t = TableReader(raw, ("lcr_correction",), problems)
+    which = t.raw("corrections", True, 'a list such as ["open", "short"]')
+    confirmed = t.boolean("confirmed", False)
+    t.finish()
+    if which is None:
+        return None
+    if (not isinstance(which, list) or not which
+            or not all(isinstance(w, str) and w in CORRECTIONS for w in which)
+            or len(set(which)) != len(which)):
+        t.problem("corrections", f"found {which!r}; give one or both of "
+                  f"{', '.join(repr(c) for c in CORRECTIONS)}, each once")
+        return None
+    return Correction(which=tuple(c for c in CORRECTIONS if c in which), confirmed=confirmed)
 
 
 def _read_device(t: TableReader) -> Device | None:

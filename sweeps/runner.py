@@ -23,6 +23,7 @@ from pnbench.sweeps import ending
 from pnbench.sweeps import events as ev
 from pnbench.sweeps.benchtypes import BenchLike
 from pnbench.sweeps.control import Control
+from pnbench.sweeps.correction import run_correction
 from pnbench.sweeps.events import EventBus, finite
 from pnbench.sweeps.limits import Reading, StepGuard, Verdict, not_finite
 from pnbench.sweeps.plan import Plan
@@ -73,6 +74,7 @@ class Runner:
         self.current_step: str | None = None
         self.step_failed = False  # the step in hand ended by an instrument fault
         self.in_shutdown = False
+        self.corrected = False  # the plan's LCR correction was run in this process
         self.control = Control()
         self._last_refresh = 0.0
         self._last_compliance_event: dict[str, float] = {}
@@ -86,6 +88,10 @@ class Runner:
 
     def resume(self) -> None:
         self.control.resume()
+
+    def answer(self, ok: bool) -> None:
+        """The operator's answer to the question of the last operator_prompt event."""
+        self.control.answer(ok)
 
     def abort(self, reason: str = "stopped by the operator",
               status: str = RunStatus.ABORTED) -> None:
@@ -198,6 +204,12 @@ class Runner:
         if step.instrument == "smu":
             status, verdict = self._smu_step(step, start)
         else:
+            if self.plan.correction is not None and not self.corrected:
+                record = run_correction(self.plan, self.bench, self.bus, self.control,
+                                        self.folder, step.name)  # outputs off; open, short
+                self.corrected = True
+                if isinstance(getattr(self.fit, "extras", None), dict):
+                    self.fit.extras["lcr_correction"] = record  # the fit states it
             status, verdict = self._lcr_step(step, start)
         if verdict is not None:
             self.ended_by[step.name] = verdict.kind

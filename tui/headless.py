@@ -102,6 +102,7 @@ class Progress:
         self._broken = False
         self.current: str | None = None
         self.run_dir = ""
+        self.hold = threading.Event()  # set while the operator is asked a question
 
     # -- bus side ---------------------------------------------------------------------
     def listener(self, event) -> None:
@@ -123,6 +124,8 @@ class Progress:
 
     def _loop(self) -> None:
         while not self._stop.wait(REDRAW_S):
+            if self.hold.is_set():
+                continue
             self._drain()
             if self.tty:
                 self._redraw()
@@ -285,9 +288,13 @@ def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
     and the exit code is 4. Returns the exit code; connection errors before the first
     point propagate."""
     from pnbench.sweeps.stopsignals import stop_on_signals
+    from pnbench.tui import operator
 
+    operator.refuse_without_terminal(launch.plan)  # before any folder or instrument
     progress = Progress(plan, stream=stream, tty=tty)
     launch.listeners.append(progress.listener)
+    if operator.needs_operator(launch.plan):
+        launch.listeners.append(operator.TerminalOperator(launch, progress.hold).listener)
     written: list[Path] = []
     if report:
         def write(run_dir: Path) -> Path | None:

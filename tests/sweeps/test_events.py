@@ -41,6 +41,10 @@ EXAMPLES = {
     ev.Paused: dict(done=5),
     ev.Resumed: dict(done=5),
     ev.Output: dict(role="lcr", on=False, confirmed=True),
+    ev.OperatorPrompt: dict(topic="open_correction", message="open the fixture"),
+    ev.Correction: dict(corrections=["open", "short"], confirmed=False,
+                        values={"open": {"frequency_Hz": [1e6], "G_S": [0.0], "B_S": [2e-6],
+                                         "C_F": [3.2e-13]}, "short": None}),
     ev.ErrorEvent: dict(message="could not confirm"),
     ev.RunFinished: dict(status="aborted", reason="stopped", outputs_off_confirmed=True,
                          done=20, planned=40),
@@ -55,8 +59,8 @@ def test_every_kind_has_a_class_and_an_example():
     assert set(EXAMPLES) == set(ev.EVENT_CLASSES)
     assert ev.KINDS == ("run_started", "step_started", "point", "compliance", "limit",
                         "warning", "fit", "step_finished", "paused", "resumed", "output",
-                        "error", "run_finished", "stage_ramping", "stage_stable",
-                        "stage_drifting")
+                        "operator_prompt", "lcr_correction", "error", "run_finished",
+                        "stage_ramping", "stage_stable", "stage_drifting")
 
 
 @pytest.mark.parametrize("cls", ev.EVENT_CLASSES, ids=lambda c: c.KIND)

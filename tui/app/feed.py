@@ -11,6 +11,7 @@ from pathlib import Path
 
 from pnbench.errors import PnbenchError
 from pnbench.sweeps import record
+from pnbench.sweeps.events import OperatorPrompt
 from pnbench.tui.app.folder import FolderTail, apply_batch
 from pnbench.tui.app.widgets.banner import banner_text
 from pnbench.tui.app.words import status_words
@@ -24,6 +25,8 @@ class RunFeed:
         was_active = self._was_active
         for event in live.drain():
             self.state.apply_event(event)
+            if isinstance(event, OperatorPrompt):
+                self._ask_operator(live, event)
         if live.run_dir is not None:
             self.last_run_dir = Path(live.run_dir)
         problem = live.failure()
@@ -41,6 +44,17 @@ class RunFeed:
             if live.run_dir is not None:
                 self._report_written(Path(live.run_dir))
         self._update_status()
+
+    def _ask_operator(self, live, event: OperatorPrompt) -> None:
+        """The runner waits for the operator (a fixture state to set): ask in a dialog;
+        yes goes on, no stops the run."""
+        from pnbench.tui.app.screens.dialogs import ConfirmDialog
+
+        def answered(yes: bool | None) -> None:
+            live.answer(bool(yes))
+
+        self.push_screen(ConfirmDialog("The sweep waits for you",
+                                       event.message + "\n\nNo stops the run."), answered)
 
     def _report_written(self, run_dir: Path) -> None:
         """Say where the sweep's report is (the engine wrote it in the run's end work, as

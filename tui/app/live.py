@@ -63,6 +63,10 @@ class LiveRun:
               status: str = "aborted") -> None:
         self.launch.abort(reason, status)
 
+    def answer(self, ok: bool) -> None:
+        """The operator's answer to the run's operator_prompt (a fixture state set)."""
+        self.launch.answer(ok)
+
     def wait(self, timeout_s: float | None = None) -> bool:
         return self.launch.wait(timeout_s)
 

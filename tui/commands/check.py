@@ -54,7 +54,18 @@ def summary(plan) -> dict:
         "total_points": plan.total_points, "estimate": est.to_json_dict(),
         "warnings": list(plan.warnings),
         "temperature": plan.temperature.to_json_dict() if plan.temperature else None,
+        "lcr_correction": plan.correction.to_json_dict() if plan.correction else None,
     }
+
+
+def correction_text(correction) -> str:
+    """One line on the LCR meter's fixture correction a plan asks for."""
+    which = " then ".join(correction.which)
+    if correction.confirmed:
+        return (f"LCR correction: {which}, before the first LCR step, unattended "
+                "(confirmed = true: the fixture states must be prepared in advance)")
+    return (f"LCR correction: {which}, before the first LCR step; the operator is asked "
+            "to set and confirm each fixture state")
 
 
 def run(args) -> int:
@@ -97,6 +108,8 @@ def run(args) -> int:
                   f"({describe(inst.backend)}), dialect {inst.dialect or 'default'}")
     else:
         print("instruments: none in the plan (run it with --simulate DEVICE)")
+    if plan.correction is not None:
+        print(correction_text(plan.correction))
     width = max(len(s.name) for s in plan.steps)
     print(f"\n{'#':>2} {'step':<{width}} {'kind':<11} {'points':>6} {'time':>8} "
           f"{'worst P':>9}  range")

@@ -15,7 +15,17 @@ from pnbench.tui.report import arrhenius
 from pnbench.tui.report.analysis import Analysis
 from pnbench.tui.report.data import RunData
 from pnbench.tui.report.figures import FigureFile
-from pnbench.tui.report.tables import DASH, area_text, esc, kv, num, parameters, qpoints, table
+from pnbench.tui.report.tables import (
+    DASH,
+    area_text,
+    esc,
+    kv,
+    num,
+    parameters,
+    qpoints,
+    qty,
+    table,
+)
 
 _CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"DejaVu Sans",sans-serif;
@@ -143,7 +153,40 @@ def _device_and_instruments(data: RunData, an: Analysis) -> str:
         parts.append(table(["Role", "Identity", "Resource", "Backend", "Dialect"], rows))
     else:
         parts.append("<p>No instrument record.</p>")
+    parts.append(_correction((data.run or {}).get("lcr_correction")))
     return "".join(parts)
+
+
+def _correction(record: object) -> str:
+    """The LCR meter's fixture correction as run.json records it."""
+    if not isinstance(record, dict) or not record.get("done"):
+        return "<p>LCR fixture correction: none run by pnbench in this run.</p>"
+    which = " then ".join(str(w) for w in record.get("corrections") or ())
+    how = ("unattended, the fixture states prepared in advance" if record.get("confirmed")
+           else "each fixture state confirmed by the operator")
+    parts = [f"<p>LCR fixture correction: {esc(which)} ({esc(how)}).</p>"]
+    values = record.get("values") or {}
+    rows = []
+    for which, data in values.items():
+        if not isinstance(data, dict):
+            rows.append([esc(which), "the meter does not report it", "", ""])
+            continue
+        cols = (("C_F", "F"), ("G_S", "S")) if which == "open" else (("R_ohm", "Ω"),
+                                                                      ("X_ohm", "Ω"))
+        for k, f in enumerate(data.get("frequency_Hz") or ()):
+            rows.append([esc(which), num(esc(qty(f, "Hz"))),
+                         *[num(esc(qty(_at(data.get(c), k), u))) for c, u in cols]])
+    if rows:
+        parts.append(table(["Correction", "Frequency", "C or R", "G or X"], rows))
+    return "".join(parts)
+
+
+def _at(values: object, k: int) -> float | None:
+    try:
+        value = values[k]  # type: ignore[index]
+    except (TypeError, IndexError, KeyError):
+        return None
+    return value if isinstance(value, (int, float)) else None
 
 
 def _plan(data: RunData) -> str:

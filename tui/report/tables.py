@@ -98,7 +98,12 @@ def parameters(data: RunData, an: Analysis) -> str:
                      "across the terminals and kept off the model card): "
                      f"{esc(qty(fixture['value'], 'F'))}"
                      + (f" \u00b1 {esc(qty(sd, 'F', prec=2))}" if isinstance(sd, (int, float))
-                        else "") + ".</p>")
+                        else "") + (": the residual after the meter's open correction"
+                                    if m.extras.get("open_corrected") else "") + ".</p>")
+    elif m.extras.get("open_corrected"):
+        parts.append("<p>The meter's open correction was run: the fixture's stray "
+                     "capacitance is subtracted from the readings, and no residual (CFIX) "
+                     "stands out of the noise.</p>")
     parts.append(_fit_quality(an))
     for label, names, matrix in an.correlations:
         parts.append(f"<h3>Correlation of the estimates ({esc(label)})</h3>")
