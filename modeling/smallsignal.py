@@ -45,18 +45,22 @@ def junction_admittance(vd, frequency_Hz, params: DiodeParams,
 
 
 def device_admittance(v, frequency_Hz, params: DiodeParams,
-                      temperature_K: float = DEFAULT_TEMPERATURE_K):
+                      temperature_K: float = DEFAULT_TEMPERATURE_K, *, fixture_F: float = 0.0):
     """Y [S] of the whole two-terminal device at terminal bias v [V], RS included.
 
     v and frequency_Hz broadcast against each other (for a grid pass v[:, None]).
+    `fixture_F` adds a stray capacitance across the terminals (the fixture's, which the
+    meter sees beside the device: docs/physics.md, the network the meter measures); the
+    default 0 gives the device alone.
     """
     v = np.asarray(v, dtype=float)
     i = junction.current(v, params, temperature_K)
     vd = v - np.asarray(i) * params.RS
     yj = junction_admittance(vd, frequency_Hz, params, temperature_K)
-    if params.RS == 0.0:
-        return yj
-    return yj / (1.0 + params.RS * yj)
+    y = yj if params.RS == 0.0 else yj / (1.0 + params.RS * yj)
+    if fixture_F:
+        y = y + 2j * np.pi * np.asarray(frequency_Hz, dtype=float) * fixture_F
+    return y
 
 
 @dataclass(frozen=True)

@@ -99,3 +99,18 @@ def test_zero_conductance_gives_infinite_rd_not_an_error():
     p = DiodeParams(IS=1e-14, N=1.0)
     q = smallsignal.operating_point(p, voltage=-50.0)
     assert q.gd_S == 0.0 and math.isinf(q.rd_ohm)
+
+
+def test_a_fixture_capacitance_adds_to_the_parallel_capacitance_and_leaves_gp():
+    """Capacitances in parallel add and a lossless capacitor adds no conductance (circuit
+    theory; common practice, no source): the meter's Cp of device plus fixture is the
+    device's Cp plus the fixture's, at every bias and frequency, and Gp is unchanged."""
+    p = DiodeParams(IS=1e-14, N=1.05, RS=2.0, CJO=20e-12, VJ=0.7, M=0.45, TT=5e-9)
+    v = np.array([-10.0, -1.0, 0.0, 0.3, 0.6])[:, None]
+    f = np.array([1e3, 1e5, 1e6])[None, :]
+    bare = smallsignal.device_admittance(v, f, p, 300.0)
+    with_fixture = smallsignal.device_admittance(v, f, p, 300.0, fixture_F=0.35e-12)
+    cp0, gp0 = smallsignal.parallel_from_admittance(bare, f)
+    cp1, gp1 = smallsignal.parallel_from_admittance(with_fixture, f)
+    assert np.allclose(cp1 - cp0, 0.35e-12, rtol=0, atol=1e-20)
+    assert np.allclose(gp1, gp0, rtol=1e-12, atol=0)

@@ -78,6 +78,14 @@ class Analysis:
     #: a run over temperature: every forward point (``forward`` keeps those at TNOM)
     forward_all_temperatures: Points | None = None
 
+    @property
+    def fixture_F(self) -> float:
+        """The fitted fixture capacitance (the bench's, across the terminals), else 0: model
+        curves drawn against readings include it, since the meter saw it too."""
+        fixture = self.model.extras.get("fixture_capacitance_F") if self.model else None
+        value = fixture.get("value") if isinstance(fixture, dict) else None
+        return float(value) if isinstance(value, (int, float)) else 0.0
+
 
 def split_iv(iv: Points) -> tuple[Points | None, Points | None]:
     """(forward, reverse): points with positive bias, and with negative bias."""

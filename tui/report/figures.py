@@ -178,7 +178,8 @@ def cv(an: Analysis, device: str):
                 label=f"measured, {f_label}")
         if _has(an, "CJO", "TT"):
             grid = np.linspace(c.voltage_V.min(), c.voltage_V.max(), 300)
-            y = smallsignal.device_admittance(grid, c.label_value, an.params, an.temperature_K)
+            y = smallsignal.device_admittance(grid, c.label_value, an.params, an.temperature_K,
+                                              fixture_F=an.fixture_F)
             cp, _ = smallsignal.parallel_from_admittance(y, c.label_value)
             ax.plot(grid, cp / factor, "-", color=MODEL if k == 0 else colour,
                     label=f"model, {f_label}")
@@ -188,7 +189,7 @@ def cv(an: Analysis, device: str):
     ax.legend(loc="upper left")
     grids(ax)
     title(fig, "C\u2013V", f"{device} at {an.temperature_K:.2f} K; parallel capacitance "
-           "as the meter reports it")
+           "as the meter reports it (the model with the fitted fixture capacitance)")
     return fig
 
 
@@ -276,7 +277,7 @@ def admittance(an: Analysis, device: str):
         if with_model:
             grid = np.geomspace(s.frequency_Hz.min(), s.frequency_Hz.max(), 200)
             y = smallsignal.device_admittance(s.label_value, grid, an.params,
-                                              an.temperature_K)
+                                              an.temperature_K, fixture_F=an.fixture_F)
             cp, gp = smallsignal.parallel_from_admittance(y, grid)
             g_ax.plot(grid, gp, "-", color=colour)
             c_ax.plot(grid, cp / factor, "-", color=colour)
