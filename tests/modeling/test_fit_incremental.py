@@ -182,7 +182,7 @@ def test_warm_refits_give_the_estimates_of_full_ones(noisy_forward, sig, kind, m
     parameters are determined; live snapshots in between may miss an optional
     parameter until the next full refit, and agree within 2 sigma on the others. The
     warm schedule runs fewer full fits."""
-    from pnbench.modeling import incremental
+    from pnbench.modeling import lsqstream
 
     rng = np.random.default_rng(7)
     if kind == "iv_forward":
@@ -197,7 +197,7 @@ def test_warm_refits_give_the_estimates_of_full_ones(noisy_forward, sig, kind, m
                    for k in range(0, sig.cv_v.size, 10)]
 
     def stream(select_growth):
-        monkeypatch.setattr(incremental, "SELECT_GROWTH", select_growth)
+        monkeypatch.setattr(lsqstream, "SELECT_GROWTH", select_growth)
         f = IncrementalFitter(kind)
         snaps = []
         for b in batches:
