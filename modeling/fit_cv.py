@@ -220,7 +220,7 @@ def fit_cv(voltage_V, frequency_Hz, capacitance_F, *, compliance=None, use=None,
            fc: float = 0.5) -> FitResult:
     """CJO, VJ, M (and CFIX: ``with_fixture`` None when the data determine it, True
     always, False never) from C–V points (parallel C)."""
-    x, y, elig = _cv_arrays(voltage_V, frequency_Hz, capacitance_F, None, compliance, use)
+    x, y, elig = cv_arrays(voltage_V, frequency_Hz, capacitance_F, None, compliance, use)
     model = DepletionModel(fc, with_fixture)
     state = depletion_state(model, x, y[:, :1], elig[:, :1])
     if isinstance(state, str):
@@ -234,7 +234,7 @@ def fit_cv(voltage_V, frequency_Hz, capacitance_F, *, compliance=None, use=None,
     return lsq.to_result(model, state, "cv", len(x), min_rows=MIN_CV_POINTS, x=x, y=y[:, :1])
 
 
-def _cv_arrays(v, f, c, g, compliance, use):
+def cv_arrays(v, f, c, g, compliance, use):
     v = np.asarray(v, dtype=float).ravel()
     n = v.size
     f = np.broadcast_to(np.asarray(f, dtype=float).ravel(), (n,)) if np.size(f) in (1, n) \
@@ -318,7 +318,7 @@ def fit_admittance(voltage_V, frequency_Hz, capacitance_F, conductance_S, *,
     a C–V fit where the admittance points alone cannot pin the depletion curve (forward
     bias only).
     """
-    x, y, elig = _cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
+    x, y, elig = cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                             compliance, use)
     model = AdmittanceModel(temperature_K, fc, with_fixture)
     state = admittance_state(model, x, y, elig, fixed=fixed)
@@ -406,51 +406,3 @@ def doping(voltage_V, capacitance_F, *, area_m2: float, semiconductor="Si",
             "built_in_sigma_V": r.built_in_sigma_V, "material": r.material,
             "area_m2": r.area_m2, "n_points": r.n_points,
             "relative_rms_residual": r.relative_rms_residual}
-
-
-class StreamSpec:
-    """What the incremental fitter needs to stream C–V ("cv") or admittance points."""
-
-    x_width = 2
-    min_points = MIN_CV_POINTS
-
-    def __init__(self, kind: str, temperature_K: float, with_fixture: bool | None = None,
-                 fixed: dict[str, float] | None = None, fc: float = 0.5):
-        self.kind = kind
-        self.fixed = dict(fixed) if fixed else None
-        self.model = (DepletionModel(fc, with_fixture) if kind == "cv"
-                      else AdmittanceModel(temperature_K, fc, bool(with_fixture)))
-        self.v_cut = math.inf
-
-    def rows(self, v, i, f, c, g, comp):
-        x, y, elig = _cv_arrays(v, f, c, g, comp, None)
-        if self.kind == "cv":
-            return x, y[:, :1], elig[:, :1]
-        return x, y, elig
-
-    def full_state(self, x, y, elig, start):
-        if self.kind == "cv":
-            state = depletion_state(self.model, x, y, elig, start)
-        else:
-            state = admittance_state(self.model, x, y, elig, start, fixed=self.fixed)
-        self.v_cut = math.inf
-        if not isinstance(state, str):
-            left_out = elig[:, 0] & ~state.used[:, 0]
-            if left_out.any() and state.used[:, 0].any():
-                top = x[state.used[:, 0], 0].max()
-                if np.all(x[left_out, 0] > top):  # a forward cut, not scattered rejects
-                    self.v_cut = float(top)
-        return state
-
-    def eligible_now(self, x, elig):
-        out = elig.copy()
-        out[:, 0] &= x[:, 0] <= self.v_cut
-        return out
-
-    def extras(self) -> dict:
-        return held_extras(self.model, self.fixed) if self.kind == "admittance" else {}
-
-
-def stream_spec(kind: str, temperature_K: float, *, with_fixture: bool | None = None,
-                fixed: dict[str, float] | None = None) -> StreamSpec:
-    return StreamSpec(kind, temperature_K, with_fixture, fixed)

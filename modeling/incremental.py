@@ -125,10 +125,10 @@ class IncrementalFitter:
         if kind in ("iv", "iv_reverse"):
             self._reverse = _ReverseStream(self.temperature_K, reference_V, ibv_A)
         if kind in ("cv", "admittance"):
-            from pnbench.modeling import fit_cv
+            from pnbench.modeling import cvstream
 
-            spec = fit_cv.stream_spec(kind, self.temperature_K, with_fixture=with_fixture,
-                                      fixed=fixed)
+            spec = cvstream.stream_spec(kind, self.temperature_K, with_fixture=with_fixture,
+                                        fixed=fixed)
             self._small = LsqStream(spec, growth)
         self._order: list[np.ndarray] = []  # for "iv": which points went forward
         self._cache: FitResult | None = None

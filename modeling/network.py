@@ -153,7 +153,7 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
     the meter's stated noise (relative of |Y|, floor as a capacitance in F), else it is
     estimated from the residuals.
     """
-    x, y, elig = fit_cv._cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
+    x, y, elig = fit_cv.cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                                    compliance, use)
     y, elig = y.copy(), elig.copy()
     level = np.full(len(x), np.nan) if ac_level_V is None else np.broadcast_to(
