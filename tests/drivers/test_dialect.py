@@ -96,13 +96,13 @@ def test_model_may_use_the_instruments_own_word(tmp_path):
     assert d.lcr.model == "SHOW CP,G" and d.lcr.form == "parallel"
 
 
-def test_a_four_letter_form_code_is_refused_naming_the_plain_words(tmp_path):
+def test_a_form_outside_the_plain_words_is_refused_naming_them(tmp_path):
     data = default_data()
-    data["lcr"]["form"] = "CPGP"
+    data["lcr"]["form"] = "PRLL"
     with pytest.raises(DialectError) as err:
         dl.load_dialect(write(tmp_path, data))
     message = str(err.value)
-    assert "[lcr] form" in message and "'CPGP'" in message
+    assert "[lcr] form" in message and "'PRLL'" in message
     for word in ("parallel", "parallel_d", "series", "admittance", "impedance"):
         assert f"{word} = " in message
 
