@@ -11,7 +11,6 @@ its placeholders and whether it is a query, and names the file and key of any fa
 
 from __future__ import annotations
 
-import tomllib
 from dataclasses import dataclass, fields
 from importlib import resources
 from pathlib import Path
@@ -19,6 +18,7 @@ from typing import Any
 
 from pnbench.drivers import scpi
 from pnbench.errors import DialectError
+from pnbench.tomltext import load_toml
 
 #: The two-element forms an LCR meter may report, named in pnbench's own plain words
 #: (by the equivalent circuit and its second quantity), and what the two fields are.
@@ -338,13 +338,8 @@ def parse_dialect(data: dict, source: str) -> Dialect:
 
 def parse_dialect_text(text: str, source: str = "<text>") -> Dialect:
     """A Dialect from TOML text; a syntax error names the line."""
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise DialectError(f"dialect {source}: not valid TOML: {exc}") from None
-    except RecursionError:
-        raise DialectError(f"dialect {source}: arrays or inline tables nested too deeply "
-                           "to read; a dialect is a flat list of commands") from None
+    data = load_toml(text, DialectError, f"dialect {source}",
+                     "a dialect is a flat list of commands")
     return parse_dialect(data, source)
 
 

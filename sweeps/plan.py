@@ -7,7 +7,6 @@ ships as `sim_configs/plans/example_full.toml`. Step tables are read by `planste
 
 from __future__ import annotations
 
-import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -29,6 +28,7 @@ from pnbench.sweeps.thermalplan import (
     read_temperature,
 )
 from pnbench.sweeps.tomllines import key_lines
+from pnbench.tomltext import load_toml
 
 PLAN_FORMAT = 1
 ROLES = ("smu", "lcr", "stage")
@@ -167,13 +167,8 @@ def parse_plan(data: bytes | str, filename: str = "<plan>",
                             "decoded); a plan is a TOML text file") from None
     else:
         text = data
-    try:
-        doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise PlanError(f"plan {filename}: not valid TOML: {exc}") from None
-    except RecursionError:
-        raise PlanError(f"plan {filename}: arrays or inline tables nested too deeply to "
-                        "read; a plan has tables of values and lists of steps") from None
+    doc = load_toml(text, PlanError, f"plan {filename}",
+                    "a plan has tables of values and lists of steps")
     problems = Problems(filename, key_lines(text))
     plan = _read(doc, text, filename, base_dir or Path("."), problems)
     if problems.items:

@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import math
 import re
-import tomllib
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
@@ -46,6 +45,7 @@ from pnbench.drivers.sim.devicekeys import (
 from pnbench.errors import DeviceFileError
 from pnbench.modeling import junction
 from pnbench.modeling.params import UNITS, DiodeParams
+from pnbench.tomltext import load_toml
 
 
 @dataclass(frozen=True)
@@ -111,13 +111,7 @@ def load_device(path: str | Path) -> SimDevice:
 
 def parse_device(text: str, source: str = "<device>") -> SimDevice:
     """A SimDevice from the text of a device file (`source` names it in messages)."""
-    try:
-        doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise DeviceFileError(f"{source}: not valid TOML: {exc}") from None
-    except RecursionError:
-        raise DeviceFileError(f"{source}: arrays or inline tables nested too deeply to "
-                              "read; a device file has flat tables of values") from None
+    doc = load_toml(text, DeviceFileError, source, "a device file has flat tables of values")
     known = set(KEYS) | {"diode", "fault"}
     for name in doc:
         if name not in known:
