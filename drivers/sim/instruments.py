@@ -83,6 +83,7 @@ class SimInstrumentWithOutput(SimInstrument):
         self._output = False
         self.on_output = on_output
         self.overflow_pending = 0
+        self.last_reading: str | None = None  # what a fetch returns again
         super().__init__(identity, command_s)
 
     @property
@@ -105,6 +106,12 @@ class SimInstrumentWithOutput(SimInstrument):
             return "1" if self.output else "0"
 
         return [(pattern, False, write), (pattern, True, read)]
+
+    def _fetch(self, command: scpi.Command) -> str:
+        no_arguments(command)
+        if self.last_reading is None:
+            raise CommandError(-230, "no reading taken yet")
+        return self.last_reading
 
     def take_overflow(self) -> bool:
         """Whether an injected overflow fault claims this reading."""
@@ -160,7 +167,6 @@ class SimSmu(SimInstrumentWithOutput):
         self.current_range_A = self.current_ranges[-1]
         self.voltage_range_V = self.voltage_ranges[-1]
         self.tripped = False
-        self.last_reading: str | None = None
         self._points: dict[tuple, tuple[float, float, bool]] = {}
         super().__init__(spec["identity"], device.timing["command_s"], on_output)
         self.reset()
@@ -258,12 +264,6 @@ class SimSmu(SimInstrumentWithOutput):
         self.last_reading = f"{scpi.format_value(mv)},{scpi.format_value(mi)}"
         return self.last_reading
 
-    def _fetch(self, command: scpi.Command) -> str:
-        no_arguments(command)
-        if self.last_reading is None:
-            raise CommandError(-230, "no reading taken yet")
-        return self.last_reading
-
 
 #: The fraction of the fixture's stray capacitance an open correction leaves: the open
 #: is measured once, with the fixture's leads not quite where they are with a part in
@@ -302,7 +302,6 @@ class SimLcr(SimInstrumentWithOutput):
                          "form": "PARallel"}
         self.open_corrected = False
         self.short_corrected = False
-        self.last_reading: str | None = None
         self._admittances: dict[tuple, complex] = {}
         super().__init__(spec["identity"], device.timing["command_s"], on_output)
         self.reset()
@@ -379,10 +378,4 @@ class SimLcr(SimInstrumentWithOutput):
         if self.take_overflow():
             primary = secondary = math.inf
         self.last_reading = f"{scpi.format_value(primary)},{scpi.format_value(secondary)}"
-        return self.last_reading
-
-    def _fetch(self, command: scpi.Command) -> str:
-        no_arguments(command)
-        if self.last_reading is None:
-            raise CommandError(-230, "no reading taken yet")
         return self.last_reading

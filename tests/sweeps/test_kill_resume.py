@@ -15,12 +15,12 @@ import os
 import random
 import signal
 import subprocess
-import sys
 import time
 from pathlib import Path
 
 import pytest
 from plantext import cv, forward, limits, plan_text, reverse
+from processhelp import pnbench, wait_for
 
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.sweeps.store import read_events, read_points, read_run
@@ -43,19 +43,6 @@ def plan_for(bench) -> str:
 
 SEED = int(os.environ.get("PNBENCH_KILL_SEED", "5607"))
 REPETITIONS = 3
-
-
-def pnbench(*args: str) -> list[str]:
-    return [sys.executable, "-m", "pnbench.tui.cli", *args]
-
-
-def wait_for(predicate, timeout_s: float) -> bool:
-    end = time.monotonic() + timeout_s
-    while time.monotonic() < end:
-        if predicate():
-            return True
-        time.sleep(0.005)
-    return False
 
 
 def data_lines(run_dir: Path) -> int:

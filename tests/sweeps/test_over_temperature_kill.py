@@ -14,12 +14,11 @@ import json
 import os
 import signal
 import subprocess
-import sys
-import time
 from pathlib import Path
 
 import pytest
 from plantext import forward, limits, plan_text, table
+from processhelp import pnbench, wait_for
 
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.device import parse_device
@@ -61,19 +60,6 @@ def _events(run_dir: Path) -> list[dict]:
     return [json.loads(line) for line in text.splitlines() if line.endswith("}")]
 
 
-def _wait(predicate, timeout_s: float) -> bool:
-    end = time.monotonic() + timeout_s
-    while time.monotonic() < end:
-        if predicate():
-            return True
-        time.sleep(0.005)
-    return False
-
-
-def _pnbench(*args: str) -> list[str]:
-    return [sys.executable, "-m", "pnbench.tui.cli", *args]
-
-
 @pytest.fixture
 def bench():
     sim = SimBench.start(parse_device(DEVICE), time_scale=0.05, off_on_disconnect=False)
@@ -95,17 +81,17 @@ def test_kill_9_during_a_ramp_or_a_soak_then_resume(bench, tmp_path, moment):
     plan.write_text(_plan(bench), encoding="utf-8")
     out = tmp_path / "runs"
     env = {**os.environ, "PYTHONUNBUFFERED": "1"}
-    proc = subprocess.Popen(_pnbench("run", str(plan), "--headless", "--no-report",
+    proc = subprocess.Popen(pnbench("run", str(plan), "--headless", "--no-report",
                                      "--out", str(out)),
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
     try:
-        assert _wait(lambda: any(out.glob("*/events.jsonl")), 30), "no run folder"
+        assert wait_for(lambda: any(out.glob("*/events.jsonl")), 30), "no run folder"
         run_dir = next(out.glob("*"))
         if moment == "ramp":
-            hit = _wait(lambda: _ramping_to(_events(run_dir), 320.0), 60)
+            hit = wait_for(lambda: _ramping_to(_events(run_dir), 320.0), 60)
             assert hit and not _stable_at(_events(run_dir), 320.0)
         else:
-            assert _wait(lambda: _stable_at(_events(run_dir), 320.0), 60)
+            assert wait_for(lambda: _stable_at(_events(run_dir), 320.0), 60)
             assert not any(e["kind"] == "step_started" and e["step"].endswith("320K")
                            for e in _events(run_dir))
         proc.send_signal(signal.SIGKILL)
@@ -113,7 +99,7 @@ def test_kill_9_during_a_ramp_or_a_soak_then_resume(bench, tmp_path, moment):
     finally:
         if proc.poll() is None:
             proc.kill()
-    assert _wait(lambda: read_run(run_dir).get("guardian") is not None, 30)
+    assert wait_for(lambda: read_run(run_dir).get("guardian") is not None, 30)
     # the guardian: SMU off, then the stage to its standby (25 degC)
     assert not any(bench.outputs().values())
     assert bench.thermal.set_point_K == pytest.approx(298.15)
@@ -121,7 +107,7 @@ def test_kill_9_during_a_ramp_or_a_soak_then_resume(bench, tmp_path, moment):
     before = before[: before.rfind(b"\n") + 1]
     n_before = len(_events(run_dir))
 
-    done = subprocess.run(_pnbench("resume", str(run_dir), "--no-report"),
+    done = subprocess.run(pnbench("resume", str(run_dir), "--no-report"),
                           capture_output=True, text=True, env=env, timeout=120)
     assert done.returncode == 0, done.stderr
     after = (run_dir / "points.csv").read_bytes()
