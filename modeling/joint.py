@@ -44,6 +44,9 @@ PRIORITY = {
 #: losses, which a shunt fitted to it would mistake for a DC path).
 IV_EVIDENCE = {"IS": ("iv_forward",), "N": ("iv_forward",), "RS": ("iv_forward",),
                "RSH": ("iv_forward", "iv_reverse")}
+#: The fixture's parameters a C-V fit may find, and their model.json extras (the bench's,
+#: never on the card): stray capacitance across the device, series resistance to it.
+FIXTURE_EXTRAS = {"CFIX": "fixture_capacitance_F", "RFIX": "fixture_resistance_ohm"}
 _IV_KINDS = ("iv", "iv_forward", "iv_reverse")
 _CV_KINDS = ("cv", "admittance")
 
@@ -256,12 +259,12 @@ def model_from_results(results: Mapping[str, FitResult], temperature_K: float,
         leak = combine.leakage_figure(dict(rev.extras))
         if leak is not None:
             out["leakage"] = leak
-    for kind in ("admittance", "cv"):
-        r = results.get(kind)
-        if r is not None and "CFIX" in r.values:
-            out["fixture_capacitance_F"] = {"value": r.values["CFIX"],
-                                            "sigma": _finite_or_none(r.sigmas["CFIX"])}
-            break
+    for name, key in FIXTURE_EXTRAS.items():  # the bench's, beside the card's values
+        for kind in ("admittance", "cv"):
+            r = results.get(kind)
+            if r is not None and name in r.values:
+                out[key] = {"value": r.values[name], "sigma": _finite_or_none(r.sigmas[name])}
+                break
     out.update(extras or {})
     model = ModelSet(values=values, sigmas=sigmas, temperature_K=temperature_K, extras=out)
     caution = model.breakdown_caution()

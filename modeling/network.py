@@ -2,15 +2,22 @@
 
 At each bias and frequency the meter reads the whole network, not the junction: RS in
 series with gd + 1/RSH + j*w*(Cj + Cd), Cd = TT*gd, with the fixture's stray
-capacitance CFIX across the terminals (docs/physics.md §4-5; the meter reports
-the parallel C = Im Y / w). Taking the reading as Cj biases CJO, VJ and M wherever gd*RS,
-w*RS*C, Cd or CFIX is not negligible: a rectifier's diffusion capacitance at 0 V, a hot
-Schottky's RS*gd, a fixture's fraction of a picofarad. So the capacitance of every C–V
+capacitance CFIX across the terminals and the fixture's series resistance RFIX (its
+leads and contacts) between that and the meter (docs/physics.md §4-5; the meter reports
+the parallel C = Im Y / w; the order is the one open/short correction assumes).
+Taking the reading as Cj biases CJO, VJ and M wherever gd*RS, w*RS*C, Cd or CFIX is not
+negligible: a rectifier's diffusion capacitance at 0 V, a hot Schottky's RS*gd, a
+fixture's fraction of a picofarad. So the capacitance of every C–V
 point (reverse and forward, every frequency) is fitted with that network, IS, N, RS and
 RSH held at the I–V fit's values (their uncertainty carried into the result by
-``heldcov``), and CJO, VJ, M, TT and CFIX free. TT and CFIX are kept only when the data
-set them three standard errors apart from zero (the rule RS and RSH follow); the
-message says which way each went and why.
+``heldcov``), and CJO, VJ, M, TT, CFIX and RFIX free. TT, CFIX and RFIX are kept only when
+the data set them three standard errors apart from zero (the rule RS and RSH follow);
+the message says which way each went and why.
+
+RFIX is the bench's, never the device's: a four-wire I-V measures RS alone, while the
+meter's two terminal pairs see RS plus the fixture's leads, so without the I-V fit's RS
+held the two cannot be told apart and RFIX is not offered. The meter's DC bias is taken
+as reaching the device (the small DC drop in RFIX is not modelled).
 """
 
 from __future__ import annotations
@@ -28,12 +35,19 @@ from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
 DC_NAMES = ("IS", "N", "RS", "RSH")
 TT_ABSENT = ("TT not determined: the diffusion capacitance never stands three standard "
              "errors above the depletion capacitance")
+#: Why the fixture's series resistance is left out (the 3-sigma rule, as for CFIX).
+RFIX_ABSENT = ("RFIX (fixture series resistance) not fitted: the readings need no series "
+               "resistance beyond the device's RS three standard errors from none")
+#: The fixture's series resistance, fitted beside the held RS (see the module notes).
+RFIX_PARAM = lsq.Param("RFIX", "lin", lower=-1e3, upper=1e6, optional=True, step=1e-9,
+                       absent_reason=RFIX_ABSENT)
 
 
-def network_model(temperature_K: float, fc: float,
-                  with_fixture: bool | None) -> fit_cv.AdmittanceModel:
-    """The admittance model with CFIX optional (None), forced (True) or absent (False)."""
-    model = MeterModel(temperature_K, fc, fixture=with_fixture)
+def network_model(temperature_K: float, fc: float, with_fixture: bool | None,
+                  with_series: bool | None = False) -> fit_cv.AdmittanceModel:
+    """The admittance model with CFIX, and the fixture's series resistance RFIX, each
+    optional (None: kept when the data determine it), forced (True) or absent (False)."""
+    model = MeterModel(temperature_K, fc, fixture=with_fixture, series=with_series)
     params = [dataclasses.replace(p, absent_reason=TT_ABSENT) if p.name == "TT" else p
               for p in model.params]
     model.params = tuple(params)
@@ -52,23 +66,25 @@ class SplitModel:
     The forward channel is scaled per point by w/|Y| of the reading: a meter's noise is
     a fraction of |Y|, so on C it is rel*|Y|/w, which grows with the conductance; on
     C*w/|Y| it is the constant rel, which the noise model's floor takes. The scale is
-    read from the data, not the model, so it only sets weights.
+    read from the data, not the model, so it only sets weights; it rides along as the
+    fourth column of x (`network_rows`), so streamed points carry their own.
     """
 
     channels = ("lin", "lin")
 
-    def __init__(self, inner: fit_cv.AdmittanceModel, scale: np.ndarray):
+    def __init__(self, inner: fit_cv.AdmittanceModel):
         self.inner = inner
         self.params = inner.params
         self.index = inner.index
-        self.scale = scale
 
     def predict(self, t, x, active):
+        """x = (V, f, a_rms, w/|Y| of the reading): the last column is the scale."""
+        scale = x[:, 3]
         y, jac = self.inner.predict(t, x, active)
-        y2 = np.column_stack([y[:, 0], y[:, 0] * self.scale])
+        y2 = np.column_stack([y[:, 0], y[:, 0] * scale])
         if jac is None:
             return y2, None
-        return y2, np.stack([jac[:, 0, :], jac[:, 0, :] * self.scale[:, None]], axis=1)
+        return y2, np.stack([jac[:, 0, :], jac[:, 0, :] * scale[:, None]], axis=1)
 
 
 #: Points evaluated at once in the describing function: its grids are points x phases
@@ -80,7 +96,7 @@ _PHASES = 16
 
 
 class MeterModel(fit_cv.AdmittanceModel):
-    """The admittance the meter reads at its test-signal level: x = (V, f, a_rms).
+    """The admittance the meter reads at its test-signal level: x = (V, f, a_rms, ...).
 
     A test signal of amplitude a on the exponential junction is not small against
     N*Vt at forward bias: the fundamental of the current is the describing function
@@ -88,11 +104,33 @@ class MeterModel(fit_cv.AdmittanceModel):
     quadrature parts of a conductance and charge driven by a cosine), with a_j the part
     of the amplitude across the junction (RS takes the rest); its relative change of gd
     and Cd is ~(a_j/(N*Vt))**2/8. Where a is 0 or unknown (NaN) the small-signal form.
+    The fixture goes around the device: CFIX across it, then RFIX in series.
     """
 
+    def __init__(self, temperature_K: float = DEFAULT_TEMPERATURE_K, fc: float = 0.5,
+                 fixture: bool | None = False, series: bool | None = False):
+        super().__init__(temperature_K, fc, fixture)
+        if series is not False:
+            self.params = (*self.params,
+                           dataclasses.replace(RFIX_PARAM, optional=not series))
+            self.index = {p.name: k for k, p in enumerate(self.params)}
+
     def _y(self, t, x):
+        w = 2 * np.pi * x[:, 1]
+        y = self.device_y(t, x)
+        k = self.index
+        if "CFIX" in k:
+            y = y + 1j * w * t[k["CFIX"]]
+        if "RFIX" in k and t[k["RFIX"]] != 0.0:
+            y = y / (1.0 + t[k["RFIX"]] * y)
+        return np.column_stack([y.imag / w, y.real])
+
+    def device_y(self, t, x) -> np.ndarray:
+        """The device's complex admittance at the meter's test level (no fixture)."""
         if x.shape[1] < 3 or not np.any(np.nan_to_num(x[:, 2]) > 0):
-            return super()._y(t, x)
+            from pnbench.modeling.smallsignal import device_admittance
+
+            return device_admittance(x[:, 0], x[:, 1], self.diode(t), self.temperature_K)
         if len(x) > _CHUNK:  # the same values, with temporaries of a bounded size
             return np.concatenate([self._described(t, x[k:k + _CHUNK])
                                    for k in range(0, len(x), _CHUNK)])
@@ -114,10 +152,7 @@ class MeterModel(fit_cv.AdmittanceModel):
         grid = vd0[:, None] + a_j[:, None] * np.cos(phase)[None, :]
         yj = junction_admittance(grid, f[:, None], p, self.temperature_K)
         y_eff = np.where(amp > 0, (yj * weight).mean(axis=1), y_small)
-        y = y_eff / (1.0 + p.RS * y_eff)
-        w = 2 * np.pi * f
-        c = y.imag / w + (t[8] if len(t) > 8 else 0.0)
-        return np.column_stack([c, y.real])
+        return y_eff / (1.0 + p.RS * y_eff)
 
 
 def _tt_start(model, t0, x, y, use) -> float:
@@ -141,9 +176,9 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
                 noise: tuple[float, float] | None = None,
                 held_covariance: np.ndarray | None = None, compliance=None, use=None,
                 temperature_K: float = DEFAULT_TEMPERATURE_K,
-                with_fixture: bool | None = None, fc: float = 0.5,
-                kind: str = "cv") -> FitResult:
-    """CJO, VJ, M, TT, CFIX from the parallel capacitance of every C–V point.
+                with_fixture: bool | None = None, with_series: bool | None = None,
+                fc: float = 0.5, kind: str = "cv") -> FitResult:
+    """CJO, VJ, M, TT, CFIX and RFIX from the parallel capacitance of every C–V point.
 
     ``fixed`` holds IS, N and RS (and RSH; RS = 0 and RSH = inf hold them absent) from
     the I–V fit; ``held_covariance`` is their covariance in the order of DC_NAMES that
@@ -151,64 +186,98 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
     ``ac_level_V``: the meter's test-signal level (rms) per point or one value; where
     known its distortion of the forward readings is modelled (MeterModel). ``noise``:
     the meter's stated noise (relative of |Y|, floor as a capacitance in F), else it is
-    estimated from the residuals.
+    estimated from the residuals. ``with_fixture``/``with_series``: CFIX/RFIX kept when
+    the data determine them (None), always (True) or never (False).
     """
+    x, y, elig = network_rows(voltage_V, frequency_Hz, capacitance_F, conductance_S,
+                              ac_level_V, compliance, use)
+    model = SplitModel(network_model(temperature_K, fc, with_fixture, with_series))
+    state = network_state(model, x, y, elig, fixed, noise)
+    if isinstance(state, str):
+        return empty_result(kind, len(x), state)
+    extra_cov = held_covariance_t(model, state, x, y, fixed, held_covariance)
+    out = lsq.to_result(model, state, kind, len(x), extras=fit_cv.held_extras(model, fixed),
+                        min_rows=fit_cv.MIN_CV_POINTS, x=x, y=y,
+                        extra_cov_t=extra_cov)
+    return with_fixture_note(out)
+
+
+def network_rows(voltage_V, frequency_Hz, capacitance_F, conductance_S=None,
+                 ac_level_V=None, compliance=None, use=None):
+    """The rows of the network fit: x = (V, f, a_rms, w/|Y| of the reading), y = (C,
+    C*w/|Y|), eligible = (reverse C, forward C) (see SplitModel)."""
     x, y, elig = fit_cv.cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                                    compliance, use)
-    y, elig = y.copy(), elig.copy()
     level = np.full(len(x), np.nan) if ac_level_V is None else np.broadcast_to(
         np.asarray(ac_level_V, dtype=float).ravel(), (len(x),))
-    x = np.column_stack([x, level])
     w = 2 * np.pi * x[:, 1]
     with np.errstate(all="ignore"):
         k_phase = w / np.abs(y[:, 1] + 1j * w * y[:, 0])  # w/|Y|: C*w/|Y| has even noise
-    k_phase = np.where(np.isfinite(k_phase) & (k_phase > 0) & np.isfinite(y[:, 1]),
-                       k_phase, 1.0 / np.maximum(np.abs(y[:, 0]), 1e-300))
-    elig[:, 1] = False  # the conductance is not needed: the DC part is held
-    elig[:, 0] &= y[:, 0] > 0
-    n = len(x)
-    if np.count_nonzero(elig[:, 0]) < fit_cv.MIN_CV_POINTS:
-        return empty_result(kind, n, f"too few C-V points ({np.count_nonzero(elig[:, 0])}; "
-                                     f"need {fit_cv.MIN_CV_POINTS})")
-    model = network_model(temperature_K, fc, with_fixture)
+        k_phase = np.where(np.isfinite(k_phase) & (k_phase > 0) & np.isfinite(y[:, 1]),
+                           k_phase, 1.0 / np.maximum(np.abs(y[:, 0]), 1e-300))
+    ok = elig[:, 0] & (y[:, 0] > 0)  # the conductance is not needed: the DC part is held
+    v = x[:, 0]
+    return (np.column_stack([x, level, k_phase]),
+            np.column_stack([y[:, 0], y[:, 0] * k_phase]),
+            np.column_stack([ok & (v <= 0), ok & (v > 0)]))
+
+
+def network_state(model: SplitModel, x, y, elig, fixed: dict[str, float],
+                  noise: tuple[float, float] | None = None, start=None):
+    """The least-squares state of the network fit over rows of `network_rows`, or why
+    there is none (a string). ``fixed`` holds IS, N, RS, RSH (required) and any other
+    parameter of the model (e.g. CJO, VJ, M, CFIX from an earlier fit); ``start``: t
+    values to start from where finite (a warm start)."""
+    ok = elig.any(axis=1)
+    if np.count_nonzero(ok) < fit_cv.MIN_CV_POINTS:
+        return f"too few C-V points ({np.count_nonzero(ok)}; need {fit_cv.MIN_CV_POINTS})"
     k = model.index
     v = x[:, 0]
     t0 = np.zeros(len(model.params))
-    rev = elig[:, 0] & (v <= 0)
-    if np.count_nonzero(rev) < 3:
-        rev = elig[:, 0] & (v <= np.sort(v[elig[:, 0]])[min(3, int(elig[:, 0].sum())) - 1])
-    t0[k["CJO"]:k["M"] + 1] = fit_cv.depletion_start(v[rev], y[rev, 0], fc)
     active = np.ones(len(model.params), dtype=bool)
     for name in DC_NAMES:
         value = fixed.get(name, {"RS": 0.0, "RSH": math.inf}.get(name))
         if value is None:
-            return empty_result(kind, n, f"network fit needs {name} from an I-V fit")
+            return f"network fit needs {name} from an I-V fit"
         t0[k[name]] = model.params[k[name]].to_t(value)
         active[k[name]] = False
-    t0[k["TT"]] = _tt_start(model, t0, x, y, elig[:, 0])
-    split = SplitModel(model, k_phase)
-    y = np.column_stack([y[:, 0], y[:, 0] * k_phase])
-    elig = np.column_stack([elig[:, 0] & (v <= 0), elig[:, 0] & (v > 0)])
+    for name, value in fixed.items():
+        if name in k and name not in DC_NAMES:
+            t0[k[name]] = model.params[k[name]].to_t(value)
+            active[k[name]] = False
+    if active[k["CJO"]]:
+        rev = ok & (v <= 0)
+        if np.count_nonzero(rev) < 3:
+            rev = ok & (v <= np.sort(v[ok])[min(3, int(ok.sum())) - 1])
+        t0[k["CJO"]:k["M"] + 1] = fit_cv.depletion_start(v[rev], y[rev, 0], model.inner.fc)
+    if start is not None:
+        t0 = np.where(np.isfinite(start) & active, start, t0)
+    elif active[k["TT"]]:
+        t0[k["TT"]] = _tt_start(model.inner, t0, x, y, ok)
     known = None
     if noise is not None:
         # reverse: rel*C + floor; forward, scaled by w/|Y|: rel + floor*w/|Y|, the last
         # ~ (floor/C)*(C*w/|Y|) with C's median there
         rel, floor = float(noise[0]), float(noise[1])
         fwd = elig[:, 1] & (y[:, 0] > 0)
-        c_typ = float(np.median(y[fwd, 0] / k_phase[fwd])) if fwd.any() else math.inf
+        c_typ = float(np.median(y[fwd, 0] / x[fwd, 3])) if fwd.any() else math.inf
         known = lsq.Noise((rel, floor / c_typ), (floor, rel), estimated=False, linear=True)
-    state = lsq.fit(split, x, y, elig, t0, active, noise=known)
-    model = split
-    held = [k[nm] for nm in DC_NAMES if nm in fixed and _finite_held(model, k[nm], fixed[nm])]
-    extra_cov = None
-    if held_covariance is not None and held:
-        extra_cov = heldcov.propagated(model, state, x, y, np.array(held),
-                                       heldcov.to_t_space(model, state.t, held,
-                                                          held_covariance))
-    out = lsq.to_result(model, state, kind, n, extras=fit_cv.held_extras(model, fixed),
-                        min_rows=fit_cv.MIN_CV_POINTS, x=x, y=y,
-                        extra_cov_t=extra_cov)
-    return _with_fixture_note(out, model, state)
+    return lsq.fit(model, x, y, elig, t0, active, noise=known)
+
+
+def held_covariance_t(model, state: lsq.FitState, x, y, fixed: dict[str, float],
+                      held_covariance: np.ndarray | None,
+                      names: tuple[str, ...] = DC_NAMES) -> np.ndarray | None:
+    """The covariance the held parameters ``names`` (those in ``fixed``, finite and not
+    held absent, in that order: ``held_covariance`` in values' units) carry into the
+    free ones (t space, ``heldcov``); None without any."""
+    k = model.index
+    held = [k[nm] for nm in names if nm in fixed and nm in k
+            and _finite_held(model, k[nm], fixed[nm])]
+    if held_covariance is None or not held:
+        return None
+    return heldcov.propagated(model, state, x, y, np.array(held),
+                              heldcov.to_t_space(model, state.t, held, held_covariance))
 
 
 def _finite_held(model, j: int, value: float) -> bool:
@@ -216,16 +285,26 @@ def _finite_held(model, j: int, value: float) -> bool:
     return math.isfinite(value) and not (p.optional and p.to_t(value) == p.null)
 
 
-def _with_fixture_note(result: FitResult, model, state: lsq.FitState) -> FitResult:
-    """Say in the message what CFIX is and how firmly the data set it."""
-    if "CFIX" not in result.values or not result.success:
+def with_fixture_note(result: FitResult) -> FitResult:
+    """Say in the message what CFIX and RFIX are and how firmly the data set them."""
+    if not result.success:
         return result
-    value, sd = result.values["CFIX"], result.sigmas["CFIX"]
-    z = abs(value) / sd if sd > 0 and math.isfinite(sd) else math.inf
-    note = (f"fixture capacitance CFIX = {value * 1e12:.4g} pF +- {sd * 1e12:.2g} pF fitted "
-            f"({z:.0f} standard errors from none): the bench's, not the device's; an open "
-            f"correction removes it")
-    return dataclasses.replace(result, message=f"{result.message}; {note}")
+    notes = []
+    for name, what, unit, scale, remedy in (
+            ("CFIX", "fixture capacitance", "pF", 1e12, "an open correction removes it"),
+            ("RFIX", "fixture series resistance", "ohm", 1.0,
+             "its leads, not the device's RS (which the four-wire I-V measured); a short "
+             "correction removes it")):
+        if name not in result.values:
+            continue
+        value, sd = result.values[name], result.sigmas[name]
+        z = abs(value) / sd if sd > 0 and math.isfinite(sd) else math.inf
+        notes.append(f"{what} {name} = {value * scale:.4g} {unit} +- {sd * scale:.2g} "
+                     f"{unit} fitted ({z:.0f} standard errors from none): the bench's, not "
+                     f"the device's; {remedy}")
+    if not notes:
+        return result
+    return dataclasses.replace(result, message="; ".join([result.message, *notes]))
 
 
 def non_depletion_capacitance(values, voltage_V, frequency_Hz,

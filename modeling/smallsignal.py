@@ -45,13 +45,15 @@ def junction_admittance(vd, frequency_Hz, params: DiodeParams,
 
 
 def device_admittance(v, frequency_Hz, params: DiodeParams,
-                      temperature_K: float = DEFAULT_TEMPERATURE_K, *, fixture_F: float = 0.0):
+                      temperature_K: float = DEFAULT_TEMPERATURE_K, *, fixture_F: float = 0.0,
+                      fixture_ohm: float = 0.0):
     """Y [S] of the whole two-terminal device at terminal bias v [V], RS included.
 
     v and frequency_Hz broadcast against each other (for a grid pass v[:, None]).
     `fixture_F` adds a stray capacitance across the terminals (the fixture's, which the
-    meter sees beside the device: docs/physics.md, the network the meter measures); the
-    default 0 gives the device alone.
+    meter sees beside the device: docs/physics.md, the network the meter measures) and
+    `fixture_ohm` the fixture's series resistance outside it; the defaults 0 give the
+    device alone.
     """
     v = np.asarray(v, dtype=float)
     i = junction.current(v, params, temperature_K)
@@ -60,6 +62,8 @@ def device_admittance(v, frequency_Hz, params: DiodeParams,
     y = yj if params.RS == 0.0 else yj / (1.0 + params.RS * yj)
     if fixture_F:
         y = y + 2j * np.pi * np.asarray(frequency_Hz, dtype=float) * fixture_F
+    if fixture_ohm:
+        y = y / (1.0 + fixture_ohm * y)
     return y
 
 

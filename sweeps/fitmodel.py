@@ -180,24 +180,35 @@ OPEN_CORRECTED = ("open correction applied by the meter: the stray capacitance o
                   "the correction left (the residual after correction)")
 
 
-def open_corrected(record: object) -> bool:
-    """Whether a run's ``lcr_correction`` record (run.json) says the open correction
-    was run."""
+#: What they say when the meter's short correction was run (run.json records the
+#: short's R and X): a fitted fixture series resistance is what it left.
+SHORT_CORRECTED = ("short correction applied by the meter: the fixture's series "
+                   "impedance is subtracted from the readings, and a fitted RFIX is only "
+                   "what the correction left (the residual after correction)")
+
+
+def open_corrected(record: object, which: str = "open") -> bool:
+    """Whether a run's ``lcr_correction`` record (run.json) says the open (or with
+    ``which`` the short) correction was run."""
     return (isinstance(record, dict) and bool(record.get("done"))
-            and "open" in (record.get("corrections") or ()))
+            and which in (record.get("corrections") or ()))
 
 
 def note_correction(model, record: object):
-    """The model with its C-V/admittance fit messages stating the meter's open
-    correction (model extras ``open_corrected``); unchanged without one."""
-    if model is None or not open_corrected(record):
+    """The model with its C-V/admittance fit messages stating the meter's open and short
+    corrections (model extras ``open_corrected``, ``short_corrected``); unchanged
+    without any."""
+    if model is None:
         return model
-    model.extras["open_corrected"] = True
-    fits = model.extras.get("fits")
-    for kind in ("cv", "admittance"):
-        fit = fits.get(kind) if isinstance(fits, dict) else None
-        if isinstance(fit, dict) and OPEN_CORRECTED not in str(fit.get("message", "")):
-            fit["message"] = f"{fit.get('message', '')}; {OPEN_CORRECTED}"
+    for which, note in (("open", OPEN_CORRECTED), ("short", SHORT_CORRECTED)):
+        if not open_corrected(record, which):
+            continue
+        model.extras[f"{which}_corrected"] = True
+        fits = model.extras.get("fits")
+        for kind in ("cv", "admittance"):
+            fit = fits.get(kind) if isinstance(fits, dict) else None
+            if isinstance(fit, dict) and note not in str(fit.get("message", "")):
+                fit["message"] = f"{fit.get('message', '')}; {note}"
     return model
 
 

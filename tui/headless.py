@@ -46,11 +46,12 @@ def format_parameter(name: str, entry: dict) -> str:
     value, sigma = entry.get("value"), entry.get("sigma")
     if value is None:
         return f"{name} = ?"
-    unit = "F" if name == "CFIX" else UNITS.get(name, "")  # CFIX: the fixture's capacitance
+    # CFIX, RFIX: the fixture's capacitance and series resistance (the bench's)
+    unit = {"CFIX": "F", "RFIX": "ohm"}.get(name) or UNITS.get(name, "")
     text = format_estimate(value, sigma, unit)
     if sigma is not None and value:
         text += f" ±{abs(sigma / value):.1%}"
-    label = "fixture CFIX" if name == "CFIX" else name  # the bench's, not the device's
+    label = f"fixture {name}" if name in ("CFIX", "RFIX") else name
     return f"{label} = {text}{' ✓' if entry.get('settled') else ''}"
 
 

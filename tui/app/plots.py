@@ -263,18 +263,20 @@ def _main_frequency(f: np.ndarray) -> float:
     return float(values[np.argmax(counts)])
 
 
-def _fixture_F(state: RunState) -> float:
-    """The fitted fixture capacitance (shown as the bench's), else 0: a model curve drawn
-    over the meter's readings includes it, since the meter saw it too."""
-    est = state.parameters.get("CFIX")
+def _fixture_F(state: RunState, name: str = "CFIX") -> float:
+    """The fitted fixture capacitance (or with ``name`` RFIX its series resistance; shown
+    as the bench's), else 0: a model curve drawn over the meter's readings includes it,
+    since the meter saw it too."""
+    est = state.parameters.get(name)
     value = getattr(est, "value", None)
     return float(value) if isinstance(value, (int, float)) and math.isfinite(value) else 0.0
 
 
 def _cp_fit(v: np.ndarray, frequency_Hz: float, params: DiodeParams,
-            temperature_K: float, fixture_F: float = 0.0) -> np.ndarray:
+            temperature_K: float, fixture_F: float = 0.0,
+            fixture_ohm: float = 0.0) -> np.ndarray:
     y = smallsignal.device_admittance(v, frequency_Hz, params, temperature_K,
-                                      fixture_F=fixture_F)
+                                      fixture_F=fixture_F, fixture_ohm=fixture_ohm)
     cp, _ = smallsignal.parallel_from_admittance(y, frequency_Hz)
     return np.asarray(cp, dtype=float)
 
@@ -291,7 +293,8 @@ def _cv(view: str, state: RunState, params: DiodeParams | None) -> PlotData:
         if math.isfinite(freq):
             grid = _grid(v)
             data.series.append(Series(grid, _cp_fit(grid, freq, params, state.temperature_K,
-                                                      _fixture_F(state)),
+                                                      _fixture_F(state),
+                                                      _fixture_F(state, "RFIX")),
                                       "fit", line=True))
     elif len(v):
         data.note = "no C-V fit yet"
@@ -335,7 +338,8 @@ def _admittance(view: str, state: RunState, params: DiodeParams | None) -> PlotD
         if params is not None and has_dc_fit(state.parameters) and at.sum() >= 2:
             grid = np.linspace(f[at].min(), f[at].max(), 80)
             adm = smallsignal.device_admittance(float(bias), grid, params,
-                                                state.temperature_K, fixture_F=_fixture_F(state))
+                                                state.temperature_K, fixture_F=_fixture_F(state),
+                                                fixture_ohm=_fixture_F(state, "RFIX"))
             cp, gp = smallsignal.parallel_from_admittance(adm, grid)
             data.series.append(Series(np.log10(grid), _log10_abs(cp if capacitive else gp),
                                       "", line=True))

@@ -227,12 +227,14 @@ class RunState:
                 self._misfits_logged.add((kind, text))
                 self.add_log(LogEntry(self.last_time_s, LOG_TAGS["warning"], None,
                                       f"fit {kind}: {text}"))
-        fixture = doc.get("fixture_capacitance_F")  # the bench's, shown marked as such
-        if isinstance(fixture, dict) and isinstance(fixture.get("value"), (int, float)):
-            sigma = fixture.get("sigma")
-            self.parameters["CFIX"] = Estimate(
-                float(fixture["value"]),
-                float(sigma) if isinstance(sigma, (int, float)) else None, True)
+        for name, key in (("CFIX", "fixture_capacitance_F"),  # the bench's, shown
+                          ("RFIX", "fixture_resistance_ohm")):  # marked as such
+            fixture = doc.get(key)
+            if isinstance(fixture, dict) and isinstance(fixture.get("value"), (int, float)):
+                sigma = fixture.get("sigma")
+                self.parameters[name] = Estimate(
+                    float(fixture["value"]),
+                    float(sigma) if isinstance(sigma, (int, float)) else None, True)
         self.version += 1
 
     def add_log(self, entry: LogEntry) -> None:

@@ -283,6 +283,10 @@ def format_table(result, data, temperature, notes, math) -> str:
         fx = extras["fixture_capacitance_F"]
         lines.append(f"  fixture capacitance (the bench's, not on the card): "
                      f"{format_quantity(fx['value'], 'F')}")
+    if "fixture_resistance_ohm" in extras:
+        fx = extras["fixture_resistance_ohm"]
+        lines.append(f"  fixture series resistance (the bench's leads, not RS; not on the "
+                     f"card): {format_quantity(fx['value'], 'ohm')}")
     doping = extras.get("doping")
     if isinstance(doping, dict):
         if "doping_per_m3" in doping:

@@ -82,7 +82,15 @@ class Analysis:
     def fixture_F(self) -> float:
         """The fitted fixture capacitance (the bench's, across the terminals), else 0: model
         curves drawn against readings include it, since the meter saw it too."""
-        fixture = self.model.extras.get("fixture_capacitance_F") if self.model else None
+        return self._fixture("fixture_capacitance_F")
+
+    @property
+    def fixture_ohm(self) -> float:
+        """The fitted series resistance of the fixture (the bench's), else 0."""
+        return self._fixture("fixture_resistance_ohm")
+
+    def _fixture(self, key: str) -> float:
+        fixture = self.model.extras.get(key) if self.model else None
         value = fixture.get("value") if isinstance(fixture, dict) else None
         return float(value) if isinstance(value, (int, float)) else 0.0
 

@@ -179,7 +179,8 @@ def cv(an: Analysis, device: str):
         if _has(an, "CJO", "TT"):
             grid = np.linspace(c.voltage_V.min(), c.voltage_V.max(), 300)
             y = smallsignal.device_admittance(grid, c.label_value, an.params, an.temperature_K,
-                                              fixture_F=an.fixture_F)
+                                              fixture_F=an.fixture_F,
+                                              fixture_ohm=an.fixture_ohm)
             cp, _ = smallsignal.parallel_from_admittance(y, c.label_value)
             ax.plot(grid, cp / factor, "-", color=MODEL if k == 0 else colour,
                     label=f"model, {f_label}")
@@ -277,7 +278,8 @@ def admittance(an: Analysis, device: str):
         if with_model:
             grid = np.geomspace(s.frequency_Hz.min(), s.frequency_Hz.max(), 200)
             y = smallsignal.device_admittance(s.label_value, grid, an.params,
-                                              an.temperature_K, fixture_F=an.fixture_F)
+                                              an.temperature_K, fixture_F=an.fixture_F,
+                                              fixture_ohm=an.fixture_ohm)
             cp, gp = smallsignal.parallel_from_admittance(y, grid)
             g_ax.plot(grid, gp, "-", color=colour)
             c_ax.plot(grid, cp / factor, "-", color=colour)

@@ -104,6 +104,15 @@ def parameters(data: RunData, an: Analysis) -> str:
         parts.append("<p>The meter's open correction was run: the fixture's stray "
                      "capacitance is subtracted from the readings, and no residual (CFIX) "
                      "stands out of the noise.</p>")
+    series = m.extras.get("fixture_resistance_ohm")
+    if isinstance(series, dict) and isinstance(series.get("value"), (int, float)):
+        sd = series.get("sigma")
+        parts.append("<p>Fixture series resistance (the bench's leads, not the device's "
+                     "RS, which the four-wire I-V measured; kept off the model card): "
+                     f"{esc(qty(series['value'], 'ohm'))}"
+                     + (f" \u00b1 {esc(qty(sd, 'ohm', prec=2))}" if isinstance(sd, (int, float))
+                        else "") + (": the residual after the meter's short correction"
+                                    if m.extras.get("short_corrected") else "") + ".</p>")
     parts.append(_fit_quality(an))
     for label, names, matrix in an.correlations:
         parts.append(f"<h3>Correlation of the estimates ({esc(label)})</h3>")

@@ -13,8 +13,10 @@ from pnbench.tui.app.state import Estimate
 #: Display order: DC first, then capacitance, then transit time; others after.
 ORDER = ("IS", "N", "RS", "RSH", "BV", "IBV", "CJO", "VJ", "M", "FC", "TT", "EG", "XTI")
 
-#: CFIX is the fixture's stray capacitance: the bench's, not the device's.
-FIXTURE_LABEL = "CFIX bench"
+#: CFIX is the fixture's stray capacitance, RFIX its series resistance: the bench's, not
+#: the device's (label and unit of each).
+FIXTURE = {"CFIX": ("CFIX bench", "F"), "RFIX": ("RFIX bench", "ohm")}
+FIXTURE_LABEL = FIXTURE["CFIX"][0]
 
 #: The settled column: settled to the step's target, or still moving.
 SETTLED_MARK = "ok"
@@ -52,8 +54,8 @@ def rows(parameters: dict[str, Estimate],
     out = []
     for name in names:
         estimate = parameters[name]
-        unit = UNITS.get(name, "F" if name == "CFIX" else "")
-        out.append((FIXTURE_LABEL if name == "CFIX" else name,
+        label, unit = FIXTURE.get(name, (name, UNITS.get(name, "")))
+        out.append((label,
                     format_value(estimate.value, unit, estimate.sigma),
                     format_sigma(estimate, unit, detailed),
                     SETTLED_MARK if estimate.settled else MOVING_MARK))
