@@ -347,7 +347,7 @@ def fit_cv_data(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
                 with_fixture: bool | None = None,
                 fixed: dict[str, float] | None = None,
                 held_covariance: np.ndarray | None = None,
-                ac_level_V=None, noise: tuple[float, float] | None = None
+                ac_level_V=None, noise=None, noise_scale=None
                 ) -> dict[str, FitResult]:
     """The C-V fits of a run.
 
@@ -370,6 +370,7 @@ def fit_cv_data(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
         return {"cv": network.fit_network(
             voltage_V, frequency_Hz, capacitance_F, conductance_S, fixed=fixed,
             held_covariance=held_covariance, ac_level_V=ac_level_V, noise=noise,
+            noise_scale=noise_scale,
             compliance=compliance,
             temperature_K=temperature_K, with_fixture=with_fixture)}
     out = {"cv": fit_cv(voltage_V, frequency_Hz, capacitance_F, compliance=compliance,

@@ -19,6 +19,7 @@ import numpy as np
 
 from pnbench.modeling import lsq
 from pnbench.modeling.fit_reverse import fit_reverse  # noqa: F401  (part of this module's API)
+from pnbench.modeling.fitnoise import as_stated
 from pnbench.modeling.fitresult import FitResult, empty_result
 from pnbench.modeling.junction import _EXP_CAP, thermal_voltage
 from pnbench.modeling.junction import current as junction_current_total
@@ -76,6 +77,15 @@ class ForwardModel:
         }
         jac = np.stack([cols[int(k)] / denom for k in active], axis=-1)
         return i[:, None], jac[:, None, :]
+
+    def slope(self, t, v: np.ndarray) -> np.ndarray:
+        """dI/dV at the terminals: gtot / (1 + RS gtot)."""
+        p = self.diode(t)
+        i = np.asarray(junction_current_total(v, p, self.temperature_K), dtype=float)
+        a = p.N * self.vt
+        gtot = p.IS * np.exp(np.minimum((v - i * p.RS) / a, _EXP_CAP)) / a \
+            + max(float(t[3]), 0.0)
+        return gtot / (1.0 + p.RS * gtot)
 
 
 def _window_sums(x: np.ndarray, y: np.ndarray, w: int):
@@ -176,14 +186,16 @@ def _eligible(v, i, compliance, use):
 
 def fit_forward(voltage_V, current_A, *, compliance=None,
                 temperature_K: float = DEFAULT_TEMPERATURE_K, use=None,
-                noise: tuple[float, float] | None = None, shunt: bool = True,
-                start: np.ndarray | None = None) -> FitResult:
+                noise=None, shunt: bool = True,
+                start: np.ndarray | None = None, noise_scale=None) -> FitResult:
     """Fit IS, N, RS (and RSH when a shunt shows) to forward I–V points.
 
     ``compliance`` flags points to leave out; ``use`` (bool mask) overrides the automatic
-    choice of points (still only V > 0 and I > 0 can enter a log fit); ``noise`` =
-    (relative, floor_A) when the instrument's noise is known, else it is estimated from
-    the residuals. ``start`` (ln IS, N, RS, 1/RSH) skips the automatic start values.
+    choice of points (still only V > 0 and I > 0 can enter a log fit); ``noise`` = the
+    instrument's stated noise (a fitnoise.StatedNoise, or (relative, floor_A)) when it is
+    known, else it is estimated from the residuals; ``noise_scale`` (per point or one
+    value) multiplies it (1/sqrt(NPLC x readings)). ``start`` (ln IS, N, RS, 1/RSH)
+    skips the automatic start values.
     """
     v = np.asarray(voltage_V, dtype=float).ravel()
     i = np.asarray(current_A, dtype=float).ravel()
@@ -191,21 +203,46 @@ def fit_forward(voltage_V, current_A, *, compliance=None,
         raise ValueError(f"voltage has {v.size} values, current {i.size}")
     model = ForwardModel(temperature_K)
     return fit_with_model(model, v, i, _eligible(v, i, compliance, use),
-                          forced=use is not None, noise=noise, shunt=shunt, start=start)
+                          forced=use is not None, noise=noise, shunt=shunt, start=start,
+                          noise_scale=noise_scale)
+
+
+def stated_noise(model: ForwardModel, stated, v: np.ndarray, i: np.ndarray,
+                 scale=None, t: np.ndarray | None = None) -> lsq.Noise:
+    """The fits' noise model of a stated SMU noise (fitnoise.StatedNoise) for these
+    points: the current's floor per point (its autoranged range), times ``scale`` per
+    point, and, with a fitted ``t``, the voltage reading's noise through the model's
+    slope dI/dV added in quadrature."""
+    stated = as_stated(stated)
+    n = v.size
+    rows = np.ones(n) if scale is None else np.broadcast_to(
+        np.asarray(scale, dtype=float).ravel(), (n,)).copy()
+    rows = np.where(np.isfinite(rows) & (rows > 0), rows, 1.0)
+    extra = None
+    if stated.voltage is not None and t is not None:
+        with np.errstate(all="ignore"):
+            g = np.abs(model.slope(t, v))
+            extra = ((g * stated.voltage.sigma(v) * rows) ** 2)[:, None]
+        extra = np.where(np.isfinite(extra), extra, 0.0)
+    return lsq.Noise((stated.relative,), (stated.smallest_floor,), estimated=False,
+                     linear=True, floor_rows=stated.floors(i)[:, None], scale_rows=rows,
+                     extra_var=extra)
 
 
 def forward_state(model: ForwardModel, v: np.ndarray, i: np.ndarray,
                   eligible: np.ndarray, *, forced: bool = False,
-                  noise: tuple[float, float] | None = None, shunt: bool = True,
-                  start: np.ndarray | None = None) -> lsq.FitState | str:
-    """The least-squares state of a forward fit, or the reason there is none."""
+                  noise=None, shunt: bool = True,
+                  start: np.ndarray | None = None, noise_scale=None) -> lsq.FitState | str:
+    """The least-squares state of a forward fit, or the reason there is none. With a
+    stated noise that includes the voltage reading's, the fit runs twice: first with
+    the noise estimated, for the slope dI/dV that carries the voltage noise into the
+    current's, then against the stated noise from there."""
     pos = eligible & (i > 0)
     if np.count_nonzero(pos) < MIN_POINTS:
         return (f"too few forward points with positive current to fit "
                 f"({np.count_nonzero(pos)}; need {MIN_POINTS})")
     x, y, elig = v[:, None], i[:, None], eligible[:, None]
-    known = None if noise is None else lsq.Noise((float(noise[0]),), (float(noise[1]),),
-                                                 estimated=False)
+    known = None if noise is None else stated_noise(model, noise, v, i, noise_scale)
     floor0 = known.floor[0] if known else lsq.initial_noise(model, y, elig).floor[0]
     above = i[pos] > floor0 * lsq.FLOOR_FACTOR
     floor_cut = floor0 * lsq.FLOOR_FACTOR if np.count_nonzero(above) >= 2 else 0.0
@@ -218,13 +255,17 @@ def forward_state(model: ForwardModel, v: np.ndarray, i: np.ndarray,
     if not shunt:
         t0 = t0.copy()
         t0[3] = 0.0
+    if known is not None and as_stated(noise).voltage is not None:
+        first = lsq.fit(model, x, y, elig, t0, active, forced_use=forced)
+        known = stated_noise(model, noise, v, i, noise_scale, first.t)
+        t0 = np.where(active, first.t, t0)
     return lsq.fit(model, x, y, elig, t0, active, noise=known, forced_use=forced)
 
 
 def fit_with_model(model: ForwardModel, v, i, eligible, *, forced=False, noise=None,
-                   shunt=True, start=None) -> FitResult:
+                   shunt=True, start=None, noise_scale=None) -> FitResult:
     state = forward_state(model, v, i, eligible, forced=forced, noise=noise, shunt=shunt,
-                          start=start)
+                          start=start, noise_scale=noise_scale)
     if isinstance(state, str):
         return empty_result("iv_forward", v.size, state)
     return lsq.to_result(model, state, "iv_forward", v.size, x=v[:, None], y=i[:, None])

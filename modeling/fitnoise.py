@@ -10,9 +10,11 @@ Weights use the model value, not the reading, so they do not bias the estimates.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
+
+from pnbench.modeling.stated import StatedNoise, as_stated  # noqa: F401  (re-exported)
 
 #: A log-channel point is used only where the model value exceeds this many floors.
 FLOOR_FACTOR = 10.0
@@ -20,20 +22,41 @@ FLOOR_FACTOR = 10.0
 
 @dataclass(frozen=True)
 class Noise:
-    """Per-channel noise model: sigma = sqrt((rel*y)**2 + floor**2)."""
+    """Per-channel noise model: sigma = sqrt((rel*y)**2 + floor**2).
+
+    A stated noise may vary from point to point; the per-row arrays are then shaped as
+    the fit's rows (m, C) and used in place of the scalar parts: ``floor_rows`` replaces
+    ``floor`` (a floor that follows the autoranged range), ``scale_rows`` (m,) multiplies
+    the stated part (1/sqrt(NPLC x readings averaged) of each point's step), and
+    ``extra_var`` adds a variance in quadrature (the voltage reading's noise carried
+    through the slope dI/dV: the effective-variance method, e.g. Orear, *Am. J. Phys.*
+    50, 912, 1982, from memory). ``floor`` stays the smallest floor (which points a log
+    channel uses).
+    """
 
     rel: tuple[float, ...]
     floor: tuple[float, ...]
     estimated: bool = True
     #: True: sigma = rel*y + floor, as instrument specifications add the two parts
     linear: bool = False
+    floor_rows: np.ndarray | None = field(default=None, compare=False, repr=False)
+    scale_rows: np.ndarray | None = field(default=None, compare=False, repr=False)
+    extra_var: np.ndarray | None = field(default=None, compare=False, repr=False)
 
     def sigma(self, yhat: np.ndarray) -> np.ndarray:
         rel = np.asarray(self.rel)
         floor = np.asarray(self.floor)
+        if self.floor_rows is not None and self.floor_rows.shape == np.shape(yhat):
+            floor = self.floor_rows
         if self.linear:
-            return rel * np.abs(yhat) + floor
-        return np.sqrt((rel * yhat) ** 2 + floor**2)
+            s = rel * np.abs(yhat) + floor
+        else:
+            s = np.sqrt((rel * yhat) ** 2 + floor**2)
+        if self.scale_rows is not None and self.scale_rows.shape[0] == np.shape(yhat)[0]:
+            s = s * self.scale_rows[:, None]
+        if self.extra_var is not None and self.extra_var.shape == np.shape(yhat):
+            s = np.sqrt(s * s + self.extra_var)
+        return s
 
 
 def _noise_newton(q, e2, y2, lo, hi, iterations: int = 40):

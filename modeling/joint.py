@@ -78,7 +78,7 @@ def _pool(data: Mapping[str, Mapping[str, Any]], kinds: Sequence[str]) -> dict |
         return None
     out: dict[str, np.ndarray] = {}
     for name in ("voltage_V", "current_A", "frequency_Hz", "capacitance_F",
-                 "conductance_S", "ac_level_V"):
+                 "conductance_S", "ac_level_V", "noise_scale"):
         out[name] = np.concatenate([_col(p, name, len(_col(p, "voltage_V"))) for p in parts])
     out["compliance"] = np.concatenate([
         np.asarray(p["compliance"], dtype=bool).ravel() if p.get("compliance") is not None
@@ -91,7 +91,7 @@ def fit_all(data: Mapping[str, Mapping[str, Any]], *,
             reference_V: float | None = None, ibv_A: float | None = None,
             with_fixture: bool | None = None, semiconductor: str | float = "Si",
             extras: Mapping[str, Any] | None = None,
-            noise: Mapping[str, tuple[float, float]] | None = None) -> JointFit:
+            noise: Mapping[str, Any] | None = None) -> JointFit:
     """Fit every kind of data present; ``data`` maps a kind ("iv", "iv_forward",
     "iv_reverse", "cv", "admittance") to columns named as in points.csv
     (voltage_V, current_A, frequency_Hz, capacitance_F, conductance_S, compliance) and
@@ -99,10 +99,13 @@ def fit_all(data: Mapping[str, Mapping[str, Any]], *,
     point: its distortion of forward readings is then modelled).
 
     All I–V kinds are pooled (forward and reverse split by the sign of V), as are the
-    C–V kinds. ``noise``: the instruments' stated noise, {"iv": (relative, floor_A),
-    "cv": (relative of |Y|, floor_F)}; a fit is then judged against it (chi-square)
-    instead of estimating it. ``with_fixture``: None fits a fixture capacitance when the data
-    determine it (3-sigma rule, reason in the message), True always, False never.
+    C–V kinds. ``noise``: the instruments' stated noise, {"iv": ..., "cv": ...}, each a
+    fitnoise.StatedNoise, its JSON form or (relative, floor) (I–V: of the current, floor
+    in A; C–V: of |Y|, floor as a capacitance in F); a fit is then judged against it
+    (chi-square) instead of estimating it. An optional column ``noise_scale`` scales it
+    per point (1/sqrt(NPLC x readings averaged) of the point's step). ``with_fixture``:
+    None fits a fixture capacitance when the data determine it (3-sigma rule, reason in
+    the message), True always, False never.
     """
     with np.errstate(all="ignore"):  # extreme trial points inside the solvers are expected
         return _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture,
@@ -120,7 +123,8 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
         if np.any(v > 0):
             results["iv_forward"] = fit_iv.fit_forward(v, i, compliance=comp,
                                                        temperature_K=temperature_K,
-                                                       noise=(noise or {}).get("iv"))
+                                                       noise=(noise or {}).get("iv"),
+                                                       noise_scale=iv["noise_scale"])
         if np.any(v < 0):
             fwd = results.get("iv_forward")
             rs = fwd.values.get("RS") if fwd is not None and fwd.success else None
@@ -138,7 +142,8 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
             compliance=cv["compliance"], temperature_K=temperature_K,
             with_fixture=with_fixture, fixed=fixed or None,
             held_covariance=dc_hold_covariance(results, fixed),
-            ac_level_V=cv["ac_level_V"], noise=(noise or {}).get("cv")))
+            ac_level_V=cv["ac_level_V"], noise=(noise or {}).get("cv"),
+            noise_scale=cv["noise_scale"]))
     more = dict(extras or {})
     if cv is not None and area_m2 is not None:
         from pnbench.modeling import fit_cv, network

@@ -28,6 +28,7 @@ import math
 import numpy as np
 
 from pnbench.modeling import fit_cv, heldcov, junction, lsq
+from pnbench.modeling.fitnoise import as_stated
 from pnbench.modeling.fitresult import FitResult, empty_result
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
 
@@ -173,7 +174,7 @@ def _tt_start(model, t0, x, y, use) -> float:
 
 def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
                 fixed: dict[str, float], ac_level_V=None,
-                noise: tuple[float, float] | None = None,
+                noise=None, noise_scale=None,
                 held_covariance: np.ndarray | None = None, compliance=None, use=None,
                 temperature_K: float = DEFAULT_TEMPERATURE_K,
                 with_fixture: bool | None = None, with_series: bool | None = None,
@@ -185,14 +186,15 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
     are in ``fixed`` and finite (values' units), carried into the sigmas.
     ``ac_level_V``: the meter's test-signal level (rms) per point or one value; where
     known its distortion of the forward readings is modelled (MeterModel). ``noise``:
-    the meter's stated noise (relative of |Y|, floor as a capacitance in F), else it is
-    estimated from the residuals. ``with_fixture``/``with_series``: CFIX/RFIX kept when
+    the meter's stated noise (a fitnoise.StatedNoise or (relative of |Y|, floor as a
+    capacitance in F)), times ``noise_scale`` per point (1/sqrt(readings averaged)),
+    else it is estimated from the residuals. ``with_fixture``/``with_series``: CFIX/RFIX kept when
     the data determine them (None), always (True) or never (False).
     """
     x, y, elig = network_rows(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                               ac_level_V, compliance, use)
     model = SplitModel(network_model(temperature_K, fc, with_fixture, with_series))
-    state = network_state(model, x, y, elig, fixed, noise)
+    state = network_state(model, x, y, elig, fixed, noise, noise_scale=noise_scale)
     if isinstance(state, str):
         return empty_result(kind, len(x), state)
     extra_cov = held_covariance_t(model, state, x, y, fixed, held_covariance)
@@ -223,7 +225,7 @@ def network_rows(voltage_V, frequency_Hz, capacitance_F, conductance_S=None,
 
 
 def network_state(model: SplitModel, x, y, elig, fixed: dict[str, float],
-                  noise: tuple[float, float] | None = None, start=None):
+                  noise=None, start=None, noise_scale=None):
     """The least-squares state of the network fit over rows of `network_rows`, or why
     there is none (a string). ``fixed`` holds IS, N, RS, RSH (required) and any other
     parameter of the model (e.g. CJO, VJ, M, CFIX from an earlier fit); ``start``: t
@@ -254,15 +256,23 @@ def network_state(model: SplitModel, x, y, elig, fixed: dict[str, float],
         t0 = np.where(np.isfinite(start) & active, start, t0)
     elif active[k["TT"]]:
         t0[k["TT"]] = _tt_start(model.inner, t0, x, y, ok)
-    known = None
-    if noise is not None:
-        # reverse: rel*C + floor; forward, scaled by w/|Y|: rel + floor*w/|Y|, the last
-        # ~ (floor/C)*(C*w/|Y|) with C's median there
-        rel, floor = float(noise[0]), float(noise[1])
-        fwd = elig[:, 1] & (y[:, 0] > 0)
-        c_typ = float(np.median(y[fwd, 0] / x[fwd, 3])) if fwd.any() else math.inf
-        known = lsq.Noise((rel, floor / c_typ), (floor, rel), estimated=False, linear=True)
+    known = None if noise is None else meter_noise(noise, x[:, 3], noise_scale)
     return lsq.fit(model, x, y, elig, t0, active, noise=known)
+
+
+def meter_noise(noise, k_phase: np.ndarray, scale=None) -> lsq.Noise:
+    """The fits' noise of a stated meter noise, per point: the meter adds
+    rel*|Y| + w*floor to each of G and B, so C = B/w has rel*|Y|/w + floor (the reverse
+    channel) and C*w/|Y| has rel + floor*w/|Y| (the forward channel, k_phase = w/|Y|)."""
+    stated = as_stated(noise)
+    n = k_phase.size
+    rows = np.ones(n) if scale is None else np.broadcast_to(
+        np.asarray(scale, dtype=float).ravel(), (n,)).copy()
+    rows = np.where(np.isfinite(rows) & (rows > 0), rows, 1.0)
+    c_part = stated.relative / k_phase + stated.floor
+    return lsq.Noise((0.0, 0.0), (stated.floor, stated.relative), estimated=False,
+                     linear=True, floor_rows=np.column_stack([c_part, c_part * k_phase]),
+                     scale_rows=rows)
 
 
 def held_covariance_t(model, state: lsq.FitState, x, y, fixed: dict[str, float],
