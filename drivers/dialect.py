@@ -11,12 +11,13 @@ its placeholders and whether it is a query, and names the file and key of any fa
 
 from __future__ import annotations
 
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from importlib import resources
 from pathlib import Path
 from typing import Any
 
 from pnbench.drivers import scpi
+from pnbench.drivers.dialectnoise import parse_noise
 from pnbench.errors import DialectError
 from pnbench.tomltext import load_toml
 
@@ -118,6 +119,8 @@ class Dialect:
     lcr: LcrCommands | None
     source: str
     stage: StageCommands | None = None
+    #: the instrument's stated noise by role ("smu", "lcr"), from [smu_noise]/[lcr_noise]
+    noise: dict = field(default_factory=dict)
 
     def fill(self, template: str, **kwargs: Any) -> str:
         """`scpi.fill` with this dialect's on/off words."""
@@ -287,7 +290,7 @@ def _build(cls: type, table: dict, kinds: dict, source: str, name: str) -> Any:
 
 def parse_dialect(data: dict, source: str) -> Dialect:
     """A Dialect from the parsed TOML document `data`; `source` names it in errors."""
-    tables = ("dialect", "common", "smu", "lcr", "stage")
+    tables = ("dialect", "common", "smu", "lcr", "stage", "smu_noise", "lcr_noise")
     for key in data:
         if key not in tables:
             raise _fault(source, "top level", f"unknown table [{key}] "
@@ -333,6 +336,7 @@ def parse_dialect(data: dict, source: str) -> Dialect:
         lcr=roles.get("lcr"),
         source=source,
         stage=roles.get("stage"),
+        noise=parse_noise(data, source),
     )
 
 

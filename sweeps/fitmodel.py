@@ -159,19 +159,32 @@ def model_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
     for name, step in steps.items():
         if name in columns and len(columns[name]["voltage_V"]):
             col = columns[name]
+            n = len(col["voltage_V"])
             if step.kind in ("cv", "admittance"):  # the LCR test level, for the C-V fit
                 level = getattr(step, "ac_level_V", None)
-                col = {**col, "ac_level_V": np.full(len(col["voltage_V"]),
-                                                    np.nan if level is None else level)}
+                col = {**col, "ac_level_V": np.full(n, np.nan if level is None else level)}
+            col = {**col, "noise_scale": np.full(n, noise_scale(step))}
             by_kind.setdefault(step.kind, []).append(col)
     if not by_kind:
         return None
     data = {kind: parts[0] if len(parts) == 1 else
             {c: np.concatenate([p[c] for p in parts]) for c in parts[0]}
             for kind, parts in by_kind.items()}
+    from pnbench.sweeps.statednoise import fit_noise
+
     model = fit_run(data, temperature_K=temperature_K, area_m2=area_m2, extras=extras,
-                    ibv_A=breakdown_current_A(steps.values()))
+                    ibv_A=breakdown_current_A(steps.values()),
+                    noise=fit_noise((extras or {}).get("stated_noise")))
     return note_correction(model, (extras or {}).get("lcr_correction"))
+
+
+def noise_scale(step) -> float:
+    """How a step's readings' noise compares with one reading at 1 NPLC:
+    1/sqrt(NPLC x readings averaged) for the SMU, 1/sqrt(readings averaged) for the LCR
+    meter (its measurement time is its own); white noise assumed."""
+    nplc = float(getattr(step, "nplc", 1.0) or 1.0) if step.kind in ("iv_forward",
+                                                                    "iv_reverse") else 1.0
+    return 1.0 / float(np.sqrt(max(nplc, 1e-9) * max(int(getattr(step, "average", 1)), 1)))
 
 
 #: What the C-V and admittance fits say when the meter's open correction was run.

@@ -33,6 +33,7 @@ from pnbench.sweeps.fitfeed import FitWorker
 from pnbench.sweeps.plan import Plan, parse_plan
 from pnbench.sweeps.record import RunFolder, iso, plan_path, read_run, utc_now
 from pnbench.sweeps.runner import Outcome, Runner
+from pnbench.sweeps.statednoise import run_noise
 from pnbench.sweeps.statuses import RunStatus, run_status
 
 
@@ -274,8 +275,9 @@ class Launch:
                            write_model=write_model,
                            enabled=self.fit_enabled, area_m2=self.plan.device.area_m2,
                            extras={"device": self.plan.device.name,
-                                   **({"lcr_correction": folder.run["lcr_correction"]}
-                                      if folder.run.get("lcr_correction") else {})})
+                                   **{key: folder.run[key] for key in
+                                      ("lcr_correction", "stated_noise")
+                                      if folder.run.get(key)}})
         if state is not None:
             for step in self.plan.steps:
                 worker.preload(step, state.points.get(step.name, []))
@@ -297,6 +299,7 @@ class Launch:
             "steps": [{"name": s.name, "kind": s.kind, "planned": s.planned, "done": 0,
                        "status": "pending", "ended_by": None} for s in plan.steps],
             "outputs_off_confirmed": False, "simulated": self.simulate,
+            "stated_noise": run_noise(plan),
             "time_scale": self.time_scale if self.simulate else None,
             "plan_source": str(Path(plan.path).resolve()) if plan.path else None,
             "resume_count": 0,

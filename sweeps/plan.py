@@ -21,6 +21,7 @@ from pnbench.sweeps.limits import (
 )
 from pnbench.sweeps.planread import Problems, TableReader
 from pnbench.sweeps.planstep import Step, read_step
+from pnbench.sweeps.statednoise import read_plan_noise
 from pnbench.sweeps.thermalplan import (
     TemperaturePlan,
     expand_steps,
@@ -63,11 +64,13 @@ class Instrument:
     dialect: str | None = None  # path of a dialect file; None = the built-in default
     timeout_ms: int = 2000
     ratings: dict = field(default_factory=dict)  # rating key -> SI value
+    noise: object = None  # the stated noise (fitnoise.StatedNoise; statednoise.PLAN_KEYS)
 
     def to_json_dict(self) -> dict:
         return {"resource": self.resource, "backend": self.backend,
                 "dialect": self.dialect, "timeout_ms": self.timeout_ms,
-                "ratings": dict(self.ratings)}
+                "ratings": dict(self.ratings),
+                **({"noise": self.noise.to_json_dict()} if self.noise is not None else {})}
 
 
 #: The LCR meter's fixture corrections a plan may ask for, in the order they run.
@@ -311,6 +314,7 @@ def _read_instruments(raw: object, base_dir: Path, problems: Problems) -> dict:
                 ratings[key] = value
         if role == "stage":
             ratings = read_stage_ratings(t)
+        noise = read_plan_noise(t, role)
         t.finish()
         if role is None or resource is None:
             continue
@@ -319,7 +323,7 @@ def _read_instruments(raw: object, base_dir: Path, problems: Problems) -> dict:
             continue
         found[role] = Instrument(role=role, resource=resource, backend=backend,
                                  dialect=dialect, timeout_ms=int(round(timeout_s * 1000)),
-                                 ratings=ratings)
+                                 ratings=ratings, noise=noise)
     return found
 
 
