@@ -349,12 +349,13 @@ def healthy(model: Model, state: FitState) -> bool:
 def to_result(model, state: FitState, kind: str, n_points: int,
               extras: dict | None = None, min_rows: int = 4, *, x: np.ndarray | None = None,
               y: np.ndarray | None = None,
-              extra_cov_t: np.ndarray | None = None) -> FitResult:
+              extra_cov_t: np.ndarray | None = None, verdict=None) -> FitResult:
     """The FitResult of a finished least-squares state (values in SI, not t).
 
     With the data ``x``, ``y`` the lack-of-fit checks of ``misfit`` run and a misfit
     shows in the message (sigmas inflated, marked lower bounds); ``extra_cov_t`` adds
-    the covariance carried in from held parameters (``heldcov``).
+    the covariance carried in from held parameters (``heldcov``); a ``verdict`` the
+    caller already has (a live stream's, `lsqstream`) is used as it is.
     """
     from pnbench.modeling import misfit
 
@@ -362,8 +363,9 @@ def to_result(model, state: FitState, kind: str, n_points: int,
     cov_t = covariance_t(state)
     if extra_cov_t is not None and extra_cov_t.shape == cov_t.shape:
         cov_t = cov_t + np.where(np.isfinite(extra_cov_t), extra_cov_t, 0.0)
-    verdict = misfit.assess(model, state, x, y) if x is not None and y is not None \
-        else misfit.Verdict()
+    if verdict is None:
+        verdict = misfit.assess(model, state, x, y) if x is not None and y is not None \
+            else misfit.Verdict()
     cov_t = cov_t * verdict.inflation**2
     d = np.array([model.params[k].derivative(state.t[k]) for k in idx])
     cov = cov_t * np.outer(d, d)

@@ -14,7 +14,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from pnbench.modeling import lsq
+from pnbench.modeling import lsq, misfit
 from pnbench.modeling.fitresult import FitResult, empty_result
 
 #: Rebuild the sums when the pending step moves the estimate by more than this
@@ -83,6 +83,7 @@ class LsqStream:
         self.h = self.g = None
         self.s = 0.0
         self.rows = 0
+        self.verdict = misfit.Verdict()  # the lack-of-fit checks at the last rebuild
 
     @property
     def n(self) -> int:
@@ -152,6 +153,9 @@ class LsqStream:
         self.h, self.g = state.hessian.copy(), state.gradient.copy()
         self.s, self.rows = state.chi2, state.n_rows
         self.used.view()[:] = state.used
+        # the lack-of-fit checks, on the residuals at this new linearization point: one
+        # model evaluation per channel, only when the sums are rebuilt (never per point)
+        self.verdict = misfit.assess(self.model, state, self.x.view(), self.y.view())
 
     def _relinearize(self, t: np.ndarray) -> None:
         st = self.state
@@ -295,4 +299,5 @@ class LsqStream:
         view = replace(st, t=t, used=self.used.view().copy(), hessian=self.h,
                        gradient=np.zeros_like(self.g), chi2=chi2, n_rows=self.rows)
         return lsq.to_result(self.model, view, self.spec.kind, self.n,
-                             extras=self.spec.extras(), min_rows=self.spec.min_points)
+                             extras=self.spec.extras(), min_rows=self.spec.min_points,
+                             verdict=self.verdict)

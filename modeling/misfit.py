@@ -127,12 +127,21 @@ def assess(model, state: lsq.FitState, x: np.ndarray, y: np.ndarray) -> Verdict:
     if not state.noise.estimated:
         p = float(chdtrc(state.dof, state.chi2))
         out.figures["chi2_probability"] = p
+        red = state.chi2 / state.dof
         if p < P_MISFIT:
             out.misfit = True
             out.notes.append(
                 f"the residuals exceed the stated instrument noise (reduced chi-square "
-                f"{state.chi2 / state.dof:.3g} on {state.dof} degrees of freedom, "
-                f"p = {p:.2g}); sigmas scaled by its square root")
+                f"{red:.3g} on {state.dof} degrees of freedom, p = {p:.2g}); sigmas scaled "
+                f"by its square root")
+        elif p > 1 - P_MISFIT:
+            out.notes.append(
+                f"the residuals are smaller than the stated instrument noise (reduced "
+                f"chi-square {red:.3g} on {state.dof} degrees of freedom): the stated noise "
+                f"is too large, and the sigmas with it")
+        else:
+            out.notes.append(f"reduced chi-square {red:.3g} against the stated instrument "
+                             f"noise ({state.dof} degrees of freedom, p = {p:.2g})")
     with np.errstate(all="ignore"):
         seqs = ordered_residuals(model, state, x, y)
     rt = runs_test(seqs)

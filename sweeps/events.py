@@ -188,6 +188,8 @@ class Fit(Event):
     final: bool = False
     ibv_A: float | None = None
     leakage: dict | None = None
+    #: the lack-of-fit checks (fitfeed.misfit_figure): {"misfit", "basis", "runs_z", ...}
+    misfit: dict | None = None
 
 
 @dataclass(frozen=True, kw_only=True, slots=True)

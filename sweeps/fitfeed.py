@@ -96,6 +96,29 @@ def figures(result) -> dict:
         out["leakage"] = {"voltage_V": finite(extras["leakage_voltage_V"]),
                           "current_A": finite(extras["leakage_A"]),
                           "sigma_A": None if sigma is None else finite(sigma)}
+    lack = misfit_figure(result)
+    if lack is not None:
+        out["misfit"] = lack
+    return out
+
+
+def misfit_figure(result) -> dict | None:
+    """The lack-of-fit verdict of a fit for its event (None before the checks ran):
+    ``misfit`` (bool), ``basis`` ("stated noise": chi-square and the runs test, or
+    "runs test": the noise is estimated, so chi-square says nothing), ``runs_z`` and
+    ``reduced_chi2`` where they apply."""
+    lack = result.extras.get("lack_of_fit")
+    if not isinstance(lack, dict):
+        return None
+    noises = [v for k, v in result.extras.items() if k.startswith("noise")
+              and isinstance(v, dict)]
+    stated = bool(noises) and not any(v.get("estimated", True) for v in noises)
+    out = {"misfit": bool(lack.get("misfit")),
+           "basis": "stated noise" if stated else "runs test"}
+    if lack.get("runs_z") is not None:
+        out["runs_z"] = finite(lack["runs_z"])
+    if stated:
+        out["reduced_chi2"] = finite(result.reduced_chi2)
     return out
 
 

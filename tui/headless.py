@@ -80,6 +80,19 @@ def leakage_text(leak: dict) -> str:
     return text + at
 
 
+def misfit_text(figure: dict | None) -> str:
+    """A few words when a fit's lack-of-fit checks fail ('' otherwise): against the
+    stated noise (chi-square) or from the runs test on residual signs."""
+    if not isinstance(figure, dict) or not figure.get("misfit"):
+        return ""
+    parts = []
+    if figure.get("reduced_chi2") is not None:
+        parts.append(f"chi2/dof {figure['reduced_chi2']:.3g} vs stated noise")
+    if figure.get("runs_z") is not None:
+        parts.append(f"runs z {figure['runs_z']:+.1f}")
+    return "MISFIT" + (f" ({', '.join(parts)})" if parts else "")
+
+
 def bar(done: int, planned: int, width: int = BAR) -> str:
     frac = 0.0 if planned <= 0 else min(1.0, done / planned)
     full = int(round(frac * width))
@@ -213,6 +226,8 @@ class Progress:
             notes.append(leakage_text(e.leakage))
         if e is not None and e.not_determined:
             notes.append(f"{', '.join(e.not_determined)} not determined")
+        if e is not None and misfit_text(e.misfit):
+            notes.append(misfit_text(e.misfit))
         if e is not None and not shown and not notes:
             notes.append(first_clause(str(e.message or "nothing determined yet")))
         return "; ".join(filter(None, ["  ".join(shown), *notes]))

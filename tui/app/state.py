@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 import time
 from collections import deque
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -47,6 +47,8 @@ class Estimate:
     value: float
     sigma: float | None
     settled: bool
+    #: the fit it came from fails its lack-of-fit checks (its sigma is a lower bound)
+    misfit: bool = False
 
 
 @dataclass
@@ -119,13 +121,14 @@ class RunState:
         self.progress.apply(event)
         match event:
             case Fit():
+                misfit = bool((event.misfit or {}).get("misfit"))
                 for name, entry in (event.parameters or {}).items():
                     if isinstance(entry, dict):
                         sigma = entry.get("sigma")
                         self.parameters[name] = Estimate(
                             to_number(entry.get("value")),
                             None if sigma is None else to_number(sigma),
-                            bool(entry.get("settled", False)))
+                            bool(entry.get("settled", False)), misfit)
             case StepStarted() if step and not event.step_kind:
                 progress = self._step(step)
                 progress.kind = str(event.extra.get("sweep") or progress.kind)
@@ -222,6 +225,10 @@ class RunState:
         for kind, fit in (doc.get("fits") or {}).items():  # a model that misfits says so
             lack = fit.get("lack_of_fit") if isinstance(fit, dict) else None
             text = fit.get("message") if isinstance(fit, dict) else None
+            if isinstance(lack, dict) and lack.get("misfit"):
+                for name in fit.get("correlation") or {}:  # its parameters, marked
+                    if name in self.parameters:
+                        self.parameters[name] = replace(self.parameters[name], misfit=True)
             if isinstance(lack, dict) and lack.get("misfit") and isinstance(text, str) \
                     and (kind, text) not in self._misfits_logged:
                 self._misfits_logged.add((kind, text))

@@ -120,13 +120,14 @@ def run(args) -> int:
             if args.leakage_at else None)
     kinds = data.kinds if args.kind == "auto" else (args.kind,)
     fit_data = {k: data.select(k) for k in kinds if data.select(k) is not None}
-    for kind, level in _run_ac_levels(source, data).items():
-        if kind in fit_data:  # the meter's test level, as the run's own fit used it
-            fit_data[kind] = {**fit_data[kind], "ac_level_V": level}
-    noise = {key: _noise_option(text, option, unit)
-             for key, text, option, unit in (("iv", args.smu_noise, "--smu-noise", "A"),
-                                             ("cv", args.lcr_noise, "--lcr-noise", "F"))
-             if text}
+    for kind, cols in _run_step_columns(source, data).items():
+        if kind in fit_data:  # the meter's test level and each step's noise scale,
+            fit_data[kind] = {**fit_data[kind], **cols}  # as the run's own fit used them
+    noise = _run_noise(source, notes)
+    noise.update({key: _noise_option(text, option, unit)
+                  for key, text, option, unit in (("iv", args.smu_noise, "--smu-noise", "A"),
+                                                  ("cv", args.lcr_noise, "--lcr-noise", "F"))
+                  if text})
     result = joint.fit_all(fit_data, temperature_K=temperature, area_m2=area,
                            reference_V=leak, ibv_A=ibv, with_fixture=True if args.fixture else None,
                            extras={"source": str(data.path)}, noise=noise or None)
@@ -192,16 +193,45 @@ def _noise_option(text: str, option: str, unit: str) -> tuple[float, float]:
     return rel, floor
 
 
-def _run_ac_levels(source: str, data) -> dict:
-    """For a run folder, the LCR test level of every C-V row (from its step in the
-    plan, NaN where unknown), by data kind; {} elsewhere. The folder is read through the
-    run record (the step of each row, by column)."""
+def _run_noise(source: str, notes: list[str]) -> dict:
+    """For a run folder, the stated noise its run.json records (its final fit was
+    judged against it); {} elsewhere. --smu-noise and --lcr-noise win over it."""
+    from pathlib import Path
+
+    from pnbench.errors import PnbenchError
+    from pnbench.sweeps import record
+    from pnbench.sweeps.statednoise import fit_noise
+
+    folder = Path(source)
+    if not (folder.is_dir() and record.has(folder, record.layout.RUN)):
+        return {}
+    try:
+        stated = record.read_run(folder).doc.get("stated_noise")
+    except (PnbenchError, OSError):
+        return {}
+    noise = fit_noise(stated) or {}
+    for key in noise:
+        where = (stated[key].get("source") if isinstance(stated[key], dict) else None) \
+            or "run.json"
+        notes.append(f"{'I-V' if key == 'iv' else 'C-V'} fits judged against the stated "
+                     f"noise of {where} (run.json; "
+                     f"{'--smu-noise' if key == 'iv' else '--lcr-noise'} sets another)")
+    return noise
+
+
+def _run_step_columns(source: str, data) -> dict:
+    """For a run folder, per data kind, the LCR test level of every C-V row
+    (``ac_level_V``, NaN where unknown) and the noise scale of every row
+    (``noise_scale``: 1/sqrt(NPLC x readings averaged) of its step), from its step in
+    the plan; {} elsewhere. The folder is read through the run record (the step of each
+    row, by column)."""
     from pathlib import Path
 
     import numpy as np
 
     from pnbench.errors import PnbenchError
     from pnbench.sweeps import record
+    from pnbench.sweeps.fitmodel import noise_scale
     from pnbench.sweeps.plan import load_plan
 
     folder = Path(source)
@@ -214,15 +244,18 @@ def _run_ac_levels(source: str, data) -> dict:
     except (PnbenchError, OSError):
         return {}  # the plan's trouble is said once already, by _run_breakdown_current
     level = {s.name: getattr(s, "ac_level_V", None) for s in plan.steps}
+    scale = {s.name: noise_scale(s) for s in plan.steps}
     names = steps.steps()
-    out = {}
+    out: dict = {}
     for kind in data.kinds:
         at = np.asarray(data.line_numbers)[data.row_kind == kind] - steps.first_line
         ok = (at >= 0) & (at < len(names))
-        values = np.full(at.size, np.nan)
-        values[ok] = [np.nan if level.get(s) is None else level[s] for s in names[at[ok]]]
-        if np.any(np.isfinite(values)):
-            out[kind] = values
+        for column, table in (("ac_level_V", level), ("noise_scale", scale)):
+            values = np.full(at.size, np.nan)
+            values[ok] = [np.nan if table.get(s) is None else table[s]
+                          for s in names[at[ok]]]
+            if np.any(np.isfinite(values)):
+                out.setdefault(kind, {})[column] = values
     return out
 
 

@@ -156,11 +156,26 @@ def _fit_quality(an: Analysis) -> str:
                      "yes" if rec.get("success") else "<strong>no</strong>",
                      num(esc(f"{used} of {total}" if used is not None else total or "")),
                      num(esc(f"{chi2:.3g}" if isinstance(chi2, (int, float)) else "\u2014")),
-                     esc(rec.get("message") or "")])
+                     misfit_cell(rec), esc(rec.get("message") or "")])
     if not rows:
         return ""
     return "<h3>Fits</h3>" + table(["Fit", "Converged", "Points used", "Reduced \u03c7\u00b2",
-                                     "Message"], rows)
+                                     "Misfit", "Message"], rows)
+
+
+def misfit_cell(rec: dict) -> str:
+    """Whether the lack-of-fit checks flag the fit, and against what: the stated
+    instrument noise (chi-square and runs test) or the estimated one (runs test only,
+    since chi-square is ~1 by construction)."""
+    lack = rec.get("lack_of_fit")
+    if not isinstance(lack, dict):
+        return "\u2014"
+    noises = [v for k, v in rec.items() if k.startswith("noise") and isinstance(v, dict)]
+    stated = bool(noises) and not any(v.get("estimated", True) for v in noises)
+    basis = "against the stated noise" if stated else "runs test; noise estimated"
+    if lack.get("misfit"):
+        return f"<strong>MISFIT</strong> ({esc(basis)})"
+    return f"none found ({esc(basis)})"
 
 
 #: Relative rms scatter of 1/C^2 about its line above which the report says "not straight".

@@ -18,9 +18,11 @@ ORDER = ("IS", "N", "RS", "RSH", "BV", "IBV", "CJO", "VJ", "M", "FC", "TT", "EG"
 FIXTURE = {"CFIX": ("CFIX bench", "F"), "RFIX": ("RFIX bench", "ohm")}
 FIXTURE_LABEL = FIXTURE["CFIX"][0]
 
-#: The settled column: settled to the step's target, or still moving.
+#: The settled column: settled to the step's target, or still moving; a fit whose
+#: lack-of-fit checks fail marks its parameters instead (the sigma is a lower bound).
 SETTLED_MARK = "ok"
 MOVING_MARK = ".."
+MISFIT_MARK = "misfit"
 
 
 def format_value(value: float, unit: str, sigma: float | None = None) -> str:
@@ -58,6 +60,7 @@ def rows(parameters: dict[str, Estimate],
         out.append((label,
                     format_value(estimate.value, unit, estimate.sigma),
                     format_sigma(estimate, unit, detailed),
+                    MISFIT_MARK if estimate.misfit else
                     SETTLED_MARK if estimate.settled else MOVING_MARK))
     return out
 
