@@ -68,6 +68,26 @@ def correction_text(correction) -> str:
             "to set and confirm each fixture state")
 
 
+def noise_lines(plan) -> list[str]:
+    """What the run's fits will be judged against, per instrument (the dialects are
+    read here, so a bad noise table stops `check` as it would stop the run)."""
+    from pnbench.sweeps.quantities import format_quantity as q
+    from pnbench.sweeps.statednoise import run_noise
+
+    if plan.simulated is not None:
+        return ["stated noise: the simulated bench's own (from its device file)"]
+    out = []
+    for fit, doc in run_noise(plan).items():
+        unit = "A" if fit == "iv" else "F"
+        text = f"{doc['relative'] * 100:.3g} % + {q(doc['floor'], unit, 3)}"
+        volt = doc.get("voltage")
+        if volt:
+            text += f", voltage {volt['relative'] * 100:.3g} % + {q(volt['floor'], 'V', 3)}"
+        out.append(f"stated noise of the {'SMU' if fit == 'iv' else 'LCR meter'}: {text} "
+                   f"(1 sigma at 1 NPLC; from the {doc['source']})")
+    return out or ["stated noise: none (the fits estimate it from their residuals)"]
+
+
 def run(args) -> int:
     from pnbench.drivers.backends import describe
     from pnbench.sweeps.check import estimate
@@ -106,6 +126,8 @@ def run(args) -> int:
         for role, inst in sorted(plan.instruments.items()):
             print(f"{role}: connects to {inst.resource} through {inst.backend} "
                   f"({describe(inst.backend)}), dialect {inst.dialect or 'default'}")
+        for line in noise_lines(plan):
+            print(line)
     else:
         print("instruments: none in the plan (run it with --simulate DEVICE)")
     if plan.correction is not None:
