@@ -103,13 +103,18 @@ class IncrementalFitter:
     (relative, floor) of the measured channel when known (I-V), else estimated;
     ``reference_V`` and ``ibv_A`` for the reverse analysis; ``with_fixture`` (fit a
     parallel fixture capacitance); ``fixed`` (model-card values to hold, e.g. IS, N, RS
-    from an I–V fit while fitting admittance); ``growth`` (full refit schedule).
+    from an I–V fit while fitting admittance; with IS and N among them C–V and
+    admittance points are fitted on the network the meter sees, as the run's final fit
+    does); ``ac_level_V`` (the LCR meter's test level, rms, of this sweep);
+    ``held_covariance`` ((names, covariance) of held values, carried into the sigmas);
+    ``growth`` (full refit schedule).
     """
 
     def __init__(self, kind: str, *, temperature_K: float = DEFAULT_TEMPERATURE_K,
                  target_rel: float = 0.01, noise: tuple[float, float] | None = None,
                  reference_V: float | None = None, ibv_A: float | None = None,
                  with_fixture: bool | None = None, fixed: dict[str, float] | None = None,
+                 ac_level_V: float | None = None, held_covariance=None,
                  growth: float = 1.25):
         if kind not in FITTER_KINDS:
             raise ValueError(f"unknown fit kind {kind!r}; known: {', '.join(FITTER_KINDS)}")
@@ -128,7 +133,8 @@ class IncrementalFitter:
             from pnbench.modeling import cvstream
 
             spec = cvstream.stream_spec(kind, self.temperature_K, with_fixture=with_fixture,
-                                        fixed=fixed)
+                                        fixed=fixed, ac_level_V=ac_level_V,
+                                        held_covariance=held_covariance)
             self._small = LsqStream(spec, growth)
         self._order: list[np.ndarray] = []  # for "iv": which points went forward
         self._cache: FitResult | None = None

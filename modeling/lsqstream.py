@@ -298,6 +298,8 @@ class LsqStream:
                        0.0)
         view = replace(st, t=t, used=self.used.view().copy(), hessian=self.h,
                        gradient=np.zeros_like(self.g), chi2=chi2, n_rows=self.rows)
+        carried = getattr(self.spec, "carried", None)  # held values' uncertainty
+        extra = carried(st, self.x.view(), self.y.view()) if carried else None
         return lsq.to_result(self.model, view, self.spec.kind, self.n,
                              extras=self.spec.extras(), min_rows=self.spec.min_points,
-                             verdict=self.verdict)
+                             verdict=self.verdict, extra_cov_t=extra)

@@ -40,7 +40,7 @@ TT_ABSENT = ("TT not determined: the diffusion capacitance never stands three st
 RFIX_ABSENT = ("RFIX (fixture series resistance) not fitted: the readings need no series "
                "resistance beyond the device's RS three standard errors from none")
 #: The fixture's series resistance, fitted beside the held RS (see the module notes).
-RFIX_PARAM = lsq.Param("RFIX", "lin", lower=-1e3, upper=1e6, optional=True, step=1e-9,
+RFIX_PARAM = lsq.Param("RFIX", "lin", lower=0.0, upper=1e6, optional=True, step=1e-9,
                        absent_reason=RFIX_ABSENT)
 
 
@@ -111,9 +111,11 @@ class MeterModel(fit_cv.AdmittanceModel):
     def __init__(self, temperature_K: float = DEFAULT_TEMPERATURE_K, fc: float = 0.5,
                  fixture: bool | None = False, series: bool | None = False):
         super().__init__(temperature_K, fc, fixture)
-        if series is not False:
-            self.params = (*self.params,
-                           dataclasses.replace(RFIX_PARAM, optional=not series))
+        if series is not False:  # before CFIX: where the data cannot tell them apart at
+            # all (no forward point), the 3-sigma rule drops the first of equals first
+            self.params = (*self.params[:8],
+                           dataclasses.replace(RFIX_PARAM, optional=not series),
+                           *self.params[8:])
             self.index = {p.name: k for k, p in enumerate(self.params)}
 
     def _y(self, t, x):
@@ -254,10 +256,20 @@ def network_state(model: SplitModel, x, y, elig, fixed: dict[str, float],
         t0[k["CJO"]:k["M"] + 1] = fit_cv.depletion_start(v[rev], y[rev, 0], model.inner.fc)
     if start is not None:
         t0 = np.where(np.isfinite(start) & active, start, t0)
-    elif active[k["TT"]]:
+    notes = []
+    if not elig[:, 1].any():  # no forward point: nothing shows diffusion or RFIX
+        for name in ("TT", "RFIX"):
+            if name in k and active[k[name]] and model.params[k[name]].optional:
+                active[k[name]] = False
+                t0[k[name]] = model.params[k[name]].null
+                notes.append(f"{model.params[k[name]].absent_reason} (no forward-bias "
+                             f"point)")
+    if active[k["TT"]] and (start is None or not np.isfinite(start[k["TT"]])):
         t0[k["TT"]] = _tt_start(model.inner, t0, x, y, ok)
     known = None if noise is None else meter_noise(noise, x[:, 3], noise_scale)
-    return lsq.fit(model, x, y, elig, t0, active, noise=known)
+    state = lsq.fit(model, x, y, elig, t0, active, noise=known)
+    state.notes = notes + state.notes
+    return state
 
 
 def meter_noise(noise, k_phase: np.ndarray, scale=None) -> lsq.Noise:
@@ -278,16 +290,23 @@ def meter_noise(noise, k_phase: np.ndarray, scale=None) -> lsq.Noise:
 def held_covariance_t(model, state: lsq.FitState, x, y, fixed: dict[str, float],
                       held_covariance: np.ndarray | None,
                       names: tuple[str, ...] = DC_NAMES) -> np.ndarray | None:
-    """The covariance the held parameters ``names`` (those in ``fixed``, finite and not
-    held absent, in that order: ``held_covariance`` in values' units) carry into the
-    free ones (t space, ``heldcov``); None without any."""
+    """The covariance the held parameters ``names`` (`held_names`: ``held_covariance`` in
+    values' units, in that order) carry into the free ones (t space, ``heldcov``); None
+    without any."""
     k = model.index
-    held = [k[nm] for nm in names if nm in fixed and nm in k
-            and _finite_held(model, k[nm], fixed[nm])]
+    held = [k[nm] for nm in held_names(model, fixed, names)]
     if held_covariance is None or not held:
         return None
     return heldcov.propagated(model, state, x, y, np.array(held),
                               heldcov.to_t_space(model, state.t, held, held_covariance))
+
+
+def held_names(model, fixed: dict[str, float], names: tuple[str, ...]) -> list[str]:
+    """Those of ``names`` the model holds at a finite value other than none (a held
+    uncertainty means something only for them)."""
+    k = model.index
+    return [nm for nm in names if nm in fixed and nm in k
+            and _finite_held(model, k[nm], fixed[nm])]
 
 
 def _finite_held(model, j: int, value: float) -> bool:

@@ -18,9 +18,10 @@ as in its last); the run's model is fitted once, from those columns, when the ru
 A fit event publishes estimates only (`estimates`): a value its fitter's bounds chose, or
 one with a relative standard error beyond MAX_REL_SIGMA, goes under ``not_determined``
 with the reason instead of ``parameters``, so the app's table and the headless lines
-never show it. A live admittance fit holds what earlier steps of the run extracted
-(`fitmodel.admittance_holds`: CJO, VJ, M from C-V; IS, N, RS, RSH from I-V), since a
-forward-bias admittance step alone cannot determine them.
+never show it. A live C-V or admittance fit holds what earlier steps of the run
+extracted (`fitmodel.live_holds`: IS, N, RS, RSH from I-V, and for admittance CJO, VJ, M,
+CFIX from C-V, with their covariance) and then fits the network the meter sees at the
+step's test level, as the run's final fit does.
 
 Fitting never stops a run: a fitter that raises is reported once as a ``warning`` event
 and that step goes on without live estimates.
@@ -251,12 +252,13 @@ class FitWorker:
         try:
             fitter = self._fitters.get(name)
             if fitter is None:
-                held = (fitmodel.admittance_holds(self.latest.values())
-                        if step.kind == "admittance" else None)
+                held, held_cov = fitmodel.live_holds(step.kind, self.latest.values())
                 t = step.set_point_K if step.set_point_K is not None else self.temperature_K
                 fitter = fitmodel.new_fitter(step.kind, t, held,
                                              fitmodel.breakdown_current_A(
-                                                 self.steps.values()))
+                                                 self.steps.values()),
+                                             ac_level_V=getattr(step, "ac_level_V", None),
+                                             held_covariance=held_cov)
                 self._fitters[name] = fitter
             fitmodel.add_columns(fitter, step.kind, columns.view(start))
         except Exception as exc:  # noqa: BLE001 - fitting must never stop a run

@@ -25,16 +25,23 @@ def available() -> bool:
 
 
 def new_fitter(step_kind: str, temperature_K: float, fixed: dict | None = None,
-               ibv_A: float | None = None):
+               ibv_A: float | None = None, *, ac_level_V: float | None = None,
+               held_covariance=None):
     """An incremental fitter for a step. ``fixed`` holds model-card values from earlier
-    steps for the admittance fit to keep (see `admittance_holds`)."""
+    steps for a C-V or admittance fit to keep (see `live_holds`), ``held_covariance``
+    their uncertainty; ``ac_level_V`` is the step's LCR test level."""
     from pnbench.modeling.incremental import IncrementalFitter
 
-    if step_kind == "admittance" and fixed:
-        return IncrementalFitter("admittance", temperature_K=temperature_K, fixed=fixed)
+    if step_kind in ("cv", "admittance") and fixed:
+        return IncrementalFitter(step_kind, temperature_K=temperature_K, fixed=fixed,
+                                 ac_level_V=ac_level_V, held_covariance=held_covariance)
     if step_kind == "iv_reverse" and ibv_A is not None:
         return IncrementalFitter("iv_reverse", temperature_K=temperature_K, ibv_A=ibv_A)
     return IncrementalFitter(FIT_KIND[step_kind], temperature_K=temperature_K)
+
+
+#: What a live admittance step holds from the C-V step besides the DC part.
+CV_HOLDS = ("CJO", "VJ", "M", "CFIX")
 
 
 def admittance_holds(results) -> dict[str, float]:
@@ -42,18 +49,56 @@ def admittance_holds(results) -> dict[str, float]:
     (FitResults of any kind, in step order).
 
     A forward-bias admittance step alone cannot pin the depletion curve nor, beside TT,
-    the DC parameters: CJO, VJ, M come from the latest successful C-V fit, and IS, N, RS,
-    RSH as the I-V fits found them (absent ones held absent, `joint.dc_holds`). The
-    run's model.json is still fitted from every point together.
+    the DC parameters: CJO, VJ, M come from the latest successful C-V fit (with its
+    fixture capacitance, none when it kept none), and IS, N, RS, RSH as the I-V fits
+    found them (absent ones held absent, `joint.dc_holds`). The run's model.json is
+    still fitted from every point together.
     """
-    from pnbench.modeling.joint import dc_holds
+    return live_holds("admittance", results)[0] or {}
+
+
+def live_holds(step_kind: str, results) -> tuple[dict[str, float] | None, tuple | None]:
+    """What a live C-V or admittance fit holds from the run's earlier steps' fits
+    (FitResults in step order), and (names, covariance) of those values.
+
+    The DC part (IS, N, RS, RSH as the I-V fits found them, `joint.dc_holds`) for
+    both kinds: with it the points are fitted on the network the meter sees, like the
+    run's final fit. An admittance step holds the latest C-V fit's CJO, VJ, M and CFIX
+    too (see `admittance_holds`). (None, None) when nothing is held.
+    """
+    from pnbench.modeling.joint import dc_hold_covariance, dc_holds
 
     results = [r for r in results if r is not None]
     held = dc_holds(results)
-    cv = [r for r in results if r.kind == "cv" and r.success]
-    if cv and all(n in cv[-1].values for n in ("CJO", "VJ", "M")):
-        held.update({n: cv[-1].values[n] for n in ("CJO", "VJ", "M")})
-    return held
+    blocks: list[tuple[list[str], np.ndarray]] = []
+    ok = [r for r in results if r.success]
+    by_kind = {f"{r.kind}#{k}": r for k, r in enumerate(ok)}
+    fwd = [r for r in ok if r.kind == "iv_forward"]
+    if fwd:
+        by_kind["iv_forward"] = fwd[-1]
+    dc_cov = dc_hold_covariance(by_kind, held) if held else None
+    if dc_cov is not None:
+        names = [n for n in ("IS", "N", "RS", "RSH") if n in held
+                 and np.isfinite(held[n]) and not (n == "RS" and held[n] == 0.0)]
+        blocks.append((names, dc_cov))
+    cv = [r for r in ok if r.kind == "cv"]
+    if step_kind == "admittance" and cv and all(n in cv[-1].values for n in CV_HOLDS[:3]):
+        held.update({n: cv[-1].values.get(n, 0.0) for n in CV_HOLDS})
+        names = [n for n in CV_HOLDS if n in cv[-1].names]
+        at = [cv[-1].names.index(n) for n in names]
+        blocks.append((names, np.asarray(cv[-1].covariance)[np.ix_(at, at)]))
+    if step_kind == "cv" and not ("IS" in held and "N" in held):
+        return None, None
+    if not held:
+        return None, None
+    names = [n for b in blocks for n in b[0]]
+    cov = np.zeros((len(names), len(names)))
+    at = 0
+    for b_names, b_cov in blocks:  # independent fits: nothing across the blocks
+        cov[at:at + len(b_names), at:at + len(b_names)] = b_cov
+        at += len(b_names)
+    cov = np.where(np.isfinite(cov), cov, 0.0)
+    return held, ((tuple(names), cov) if names else None)
 
 
 def breakdown_current_A(steps) -> float | None:

@@ -2,8 +2,9 @@
 the live admittance fit takes from the run's earlier steps, and when a step has settled.
 
 Data: a tuning varactor (the LH-VC510 of the bundled simulated devices) computed by
-pnbench's own exact DC model and small-signal model (both checked against ngspice in
-tests/modeling), with Gaussian reading noise of a fixed seed.
+pnbench's own exact DC model (checked against ngspice in tests/modeling) and, for the
+LCR meter, the simulated bench's reading at the step's test level (the fundamental of
+the current, `drivers.sim.physics`), with Gaussian reading noise of a fixed seed.
 """
 
 from __future__ import annotations
@@ -13,10 +14,11 @@ import math
 import numpy as np
 from plantext import admittance, cv, forward, plan_text, reverse
 
+from pnbench.drivers.sim.physics import fundamental_admittance
 from pnbench.modeling import junction
 from pnbench.modeling.fitresult import FitResult
 from pnbench.modeling.params import DiodeParams
-from pnbench.modeling.smallsignal import device_admittance, parallel_from_admittance
+from pnbench.modeling.smallsignal import parallel_from_admittance
 from pnbench.sweeps.events import EventBus
 from pnbench.sweeps.fitfeed import MAX_REL_SIGMA, FitWorker, estimates, settle_targets
 from pnbench.sweeps.plan import parse_plan
@@ -39,9 +41,13 @@ def iv_points(step: str, v: np.ndarray, rng, rel=1e-3) -> list[Point]:
             for k, (a, b) in enumerate(zip(v, i, strict=True))]
 
 
-def lcr_points(step: str, v: np.ndarray, f: np.ndarray, rng, rel=2e-3) -> list[Point]:
+def lcr_points(step: str, v: np.ndarray, f: np.ndarray, rng, rel=2e-3,
+               level_V: float = 0.0) -> list[Point]:
+    """C-V points as the meter reads them at the test level ``level_V`` (rms)."""
     vv, ff = np.repeat(v, f.size), np.tile(f, v.size)
-    c, g = parallel_from_admittance(device_admittance(vv, ff, TRUE, T_K), ff)
+    y = np.array([fundamental_admittance(a, b, level_V, TRUE, T_K)
+                  for a, b in zip(vv, ff, strict=True)])
+    c, g = parallel_from_admittance(y, ff)
     c = np.asarray(c) * (1 + rel * rng.standard_normal(vv.size))
     g = np.asarray(g) * (1 + rel * rng.standard_normal(vv.size))
     return [Point(step, k, "cv", 0.0, voltage_V=float(a), frequency_Hz=float(b),
@@ -52,10 +58,11 @@ def lcr_points(step: str, v: np.ndarray, f: np.ndarray, rng, rel=2e-3) -> list[P
 def step_points(name: str, rng) -> list[Point]:
     if name == "forward":
         return iv_points(name, np.linspace(0.3, 0.85, 56), rng)
-    if name == "cv":
-        return lcr_points(name, np.linspace(0.0, -30.0, 31), np.array([1e5, 1e6]), rng)
+    if name == "cv":  # the plan's default test levels: 20 mV for C-V, 5 mV forward
+        return lcr_points(name, np.linspace(0.0, -30.0, 31), np.array([1e5, 1e6]), rng,
+                          level_V=0.02)
     return lcr_points(name, np.array([0.55, 0.6, 0.63, 0.66, 0.68, 0.70, 0.72]),
-                      np.array([1e5, 3e5, 1e6, 2e6]), rng)
+                      np.array([1e5, 3e5, 1e6, 2e6]), rng, level_V=0.005)
 
 
 def plan_of(names, extra: dict | None = None):

@@ -1,7 +1,9 @@
 """The bundled demo recovers its simulated part: the fixture's stray capacitance is the
 bench's, and every fitted parameter lands within three standard errors of the truth
 written in sim_configs/lh-vc510.toml (the simulated bench draws its readings from the
-project's exact model with the noise that file states)."""
+project's exact model with the noise that file states). The live fits the run prints at
+each step's end model the same network as its final fit, so the live TT lands within two
+standard errors of the truth too."""
 
 from __future__ import annotations
 
@@ -10,17 +12,25 @@ import math
 import tomllib
 from pathlib import Path
 
+import pytest
+
 from pnbench.modeling import junction
 from pnbench.tui import cli
 
 CONFIG = Path(__file__).resolve().parents[2] / "sim_configs" / "lh-vc510.toml"
 
 
-def test_demo_ends_with_every_parameter_within_three_sigma(tmp_path, capsys):
-    assert cli.main(["demo", "--headless", "--time-scale", "0", "--out",
-                     str(tmp_path)]) == 0
+@pytest.fixture(scope="module")
+def demo_folder(tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("demo")
+    assert cli.main(["demo", "--headless", "--time-scale", "0", "--out", str(out)]) == 0
+    (folder,) = [p for p in out.iterdir() if p.is_dir()]
+    return folder
+
+
+def test_demo_ends_with_every_parameter_within_three_sigma(demo_folder, capsys):
     capsys.readouterr()
-    (folder,) = [p for p in tmp_path.iterdir() if p.is_dir()]
+    folder = demo_folder
     doc = json.loads((folder / "model.json").read_text(encoding="utf-8"))
     cfg = tomllib.loads(CONFIG.read_text(encoding="utf-8"))
     truth = dict(cfg["diode"])
@@ -39,3 +49,23 @@ def test_demo_ends_with_every_parameter_within_three_sigma(tmp_path, capsys):
     assert "artefact" not in doping  # the corrected Vbi is no longer above the band gap
     vbi = truth["VJ"] + junction.thermal_voltage(300.15)
     assert abs(doping["built_in_voltage_V"] - vbi) < 3 * doping["built_in_sigma_V"]
+
+
+def test_the_live_tt_at_the_admittance_step_end_is_within_two_sigma(demo_folder):
+    """The admittance step's last fit event (what headless prints at the step's end)
+    holds the I-V and C-V steps' values, models the meter's test level and the
+    fixture, and its TT is within two of its standard errors of the part's."""
+    truth = tomllib.loads(CONFIG.read_text(encoding="utf-8"))["diode"]["TT"]
+    events = [json.loads(line) for line in
+              (demo_folder / "events.jsonl").read_text(encoding="utf-8").splitlines()]
+    (last,) = [e for e in events if e["kind"] == "fit" and e["step"] == "admittance"
+               and e.get("final")]
+    tt = last["parameters"]["TT"]
+    assert abs(tt["value"] - truth) < 2 * tt["sigma"], (tt, last["message"])
+    # the same network on nearly the same points: the live value agrees with the run's
+    # final one to within two of the final's (smaller) standard errors
+    final = json.loads((demo_folder / "model.json").read_text(encoding="utf-8"))
+    final_tt = final["parameters"]["TT"]
+    assert abs(tt["value"] - final_tt["value"]) < 2 * final_tt["sigma"], (tt, final_tt)
+    cv = [e for e in events if e["kind"] == "fit" and e["step"] == "cv" and e.get("final")]
+    assert "CFIX" in cv[-1]["parameters"], cv[-1]["message"]  # the fixture, found live
