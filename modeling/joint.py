@@ -146,9 +146,9 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
             noise_scale=cv["noise_scale"]))
     more = dict(extras or {})
     if cv is not None and area_m2 is not None:
-        from pnbench.modeling import fit_cv, network
+        from pnbench.modeling import mottschottky
 
-        doping = network.corrected_doping(cv, results.get("cv"), area_m2=area_m2,
+        doping = mottschottky.corrected_doping(cv, results.get("cv"), area_m2=area_m2,
                                           temperature_K=temperature_K,
                                           semiconductor=semiconductor)
         if doping is not None:

@@ -13,8 +13,10 @@ import tomllib
 from pathlib import Path
 
 import pytest
+from scipy import constants
 
 from pnbench.modeling import junction
+from pnbench.modeling.materials import material
 from pnbench.tui import cli
 
 CONFIG = Path(__file__).resolve().parents[2] / "sim_configs" / "lh-vc510.toml"
@@ -49,6 +51,10 @@ def test_demo_ends_with_every_parameter_within_three_sigma(demo_folder, capsys):
     assert "artefact" not in doping  # the corrected Vbi is no longer above the band gap
     vbi = truth["VJ"] + junction.thermal_voltage(300.15)
     assert abs(doping["built_in_voltage_V"] - vbi) < 3 * doping["built_in_sigma_V"]
+    # the abrupt junction's doping, N = 2*VJ*CJO**2/(q*eps*A**2) (docs/physics.md §7)
+    eps = material("Si").permittivity_F_per_m
+    n = 2 * truth["VJ"] * truth["CJO"] ** 2 / (constants.e * eps * doping["area_m2"] ** 2)
+    assert abs(doping["doping_per_m3"] - n) < 3 * doping["doping_sigma_per_m3"]
 
 
 def test_the_live_tt_at_the_admittance_step_end_is_within_two_sigma(demo_folder):

@@ -229,6 +229,13 @@ def _depletion(an: Analysis) -> str:
              ("Built-in voltage Vbi", esc(f"{ms.vbi_V:.4g} V \u00b1 {ms.vbi_sigma_V:.2g} V")),
              ("Straightness (rms of residual / 1/C\u00b2)",
               esc(f"{100 * ms.relative_rms_residual:.2g} %"))]
+    if ms.fixture_F:
+        pairs.append(("Fixture capacitance taken out",
+                      esc(f"{qty(ms.fixture_F, 'F')} (found by {ms.fixture_fitted})")))
+    if ms.from_model:
+        pairs.append(("Line, Vbi and N", esc("the run's fit (model.json): every reverse "
+                                             "point, weighted, with the fitted network's "
+                                             "other parts and the test level removed")))
     if ms.relative_rms_residual > _NOT_STRAIGHT:
         pairs.append(("Note", esc("1/C\u00b2 is not a straight line in V: the doping is not "
                                   "uniform, so N below is an average; see N(W)")))
