@@ -83,6 +83,12 @@ class LcrCommands:
     #: the correction data at the frequency set: open G, B [S]; short R, X [ohm]
     open_data_query: str = ""
     short_data_query: str = ""
+    #: turn the meter's stored open/short correction on or off ({state}), and ask it;
+    #: empty: the correction command itself turns it on (pnbench cannot turn it off)
+    open_state: str = ""
+    short_state: str = ""
+    open_state_query: str = ""
+    short_state_query: str = ""
 
 
 @dataclass(frozen=True)
@@ -186,9 +192,14 @@ _LCR_KINDS = {
     "short_correction": "setting?",
     "open_data_query": "query?",
     "short_data_query": "query?",
+    "open_state": "state?",
+    "short_state": "state?",
+    "open_state_query": "query?",
+    "short_state_query": "query?",
 }
 #: Keys a dialect file may leave out (they read as empty): added after format 1 began.
-_OPTIONAL_KEYS = {"lcr": ("open_data_query", "short_data_query")}
+_OPTIONAL_KEYS = {"lcr": ("open_data_query", "short_data_query", "open_state",
+                          "short_state", "open_state_query", "short_state_query")}
 _STAGE_KINDS = {
     "temperature_unit": "unit",
     "set_point": "value",

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 from pnbench.drivers import scpi
 from pnbench.drivers.dialect import Dialect, LcrCommands, SmuCommands
+from pnbench.drivers.lcrcorrection import LcrCorrections
 from pnbench.drivers.session import Session
 from pnbench.errors import BadInput, DialectError, InstrumentError
 from pnbench.modeling import smallsignal
@@ -333,7 +334,7 @@ def admittance_from_reading(form: str, primary: float, secondary: float,
     return complex(y)
 
 
-class LcrMeter(_Role):
+class LcrMeter(LcrCorrections, _Role):
     """An LCR meter: AC level, frequency, DC bias, corrections; reads admittance."""
 
     role = "lcr"
@@ -394,37 +395,6 @@ class LcrMeter(_Role):
         if not query:
             return None
         return _flag(self.session, self.session.query(query), query)
-
-    def _correction(self, which: str, timeout_ms: float) -> None:
-        command = getattr(self.commands, f"{which}_correction")
-        if not command:
-            raise DialectError(f"dialect {self.dialect.source}: [lcr] {which}_correction is "
-                               "empty, so this meter's correction cannot be started")
-        self.session.write(command)
-        self.session.wait_complete(timeout_ms)
-        self.session.drain_errors(context=f"the {which} correction ({command!r})")
-
-    def open_correction(self, timeout_ms: float = 120_000) -> None:
-        """Run the open correction (fixture open) and wait for it to finish."""
-        self._correction("open", timeout_ms)
-
-    def short_correction(self, timeout_ms: float = 120_000) -> None:
-        """Run the short correction (fixture shorted) and wait for it to finish."""
-        self._correction("short", timeout_ms)
-
-    def correction_data(self, which: str, frequency_Hz: float) -> tuple[float, float] | None:
-        """What the ``which`` ("open"/"short") correction measured at ``frequency_Hz``:
-        the open's (G [S], B [S]) or the short's (R [ohm], X [ohm]); None when the
-        dialect has no query for it."""
-        query = getattr(self.commands, f"{which}_data_query")
-        if not query:
-            return None
-        frequency_Hz = _positive("LCR frequency", frequency_Hz)
-        message = self.dialect.join([self.dialect.fill(self.commands.frequency,
-                                                       value=frequency_Hz), query])
-        units = self.session.ask(message)
-        values = _fields(self.session, units[0], ("primary", "secondary"), message)
-        return values["primary"], values["secondary"]
 
     def safe_off(self) -> list[str]:
         """Bias to zero and off, confirmed by query when the dialect has one. Idempotent.

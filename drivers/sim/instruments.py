@@ -12,11 +12,14 @@ device file and turns autorange off; a reading beyond a fixed range (by more tha
 answers the overflow marker.
 
 LCR meter after *RST: 1 kHz, 1 V rms, bias 0 V and off, form parallel (Cp, Gp); open and short
-corrections are kept (they live in the meter's memory, not in its settings). An open
-correction leaves `OPEN_RESIDUAL` of the fixture's stray capacitance in the readings, a
-short correction none of its series resistance; `:SENS:CORR:OPEN:DATA?` answers the open's
-G, B and `:SENS:CORR:SHOR:DATA?` the short's R, X at the frequency set (zeros before the
-correction was run). The AC level
+corrections are kept (they live in the meter's memory, not in its settings). Running a
+correction measures it and turns it on; `:SENS:CORR:OPEN:STAT OFF` (SHOR likewise) keeps
+the data but stops applying them. An open correction on leaves `OPEN_RESIDUAL` of the
+fixture's stray capacitance in the readings, a short correction on none of its series
+resistance; `:SENS:CORR:OPEN:DATA?` answers the open's G, B and `:SENS:CORR:SHOR:DATA?`
+the short's R, X at the frequency set (zeros before the correction was run), what the
+meter measured with the fixture in that state (the open through the fixture's series
+resistance). A new bench is a meter switched on afresh: no correction. The AC level
 is the rms voltage across the device. The bias source sags to hold its current limit.
 """
 
@@ -300,8 +303,8 @@ class SimLcr(SimInstrumentWithOutput):
                                              spec["frequency_max_Hz"]),
                          "ac_level_V": min(1.0, spec["ac_level_max_V"]), "bias_V": 0.0,
                          "form": "PARallel"}
-        self.open_corrected = False
-        self.short_corrected = False
+        self.measured = {"open": False, "short": False}  # the correction's data taken
+        self.applied = {"open": False, "short": False}  # and turned on
         self._admittances: dict[tuple, complex] = {}
         super().__init__(spec["identity"], device.timing["command_s"], on_output)
         self.reset()
@@ -310,27 +313,36 @@ class SimLcr(SimInstrumentWithOutput):
         def data(which: str) -> Handler:
             def ask(command: scpi.Command) -> str:
                 no_arguments(command)
-                w = 2.0 * math.pi * self.frequency_Hz
-                if which == "open":
-                    measured = self.spec["fixture_capacitance_F"] * (1.0 - OPEN_RESIDUAL)
-                    pair = (0.0, w * measured) if self.open_corrected else (0.0, 0.0)
-                else:
-                    r = self.spec["fixture_resistance_ohm"]
-                    pair = (r, 0.0) if self.short_corrected else (0.0, 0.0)
+                pair = self._correction_data(which) if self.measured[which] else (0.0, 0.0)
                 return ",".join(scpi.format_value(v) for v in pair)
             return ask
 
-        def correction(attr: str) -> Handler:
+        def correction(which: str) -> Handler:
             def run(command: scpi.Command) -> None:
                 no_arguments(command)
                 self.add_busy(10 * self.timing["lcr_measurement_s"])
-                setattr(self, attr, True)
+                self.measured[which] = self.applied[which] = True
             return run
+
+        def state(which: str) -> Handler:
+            def switch(command: scpi.Command) -> None:
+                self.applied[which] = bool_argument(one_argument(command))
+            return switch
+
+        def state_query(which: str) -> Handler:
+            def ask(command: scpi.Command) -> str:
+                no_arguments(command)
+                return "1" if self.applied[which] else "0"
+            return ask
 
         return [
             *self._output_commands(":SOURce:BIAS:STATe"),
-            (":SENSe:CORRection:OPEN[:EXECute]", False, correction("open_corrected")),
-            (":SENSe:CORRection:SHORt[:EXECute]", False, correction("short_corrected")),
+            (":SENSe:CORRection:OPEN[:EXECute]", False, correction("open")),
+            (":SENSe:CORRection:SHORt[:EXECute]", False, correction("short")),
+            (":SENSe:CORRection:OPEN:STATe", False, state("open")),
+            (":SENSe:CORRection:SHORt:STATe", False, state("short")),
+            (":SENSe:CORRection:OPEN:STATe", True, state_query("open")),
+            (":SENSe:CORRection:SHORt:STATe", True, state_query("short")),
             (":SENSe:CORRection:OPEN:DATA", True, data("open")),
             (":SENSe:CORRection:SHORt:DATA", True, data("short")),
             (":READ:IMPedance", True, self._read),
@@ -343,7 +355,7 @@ class SimLcr(SimInstrumentWithOutput):
         if t != self.temperature_K:
             self.temperature_K, self.params = t, self.device.params_at(t)
         key = (self.bias_V if self.output else 0.0, self.frequency_Hz, self.ac_level_V,
-               self.open_corrected, self.short_corrected, t)
+               self.applied["open"], self.applied["short"], t)
         return remembered(self._admittances, key, lambda: self._terminal_admittance(key[0]))
 
     def _terminal_admittance(self, bias_V: float) -> complex:
@@ -354,10 +366,22 @@ class SimLcr(SimInstrumentWithOutput):
                                               self.params, self.temperature_K)
         w = 2.0 * math.pi * self.frequency_Hz
         stray = spec["fixture_capacitance_F"]
-        y += 1j * w * stray * (OPEN_RESIDUAL if self.open_corrected else 1.0)
-        if not self.short_corrected and spec["fixture_resistance_ohm"] > 0:
+        y += 1j * w * stray * (OPEN_RESIDUAL if self.applied["open"] else 1.0)
+        if not self.applied["short"] and spec["fixture_resistance_ohm"] > 0:
             y = y / (1.0 + spec["fixture_resistance_ohm"] * y)
         return y
+
+    def _correction_data(self, which: str) -> tuple[float, float]:
+        """What the correction measured at the frequency set: the open's (G, B) [S], the
+        stray less `OPEN_RESIDUAL` seen through the fixture's series resistance; the
+        short's (R, X) [ohm]."""
+        w = 2.0 * math.pi * self.frequency_Hz
+        r = self.spec["fixture_resistance_ohm"]
+        if which == "short":
+            return (r, 0.0)
+        y = 1j * w * self.spec["fixture_capacitance_F"] * (1.0 - OPEN_RESIDUAL)
+        y = y / (1.0 + r * y)
+        return (y.real, y.imag)
 
     def _read(self, command: scpi.Command) -> str:
         no_arguments(command)

@@ -251,8 +251,10 @@ def test_open_correction_removes_the_fixture_capacitance():
 
 
 def test_the_meter_reports_what_its_corrections_measured():
-    """Open data: G, B of the stray it subtracts; short data: the fixture's series R; both
-    zero before the correction ran. B = 2*pi*f*C (definition of susceptance)."""
+    """Open data: G, B of the stray it subtracts, seen through the fixture's series R (the
+    open is measured with the fixture in place); short data: that series R; both zero
+    before the correction ran. Y = j*2*pi*f*C (definition of susceptance), in series with
+    R: Y/(1 + R*Y) (series impedances add)."""
     text = QUIET + "fixture_resistance_ohm = 0.25\n"
     device = parse_device(text)
     with SimBench.start(device) as bench, open_session(bench.lcr_resource) as session:
@@ -263,8 +265,36 @@ def test_the_meter_reports_what_its_corrections_measured():
         g, b = lcr.correction_data("open", 2e5)
         r, x = lcr.correction_data("short", 2e5)
     stray = device.lcr["fixture_capacitance_F"]
-    assert g == 0.0 and b == pytest.approx(2 * math.pi * 2e5 * stray * (1 - OPEN_RESIDUAL))
+    y = 2j * math.pi * 2e5 * stray * (1 - OPEN_RESIDUAL)
+    y = y / (1 + device.lcr["fixture_resistance_ohm"] * y)
+    assert (g, b) == (pytest.approx(y.real), pytest.approx(y.imag))
     assert (r, x) == (device.lcr["fixture_resistance_ohm"], 0.0)
+
+
+def test_the_meter_turns_a_stored_correction_off_and_on_and_says_so():
+    """A correction, once run, is on; turned off the readings carry the whole stray again,
+    while its data stay; a fresh bench (a meter switched on anew) has none."""
+    device = parse_device(QUIET)
+    stray = device.lcr["fixture_capacitance_F"]
+
+    def cp(lcr) -> float:
+        return smallsignal.parallel_from_admittance(lcr.apply_and_read(0.0, 1e6)
+                                                    .admittance_S, 1e6)[0]
+
+    with SimBench.start(device) as bench, open_session(bench.lcr_resource) as session:
+        lcr = LcrMeter(session)
+        lcr.configure(0.01)
+        assert lcr.correction_state("open") is False
+        raw = cp(lcr)
+        lcr.open_correction()
+        assert lcr.correction_state("open") is True
+        assert raw - cp(lcr) == pytest.approx(stray * (1 - OPEN_RESIDUAL), rel=0.05)
+        assert lcr.set_correction_state("open", False) is True
+        assert lcr.correction_state("open") is False and lcr.correction_state("short") is False
+        assert cp(lcr) == pytest.approx(raw, rel=1e-3)
+        assert lcr.correction_data("open", 1e6)[1] > 0  # the data are kept
+    with SimBench.start(device) as bench, open_session(bench.lcr_resource) as session:
+        assert LcrMeter(session).correction_state("open") is False
 
 
 def test_series_form_reads_cs_and_rs():
