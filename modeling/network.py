@@ -195,6 +195,11 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
     """
     x, y, elig = network_rows(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                               ac_level_V, compliance, use)
+    if with_series is None and not elig[:, 1].any():
+        # at reverse bias only, RFIX moves C by (w*RFIX*C)**2: it cannot be determined,
+        # and offered it leaves the covariance singular, so the 3-sigma rule would see
+        # CFIX as undetermined too and drop it
+        with_series = False
     model = SplitModel(network_model(temperature_K, fc, with_fixture, with_series))
     state = network_state(model, x, y, elig, fixed, noise, noise_scale=noise_scale)
     if isinstance(state, str):
