@@ -149,8 +149,9 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
         from pnbench.modeling import mottschottky
 
         doping = mottschottky.corrected_doping(cv, results.get("cv"), area_m2=area_m2,
-                                          temperature_K=temperature_K,
-                                          semiconductor=semiconductor)
+                                               temperature_K=temperature_K,
+                                               semiconductor=semiconductor,
+                                               noise=(noise or {}).get("cv"))
         if doping is not None:
             depl = results.get("cv")
             m = depl.values.get("M") if depl is not None and depl.success else None

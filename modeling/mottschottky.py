@@ -79,11 +79,18 @@ def level_excess(values: dict, voltage_V, ac_level_V) -> np.ndarray:
     return np.where(np.isfinite(out), out, 0.0)
 
 
-def _noise(fit: FitResult | None) -> tuple[float, float, bool]:
-    """(relative, floor [F], estimated) of the C–V fit's reverse-bias readings."""
+def _noise(fit: FitResult | None, stated) -> tuple[float, float, bool]:
+    """(relative, floor [F], estimated) of the reverse-bias readings: the meter's stated
+    noise (relative of |Y|, which at reverse bias is w*C), else the C–V fit's estimate."""
+    from pnbench.modeling.stated import as_stated
+
+    stated = as_stated(stated)
+    if stated is not None and stated.relative + stated.floor > 0:
+        return stated.relative, stated.floor, False
     extras = fit.extras if fit is not None else {}
     noise = extras.get("noise_0") or extras.get("noise")
-    if isinstance(noise, dict) and noise.get("channel", "lin") == "lin":
+    if isinstance(noise, dict) and noise.get("channel", "lin") == "lin" \
+            and noise.get("estimated", True):  # a stated one is per point: given above
         rel, floor = float(noise.get("relative", 0.0)), float(noise.get("floor", 0.0))
         if rel >= 0 and floor >= 0 and rel + floor > 0:
             return rel, floor, bool(noise.get("estimated", True))
@@ -116,11 +123,13 @@ def _line(v, y, sigma, cfix: float, free: bool):
 
 
 def corrected_doping(cv: dict, fit: FitResult | None, *, area_m2: float,
-                     temperature_K: float, semiconductor) -> dict | None:
+                     temperature_K: float, semiconductor, noise=None) -> dict | None:
     """Doping and built-in voltage (a dict for model.json) from the reverse-bias points of
     ``cv`` (columns voltage_V, frequency_Hz, capacitance_F, compliance, optionally
-    ac_level_V) with the C–V fit ``fit`` (its values correct the readings; see the
-    module notes). "message" says why when they cannot be read."""
+    ac_level_V and noise_scale) with the C–V fit ``fit`` (its values correct the
+    readings; see the module notes). ``noise``: the meter's stated noise (a
+    StatedNoise or (relative, floor [F])), else the C–V fit's estimate weights the
+    points. "message" says why when they cannot be read."""
     from pnbench.errors import BadInput
     from pnbench.modeling.network import non_depletion_capacitance
 
@@ -133,6 +142,10 @@ def corrected_doping(cv: dict, fit: FitResult | None, *, area_m2: float,
     level = cv.get("ac_level_V")
     level = None if level is None else np.broadcast_to(
         np.asarray(level, dtype=float).ravel(), v.shape)[ok]
+    scale = cv.get("noise_scale")
+    scale = np.ones(np.count_nonzero(ok)) if scale is None else np.broadcast_to(
+        np.asarray(scale, dtype=float).ravel(), v.shape)[ok]
+    scale = np.where(np.isfinite(scale) & (scale > 0), scale, 1.0)
     v, f, c = v[ok], f[ok], c[ok]
     try:
         area = depletion._check_area(area_m2)
@@ -151,8 +164,8 @@ def corrected_doping(cv: dict, fit: FitResult | None, *, area_m2: float,
         if "CFIX" in values:
             cfix, sd_cfix = float(values["CFIX"]), float(fit.sigmas.get("CFIX", math.inf))
             free = abs(values.get("M", 0.5) - 0.5) <= ABRUPT_M_TOLERANCE
-    rel, floor, estimated = _noise(fit)
-    sigma = rel * np.abs(y) + floor
+    rel, floor, estimated = _noise(fit, noise)
+    sigma = (rel * np.abs(y) + floor) * scale
     try:
         t, cov, chi2 = _line(v, y, sigma, cfix, free)
     except (BadInput, ValueError, np.linalg.LinAlgError) as exc:

@@ -57,7 +57,7 @@ def _z(v, f, c, g, noise):
     cv = {"voltage_V": v, "frequency_Hz": f, "capacitance_F": c, "compliance": None,
           "ac_level_V": np.full(v.size, LEVEL)}
     out = mottschottky.corrected_doping(cv, fit, area_m2=AREA, temperature_K=T,
-                                        semiconductor="Si")
+                                        semiconductor="Si", noise=noise)
     n, vbi = _truth()
     return ((out["doping_per_m3"] - n) / out["doping_sigma_per_m3"],
             (out["built_in_voltage_V"] - vbi) / out["built_in_sigma_V"], out)
