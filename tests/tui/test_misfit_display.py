@@ -44,3 +44,18 @@ def test_the_parameter_panel_marks_a_misfit():
                                 "lack_of_fit": {"misfit": False}}}})
     marks = dict((r[0], r[3]) for r in rows(state.parameters))
     assert marks["CJO"] == MISFIT_MARK and marks["IS"] != MISFIT_MARK
+
+
+def test_the_review_marks_a_misfit_fit():
+    """The review's parameters (run's model or refit) mark those of a misfit fit."""
+    from pnbench.tui.app.review import estimates, misfits
+
+    doc = {"parameters": {"CJO": {"value": 3.2e-11, "sigma": 1e-14},
+                          "IS": {"value": 4e-15, "sigma": 1e-17}},
+           "fits": {"cv": {"correlation": {"CJO": {"CJO": 1.0}},
+                           "lack_of_fit": {"misfit": True}},
+                    "iv_forward": {"correlation": {"IS": {"IS": 1.0}}}}}
+    assert misfits(doc) == ["cv"]
+    marked = estimates(doc)
+    assert marked["CJO"].misfit and not marked["IS"].misfit
+    assert misfits(None) == [] and estimates(None) == {}

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from types import SimpleNamespace
 
@@ -107,7 +107,18 @@ def estimates(model_doc: dict | None) -> dict[str, Estimate]:
         sigma = entry.get("sigma")
         out[name] = Estimate(float(value), float(sigma) if isinstance(
             sigma, (int, float)) else None, True)
+    for kind in misfits(model_doc):  # a fit that fails its lack-of-fit checks
+        for name in ((model_doc or {}).get("fits") or {})[kind].get("correlation") or {}:
+            if name in out:
+                out[name] = replace(out[name], misfit=True)
     return out
+
+
+def misfits(model_doc: dict | None) -> list[str]:
+    """The fits of a model.json document whose lack-of-fit checks failed."""
+    fits = (model_doc or {}).get("fits") or {}
+    return [kind for kind, fit in fits.items() if isinstance(fit, dict)
+            and isinstance(fit.get("lack_of_fit"), dict) and fit["lack_of_fit"].get("misfit")]
 
 
 def review_state(review: Review, only_used: bool = False) -> RunState:

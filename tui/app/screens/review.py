@@ -17,6 +17,7 @@ from pnbench.tui.app.review import (
     Review,
     export_card,
     load_review,
+    misfits,
     point_row,
     refit,
     review_state,
@@ -95,6 +96,10 @@ class ReviewScreen(Screen):
             status = review.run_doc.get("status", "?")
             text = (f"{review.run_dir}  [{status}]  {used}/{len(review.points)} points in "
                     f"use; parameters: {source}")
+            bad = misfits(review.refit_doc or review.model_doc)
+            if bad:
+                text += (f"; MISFIT in {', '.join(bad)}: the model does not describe those "
+                         "data (sigmas are lower bounds)")
         if self._busy:
             text += f"\n{self._busy}"
         self.query_one("#review-head", Static).update(text)
