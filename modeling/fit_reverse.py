@@ -18,24 +18,30 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy.special import chdtrc
 
-from pnbench.modeling.fitnoise import Noise, estimate_noise
+from pnbench.modeling.fitnoise import Noise, as_stated, estimate_noise
 from pnbench.modeling.fitresult import FitResult, correlation_from_covariance, empty_result
 from pnbench.modeling.junction import thermal_voltage
+from pnbench.modeling.misfit import P_MISFIT
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
 
 #: IBV when the caller states none (the common simulator default, 1 mA).
 DEFAULT_IBV_A = 1e-3
 
 
-def _line(x: np.ndarray, y: np.ndarray, w: np.ndarray | None = None):
-    """Weighted straight line y = a + b x: (a, b, cov 2x2, reduced chi2)."""
+def _line(x: np.ndarray, y: np.ndarray, w: np.ndarray | None = None, stated: bool = False):
+    """Weighted straight line y = a + b x: (a, b, cov 2x2, reduced chi2). ``stated``:
+    the weights are 1/sigma**2 of a stated noise, which sets the scale; only residuals
+    that chi-square says exceed it (misfit.P_MISFIT) widen the covariance."""
     w = np.ones_like(x) if w is None else w
     design = np.column_stack([np.ones_like(x), x]) * np.sqrt(w)[:, None]
     coef, *_ = np.linalg.lstsq(design, y * np.sqrt(w), rcond=None)
     resid = (y - coef[0] - coef[1] * x) * np.sqrt(w)
     dof = len(x) - 2
     s2 = float(resid @ resid) / dof if dof > 0 else math.nan
+    if stated:  # wider only where chi-square says the residuals exceed it
+        s2 = s2 if math.isfinite(s2) and chdtrc(dof, s2 * dof) < P_MISFIT else 1.0
     try:
         cov = np.linalg.inv(design.T @ design) * s2
     except np.linalg.LinAlgError:
@@ -101,14 +107,17 @@ class _OneLinearChannel:
     channels = ("lin",)
 
 
-def _leakage_line(x, mag, pre):
-    """Weighted straight line |I| = I0 + G*|V| over ``pre``: relative weights first, then
-    (six points or more) weights from the noise the residuals show, percent of reading
-    plus a floor (fitnoise): at pA currents the floor dominates, and relative weights
-    would trust the smallest, noisiest readings most."""
+def _leakage_line(x, mag, pre, sigma=None):
+    """Weighted straight line |I| = I0 + G*|V| over ``pre``: with the instrument's stated
+    noise (``sigma`` per point) weighted by it; else relative weights first, then (six
+    points or more) weights from the noise the residuals show, percent of reading plus
+    a floor (fitnoise): at pA currents the floor dominates, and relative weights would
+    trust the smallest, noisiest readings most."""
     if np.count_nonzero(pre) < 3:
         return None
     xx, y = x[pre], mag[pre]
+    if sigma is not None:
+        return _line(xx, y, 1.0 / sigma[pre] ** 2, stated=True)
     w = 1.0 / np.maximum(np.abs(y), 1e-3 * np.median(np.abs(y)) + 1e-300) ** 2
     line = _line(xx, y, w)
     if y.size < 6:
@@ -125,7 +134,7 @@ def _leakage_line(x, mag, pre):
     return line
 
 
-def _analyse(x, mag, ibv, vt):
+def _analyse(x, mag, ibv, vt, sigma=None):
     """Breakdown and the region before it, each refined by the other (two passes).
 
     BV is read on the breakdown current alone (the measured current less the leakage
@@ -142,7 +151,7 @@ def _analyse(x, mag, ibv, vt):
         bv, _, slope, _ = bd
         # where the breakdown exponential, extrapolated back, is below 1e-3 of the current
         pre = ibv * np.exp(-slope * (bv - x)) < 1e-3 * np.abs(mag)
-        line = _leakage_line(x, mag, pre & (x >= 10 * vt))
+        line = _leakage_line(x, mag, pre & (x >= 10 * vt), sigma)
         if line is None:
             break
         excess = mag - (line[0] + line[1] * x)
@@ -152,7 +161,7 @@ def _analyse(x, mag, ibv, vt):
         bd = refined
     pre &= x >= 10 * vt
     if line is None or bd is None:
-        line = _leakage_line(x, mag, pre)
+        line = _leakage_line(x, mag, pre, sigma)
     return bd, pre, line
 
 
@@ -160,14 +169,18 @@ def fit_reverse(voltage_V, current_A, *, compliance=None,
                 temperature_K: float = DEFAULT_TEMPERATURE_K,
                 reference_V: float | None = None, ibv_A: float | None = None,
                 use=None, series_ohm: float | None = None,
-                series_sigma_ohm: float | None = None) -> FitResult:
+                series_sigma_ohm: float | None = None, noise=None,
+                noise_scale=None) -> FitResult:
     """Leakage at ``reference_V`` (default: the deepest bias before breakdown), RSH, and
     BV at ``ibv_A`` (default 1 mA) from reverse I–V points (V < 0).
 
     With ``series_ohm`` (RS from a forward fit) the breakdown is read on the junction
     voltage V - I*RS, where ln I grows linearly (on the terminal voltage the I*RS drop
     bends it over a decade of current), BV is the junction's and extras carry the
-    terminal value "BV_terminal_V"; RS's sigma is carried into BV's.
+    terminal value "BV_terminal_V"; RS's sigma is carried into BV's. ``noise``: the
+    SMU's stated noise (fitnoise.StatedNoise or (relative, floor_A)), times
+    ``noise_scale`` per point: the leakage line and the leakage figure are weighted by
+    it (else the noise is estimated from their residuals).
     """
     v = np.asarray(voltage_V, dtype=float).ravel()
     i = np.asarray(current_A, dtype=float).ravel()
@@ -185,13 +198,14 @@ def fit_reverse(voltage_V, current_A, *, compliance=None,
                             f"({np.count_nonzero(ok)}; need 2)", used=ok)
     vt = thermal_voltage(temperature_K)
     vr, mag = v[ok], -i[ok]  # reverse current as a positive magnitude where it flows
+    sigma = _stated_sigma(noise, noise_scale, i, ok)
     rs = float(series_ohm) if series_ohm is not None and math.isfinite(series_ohm) \
         and series_ohm > 0 else 0.0
     names, values, sig, notes = [], {}, {}, []
     extras: dict = {"IBV_A": ibv}
-    bd, pre, line = _analyse(-vr, mag, ibv, vt)
+    bd, pre, line = _analyse(-vr, mag, ibv, vt, sigma)
     if rs > 0:  # the breakdown on the junction voltage; leakage and RSH stay terminal
-        bd_j, _, line_j = _analyse(-(vr + mag * rs), mag, ibv, vt)
+        bd_j, _, line_j = _analyse(-(vr + mag * rs), mag, ibv, vt, sigma)
         if bd_j is not None and bd is not None:
             sd = math.hypot(bd_j[1], ibv * (series_sigma_ohm or 0.0))
             extras["BV_terminal_V"] = bd_j[0] + ibv * rs
@@ -235,7 +249,8 @@ def fit_reverse(voltage_V, current_A, *, compliance=None,
     else:
         notes.append("RSH not determined: fewer than 3 reverse points between 10 Vt and "
                      "the breakdown knee")
-    _leakage(vr[pre], mag[pre], reference_V, extras, notes)
+    _leakage(vr[pre], mag[pre], reference_V, extras, notes,
+             None if sigma is None else sigma[pre])
     if bd is not None:
         used[np.flatnonzero(ok)[np.abs(mag - ibv) <= 9 * ibv]] = True
     cov = np.diag([sig[nm] ** 2 for nm in names]) if names else np.zeros((0, 0))
@@ -248,7 +263,19 @@ def fit_reverse(voltage_V, current_A, *, compliance=None,
                      message="; ".join([head] + notes), extras=extras)
 
 
-def _leakage(vr, mag, reference_V, extras, notes) -> None:
+def _stated_sigma(noise, scale, i, ok) -> np.ndarray | None:
+    """The stated noise of each reverse reading (ok rows), or None."""
+    if noise is None:
+        return None
+    stated = as_stated(noise)
+    rows = np.ones(i.size) if scale is None else np.broadcast_to(
+        np.asarray(scale, dtype=float).ravel(), (i.size,))
+    rows = np.where(np.isfinite(rows) & (rows > 0), rows, 1.0)
+    sigma = stated.sigma(i[ok]) * rows[ok]
+    return sigma if np.all(sigma > 0) else None
+
+
+def _leakage(vr, mag, reference_V, extras, notes, sigma=None) -> None:
     if vr.size < 2:
         notes.append("leakage not determined: fewer than 2 reverse points before breakdown")
         return
@@ -259,7 +286,8 @@ def _leakage(vr, mag, reference_V, extras, notes) -> None:
         return
     near = np.argsort(np.abs(vr - ref), kind="stable")[: min(5, vr.size)]
     if near.size >= 3:
-        a, b, cov, _ = _line(vr[near] - ref, mag[near])
+        w = None if sigma is None else 1.0 / sigma[near] ** 2
+        a, b, cov, _ = _line(vr[near] - ref, mag[near], w, stated=sigma is not None)
         value = a
         sd = math.sqrt(cov[0, 0]) if np.isfinite(cov[0, 0]) and cov[0, 0] >= 0 else None
     else:

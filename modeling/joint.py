@@ -131,7 +131,8 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
             results["iv_reverse"] = fit_iv.fit_reverse(
                 v, i, compliance=comp, temperature_K=temperature_K, reference_V=reference_V,
                 ibv_A=ibv_A, series_ohm=rs,
-                series_sigma_ohm=fwd.sigmas.get("RS") if rs is not None else None)
+                series_sigma_ohm=fwd.sigmas.get("RS") if rs is not None else None,
+                noise=(noise or {}).get("iv"), noise_scale=iv["noise_scale"])
     cv = _pool(data, _CV_KINDS)
     if cv is not None:
         from pnbench.modeling import fit_cv

@@ -20,6 +20,22 @@ ADMITTANCE_POINTS = [(v, f) for v in (0.55, 0.6, 0.63, 0.66, 0.68, 0.70, 0.72)
                      for f in (1e5, 3e5, 1e6, 2e6)]
 
 
+def reverse_data(device, seed: int, stop_V: float = -30.0, points: int = 31) -> dict:
+    """A reverse I-V sweep by forced voltage (as a plan's iv_reverse step takes it)."""
+    device = dataclasses.replace(device, smu={**device.smu, "seed": 3000 + seed})
+    bench = SimBench.start(device, time_scale=0.0)
+    try:
+        smu = Smu(open_session(bench.smu_resource), load_dialect())
+        smu.configure(source="voltage", limit=1e-3, nplc=1.0)
+        smu.output(True)
+        readings = [smu.apply_and_read(v) for v in np.linspace(0.0, stop_V, points)]
+        smu.output(False)  # a simulated bench: no ramp down needed (it takes seconds)
+    finally:
+        bench.close()
+    return {"voltage_V": np.array([r.voltage_V for r in readings]),
+            "current_A": np.array([r.current_A for r in readings])}
+
+
 def bench_data(device, seed: int, *, lcr: dict | None = None) -> dict:
     """{"iv": columns, "cv": columns} from ``device`` (a SimDevice) with its noise seeds
     set from ``seed`` and its [lcr] table updated by ``lcr``."""
