@@ -26,6 +26,7 @@ from pnbench.modeling.fit_iv import IS_LOWER_LN
 from pnbench.modeling.fit_iv import start_values as iv_start_values
 from pnbench.modeling.fitresult import FitResult, empty_result
 from pnbench.modeling.junction import thermal_voltage
+from pnbench.modeling.meternoise import meter_rows_noise
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams
 from pnbench.modeling.smallsignal import depletion_capacitance, device_admittance
 
@@ -208,21 +209,17 @@ def depletion_state(model: DepletionModel, x, y, elig, start=None, noise=None):
     return state
 
 
-def _known_noise(noise):
-    if noise is None:
-        return None
-    rel, floor = zip(*noise, strict=True)
-    return lsq.Noise(tuple(rel), tuple(floor), estimated=False)
-
-
 def fit_cv(voltage_V, frequency_Hz, capacitance_F, *, compliance=None, use=None,
            temperature_K: float = DEFAULT_TEMPERATURE_K, with_fixture: bool | None = None,
-           fc: float = 0.5) -> FitResult:
+           fc: float = 0.5, noise=None, noise_scale=None, conductance_S=None) -> FitResult:
     """CJO, VJ, M (and CFIX: ``with_fixture`` None when the data determine it, True
-    always, False never) from C–V points (parallel C)."""
-    x, y, elig = cv_arrays(voltage_V, frequency_Hz, capacitance_F, None, compliance, use)
+    always, False never) from C–V points (parallel C). ``noise``: the meter's stated
+    noise (with ``conductance_S``, when read, for |Y|), else estimated."""
+    x, y, elig = cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
+                           compliance, use)
     model = DepletionModel(fc, with_fixture)
-    state = depletion_state(model, x, y[:, :1], elig[:, :1])
+    state = depletion_state(model, x, y[:, :1], elig[:, :1],
+                            noise=meter_rows_noise(noise, x, y, 1, noise_scale))
     if isinstance(state, str):
         return empty_result("cv", len(x), state)
     left = elig[:, 0] & np.isfinite(y[:, 0]) & (y[:, 0] > 0) & ~state.used[:, 0]
@@ -310,18 +307,19 @@ def admittance_state(model: AdmittanceModel, x, y, elig, start=None, fixed=None,
 def fit_admittance(voltage_V, frequency_Hz, capacitance_F, conductance_S, *,
                    compliance=None, use=None, temperature_K: float = DEFAULT_TEMPERATURE_K,
                    with_fixture: bool | None = None, fixed: dict[str, float] | None = None,
-                   fc: float = 0.5) -> FitResult:
+                   fc: float = 0.5, noise=None, noise_scale=None) -> FitResult:
     """The whole small-signal model from C and G against bias (parallel readings).
 
     ``fixed`` holds model-card values instead of fitting them: IS, N, RS, RSH from an I–V
     fit (``joint.dc_holds``; RS = 0 and RSH = inf hold them absent), and CJO, VJ, M from
     a C–V fit where the admittance points alone cannot pin the depletion curve (forward
-    bias only).
+    bias only). ``noise``: the meter's stated noise, else estimated.
     """
     x, y, elig = cv_arrays(voltage_V, frequency_Hz, capacitance_F, conductance_S,
                             compliance, use)
     model = AdmittanceModel(temperature_K, fc, with_fixture)
-    state = admittance_state(model, x, y, elig, fixed=fixed)
+    state = admittance_state(model, x, y, elig, fixed=fixed,
+                             noise=meter_rows_noise(noise, x, y, 2, noise_scale))
     if isinstance(state, str):
         return empty_result("admittance", len(x), state)
     return lsq.to_result(model, state, "admittance", len(x), extras=held_extras(model, fixed),
@@ -374,7 +372,8 @@ def fit_cv_data(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
             compliance=compliance,
             temperature_K=temperature_K, with_fixture=with_fixture)}
     out = {"cv": fit_cv(voltage_V, frequency_Hz, capacitance_F, compliance=compliance,
-                        temperature_K=temperature_K, with_fixture=with_fixture)}
+                        temperature_K=temperature_K, with_fixture=with_fixture, noise=noise,
+                        noise_scale=noise_scale, conductance_S=conductance_S)}
     v = np.asarray(voltage_V, dtype=float).ravel()
     if conductance_S is not None:
         g = np.asarray(conductance_S, dtype=float).ravel()
@@ -385,7 +384,8 @@ def fit_cv_data(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
                 held.update({n: depl.values[n] for n in ("CJO", "VJ", "M")})
             out["admittance"] = fit_admittance(
                 voltage_V, frequency_Hz, capacitance_F, g, compliance=compliance,
-                temperature_K=temperature_K, with_fixture=with_fixture, fixed=held or None)
+                temperature_K=temperature_K, with_fixture=with_fixture, fixed=held or None,
+                noise=noise, noise_scale=noise_scale)
     return out
 
 

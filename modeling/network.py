@@ -28,8 +28,8 @@ import math
 import numpy as np
 
 from pnbench.modeling import fit_cv, heldcov, junction, lsq
-from pnbench.modeling.fitnoise import as_stated
 from pnbench.modeling.fitresult import FitResult, empty_result
+from pnbench.modeling.meternoise import meter_noise
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
 
 #: The DC parameters an I–V fit supplies and the network fit holds.
@@ -275,21 +275,6 @@ def network_state(model: SplitModel, x, y, elig, fixed: dict[str, float],
     state = lsq.fit(model, x, y, elig, t0, active, noise=known)
     state.notes = notes + state.notes
     return state
-
-
-def meter_noise(noise, k_phase: np.ndarray, scale=None) -> lsq.Noise:
-    """The fits' noise of a stated meter noise, per point: the meter adds
-    rel*|Y| + w*floor to each of G and B, so C = B/w has rel*|Y|/w + floor (the reverse
-    channel) and C*w/|Y| has rel + floor*w/|Y| (the forward channel, k_phase = w/|Y|)."""
-    stated = as_stated(noise)
-    n = k_phase.size
-    rows = np.ones(n) if scale is None else np.broadcast_to(
-        np.asarray(scale, dtype=float).ravel(), (n,)).copy()
-    rows = np.where(np.isfinite(rows) & (rows > 0), rows, 1.0)
-    c_part = stated.relative / k_phase + stated.floor
-    return lsq.Noise((0.0, 0.0), (stated.floor, stated.relative), estimated=False,
-                     linear=True, floor_rows=np.column_stack([c_part, c_part * k_phase]),
-                     scale_rows=rows)
 
 
 def held_covariance_t(model, state: lsq.FitState, x, y, fixed: dict[str, float],

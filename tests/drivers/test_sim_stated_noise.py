@@ -125,3 +125,16 @@ def test_leakage_sigma_from_the_stated_noise_is_honest(demo_part):
                                  reference_V=-29.5)
         z.append((fit.extras["leakage_A"] - truth) / fit.extras["leakage_sigma_A"])
     assert 0.7 < float(np.sqrt(np.mean(np.square(z)))) < 1.4, z
+
+
+def test_cv_data_alone_are_judged_against_the_meters_noise(demo_part, demo_data):
+    """Without I-V data the depletion fit of the C-V points takes the stated meter
+    noise too (|Y| from the reading): mean reduced chi-square of eight seeds within
+    0.8-1.2 (about 58 degrees of freedom: sd 0.19 each, 0.07 for the mean)."""
+    noise = device_noise(demo_part)
+    chi2 = []
+    for data in demo_data:
+        result = joint.fit_all({"cv": data["cv"]}, noise=noise).results["cv"]
+        assert result.success and result.extras["noise"]["estimated"] is False
+        chi2.append(result.reduced_chi2)
+    assert 0.8 < np.mean(chi2) < 1.2, chi2

@@ -10,7 +10,7 @@ import pytest
 
 from pnbench.modeling import lsq
 from pnbench.modeling.fitnoise import Noise, StatedNoise, as_stated
-from pnbench.modeling.network import meter_noise
+from pnbench.modeling.meternoise import meter_noise
 
 RANGES = (1e-8, 1e-7, 1e-6)
 
