@@ -22,6 +22,7 @@ from pnbench.modeling.fit_cv import (
     depletion_state,
     held_extras,
 )
+from pnbench.modeling.meternoise import meter_rows_noise
 
 
 class StreamSpec:
@@ -31,8 +32,10 @@ class StreamSpec:
     min_points = MIN_CV_POINTS
 
     def __init__(self, kind: str, temperature_K: float, with_fixture: bool | None = None,
-                 fixed: dict[str, float] | None = None, fc: float = 0.5):
+                 fixed: dict[str, float] | None = None, fc: float = 0.5, noise=None,
+                 noise_scale: float = 1.0):
         self.kind = kind
+        self.noise, self.noise_scale = noise, noise_scale  # the meter's stated noise
         self.fixed = dict(fixed) if fixed else None
         self.model = (DepletionModel(fc, with_fixture) if kind == "cv"
                       else AdmittanceModel(temperature_K, fc, bool(with_fixture)))
@@ -45,10 +48,12 @@ class StreamSpec:
         return x, y, elig
 
     def full_state(self, x, y, elig, start):
+        noise = self.noise_rows(x, y, None)
         if self.kind == "cv":
-            state = depletion_state(self.model, x, y, elig, start)
+            state = depletion_state(self.model, x, y, elig, start, noise=noise)
         else:
-            state = admittance_state(self.model, x, y, elig, start, fixed=self.fixed)
+            state = admittance_state(self.model, x, y, elig, start, fixed=self.fixed,
+                                     noise=noise)
         self.v_cut = math.inf
         if not isinstance(state, str):
             left_out = elig[:, 0] & ~state.used[:, 0]
@@ -57,6 +62,12 @@ class StreamSpec:
                 if np.all(x[left_out, 0] > top):  # a forward cut, not scattered rejects
                     self.v_cut = float(top)
         return state
+
+    def noise_rows(self, x, y, t):
+        """The meter's stated noise of these rows (None when it is estimated)."""
+        if self.noise is None:
+            return None
+        return meter_rows_noise(self.noise, x, y, y.shape[1], self.noise_scale)
 
     def eligible_now(self, x, elig):
         out = elig.copy()
@@ -81,10 +92,12 @@ class NetworkSpec:
 
     def __init__(self, kind: str, temperature_K: float, fixed: dict[str, float],
                  ac_level_V: float | None = None, fc: float = 0.5,
-                 held_covariance: tuple[tuple[str, ...], np.ndarray] | None = None):
+                 held_covariance: tuple[tuple[str, ...], np.ndarray] | None = None,
+                 noise=None, noise_scale: float = 1.0):
         from pnbench.modeling import network
 
         self.kind = kind
+        self.noise, self.noise_scale = noise, noise_scale  # the meter's stated noise
         self.fixed = dict(fixed)
         self.level = math.nan if ac_level_V is None else float(ac_level_V)
         self.model = network.SplitModel(network.network_model(temperature_K, fc, None, None))
@@ -105,7 +118,8 @@ class NetworkSpec:
         fixed = self.fixed
         dropped: list[str] = []
         while True:
-            state = network_state(self.model, x, y, elig, fixed, start=start)
+            state = network_state(self.model, x, y, elig, fixed, self.noise, start=start,
+                                  noise_scale=self.noise_scale)
             if isinstance(state, str) or self.held_covariance is None:
                 return state
             weak = self._weak(state, x, y)
@@ -140,6 +154,14 @@ class NetworkSpec:
     def eligible_now(self, x, elig):
         return elig
 
+    def noise_rows(self, x, y, t):
+        """The meter's stated noise of these rows (None when it is estimated)."""
+        if self.noise is None:
+            return None
+        from pnbench.modeling.meternoise import meter_noise
+
+        return meter_noise(self.noise, x[:, 3], self.noise_scale)
+
     def extras(self) -> dict:
         return held_extras(self.model, self.fixed)
 
@@ -163,9 +185,13 @@ class NetworkSpec:
 
 def stream_spec(kind: str, temperature_K: float, *, with_fixture: bool | None = None,
                 fixed: dict[str, float] | None = None, ac_level_V: float | None = None,
-                held_covariance=None) -> StreamSpec | NetworkSpec:
-    """The network spec when ``fixed`` holds the DC part (IS and N), else the plain one."""
+                held_covariance=None, noise=None,
+                noise_scale: float = 1.0) -> StreamSpec | NetworkSpec:
+    """The network spec when ``fixed`` holds the DC part (IS and N), else the plain one;
+    ``noise`` is the meter's stated noise (None: estimated), times ``noise_scale``."""
     if fixed and "IS" in fixed and "N" in fixed:
         return NetworkSpec(kind, temperature_K, fixed, ac_level_V,
-                           held_covariance=held_covariance)
-    return StreamSpec(kind, temperature_K, with_fixture, fixed)
+                           held_covariance=held_covariance, noise=noise,
+                           noise_scale=noise_scale)
+    return StreamSpec(kind, temperature_K, with_fixture, fixed, noise=noise,
+                      noise_scale=noise_scale)

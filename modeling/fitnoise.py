@@ -10,7 +10,7 @@ Weights use the model value, not the reading, so they do not bias the estimates.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -57,6 +57,28 @@ class Noise:
         if self.extra_var is not None and self.extra_var.shape == np.shape(yhat):
             s = np.sqrt(s * s + self.extra_var)
         return s
+
+    @property
+    def per_row(self) -> bool:
+        return any(a is not None for a in (self.floor_rows, self.scale_rows, self.extra_var))
+
+    def take(self, rows) -> Noise:
+        """This noise for a subset of its rows (an index, mask or slice)."""
+        if not self.per_row:
+            return self
+        return replace(self, **{name: None if a is None else a[rows] for name, a in (
+            ("floor_rows", self.floor_rows), ("scale_rows", self.scale_rows),
+            ("extra_var", self.extra_var))})
+
+    def extended(self, more: Noise) -> Noise:
+        """This noise with ``more``'s rows appended (both per row, same parts)."""
+        if not (self.per_row and more.per_row):
+            return more if more.per_row else self
+        parts = {}
+        for name in ("floor_rows", "scale_rows", "extra_var"):
+            a, b = getattr(self, name), getattr(more, name)
+            parts[name] = None if a is None or b is None else np.concatenate([a, b])
+        return replace(self, **parts)
 
 
 def _noise_newton(q, e2, y2, lo, hi, iterations: int = 40):

@@ -50,10 +50,12 @@ class _ForwardSpec:
     x_width = 1
     min_points = fit_iv.MIN_POINTS
 
-    def __init__(self, temperature_K: float, noise, shunt: bool = True):
+    def __init__(self, temperature_K: float, noise, shunt: bool = True,
+                 noise_scale: float = 1.0):
         self.model = fit_iv.ForwardModel(temperature_K)
         self.noise = noise
         self.shunt = shunt
+        self.noise_scale = noise_scale
 
     def rows(self, v, i, f, c, g, comp):
         ok = np.isfinite(v) & np.isfinite(i) & (v > 0) & ~comp
@@ -61,7 +63,15 @@ class _ForwardSpec:
 
     def full_state(self, x, y, elig, start):
         return fit_iv.forward_state(self.model, x[:, 0], y[:, 0], elig[:, 0],
-                                    noise=self.noise, shunt=self.shunt, start=start)
+                                    noise=self.noise, shunt=self.shunt, start=start,
+                                    noise_scale=self.noise_scale)
+
+    def noise_rows(self, x, y, t):
+        """The stated noise of these rows (None when the noise is estimated)."""
+        if self.noise is None:
+            return None
+        return fit_iv.stated_noise(self.model, self.noise, x[:, 0], y[:, 0],
+                                   self.noise_scale, t)
 
     def eligible_now(self, x, elig):
         return elig
@@ -99,8 +109,10 @@ class IncrementalFitter:
 
     kind: "iv_forward", "iv_reverse", "iv" (both, by the sign of V), "cv" (CJO, VJ, M
     from C–V) or "admittance" (the whole small-signal model, TT included, from C and G).
-    Options: ``temperature_K``; ``target_rel`` (default for ``settled``); ``noise``
-    (relative, floor) of the measured channel when known (I-V), else estimated;
+    Options: ``temperature_K``; ``target_rel`` (default for ``settled``); ``noise``:
+    the instrument's stated noise when known (fitnoise.StatedNoise or (relative,
+    floor): the SMU's for I-V, the LCR meter's for C-V and admittance), times
+    ``noise_scale`` (1/sqrt(NPLC x readings)), else estimated;
     ``reference_V`` and ``ibv_A`` for the reverse analysis; ``with_fixture`` (fit a
     parallel fixture capacitance); ``fixed`` (model-card values to hold, e.g. IS, N, RS
     from an I–V fit while fitting admittance; with IS and N among them C–V and
@@ -111,7 +123,7 @@ class IncrementalFitter:
     """
 
     def __init__(self, kind: str, *, temperature_K: float = DEFAULT_TEMPERATURE_K,
-                 target_rel: float = 0.01, noise: tuple[float, float] | None = None,
+                 target_rel: float = 0.01, noise=None, noise_scale: float = 1.0,
                  reference_V: float | None = None, ibv_A: float | None = None,
                  with_fixture: bool | None = None, fixed: dict[str, float] | None = None,
                  ac_level_V: float | None = None, held_covariance=None,
@@ -126,7 +138,8 @@ class IncrementalFitter:
         self._lock = threading.Lock()
         self._forward = self._reverse = self._small = None
         if kind in ("iv", "iv_forward"):
-            self._forward = LsqStream(_ForwardSpec(self.temperature_K, noise), growth)
+            self._forward = LsqStream(_ForwardSpec(self.temperature_K, noise,
+                                                   noise_scale=noise_scale), growth)
         if kind in ("iv", "iv_reverse"):
             self._reverse = _ReverseStream(self.temperature_K, reference_V, ibv_A)
         if kind in ("cv", "admittance"):
@@ -134,7 +147,8 @@ class IncrementalFitter:
 
             spec = cvstream.stream_spec(kind, self.temperature_K, with_fixture=with_fixture,
                                         fixed=fixed, ac_level_V=ac_level_V,
-                                        held_covariance=held_covariance)
+                                        held_covariance=held_covariance, noise=noise,
+                                        noise_scale=noise_scale)
             self._small = LsqStream(spec, growth)
         self._order: list[np.ndarray] = []  # for "iv": which points went forward
         self._cache: FitResult | None = None

@@ -128,16 +128,26 @@ class LsqStream:
         x, y = self.x.view()[rows], self.y.view()[rows]
         elig = self.spec.eligible_now(x, self.elig.view()[rows])
         yhat, _ = self.model.predict(st.t, x, None)
-        use = lsq.usable_rows(self.model, y, yhat, elig, st.noise)
+        noise = st.noise
+        fresh = self._stated(x, y, st.t)
+        if fresh is not None and st.noise.per_row:  # a stated noise, per row: extend it
+            noise, st.noise = fresh, st.noise.extended(fresh)
+        use = lsq.usable_rows(self.model, y, yhat, elig, noise)
         self.used.view()[rows] = use
         if not use.any():
             return
         idx = np.flatnonzero(st.active)
-        r, jac, _ = lsq.weighted_rows(self.model, st.t, idx, x, y, use, st.noise)
+        r, jac, _ = lsq.weighted_rows(self.model, st.t, idx, x, y, use, noise)
         self.h += jac.T @ jac
         self.g += jac.T @ r
         self.s += float(r @ r)
         self.rows += len(r)
+
+    def _stated(self, x, y, t):
+        """The spec's stated noise for these rows at estimate t (None: the stream's
+        noise model holds for any rows)."""
+        rows = getattr(self.spec, "noise_rows", None)
+        return rows(x, y, t) if rows is not None else None
 
     def _step(self) -> np.ndarray | None:
         if self.state is None or self.h.shape[0] == 0:
@@ -162,11 +172,12 @@ class LsqStream:
         x, y = self.x.view(), self.y.view()
         elig = self.spec.eligible_now(x, self.elig.view())
         yhat, _ = self.model.predict(t, x, None)
-        use = lsq.usable_rows(self.model, y, yhat, elig, st.noise)
-        t, *_ = lsq.levenberg(self.model, t, st.active, x, y, use, st.noise, max_iter=4)
+        noise = self._stated(x, y, t) or st.noise
+        use = lsq.usable_rows(self.model, y, yhat, elig, noise)
+        t, *_ = lsq.levenberg(self.model, t, st.active, x, y, use, noise, max_iter=4)
         idx = np.flatnonzero(st.active)
-        r, jac, _ = lsq.weighted_rows(self.model, t, idx, x, y, use, st.noise)
-        self._reset_sums(replace(st, t=t, used=use, hessian=jac.T @ jac,
+        r, jac, _ = lsq.weighted_rows(self.model, t, idx, x, y, use, noise)
+        self._reset_sums(replace(st, t=t, noise=noise, used=use, hessian=jac.T @ jac,
                                  gradient=jac.T @ r, chi2=float(r @ r), n_rows=int(use.sum())))
 
     def _full_refit(self) -> None:
@@ -212,7 +223,7 @@ class LsqStream:
         t0 = self.current_t()
         try:
             yhat, _ = model.predict(t0, x, None)
-            noise = st.noise
+            noise = self._stated(x, y, t0) or st.noise
             use = lsq.usable_rows(model, y, yhat, elig, noise)
             t, _, _, _, converged = lsq.levenberg(model, t0, st.active, x, y, use, noise,
                                                   max_iter=WARM_MAX_ITER, yhat_ref=yhat)

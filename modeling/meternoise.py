@@ -36,8 +36,9 @@ def meter_rows_noise(noise, x, y, channels: int, scale=None) -> lsq.Noise | None
         return None
     stated = as_stated(noise)
     w = 2 * np.pi * x[:, 1]
+    g = y[:, 1] if y.shape[1] > 1 else np.full(len(y), np.nan)
     with np.errstate(all="ignore"):
-        g_w = np.where(np.isfinite(y[:, 1]), y[:, 1] / w, 0.0)
+        g_w = np.where(np.isfinite(g), g / w, 0.0)
         y_w = np.hypot(np.nan_to_num(y[:, 0]), g_w)  # |Y|/w
     c_part = stated.relative * y_w + stated.floor
     rows = np.ones(len(x)) if scale is None else np.broadcast_to(

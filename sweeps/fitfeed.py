@@ -258,7 +258,9 @@ class FitWorker:
                                              fitmodel.breakdown_current_A(
                                                  self.steps.values()),
                                              ac_level_V=getattr(step, "ac_level_V", None),
-                                             held_covariance=held_cov)
+                                             held_covariance=held_cov,
+                                             stated_noise=self.extras.get("stated_noise"),
+                                             step=step)
                 self._fitters[name] = fitter
             fitmodel.add_columns(fitter, step.kind, columns.view(start))
         except Exception as exc:  # noqa: BLE001 - fitting must never stop a run

@@ -26,18 +26,25 @@ def available() -> bool:
 
 def new_fitter(step_kind: str, temperature_K: float, fixed: dict | None = None,
                ibv_A: float | None = None, *, ac_level_V: float | None = None,
-               held_covariance=None):
+               held_covariance=None, stated_noise: dict | None = None, step=None):
     """An incremental fitter for a step. ``fixed`` holds model-card values from earlier
     steps for a C-V or admittance fit to keep (see `live_holds`), ``held_covariance``
-    their uncertainty; ``ac_level_V`` is the step's LCR test level."""
+    their uncertainty; ``ac_level_V`` is the step's LCR test level. ``stated_noise``
+    (run.json's) judges the live fit against the instrument's noise (scaled for
+    ``step``'s NPLC and averaging); without it the live fit estimates the noise."""
     from pnbench.modeling.incremental import IncrementalFitter
+    from pnbench.sweeps.statednoise import fit_noise
 
+    noise = (fit_noise(stated_noise) or {}).get("iv" if step_kind.startswith("iv") else "cv")
+    live = {"noise": noise, "noise_scale": noise_scale(step)} if noise is not None \
+        and step is not None and step_kind != "iv_reverse" else {}
     if step_kind in ("cv", "admittance") and fixed:
         return IncrementalFitter(step_kind, temperature_K=temperature_K, fixed=fixed,
-                                 ac_level_V=ac_level_V, held_covariance=held_covariance)
+                                 ac_level_V=ac_level_V, held_covariance=held_covariance,
+                                 **live)
     if step_kind == "iv_reverse" and ibv_A is not None:
         return IncrementalFitter("iv_reverse", temperature_K=temperature_K, ibv_A=ibv_A)
-    return IncrementalFitter(FIT_KIND[step_kind], temperature_K=temperature_K)
+    return IncrementalFitter(FIT_KIND[step_kind], temperature_K=temperature_K, **live)
 
 
 #: What a live admittance step holds from the C-V step besides the DC part.

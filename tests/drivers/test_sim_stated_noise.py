@@ -138,3 +138,42 @@ def test_cv_data_alone_are_judged_against_the_meters_noise(demo_part, demo_data)
         assert result.success and result.extras["noise"]["estimated"] is False
         chi2.append(result.reduced_chi2)
     assert 0.8 < np.mean(chi2) < 1.2, chi2
+
+
+def _stream(fitter, columns, rows, batch=8):
+    """Feed ``rows`` of ``columns`` to a live fitter in batches, as the fit worker does."""
+    for k in range(0, rows.size, batch):
+        sel = rows[k:k + batch]
+        if "current_A" in columns:
+            fitter.add(columns["voltage_V"][sel], columns["current_A"][sel])
+        else:
+            fitter.add(columns["voltage_V"][sel], frequency_Hz=columns["frequency_Hz"][sel],
+                       capacitance_F=columns["capacitance_F"][sel],
+                       conductance_S=columns["conductance_S"][sel])
+    return fitter.snapshot()
+
+
+def test_live_fits_are_judged_against_the_stated_noise(demo_part, demo_data):
+    """Given the run's stated noise, the live forward I-V and C-V streams keep it per
+    point as points arrive: mean reduced chi-square of eight seeds within 0.7-1.3 (a
+    live estimate is one Gauss-Newton step from the last rebuild, so a little looser
+    than the final fit's band), and the C-V stream told there is no fixture misfits by
+    chi-square."""
+    noise = device_noise(demo_part)
+    chi2 = {"iv_forward": [], "cv": []}
+    for data in demo_data:
+        iv, cv = data["iv"], data["cv"]
+        fwd = _stream(IncrementalFitter("iv_forward", noise=noise["iv"]), iv,
+                      np.arange(iv["voltage_V"].size))
+        rev = np.flatnonzero(cv["voltage_V"] <= 0)
+        live_cv = _stream(IncrementalFitter("cv", noise=noise["cv"]), cv, rev)
+        for kind, result in (("iv_forward", fwd), ("cv", live_cv)):
+            assert result.success and not result.extras["lack_of_fit"]["misfit"], (
+                kind, result.message)
+            chi2[kind].append(result.reduced_chi2)
+    for kind, values in chi2.items():
+        assert 0.7 < np.mean(values) < 1.3, (kind, values)
+    cv = demo_data[0]["cv"]
+    wrong = _stream(IncrementalFitter("cv", noise=noise["cv"], with_fixture=False), cv,
+                    np.flatnonzero(cv["voltage_V"] <= 0))
+    assert wrong.extras["lack_of_fit"]["misfit"] and wrong.reduced_chi2 > 5
