@@ -83,6 +83,9 @@ def _row(t: float, jf: joint.JointFit) -> dict[str, Any]:
     for name, value in jf.model.values.items():
         row[name] = value
         row[f"{name}_sigma"] = jf.model.sigma(name)
+    fixture = jf.model.extras.get("fixture_capacitance_F")
+    if isinstance(fixture, dict) and isinstance(fixture.get("value"), (int, float)):
+        row["CFIX"], row["CFIX_sigma"] = fixture["value"], fixture.get("sigma")
     return row
 
 

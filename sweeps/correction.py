@@ -1,19 +1,31 @@
 """Open/short correction of the LCR meter, as a plan's ``[lcr_correction]`` asks.
 
-The runner calls `run_correction` before the first LCR step it runs. Every output is
-switched off (and confirmed off) first; then, for each correction in order (open, then
-short), the operator is asked to set the fixture state and confirm it (an
-``operator_prompt`` event answered through `Control.answer`), unless the plan says the
-states are prepared in advance (``confirmed = true``). What the meter measured is read
-back at each of the plan's LCR frequencies where the dialect has a query for it, and the
-whole record goes into run.json (``lcr_correction``) and an ``lcr_correction`` event.
+The runner calls `Corrections.before_lcr_step` before every LCR step; the correction runs
+before the first one (and, with ``every_set_point``, before the first one at each stage
+set point). Every output is switched off (and confirmed off) first; then, for each
+correction in order (open, then short), the operator is asked to set the fixture state
+and confirm it (an ``operator_prompt`` event answered through `Control.answer`), unless
+the plan says the states are prepared in advance (``confirmed = true``). What the meter
+measured is read back at each of the plan's LCR frequencies where the dialect has a query
+for it. ``apply = "meter"``: the meter's stored correction is turned on (where the dialect
+can) and corrects every reading after. ``apply = "software"``: it is turned off, the
+readings stay raw in points.csv and the fits compensate them from the recorded values
+(`sweeps.fitmodel.compensated`). Each run of the correction is one entry of run.json's
+``lcr_correction["runs"]`` (its set point, who applies it, the values) and an
+``lcr_correction`` event.
+
+A resumed run reuses the entry recorded for its set point (``on_resume = "reuse"``, the
+default) when it still holds: compensated in software, always; applied by the meter, when
+the meter says it still applies it (the dialect's state query). A meter that no longer
+applies it (switched off since) or cannot say so gets the correction again, the operator
+asked as for the first one. ``on_resume = "repeat"`` always runs it again.
 """
 
 from __future__ import annotations
 
 import math
 
-from pnbench.errors import InstrumentError, OperatorStop
+from pnbench.errors import DialectError, InstrumentError, OperatorStop
 from pnbench.sweeps import events as ev
 from pnbench.sweeps.control import Control
 from pnbench.sweeps.plan import Plan
@@ -28,6 +40,8 @@ ASK = {
     "device": "The corrections are done: put the device back in the fixture. Confirm to "
               "start the measurement.",
 }
+#: Set points closer than this are one (kelvin).
+SAME_SET_POINT_K = 1e-6
 
 
 def lcr_frequencies(plan: Plan) -> list[float]:
@@ -35,9 +49,137 @@ def lcr_frequencies(plan: Plan) -> list[float]:
     return sorted({f for s in plan.steps if s.instrument == "lcr" for f in s.frequencies_Hz})
 
 
+def runs_of(record: object) -> list[dict]:
+    """The entries of a run.json ``lcr_correction`` record, oldest first (a record from
+    before entries were kept counts as one entry applied by the meter)."""
+    if not isinstance(record, dict) or not record.get("done"):
+        return []
+    runs = record.get("runs")
+    if isinstance(runs, list):
+        return [r for r in runs if isinstance(r, dict)]
+    return [{"set_point_K": None, "applied_by": "meter", "values": record.get("values")}]
+
+
+def entry_for(record: object, set_point_K: float | None) -> dict | None:
+    """The correction entry that holds for points at this stage set point: the latest
+    one taken at it when the record says it runs at every set point, else the latest."""
+    runs = runs_of(record)
+    if runs and isinstance(record, dict) and record.get("every_set_point") \
+            and set_point_K is not None:
+        runs = [r for r in runs if isinstance(r.get("set_point_K"), (int, float))
+                and abs(r["set_point_K"] - set_point_K) < SAME_SET_POINT_K]
+    return runs[-1] if runs else None
+
+
+class Corrections:
+    """The plan's LCR correction over one run (one process of it)."""
+
+    def __init__(self, plan: Plan, bench, bus: ev.EventBus, control: Control, folder,
+                 fit=None) -> None:
+        self.plan, self.bench, self.bus, self.control = plan, bench, bus, control
+        self.folder, self.fit = folder, fit
+        self.done_here: set = set()  # set points corrected (or reused) in this process
+
+    def check(self) -> None:
+        """DialectError when the LCR meter's dialect cannot do what the plan asks
+        (checked before the first step, so no data is taken for nothing)."""
+        correction, lcr = self.plan.correction, self.bench.lcr
+        commands = getattr(lcr, "commands", None)
+        if correction is None or commands is None:
+            return
+        for which in correction.which:
+            if not getattr(commands, f"{which}_correction", ""):
+                raise DialectError(f"[lcr_correction] asks for the {which} correction, and "
+                                   f"the LCR meter's dialect has no {which}_correction "
+                                   "command to start it")
+            if correction.apply == "software" and not getattr(
+                    commands, f"{which}_data_query", ""):
+                raise DialectError(f"[lcr_correction] apply = \"software\" needs what the "
+                                   f"{which} correction measured, and the LCR meter's "
+                                   f"dialect has no {which}_data_query to ask for it")
+
+    def before_lcr_step(self, step) -> None:
+        """Run (or reuse) the correction if this step needs one first."""
+        correction = self.plan.correction
+        if correction is None:
+            return
+        key = step.set_point_K if correction.every_set_point else None
+        if key in self.done_here:
+            return
+        record = self.folder.run.get("lcr_correction")
+        earlier = entry_for(record, key)
+        if earlier is not None:  # recorded by an earlier process of this run: a resume
+            if correction.on_resume == "repeat":
+                self._say(step, "resumed: the plan asks to repeat the LCR correction "
+                          "(on_resume = \"repeat\")", warning=False)
+            elif self._reusable(earlier, step):
+                self.done_here.add(key)
+                self._tell_fit(record)
+                self.bus.emit(ev.Correction, step.name, corrections=list(correction.which),
+                              confirmed=correction.confirmed, values=earlier.get("values"),
+                              applied_by=earlier.get("applied_by", "meter"),
+                              set_point_K=earlier.get("set_point_K"), reused=True)
+                return
+        entry = run_correction(self.plan, self.bench, self.bus, self.control, self.folder,
+                               step.name, step.set_point_K)
+        record = {**correction.to_json_dict(), "done": True,
+                  "applied_by": entry["applied_by"], "values": entry["values"],
+                  "runs": [*runs_of(record), entry]}
+        self.folder.update_run(lcr_correction=record)
+        self.bus.emit(ev.Correction, step.name, corrections=list(correction.which),
+                      confirmed=correction.confirmed, values=entry["values"],
+                      applied_by=entry["applied_by"], set_point_K=entry["set_point_K"])
+        self.done_here.add(key)
+        self._tell_fit(record)
+
+    def _tell_fit(self, record: dict) -> None:
+        if isinstance(getattr(self.fit, "extras", None), dict):
+            self.fit.extras["lcr_correction"] = record  # the fits use and state it
+
+    def _say(self, step, message: str, warning: bool = True) -> None:
+        self.folder.log(message)
+        if warning:
+            self.bus.emit(ev.WarningEvent, step.name, message=message)
+
+    def _reusable(self, entry: dict, step) -> bool:
+        """Whether the recorded entry still holds on this meter (see the module notes),
+        saying why either way."""
+        lcr = self.bench.lcr
+        which = self.plan.correction.which
+        where = _where(entry.get("set_point_K"))
+        if entry.get("applied_by") == "software":
+            for w in which:  # a meter switched on again may apply its stored data
+                lcr.set_correction_state(w, False)
+            self._say(step, f"resumed: the LCR correction recorded{where} is reused; its "
+                      "values compensate the readings in software", warning=False)
+            return True
+        states = {w: lcr.correction_state(w) for w in which}
+        if all(states.values()):
+            self._say(step, f"resumed: the LCR meter still applies the correction "
+                      f"recorded{where}; it is reused", warning=False)
+            return True
+        lost = [w for w, on in states.items() if on is False]
+        if lost:
+            self._say(step, f"resumed: the LCR meter no longer applies its "
+                      f"{' and '.join(lost)} correction (switched off or reset since the "
+                      f"run stopped?): the correction runs again")
+        else:
+            self._say(step, "resumed: the LCR meter cannot report whether it still applies "
+                      f"the correction recorded{where} (its dialect has no state query); "
+                      "if it was switched off since, the correction is lost, so it runs "
+                      "again" + ("" if self.plan.correction.confirmed else
+                                 ", each fixture state confirmed by the operator"))
+        return False
+
+
+def _where(set_point_K: object) -> str:
+    return f" at {set_point_K:g} K" if isinstance(set_point_K, (int, float)) else ""
+
+
 def run_correction(plan: Plan, bench, bus: ev.EventBus, control: Control, folder,
-                   step: str | None) -> dict:
-    """Run the plan's corrections with every output off; return what run.json records."""
+                   step: str | None, set_point_K: float | None = None) -> dict:
+    """Run the plan's corrections with every output off; return the entry run.json
+    records for it (set point, who applies it, the values, notes)."""
     correction = plan.correction
     assert correction is not None
     report = bench.safe_off()
@@ -49,18 +191,36 @@ def run_correction(plan: Plan, bench, bus: ev.EventBus, control: Control, folder
     lcr = bench.lcr
     frequencies = lcr_frequencies(plan)
     values: dict[str, dict | None] = {}
+    notes: list[str] = []
     for which in correction.which:
         _confirm(which, correction.confirmed, bus, control, step)
-        folder.log(f"LCR {which} correction")
+        folder.log(f"LCR {which} correction" + _where(set_point_K))
         getattr(lcr, f"{which}_correction")()
         values[which] = _data(lcr, which, frequencies)
+        if correction.apply == "software":
+            if values[which] is None:
+                raise DialectError(f"[lcr_correction] apply = \"software\" needs what the "
+                                   f"{which} correction measured, and the LCR meter's dialect "
+                                   f"has no {which}_data_query to ask for it")
+            notes += _keep_off(lcr, which)
+        else:
+            lcr.set_correction_state(which, True)
     if not correction.confirmed:
         _confirm("device", False, bus, control, step)
-    record = {**correction.to_json_dict(), "done": True, "values": values}
-    folder.update_run(lcr_correction=record)
-    bus.emit(ev.Correction, step, corrections=list(correction.which),
-             confirmed=correction.confirmed, values=values)
-    return record
+    return {"set_point_K": set_point_K, "applied_by": correction.apply, "values": values,
+            "step": step, "notes": notes}
+
+
+def _keep_off(lcr, which: str) -> list[str]:
+    """Turn the meter's own ``which`` correction off for a software correction; notes."""
+    if lcr.set_correction_state(which, False):
+        return []
+    if lcr.correction_state(which):
+        raise DialectError(f"[lcr_correction] apply = \"software\": the LCR meter applies its "
+                           f"{which} correction and its dialect has no {which}_state "
+                           "command to turn it off, so the readings would be corrected twice")
+    return [f"the dialect has no {which}_state command: pnbench takes it that the meter "
+            f"does not apply its {which} correction to the readings"]
 
 
 def _confirm(topic: str, confirmed: bool, bus: ev.EventBus, control: Control,

@@ -241,6 +241,9 @@ class Correction(Event):
     corrections: list = field(default_factory=list)
     confirmed: bool = False
     values: dict = field(default_factory=dict)
+    applied_by: str = "meter"  # or "software": pnbench compensates at fit time
+    set_point_K: float | None = None  # the stage set point it was taken at
+    reused: bool = False  # a resumed run kept the one recorded before
 
 
 @dataclass(frozen=True, kw_only=True, slots=True)

@@ -35,7 +35,7 @@ import threading
 import time
 from collections.abc import Callable
 
-from pnbench.sweeps import fitmodel, thermalfit
+from pnbench.sweeps import fitcorrection, fitmodel, thermalfit
 from pnbench.sweeps.events import EventBus, finite
 from pnbench.sweeps.planstep import Step
 from pnbench.sweeps.record import Point
@@ -262,7 +262,8 @@ class FitWorker:
                                              stated_noise=self.extras.get("stated_noise"),
                                              step=step)
                 self._fitters[name] = fitter
-            fitmodel.add_columns(fitter, step.kind, columns.view(start))
+            fitmodel.add_columns(fitter, step.kind, fitcorrection.compensated(
+                step, columns.view(start), self.extras.get("lcr_correction")))
         except Exception as exc:  # noqa: BLE001 - fitting must never stop a run
             self._break(name, exc)
             return

@@ -206,7 +206,9 @@ def model_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
     """The run's ModelSet fitted from every point, given per step as columns (`Columns`
     views); None when nothing can be fitted. Steps of one kind are pooled."""
     from pnbench.modeling.joint import fit_run
+    from pnbench.sweeps.fitcorrection import compensated_columns
 
+    columns = compensated_columns(steps, columns, (extras or {}).get("lcr_correction"))
     by_kind: dict[str, list[dict]] = {}
     for name, step in steps.items():
         if name in columns and len(columns[name]["voltage_V"]):
@@ -265,6 +267,11 @@ def note_correction(model, record: object):
     without any."""
     if model is None:
         return model
+    from pnbench.sweeps.fitcorrection import judge, runs_of
+
+    judge(model, record)
+    if all(r.get("applied_by") == "software" for r in runs_of(record)):
+        return model  # the meter applied nothing
     for which, note in (("open", OPEN_CORRECTED), ("short", SHORT_CORRECTED)):
         if not open_corrected(record, which):
             continue

@@ -19,6 +19,11 @@ from pnbench.sweeps.limits import (
     RAMP_RATE_V_PER_S,
     Limits,
 )
+from pnbench.sweeps.plancorrection import (
+    Correction,
+    check_correction_over_temperature,
+    read_correction,
+)
 from pnbench.sweeps.planread import Problems, TableReader
 from pnbench.sweeps.planstep import Step, read_step
 from pnbench.sweeps.statednoise import read_plan_noise
@@ -71,27 +76,6 @@ class Instrument:
                 "dialect": self.dialect, "timeout_ms": self.timeout_ms,
                 "ratings": dict(self.ratings),
                 **({"noise": self.noise.to_json_dict()} if self.noise is not None else {})}
-
-
-#: The LCR meter's fixture corrections a plan may ask for, in the order they run.
-CORRECTIONS = ("open", "short")
-
-
-@dataclass(frozen=True)
-class Correction:
-    """Open/short correction of the LCR meter, run before its first step.
-
-    ``confirmed`` False: the operator is asked to set each fixture state (open, then
-    shorted) and confirm it. True: the states are prepared in advance (unattended runs);
-    a device left in the fixture then becomes part of the "open" and is subtracted from
-    every reading after it.
-    """
-
-    which: tuple[str, ...]
-    confirmed: bool = False
-
-    def to_json_dict(self) -> dict:
-        return {"corrections": list(self.which), "confirmed": self.confirmed}
 
 
 @dataclass(frozen=True)
@@ -202,7 +186,7 @@ def _read(doc: dict, text: str, filename: str, base_dir: Path, problems: Problem
     instruments = _read_instruments(top.raw("instruments"), base_dir, problems)
     limits = _read_limits(TableReader(top.raw("limits", True, "a [limits] table") or {},
                                       ("limits",), problems), instruments)
-    correction = _read_correction(top.raw("lcr_correction"), problems)
+    correction = read_correction(top.raw("lcr_correction"), problems)
     steps_raw = top.raw("steps", True, "at least one [[steps]] table")
     temperature_raw = top.raw("temperature")
     top.finish()
@@ -233,6 +217,7 @@ def _read(doc: dict, text: str, filename: str, base_dir: Path, problems: Problem
         temperature = read_temperature(
             TableReader(temperature_raw, ("temperature",), problems),
             {s.name for s in steps}, stage.ratings if stage else None, warnings)
+    check_correction_over_temperature(correction, temperature, problems, warnings)
     if problems.items or limits is None or device is None:
         return None
     if temperature is not None:
@@ -241,24 +226,6 @@ def _read(doc: dict, text: str, filename: str, base_dir: Path, problems: Problem
                 instruments=instruments, steps=tuple(steps), line_frequency_Hz=line_hz,
                 warnings=tuple(warnings), temperature=temperature,
                 correction=correction)
-
-
-def _read_correction(raw: object, problems: Problems) -> Correction | None:
-    if raw is None:
-        return None
-    t = TableReader(raw, ("lcr_correction",), problems)
-    which = t.raw("corrections", True, 'a list such as ["open", "short"]')
-    confirmed = t.boolean("confirmed", False)
-    t.finish()
-    if which is None:
-        return None
-    if (not isinstance(which, list) or not which
-            or not all(isinstance(w, str) and w in CORRECTIONS for w in which)
-            or len(set(which)) != len(which)):
-        t.problem("corrections", f"found {which!r}; give one or both of "
-                  f"{', '.join(repr(c) for c in CORRECTIONS)}, each once")
-        return None
-    return Correction(which=tuple(c for c in CORRECTIONS if c in which), confirmed=confirmed)
 
 
 def _read_device(t: TableReader) -> Device | None:

@@ -23,7 +23,7 @@ from pnbench.sweeps import ending
 from pnbench.sweeps import events as ev
 from pnbench.sweeps.benchtypes import BenchLike
 from pnbench.sweeps.control import Control
-from pnbench.sweeps.correction import run_correction
+from pnbench.sweeps.correction import Corrections
 from pnbench.sweeps.events import EventBus, finite
 from pnbench.sweeps.limits import Reading, StepGuard, Verdict, not_finite
 from pnbench.sweeps.plan import Plan
@@ -74,8 +74,8 @@ class Runner:
         self.current_step: str | None = None
         self.step_failed = False  # the step in hand ended by an instrument fault
         self.in_shutdown = False
-        self.corrected = False  # the plan's LCR correction was run in this process
         self.control = Control()
+        self.corrections = Corrections(plan, bench, bus, self.control, folder, fit)
         self._last_refresh = 0.0
         self._last_compliance_event: dict[str, float] = {}
         self._compliance_count: dict[str, int] = {}
@@ -151,6 +151,7 @@ class Runner:
             self.bus.emit(ev.StepFinished, name, status=status, done=self.done[name],
                           planned=self.plan.step(name).planned,
                           ended_by=self.ended_by.get(name), compliance_count=0)
+        self.corrections.check()  # before any step: a correction the meter cannot do
         if self.fit is not None:
             self.fit.start()
 
@@ -204,12 +205,7 @@ class Runner:
         if step.instrument == "smu":
             status, verdict = self._smu_step(step, start)
         else:
-            if self.plan.correction is not None and not self.corrected:
-                record = run_correction(self.plan, self.bench, self.bus, self.control,
-                                        self.folder, step.name)  # outputs off; open, short
-                self.corrected = True
-                if isinstance(getattr(self.fit, "extras", None), dict):
-                    self.fit.extras["lcr_correction"] = record  # the fit states it
+            self.corrections.before_lcr_step(step)  # outputs off; open, short; or reused
             status, verdict = self._lcr_step(step, start)
         if verdict is not None:
             self.ended_by[step.name] = verdict.kind

@@ -34,7 +34,11 @@ def model_over_temperature(steps: Mapping, columns: Mapping[str, Mapping[str, np
                            extras: dict | None = None):
     """The run's ModelSet over temperature (None when nothing can be fitted)."""
     from pnbench.modeling.fit_temperature import fit_over_temperature
+    from pnbench.sweeps.fitcorrection import compensated_columns
+    from pnbench.sweeps.fitmodel import note_correction
 
+    record = (extras or {}).get("lcr_correction")
+    columns = compensated_columns(steps, columns, record)
     groups: dict[float, list[tuple[str, Mapping[str, np.ndarray]]]] = {}
     for name, step in steps.items():
         sp = getattr(step, "set_point_K", None)
@@ -57,4 +61,4 @@ def model_over_temperature(steps: Mapping, columns: Mapping[str, Mapping[str, np
                   for kind, cols in data.items()}
         sets.append((t if math.isfinite(t) else sp, pooled))
     fit = fit_over_temperature(sets, area_m2=area_m2, ibv_A=ibv_A, extras=extras)
-    return fit.model
+    return note_correction(fit.model, record)

@@ -127,6 +127,9 @@ class FakeLcr:
         self.bias_on = False
         self.ac_level_V = None
         self.log: list[tuple[str, object]] = []
+        self.stray_F = 0.3e-12  # the fixture's, as its open correction measures it
+        self.measured = {"open": False, "short": False}
+        self.applied = {"open": False, "short": False}
 
     def configure(self, ac_level_V: float) -> None:
         self.ac_level_V = ac_level_V
@@ -142,6 +145,27 @@ class FakeLcr:
 
     def bias_is_on(self) -> bool:
         return self.bias_on
+
+    def open_correction(self, timeout_ms: float = 120_000) -> None:
+        self.measured["open"] = self.applied["open"] = True
+        self.log.append(("correction", "open"))
+
+    def short_correction(self, timeout_ms: float = 120_000) -> None:
+        self.measured["short"] = self.applied["short"] = True
+        self.log.append(("correction", "short"))
+
+    def correction_data(self, which: str, frequency_Hz: float) -> tuple[float, float] | None:
+        if not self.measured[which]:
+            return (0.0, 0.0)
+        return ((0.0, 2 * math.pi * frequency_Hz * self.stray_F) if which == "open"
+                else (0.05, 0.0))
+
+    def correction_state(self, which: str) -> bool | None:
+        return self.applied[which]
+
+    def set_correction_state(self, which: str, on: bool) -> bool:
+        self.applied[which] = bool(on)
+        return True
 
     def safe_off(self) -> list[str]:
         self.bias_on = False

@@ -182,6 +182,8 @@ class Progress:
                     self.say(f"fit {step}: " + self.param_text(step))
             case ev.Limit() | ev.WarningEvent() | ev.ErrorEvent():
                 self.say(f"{e.kind}{' in ' + step if step else ''}: {e.message}")
+            case ev.Correction():
+                self.say(correction_line(e))
             case ev.Compliance():
                 self.say(f"compliance in {step} at point {e.index} ({e.count} so far in "
                          "this step)")
@@ -348,3 +350,14 @@ def app_available() -> bool:
     except ImportError:
         return False
     return True
+
+
+def correction_line(e) -> str:
+    """One line on the LCR correction a run ran or reused."""
+    which = " and ".join(e.corrections) or "LCR"
+    at = f" at {e.set_point_K:g} K" if isinstance(e.set_point_K, (int, float)) else ""
+    how = ("compensated in software from its recorded values" if e.applied_by == "software"
+           else "applied by the meter")
+    if e.reused:
+        return f"LCR {which} correction recorded{at} reused ({how})"
+    return f"LCR {which} correction done{at} ({how})"

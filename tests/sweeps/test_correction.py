@@ -68,7 +68,9 @@ def test_check_shows_the_correction(tmp_path, capsys):
     assert "LCR correction: open then short" in out and "operator is asked" in out
     assert cli.main(["check", str(path), "--json"]) == 0
     doc = json.loads(capsys.readouterr().out)
-    assert doc["lcr_correction"] == {"corrections": ["open", "short"], "confirmed": False}
+    assert doc["lcr_correction"] == {"corrections": ["open", "short"], "confirmed": False,
+                                     "apply": "meter", "every_set_point": False,
+                                     "on_resume": "reuse"}
 
 
 def _events(run_dir) -> list[dict]:

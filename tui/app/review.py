@@ -158,10 +158,12 @@ def refit(review: Review):
                  breakdown_guard_A=None)
              for name in {p.step for p in chosen}}
     area = (review.run_doc.get("device") or {}).get("area_m2")
-    stated = review.run_doc.get("stated_noise")  # judged as the run's own fit was
+    # judged, and compensated, as the run's own fit was
+    extras = {k: review.run_doc[k] for k in ("stated_noise", "lcr_correction")
+              if review.run_doc.get(k)}
     model = run_model(steps, chosen, {}, review.temperature_K,
                       area_m2=area if isinstance(area, (int, float)) else None,
-                      extras={"stated_noise": stated} if stated else None)
+                      extras=extras or None)
     if model is None:
         raise DataFileError(f"{review.run_dir}: the points in use give nothing to fit")
     review.refit_model = model

@@ -61,11 +61,15 @@ def summary(plan) -> dict:
 def correction_text(correction) -> str:
     """One line on the LCR meter's fixture correction a plan asks for."""
     which = " then ".join(correction.which)
+    when = ("before the first LCR step at each stage set point"
+            if correction.every_set_point else "before the first LCR step")
+    how = ("; compensated in software (points.csv keeps the raw readings)"
+           if correction.apply == "software" else "")
     if correction.confirmed:
-        return (f"LCR correction: {which}, before the first LCR step, unattended "
-                "(confirmed = true: the fixture states must be prepared in advance)")
-    return (f"LCR correction: {which}, before the first LCR step; the operator is asked "
-            "to set and confirm each fixture state")
+        return (f"LCR correction: {which}, {when}, unattended "
+                f"(confirmed = true: the fixture states must be prepared in advance){how}")
+    return (f"LCR correction: {which}, {when}; the operator is asked "
+            f"to set and confirm each fixture state{how}")
 
 
 def noise_lines(plan) -> list[str]:

@@ -131,6 +131,11 @@ def run(args) -> int:
     result = joint.fit_all(fit_data, temperature_K=temperature, area_m2=area,
                            reference_V=leak, ibv_A=ibv, with_fixture=True if args.fixture else None,
                            extras={"source": str(data.path)}, noise=noise or None)
+    correction = _run_correction(source) if len(args.source) == 1 else None
+    if correction is not None:  # the fits state (and judge) it as the run's own did
+        from pnbench.sweeps.fitmodel import note_correction
+
+        note_correction(result.model, correction)
     if not any(r.success for r in result.results.values()):
         reasons = "; ".join(f"{k}: {r.message}" for k, r in result.results.items())
         raise DataFileError(f"{data.path}: nothing could be fitted ({reasons})")
@@ -256,7 +261,49 @@ def _run_step_columns(source: str, data) -> dict:
                           for s in names[at[ok]]]
             if np.any(np.isfinite(values)):
                 out.setdefault(kind, {})[column] = values
+        compensated = _compensated_rows(data.select(kind), names, at, ok, plan,
+                                        _run_correction(source))
+        if compensated:
+            out.setdefault(kind, {}).update(compensated)
     return out
+
+
+def _run_correction(source: str) -> dict | None:
+    """A run folder's recorded LCR correction (run.json ``lcr_correction``), else None."""
+    from pnbench.errors import PnbenchError
+    from pnbench.sweeps import record
+
+    try:
+        record_doc = record.read_run(source).get("lcr_correction")
+    except (PnbenchError, OSError):
+        return None
+    return record_doc if isinstance(record_doc, dict) else None
+
+
+def _compensated_rows(col, names, at, ok, plan, correction) -> dict:
+    """C and G of a kind's rows compensated as the run's own fits did it, when its
+    correction was applied in software (sweeps.fitcorrection); {} otherwise."""
+    from pnbench.sweeps.fitcorrection import compensated, runs_of
+
+    if col is None or "capacitance_F" not in col or not any(
+            r.get("applied_by") == "software" for r in runs_of(correction)):
+        return {}
+    steps = {s.name: s for s in plan.steps}
+    c = col["capacitance_F"].copy()
+    g = (col.get("conductance_S") if col.get("conductance_S") is not None
+         else c * float("nan")).copy()
+    row_steps = names[at[ok]]
+    for name in set(row_steps.tolist()):
+        if name not in steps:
+            continue
+        rows = ok.copy()
+        rows[ok] = row_steps == name
+        part = compensated(steps[name], {"voltage_V": col["voltage_V"][rows],
+                                         "frequency_Hz": col["frequency_Hz"][rows],
+                                         "capacitance_F": c[rows],
+                                         "conductance_S": g[rows]}, correction)
+        c[rows], g[rows] = part["capacitance_F"], part["conductance_S"]
+    return {"capacitance_F": c, "conductance_S": g}
 
 
 def _json_default(value):

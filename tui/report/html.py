@@ -165,6 +165,16 @@ def _correction(record: object) -> str:
     how = ("unattended, the fixture states prepared in advance" if record.get("confirmed")
            else "each fixture state confirmed by the operator")
     parts = [f"<p>LCR fixture correction: {esc(which)} ({esc(how)}).</p>"]
+    runs = record.get("runs") if isinstance(record.get("runs"), list) else []
+    if any(isinstance(r, dict) and r.get("applied_by") == "software" for r in runs):
+        parts.append("<p>Compensated in software from the values below: points.csv holds "
+                     "the raw readings, the fits use the compensated ones.</p>")
+    at = [r["set_point_K"] for r in runs if isinstance(r, dict)
+          and isinstance(r.get("set_point_K"), (int, float))]
+    if len(at) > 1:
+        parts.append("<p>Run at each stage set point: "
+                     + esc(", ".join(f"{t:g} K" for t in at))
+                     + "; the values below are the last.</p>")
     values = record.get("values") or {}
     rows = []
     for which, data in values.items():
