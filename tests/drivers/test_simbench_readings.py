@@ -267,7 +267,7 @@ def test_the_meter_reports_what_its_corrections_measured():
     stray = device.lcr["fixture_capacitance_F"]
     y = 2j * math.pi * 2e5 * stray * (1 - OPEN_RESIDUAL)
     y = y / (1 + device.lcr["fixture_resistance_ohm"] * y)
-    assert (g, b) == (pytest.approx(y.real), pytest.approx(y.imag))
+    assert (g, b) == (pytest.approx(y.real, abs=0), pytest.approx(y.imag, abs=0))
     assert (r, x) == (device.lcr["fixture_resistance_ohm"], 0.0)
 
 
@@ -288,10 +288,10 @@ def test_the_meter_turns_a_stored_correction_off_and_on_and_says_so():
         raw = cp(lcr)
         lcr.open_correction()
         assert lcr.correction_state("open") is True
-        assert raw - cp(lcr) == pytest.approx(stray * (1 - OPEN_RESIDUAL), rel=0.05)
+        assert raw - cp(lcr) == pytest.approx(stray * (1 - OPEN_RESIDUAL), rel=0.05, abs=0)
         assert lcr.set_correction_state("open", False) is True
         assert lcr.correction_state("open") is False and lcr.correction_state("short") is False
-        assert cp(lcr) == pytest.approx(raw, rel=1e-3)
+        assert cp(lcr) == pytest.approx(raw, rel=1e-4, abs=0)
         assert lcr.correction_data("open", 1e6)[1] > 0  # the data are kept
     with SimBench.start(device) as bench, open_session(bench.lcr_resource) as session:
         assert LcrMeter(session).correction_state("open") is False

@@ -86,7 +86,7 @@ def test_a_refit_of_the_folder_compensates_as_the_run_did(tmp_path, capsys):
     assert refit["lcr_compensated_in_software"] is True
     for name in ("CJO", "VJ", "M"):
         assert refit["parameters"][name]["value"] == pytest.approx(
-            run["parameters"][name]["value"], rel=1e-6), name
+            run["parameters"][name]["value"], rel=1e-6, abs=0), name
 
 
 def test_a_meter_correction_is_judged_against_the_open_it_measured(tmp_path):
@@ -181,7 +181,7 @@ def test_resume_repeats_when_the_plan_asks(tmp_path):
     assert len(record["runs"]) == 2 and not any(e.get("reused") for e in corrections)
 
 
-def test_every_set_point_corrects_again_at_each_stage_temperature(tmp_path):
+def test_every_set_point_corrects_again_at_each_stage_temperature(tmp_path, capsys):
     path = Path(str(resources.files("pnbench.sim_configs") / "plans"
                     / "over_temperature.toml"))
     text = path.read_text(encoding="utf-8")
@@ -198,6 +198,12 @@ def test_every_set_point_corrects_again_at_each_stage_temperature(tmp_path):
     assert [r["set_point_K"] for r in record["runs"]] == pytest.approx([298.15, 348.15])
     events = [e for e in _events(launch.run_dir) if e["kind"] == "lcr_correction"]
     assert [e["set_point_K"] for e in events] == pytest.approx([298.15, 348.15])
+    # the refit of the folder compensates each set point with its own values, as the run
+    assert cli.main(["fit", str(launch.run_dir), "--json"]) == 0
+    refit = json.loads(capsys.readouterr().out)
+    model = _model(launch.run_dir)
+    for row, mine in zip(refit["temperatures"], model["temperatures"], strict=True):
+        assert row["CJO"] == pytest.approx(mine["CJO"], rel=1e-6, abs=0)
     once = parse_plan(text.replace("every_set_point = true", "every_set_point = false"),
                       "over.toml")
     assert any("runs once, at the first set point" in w for w in once.warnings)

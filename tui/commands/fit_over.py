@@ -42,9 +42,31 @@ def run_folder_sets(folder, kind: str = "auto") -> list[tuple[float, dict, str]]
                 data[k] = {n: getattr(points, n)[pick] for n in (
                     "voltage_V", "current_A", "frequency_Hz", "capacitance_F",
                     "conductance_S", "compliance")}
+        if "cv" in data:  # compensated as the run's own fit did, with this set point's
+            data["cv"] = _compensated(data["cv"], folder, sp)  # recorded correction
         if data:
             out.append((float(np.mean(t)) if t.size else sp, data, f"{folder} @ {sp:g} K"))
     return out
+
+
+def _compensated(col: dict, folder, set_point_K: float) -> dict:
+    """C-V columns compensated with the run's correction entry for this set point when
+    the run applied it in software (sweeps.fitcorrection); as they are otherwise."""
+    from pnbench.errors import PnbenchError
+    from pnbench.modeling.compensation import compensate_parallel
+    from pnbench.sweeps import record
+    from pnbench.sweeps.fitcorrection import residuals_for
+
+    try:
+        correction = record.read_run(folder).get("lcr_correction")
+    except (PnbenchError, OSError):
+        return col
+    residuals = residuals_for(correction, set_point_K)
+    if residuals is None:
+        return col
+    c, g = compensate_parallel(col["capacitance_F"], col["conductance_S"],
+                               col["frequency_Hz"], residuals)
+    return {**col, "capacitance_F": c, "conductance_S": g}
 
 
 def run(args) -> int:
