@@ -101,7 +101,7 @@ def test_the_runner_corrects_with_outputs_off_before_the_first_lcr_point(tmp_pat
     assert record["done"] and record["corrections"] == ["open", "short"]
     assert record["values"]["open"]["frequency_Hz"] == [1e5, 1e6]
     # the simulated fixture's 0.35 pF, as the meter measured it (its residual aside)
-    assert record["values"]["open"]["C_F"] == pytest.approx([0.35e-12] * 2, rel=0.01)
+    assert record["values"]["open"]["C_F"] == pytest.approx([0.35e-12] * 2, rel=0.01, abs=0)
     assert events[at]["values"] == record["values"]
 
 
