@@ -87,6 +87,32 @@ def residual_note(cfix: object, open_F: float | None) -> tuple[str, bool] | None
     return text, stale
 
 
+def series_note(rfix: object, short_ohm: float | None) -> tuple[str, bool] | None:
+    """What a fitted residual RFIX says against the short's resistance the meter
+    measured, as `residual_note` for CFIX; None without a short (or a short of 0 ohm)."""
+    if short_ohm is None or not short_ohm > 0 or not isinstance(rfix, Mapping) \
+            or not isinstance(rfix.get("value"), (int, float)):
+        return None
+    value, sd = float(rfix["value"]), rfix.get("sigma")
+    fraction = abs(value) / short_ohm
+    stale = (isinstance(sd, (int, float)) and sd > 0 and abs(value) > 3 * sd
+             and fraction > STALE_FRACTION)
+    text = (f"residual fixture series resistance {value:.4g} ohm is {100 * fraction:.2g} % "
+            f"of the short's {short_ohm:.4g} ohm")
+    return (text + ("; the short correction looks stale: run it again" if stale else
+                    ": small against the short"), stale)
+
+
+def short_resistance(entry: dict | None) -> float | None:
+    try:
+        residuals = FixtureResiduals.from_values((entry or {}).get("values"))
+    except ValueError:
+        return None
+    if residuals is None or not residuals.has_short:
+        return None
+    return float(np.median(residuals.short_R_ohm))
+
+
 def open_capacitance(entry: dict | None) -> float | None:
     try:
         residuals = FixtureResiduals.from_values((entry or {}).get("values"))
@@ -127,6 +153,10 @@ def judge(model, record: object) -> None:
     if note is not None:
         model.extras["correction_residual"] = {"note": note[0], "stale": note[1]}
         _add_message(model, note[0])
+    series = series_note(model.extras.get("fixture_resistance_ohm"), short_resistance(entry))
+    if series is not None:
+        model.extras["correction_series_residual"] = {"note": series[0], "stale": series[1]}
+        _add_message(model, series[0])
 
 
 def _nearest(runs: list[dict], t: float) -> dict | None:

@@ -20,7 +20,7 @@ from pnbench.drivers.session import open_session
 from pnbench.drivers.sim.instruments import OPEN_RESIDUAL
 from pnbench.errors import PlanError
 from pnbench.sweeps import events as ev
-from pnbench.sweeps.fitcorrection import SOFTWARE, residual_note
+from pnbench.sweeps.fitcorrection import SOFTWARE, residual_note, series_note
 from pnbench.sweeps.launch import Launch
 from pnbench.sweeps.plan import parse_plan
 from pnbench.sweeps.store import read_points, read_run
@@ -105,6 +105,14 @@ def test_a_residual_not_small_against_the_open_says_the_correction_is_stale():
     assert not residual_note({"value": 30e-15, "sigma": 20e-15}, 0.35e-12)[1]  # not firm
     assert "no residual" in residual_note(None, 0.35e-12)[0]
     assert residual_note(None, None) is None
+
+
+def test_a_series_residual_is_judged_against_the_short():
+    text, stale = series_note({"value": 0.2, "sigma": 0.01}, 1.0)
+    assert stale and "20 %" in text and "stale" in text
+    assert not series_note({"value": 0.01, "sigma": 0.001}, 1.0)[1]
+    assert series_note({"value": 0.2, "sigma": 0.01}, 0.0) is None  # no short to judge by
+    assert series_note(None, 1.0) is None
 
 
 @pytest.mark.parametrize("correction, words", [
