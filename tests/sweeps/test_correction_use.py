@@ -8,7 +8,9 @@ the circuit in tests/modeling/test_compensation.py."""
 
 from __future__ import annotations
 
+import html
 import json
+import re
 import threading
 from importlib import resources
 from pathlib import Path
@@ -87,6 +89,13 @@ def test_a_refit_of_the_folder_compensates_as_the_run_did(tmp_path, capsys):
     for name in ("CJO", "VJ", "M"):
         assert refit["parameters"][name]["value"] == pytest.approx(
             run["parameters"][name]["value"], rel=1e-6, abs=0), name
+    # the report draws the compensated readings: on them 1/C**2 is a straight line
+    assert cli.main(["report", str(launch.run_dir)]) == 0
+    page = html.unescape(re.sub(r"<[^>]+>", " ", (Path(launch.run_dir) / "report.html")
+                                .read_text(encoding="utf-8")))
+    assert "C\u2013V figures use the compensated ones" in page
+    straight = float(re.search(r"Straightness[^%]*?([\d.]+) %", page).group(1))
+    assert straight < 0.5, straight
 
 
 def test_a_meter_correction_is_judged_against_the_open_it_measured(tmp_path):

@@ -142,6 +142,29 @@ def group_cv(cv: Points, kinds: dict[str, str]) -> tuple[list[Curve], list[Curve
     return curves, spectra
 
 
+def compensated_cv(data: RunData) -> Points:
+    """The C-V points as the run's fits used them: compensated with the recorded LCR
+    correction of each step's set point where pnbench applied it in software
+    (sweeps.fitcorrection; points.csv keeps them raw), else as read."""
+    from dataclasses import replace
+
+    from pnbench.modeling.compensation import compensate_parallel
+    from pnbench.sweeps.fitcorrection import residuals_for, runs_of
+    from pnbench.tui.report.arrhenius import set_point_of
+
+    cv, record = data.cv, (data.run or {}).get("lcr_correction")
+    if not any(r.get("applied_by") == "software" for r in runs_of(record)):
+        return cv
+    c, g = cv.capacitance_F.copy(), cv.conductance_S.copy()
+    steps = np.array(cv.step, dtype=object)
+    for name in dict.fromkeys(cv.step):
+        residuals = residuals_for(record, set_point_of(str(name)))
+        if residuals is not None:
+            at = steps == name
+            c[at], g[at] = compensate_parallel(c[at], g[at], cv.frequency_Hz[at], residuals)
+    return replace(cv, capacitance_F=c, conductance_S=g)
+
+
 def _curve(cv: Points, sel: np.ndarray, label: float, step: str, order: np.ndarray) -> Curve:
     idx = np.flatnonzero(sel)
     idx = idx[np.argsort(order[idx], kind="stable")]
@@ -241,7 +264,7 @@ def analyze(data: RunData) -> Analysis:
         out.reverse_extreme_V = float(np.min(out.reverse.voltage_V))
         _breakdown(out, data)
     if data.cv is not None:
-        out.cv_curves, out.spectra = group_cv(data.cv, step_kinds(data))
+        out.cv_curves, out.spectra = group_cv(compensated_cv(data), step_kinds(data))
     if not out.cv_curves:
         out.missing.append("no C-V sweep (three or more biases at one frequency): the C-V, "
                            "1/C\u00b2 and doping figures are missing")

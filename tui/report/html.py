@@ -168,7 +168,8 @@ def _correction(record: object) -> str:
     runs = record.get("runs") if isinstance(record.get("runs"), list) else []
     if any(isinstance(r, dict) and r.get("applied_by") == "software" for r in runs):
         parts.append("<p>Compensated in software from the values below: points.csv holds "
-                     "the raw readings, the fits use the compensated ones.</p>")
+                     "the raw readings, the fits and this report's C–V figures use the "
+                     "compensated ones.</p>")
     at = [r["set_point_K"] for r in runs if isinstance(r, dict)
           and isinstance(r.get("set_point_K"), (int, float))]
     if len(at) > 1:
