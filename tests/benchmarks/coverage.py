@@ -1,6 +1,6 @@
 """Are the reported sigmas honest? Coverage of the whole extraction over noisy runs.
 
-Run: python tests/benchmarks/coverage.py [--draws N] [--quick]
+Run: python tests/benchmarks/coverage.py [--draws N] [--quick] [--stated]
 
 For each of three invented parts (a varactor with a fixture capacitance, a rectifier
 whose diffusion capacitance is already ~1 % of CJO at 0 V, a leaky diode with a shunt)
@@ -13,6 +13,10 @@ common practice, no source), N times with fresh noise. Each run goes through
 truth: z = (value - truth)/sigma. If the sigmas are honest, z has unit variance, so the
 rms of z over the draws is ~1 (0.7..1.4 is the target; with 30 draws the rms itself
 scatters by ~13 %). A parameter missing from a draw's model counts as a miss.
+
+With ``--stated`` the fits are given the noise the data were made with (the current's
+noise then adds its two parts linearly, as a stated noise does) instead of estimating
+it: the sigmas then come from the stated noise, and chi-square is judged against it.
 
 The exact model is checked against ngspice in tests/modeling/test_junction_ngspice.py.
 The last line printed is one JSON object with the figures.
@@ -67,9 +71,11 @@ def conditions(dev: dict):
     return fv, rv, cv_v, cv_f
 
 
-def draw(dev: dict, rng: np.random.Generator, clean: dict) -> dict:
+def draw(dev: dict, rng: np.random.Generator, clean: dict, linear: bool = False) -> dict:
     def noisy_i(i):
-        return i + rng.normal(size=i.shape) * np.sqrt((I_REL * i) ** 2 + I_FLOOR**2)
+        sd = I_REL * np.abs(i) + I_FLOOR if linear else np.sqrt((I_REL * i) ** 2
+                                                                + I_FLOOR**2)
+        return i + rng.normal(size=i.shape) * sd
 
     w = 2 * np.pi * clean["cv_f"]
     y = clean["y"]
@@ -118,7 +124,13 @@ def main(argv: list[str]) -> dict:
     if "--draws" in argv:
         draws = int(argv[argv.index("--draws") + 1])
     rng = np.random.default_rng(20261202)
-    report: dict = {"draws_per_device": draws, "devices": {}}
+    stated = "--stated" in argv
+    noise = None
+    if stated:
+        from pnbench.modeling.stated import StatedNoise
+
+        noise = {"iv": StatedNoise(I_REL, I_FLOOR), "cv": StatedNoise(Y_REL, C_FLOOR)}
+    report: dict = {"draws_per_device": draws, "stated_noise": stated, "devices": {}}
     pooled: dict[str, list[float]] = {}
     start = time.perf_counter()
     for name, dev in DEVICES.items():
@@ -126,7 +138,8 @@ def main(argv: list[str]) -> dict:
         zs: dict[str, list[float]] = {}
         misfits = 0
         for _ in range(draws):
-            fit = joint.fit_all(draw(dev, rng, clean), ibv_A=dev["p"].IBV)
+            fit = joint.fit_all(draw(dev, rng, clean, linear=stated), ibv_A=dev["p"].IBV,
+                                noise=noise)
             misfits += sum(bool(r.extras.get("lack_of_fit", {}).get("misfit"))
                            for r in fit.results.values())
             for k, z in z_scores(dev, fit).items():
