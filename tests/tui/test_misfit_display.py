@@ -59,3 +59,17 @@ def test_the_review_marks_a_misfit_fit():
     marked = estimates(doc)
     assert marked["CJO"].misfit and not marked["IS"].misfit
     assert misfits(None) == [] and estimates(None) == {}
+
+
+def test_the_report_says_what_chi_square_was_judged_against():
+    from pnbench.modeling.modelset import ModelSet
+    from pnbench.tui.report.analysis import Analysis
+    from pnbench.tui.report.tables import noise_note
+
+    stated = ModelSet(values={"IS": 4e-15}, sigmas={"IS": 1e-17}, temperature_K=300.15,
+                      extras={"stated_noise": {"iv": {"relative": 1e-4, "floor": 0.0,
+                                                      "source": "plan [instruments.smu]"}}})
+    note = noise_note(Analysis(300.15, True, model=stated))
+    assert "stated noise" in note and "plan [instruments.smu]" in note
+    guessed = noise_note(Analysis(300.15, True, model=ModelSet(values={}, sigmas={})))
+    assert "by construction" in guessed and "runs test" in guessed

@@ -160,7 +160,22 @@ def _fit_quality(an: Analysis) -> str:
     if not rows:
         return ""
     return "<h3>Fits</h3>" + table(["Fit", "Converged", "Points used", "Reduced \u03c7\u00b2",
-                                     "Misfit", "Message"], rows)
+                                     "Misfit", "Message"], rows) + noise_note(an)
+
+
+def noise_note(an: Analysis) -> str:
+    """What the fits' chi-square was judged against: the stated noise and its source,
+    or the noise estimated from the residuals."""
+    stated = (an.model.extras.get("stated_noise") if an.model is not None else None) or {}
+    said = [f"{'the SMU' if k == 'iv' else 'the LCR meter'}'s from {v.get('source', '?')}"
+            for k, v in stated.items() if isinstance(v, dict)]
+    if said:
+        return (f"<p>Reduced \u03c7\u00b2 is judged against the instruments' stated noise "
+                f"({esc('; '.join(said))}): near 1 when the model describes the data.</p>")
+    return ("<p>No instrument noise was stated, so each fit estimated it from its own "
+            "residuals: reduced \u03c7\u00b2 is near 1 by construction, and only the runs "
+            "test of residual signs can flag a misfit (a plan or dialect can state the "
+            "noise).</p>")
 
 
 def misfit_cell(rec: dict) -> str:
