@@ -92,8 +92,10 @@ def _row(t: float, jf: joint.JointFit) -> dict[str, Any]:
 def fit_over_temperature(sets: Sequence[tuple[float, Mapping[str, Mapping[str, Any]]]], *,
                          tnom_K: float | None = None, area_m2: float | None = None,
                          ibv_A: float | None = None, reference_V: float | None = None,
-                         extras: Mapping[str, Any] | None = None) -> TemperatureFit:
-    """One model from (temperature_K, data) pairs; ``data`` as joint.fit_all takes it.
+                         extras: Mapping[str, Any] | None = None,
+                         noise: Mapping[str, Any] | None = None) -> TemperatureFit:
+    """One model from (temperature_K, data) pairs; ``data`` as joint.fit_all takes it,
+    ``noise`` the instruments' stated noise (joint.fit_all) at every temperature.
 
     Pairs at the same temperature are fitted together. ValueError when ``sets`` is empty
     or a temperature is not above 0 K.
@@ -114,7 +116,8 @@ def fit_over_temperature(sets: Sequence[tuple[float, Mapping[str, Mapping[str, A
               for t, kinds in merged.items()}
     with np.errstate(all="ignore"):
         per_t = tuple((t, joint.fit_all(pooled[t], temperature_K=t, area_m2=area_m2,
-                                        reference_V=reference_V, ibv_A=ibv_A))
+                                        reference_V=reference_V, ibv_A=ibv_A,
+                                        noise=noise))
                       for t in temps)
     forward = [f for f in (forward_points(pooled[t], t) for t in temps) if f is not None]
     result = global_iv_fit(forward, tnom)

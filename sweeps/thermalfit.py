@@ -35,7 +35,8 @@ def model_over_temperature(steps: Mapping, columns: Mapping[str, Mapping[str, np
     """The run's ModelSet over temperature (None when nothing can be fitted)."""
     from pnbench.modeling.fit_temperature import fit_over_temperature
     from pnbench.sweeps.fitcorrection import compensated_columns
-    from pnbench.sweeps.fitmodel import note_correction
+    from pnbench.sweeps.fitmodel import noise_scale, note_correction
+    from pnbench.sweeps.statednoise import fit_noise
 
     record = (extras or {}).get("lcr_correction")
     columns = compensated_columns(steps, columns, record)
@@ -45,6 +46,7 @@ def model_over_temperature(steps: Mapping, columns: Mapping[str, Mapping[str, np
         col = columns.get(name)
         if sp is None or col is None or not len(col["voltage_V"]):
             continue
+        col = {**col, "noise_scale": np.full(len(col["voltage_V"]), noise_scale(step))}
         groups.setdefault(float(sp), []).append((step.kind, col))
     if not groups:
         return None
@@ -60,5 +62,6 @@ def model_over_temperature(steps: Mapping, columns: Mapping[str, Mapping[str, np
                   {c: np.concatenate([p[c] for p in cols]) for c in cols[0]}
                   for kind, cols in data.items()}
         sets.append((t if math.isfinite(t) else sp, pooled))
-    fit = fit_over_temperature(sets, area_m2=area_m2, ibv_A=ibv_A, extras=extras)
+    fit = fit_over_temperature(sets, area_m2=area_m2, ibv_A=ibv_A, extras=extras,
+                               noise=fit_noise((extras or {}).get("stated_noise")))
     return note_correction(fit.model, record)
