@@ -5,7 +5,10 @@
 
 Order of work for one SMU point: check the level against the guards (before it is applied),
 apply and read (settle, average), append the point to points.csv (flushed), emit it, hand
-it to the fitter, check the reading. Every way out of `run` (the end, an exception, an
+it to the fitter, check the reading. Nothing between two points waits for the disk: the
+run folder's background thread fsyncs and writes the steps' progress to run.json
+(`RunFolder.update_run_soon`); changes of state (start, pause, the end) are written
+before the runner goes on. Every way out of `run` (the end, an exception, an
 instrument fault, an abort, Ctrl-C, a signal handled by `stopsignals`) goes through the
 same `finally`: ramp the source to zero, outputs and LCR bias off, read back that they are
 off, and record it in run.json (`outputs_off_confirmed`); then the end work in the order
@@ -193,7 +196,7 @@ class Runner:
         start = self.done[step.name]
         self.step_status[step.name] = StepStatus.RUNNING
         self._compliance_count[step.name] = 0
-        self.folder.update_run(steps=self._steps_doc())
+        self.folder.update_run_soon(steps=self._steps_doc())
         self.bus.emit(ev.StepStarted, step.name, step_kind=step.kind, planned=step.planned,
                       done=start, instrument=step.instrument)
         self.folder.log(f"step {step.name} ({step.kind}): from point {start} of "
@@ -214,13 +217,13 @@ class Runner:
         self.current_step = None
 
     def _finish_step_record(self, name: str, status: str) -> None:
-        self.folder.sync()
+        self.folder.sync_soon()
         self.step_status[name] = status
         self.bus.emit(ev.StepFinished, name, status=status, done=self.done[name],
                       planned=self.plan.step(name).planned,
                       ended_by=self.ended_by.get(name),
                       compliance_count=self._compliance_count.get(name, 0))
-        self.folder.update_run(steps=self._steps_doc())
+        self.folder.update_run_soon(steps=self._steps_doc())
         if self.fit is not None and status not in (StepStatus.INTERRUPTED,
                                                    StepStatus.FAILED):
             self.fit.step_done(name)
@@ -375,7 +378,7 @@ class Runner:
         now = time.monotonic()
         if now - self._last_refresh >= RUN_JSON_REFRESH_S:
             self._last_refresh = now
-            self.folder.update_run(steps=self._steps_doc())
+            self.folder.update_run_soon(steps=self._steps_doc())
 
     def _compliance(self, step: Step, point: Point) -> None:
         count = self._compliance_count.get(step.name, 0) + 1

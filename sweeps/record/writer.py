@@ -5,11 +5,18 @@ Durability rules (docs/run-folder.md):
 - a new folder is built under a hidden temporary name inside ``--out`` and renamed to
   its final name once run.json exists, so a folder under a run's name always has one;
 - a point is written and flushed to the operating system before the next bias step, so a
-  killed process (even kill -9) loses nothing it had read; `sync()` (fsync) runs at least
-  once a second from `append_point` and at each step end, which covers power loss up to
-  about a second;
+  killed process (even kill -9) loses nothing it had read;
+- points.csv and events.jsonl are fsynced at least once a second while points come, and
+  right after each step end (`sync_soon`), by a background thread (`_Syncer`): an fsync
+  may take tens of milliseconds on a busy disk, which the acquisition thread never waits
+  for; this covers power loss up to about a second. The end of a run calls `sync()`,
+  which waits;
 - run.json, model.json, the model card and the report are replaced atomically (temporary
-  file, fsync, rename), so a reader never sees half a document;
+  file, fsync, rename), so a reader never sees half a document. `update_run` writes
+  run.json before it returns (a change of state); `update_run_soon` (the steps' done
+  counts while points flow, a step's start and end) leaves the write to the background
+  thread, which writes the latest document; every run.json write holds one lock, so the
+  newest document is the last one renamed into place;
 - `RunFolder.reopen` cuts a torn last line (a write cut short by the kill) from points.csv
   and events.jsonl before appending, so the files stay parseable.
 """
@@ -21,7 +28,7 @@ import fcntl
 import json
 import os
 import threading
-import time
+import weakref
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -111,8 +118,11 @@ class RunFolder:
         self._events = open(self.path / layout.EVENTS, "a", encoding="utf-8")
         self._log = open(self.path / layout.LOG, "a", encoding="utf-8")
         self._lock = threading.Lock()
-        self._last_sync = time.monotonic()
+        self._run_lock = threading.RLock()  # one run.json write at a time, newest last
+        self._run_pending = False
         self._dirty = False
+        self._closed = False
+        self._syncer: _Syncer | None = None
         self.temperature_column = _has_temperature_column(self.path / layout.POINTS)
 
     # -- creating and reopening -------------------------------------------------------
@@ -189,39 +199,76 @@ class RunFolder:
 
     # -- writing ------------------------------------------------------------------------
     def append_point(self, point: Point) -> None:
-        """Write one point and flush it; fsync when a second has passed since the last."""
+        """Write one point and flush it to the operating system (the background thread
+        fsyncs it within a second)."""
         self._points.write(point.to_row(self.temperature_column))
         self._points.flush()
-        self._dirty = True
-        now = time.monotonic()
-        if now - self._last_sync >= FSYNC_INTERVAL_S:
-            self.sync(now)
+        if not self._dirty:
+            self._dirty = True
+            if self._syncer is None:
+                self._start_syncer()
 
     def append_event(self, event: Event) -> None:
         with self._lock:
             self._events.write(event.to_json() + "\n")
             self._events.flush()
 
-    def sync(self, now: float | None = None) -> None:
-        """fsync points.csv and events.jsonl (step ends, and once a second)."""
+    def sync(self) -> None:
+        """fsync points.csv and events.jsonl now, and write a pending run.json (the end of
+        a run; waits)."""
         with self._lock:
             for f in (self._points, self._events):
                 f.flush()
+        self._fsync_files()
+        self._write_pending_run()
+
+    def sync_soon(self) -> None:
+        """Ask the background thread to fsync points.csv and events.jsonl now (a step
+        end); returns at once."""
+        self._dirty = True
+        self._start_syncer().wake()
+
+    def _fsync_files(self) -> None:
+        self._dirty = False
+        for f in (self._points, self._events):
+            with contextlib.suppress(ValueError):  # closed meanwhile
                 os.fsync(f.fileno())
-            self._dirty = False
-            self._last_sync = time.monotonic() if now is None else now
 
     def write_run(self, doc: dict) -> None:
-        with self._lock:
+        """Replace run.json with ``doc`` now (atomically, fsynced)."""
+        with self._run_lock:
             self.run = doc
+            self._run_pending = False
             atomic_write(self.path / layout.RUN, json.dumps(doc, indent=2, default=str)
                          + "\n")
 
     def update_run(self, **changes) -> dict:
-        """Merge top-level keys into run.json and rewrite it atomically."""
-        doc = {**self.run, **changes}
-        self.write_run(doc)
+        """Merge top-level keys into run.json and rewrite it atomically before returning
+        (a change of state)."""
+        with self._run_lock:
+            doc = {**self.run, **changes}
+            self.write_run(doc)
         return doc
+
+    def update_run_soon(self, **changes) -> dict:
+        """Merge top-level keys into run.json; the background thread writes it (within a
+        second, the latest document wins). For progress while points flow."""
+        self.run = doc = {**self.run, **changes}
+        self._run_pending = True
+        self._start_syncer().wake()
+        return doc
+
+    def _write_pending_run(self) -> None:
+        with self._run_lock:
+            if self._run_pending:
+                self._run_pending = False
+                atomic_write(self.path / layout.RUN,
+                             json.dumps(self.run, indent=2, default=str) + "\n")
+
+    def _start_syncer(self) -> _Syncer:
+        if self._syncer is None:
+            self._syncer = _Syncer(self)
+        return self._syncer
 
     def log(self, message: str) -> None:
         stamp = datetime.now(UTC).strftime("%Y-%m-%d %H:%M:%S")
@@ -236,6 +283,11 @@ class RunFolder:
             atomic_write(self.path / layout.card_file_name(device_name), card_text)
 
     def close(self) -> None:
+        if self._syncer is not None:
+            self._syncer.stop()
+        with contextlib.suppress(OSError, ValueError):
+            self._write_pending_run()
+        self._closed = True
         for f in (self._points, self._events, self._log):
             try:
                 f.flush()
@@ -245,6 +297,48 @@ class RunFolder:
                 pass
         with contextlib.suppress(OSError):
             self._lockfile.close()  # releases the lock
+
+
+class _Syncer:
+    """The background thread of a `RunFolder`: fsyncs points.csv and events.jsonl once a
+    second while they change (at once when woken: a step end) and writes run.json when
+    `update_run_soon` left it pending. It holds the folder weakly and ends with
+    `RunFolder.close` (or when the folder is gone)."""
+
+    def __init__(self, folder: RunFolder) -> None:
+        self._folder = weakref.ref(folder)
+        self._event = threading.Event()
+        self._stop = False
+        self._warned = False
+        self._thread = threading.Thread(target=self._loop, name="pnbench-sync", daemon=True)
+        self._thread.start()
+
+    def wake(self) -> None:
+        self._event.set()
+
+    def stop(self) -> None:
+        self._stop = True
+        self._event.set()
+        if self._thread is not threading.current_thread():
+            self._thread.join(10.0)
+
+    def _loop(self) -> None:
+        while not self._stop:
+            self._event.wait(FSYNC_INTERVAL_S)
+            self._event.clear()
+            folder = self._folder()
+            if folder is None or folder._closed:
+                return
+            try:
+                if folder._dirty:
+                    folder._fsync_files()
+                folder._write_pending_run()
+            except OSError as exc:  # a full or failing disk: say so once, keep trying
+                if not self._warned:
+                    self._warned = True
+                    with contextlib.suppress(OSError, ValueError):
+                        folder.log(f"background fsync or run.json write failed: {exc}")
+            del folder
 
 
 def _take_lock(path: Path):
