@@ -1,19 +1,19 @@
 """Feeding the incremental fitters off the acquisition path.
 
-The runner hands each point to `FitWorker.submit` (a queue put, microseconds) and goes on
-to the next bias point. The worker thread wakes at most every `snapshot_interval_s`, adds
-the points gathered meanwhile to one `IncrementalFitter` per step as one batch (far
-cheaper per point than one by one, and it leaves the interpreter to the acquisition
-thread in between), takes a snapshot (also when the step ends: that event says
+The runner hands each point to `FitWorker.submit`, which appends it to the step's typed
+columns (`fitmodel.Columns`, about a microsecond; no object is kept or queued), and goes
+on to the next bias point. The worker thread wakes every `snapshot_interval_s` (at once
+for a step end), adds the rows appended meanwhile to one `IncrementalFitter` per step as
+one batch (far cheaper per point than one by one, and it leaves the interpreter to the
+acquisition thread in between), takes a snapshot (also when the step ends: that event says
 ``final``), emits a ``fit`` event (with the reverse fit's ``leakage`` and ``ibv_A``),
 flags a step whose target parameters (`settle_targets`) have settled to the step's
 ``end_when_settled``, and writes model.json and the model card through the run folder.
 
-The worker keeps every point it is given as numpy columns per step (`fitmodel.Columns`,
-no object per point). After each step it writes a provisional model assembled from the
-live fits' snapshots (no new fitting, so a step end costs the same in a run's first hour
-as in its last); the run's model is fitted once, from those columns, when the run ends
-(`finish`). Nothing is read back from points.csv.
+The columns are all the worker keeps of a point (8 bytes a value). After each step it
+writes a provisional model assembled from the live fits' snapshots (no new fitting, so a
+step end costs the same in a run's first hour as in its last); the run's model is fitted
+once, from those columns, when the run ends (`finish`). Nothing is read back from points.csv.
 
 A fit event publishes estimates only (`estimates`): a value its fitter's bounds chose, or
 one with a relative standard error beyond MAX_REL_SIGMA, goes under ``not_determined``
@@ -41,8 +41,6 @@ from pnbench.sweeps.planstep import Step
 from pnbench.sweeps.record import Point
 
 _STOP = object()
-#: Most points taken off the queue at once (added to a fitter as one batch).
-MAX_BATCH = 200_000
 #: The largest relative standard error of a value a fit event publishes as an estimate.
 MAX_REL_SIGMA = 1.0
 #: What a step of each kind is for: a step with ``end_when_settled`` ends when these
@@ -138,16 +136,21 @@ class FitWorker:
         self.write_model = write_model
         self.interval = snapshot_interval_s
         self.enabled = enabled and fitmodel.available()
+        # a step's start and end, and the stop: what orders the steps' fits
         self._queue: queue.SimpleQueue = queue.SimpleQueue()
         self._fitters: dict[str, object] = {}
         self._broken: set[str] = set()
-        self._columns: dict[str, fitmodel.Columns] = {}
+        over_t = thermalfit.over_temperature(self.steps)
+        self._columns: dict[str, fitmodel.Columns] = {
+            s.name: fitmodel.Columns(s.kind, temperature=over_t) for s in steps}
+        self._fed: dict[str, int] = {s.name: 0 for s in steps}  # points given to the fitter
+        self._current: str | None = None  # the step the acquisition thread submits to
+        self._open: list[str] = []  # steps started and not ended (the worker's view)
         self._dirty: set[str] = set()
         self._settled: set[str] = set()
         self.latest: dict[str, object] = {}  # step -> FitResult
         self._thread: threading.Thread | None = None
         self._last_snapshot = 0.0
-        self._last_batch = 0.0
 
     # -- called from the acquisition thread ------------------------------------------
     def start(self) -> None:
@@ -157,11 +160,17 @@ class FitWorker:
             self._thread.start()
 
     def submit(self, step: Step, point: Point) -> None:
+        """Keep the point in the step's columns (about a microsecond; no object is kept
+        and nothing is queued: the worker takes the new rows when it wakes)."""
         if self.enabled:
-            self._queue.put((step.name, point))
+            self._columns[step.name].append(point)
+            if step.name != self._current:  # once a step: its rows are fed from now on
+                self._current = step.name
+                self._queue.put((step.name, "start"))
 
     def step_done(self, step_name: str) -> None:
         if self.enabled:
+            self._current = None
             self._queue.put((step_name, None))
 
     def is_settled(self, step_name: str) -> bool:
@@ -171,11 +180,12 @@ class FitWorker:
         """Feed points already on disk (a resumed run) synchronously, then snapshot."""
         if not self.enabled or not points:
             return
-        self._add(step.name, list(points))
+        self._columns[step.name].extend(points)
+        self._feed(step.name)
         self._snapshot(step.name)
 
     def finish(self, timeout_s: float = 60.0) -> None:
-        """Drain the queue, take the last snapshots and write the final model."""
+        """Feed what is left, take the last snapshots and write the final model."""
         if self._thread is not None:
             self._queue.put(_STOP)
             self._thread.join(timeout_s)
@@ -185,20 +195,15 @@ class FitWorker:
 
     # -- the worker thread ----------------------------------------------------------------
     def _loop(self) -> None:
+        """Wake every `interval` (at once for a step end or the stop): feed the rows that
+        came meanwhile to their fitters as one batch each (far cheaper per point than one
+        by one; the acquisition thread keeps the interpreter in between), snapshot."""
         while True:
             try:
-                first = self._queue.get(timeout=self.interval)
+                batch = [self._queue.get(timeout=self.interval)]
             except queue.Empty:
-                self._snapshot_dirty()
-                continue
-            # let points gather: the fitters cost far less per point in large batches,
-            # and the acquisition thread keeps the interpreter in between
-            wait = self.interval - (time.monotonic() - self._last_batch)
-            if wait > 0 and first is not _STOP and first[1] is not None:
-                time.sleep(wait)
-            self._last_batch = time.monotonic()
-            batch = [first]
-            while len(batch) < MAX_BATCH:
+                batch = []
+            while True:
                 try:
                     batch.append(self._queue.get_nowait())
                 except queue.Empty:
@@ -209,44 +214,41 @@ class FitWorker:
                 self._snapshot_dirty()
 
     def _handle(self, batch: list) -> bool:
-        """Add runs of points in batches; act on step ends and the stop mark in order.
-        True when the stop mark was met."""
-        run: list[Point] = []
-        run_step = None
-        for k, item in enumerate([*batch, None]):
-            if item is not None and item is not _STOP and item[1] is not None \
-                    and item[0] == run_step:
-                run.append(item[1])
-                continue
-            if run:
-                self._add(run_step, run)
-                run, run_step = [], None
-            if item is None:
-                break
+        """Act on a step's start ``(step, "start")``, its end ``(step, None)`` and the stop
+        mark in order, then feed the open steps' new rows. A step is fed only once its
+        start was read, so a step's fitter never begins before the previous step's last
+        snapshot (an admittance fit holds what the earlier steps found). True when the
+        stop mark was met."""
+        for k, item in enumerate(batch):
             if item is _STOP:
+                for name in self._open:
+                    self._feed(name)
                 self._snapshot_dirty()
                 self._write_model(final=True)
                 return True
-            name, point = item
-            if point is None:
-                # when the run's end follows at once, its model (fitted from every point)
-                # comes next: the step's last snapshot needs no refit, no provisional model
-                ending = batch[k + 1:k + 2] == [_STOP]
-                self._snapshot(name, final=True, refit=not ending)
-                self._fitters.pop(name, None)  # done: its result stays, its copy goes
-                if not ending:
-                    self._write_model(final=False)
-            else:
-                run, run_step = [point], name
+            name, what = item
+            if what == "start":
+                self._open.append(name)
+                continue
+            self._feed(name)
+            if name in self._open:
+                self._open.remove(name)
+            # when the run's end follows at once, its model (fitted from every point)
+            # comes next: the step's last snapshot needs no refit, no provisional model
+            ending = batch[k + 1:k + 2] == [_STOP]
+            self._snapshot(name, final=True, refit=not ending)
+            self._fitters.pop(name, None)  # done: its result stays, its copy goes
+            if not ending:
+                self._write_model(final=False)
+        for name in self._open:
+            self._feed(name)
         return False
 
-    def _add(self, name: str, points: list[Point]) -> None:
-        columns = self._columns.get(name)
-        if columns is None:
-            columns = self._columns[name] = fitmodel.Columns()
-        start = len(columns)
-        columns.extend(points)
-        if name in self._broken:
+    def _feed(self, name: str) -> None:
+        """Give a step's fitter the rows it has not had yet."""
+        columns = self._columns[name]
+        start, n = self._fed[name], len(columns)
+        if n <= start or name in self._broken:
             return
         step = self.steps[name]
         try:
@@ -262,8 +264,10 @@ class FitWorker:
                                              stated_noise=self.extras.get("stated_noise"),
                                              step=step)
                 self._fitters[name] = fitter
+            rows = columns.view(start)
+            self._fed[name] = start + len(rows["voltage_V"])
             fitmodel.add_columns(fitter, step.kind, fitcorrection.compensated(
-                step, columns.view(start), self.extras.get("lcr_correction")))
+                step, rows, self.extras.get("lcr_correction")))
         except Exception as exc:  # noqa: BLE001 - fitting must never stop a run
             self._break(name, exc)
             return
@@ -293,7 +297,7 @@ class FitWorker:
         shown, not_determined = estimates(result)
         aims = settle_targets(step.kind, shown)
         if (target and result.success and aims and all(result.settled(target, aims).values())
-                and len(self._columns.get(name, ())) >= step.min_points):
+                and len(self._columns[name]) >= step.min_points):
             self._settled.add(name)
         self.bus.emit("fit", name, fit_kind=result.kind, success=bool(result.success),
                       message=str(result.message), n_points=int(result.n_points),
@@ -310,12 +314,12 @@ class FitWorker:
             return
         try:
             if final and thermalfit.over_temperature(self.steps):
-                columns = {name: c.view() for name, c in self._columns.items()}
+                columns = {name: c.view() for name, c in self._columns.items() if len(c)}
                 model = thermalfit.model_over_temperature(
                     self.steps, columns, area_m2=self.area_m2, extras=self.extras,
                     ibv_A=fitmodel.breakdown_current_A(self.steps.values()))
             elif final:
-                columns = {name: c.view() for name, c in self._columns.items()}
+                columns = {name: c.view() for name, c in self._columns.items() if len(c)}
                 model = fitmodel.model_of_columns(self.steps, columns, self.temperature_K,
                                                   area_m2=self.area_m2, extras=self.extras)
             else:

@@ -98,14 +98,18 @@ def test_no_provisional_model_just_before_the_run_model(monkeypatch):
     refits = []
     monkeypatch.setattr(IncrementalFitter, "refit", lambda self: refits.append(self))
     plan = plan_of(["forward"])
-    batch = [("forward", p) for p in step_points("forward", np.random.default_rng(510))]
+    batch = step_points("forward", np.random.default_rng(510))
     written = []
     worker = FitWorker(plan.steps, EventBus(), temperature_K=T_K, write_model=written.append)
-    assert worker._handle([*batch, ("forward", None), _STOP]) is True
+    for p in batch:
+        worker.submit(plan.steps[0], p)
+    assert worker._handle([("forward", None), _STOP]) is True
     assert len(written) == 1 and "provisional" not in written[0].extras
     assert refits == []
     written.clear()
     worker = FitWorker(plan.steps, EventBus(), temperature_K=T_K, write_model=written.append)
-    worker._handle([*batch, ("forward", None)])  # a step's end alone: refit, provisional
+    for p in batch:
+        worker.submit(plan.steps[0], p)
+    worker._handle([("forward", None)])  # a step's end alone: refit, provisional
     assert len(refits) == 1 and len(written) == 1 and written[0].extras.get("provisional")
     assert worker._fitters == {} and worker.latest["forward"].success  # fitter let go
