@@ -8,14 +8,19 @@ split evenly between them, no two steps at the same levels) with
 `pnbench run --headless --no-report` on the simulated bench at time scale 0, each in its
 own process, fitting on. From each run:
 
-* peak_rss_MiB: the run process's peak resident memory (``wait4`` rusage);
+* peak_rss_MiB: the run process's peak resident memory (``wait4`` rusage), end work
+  included; acquisition_peak_rss_MiB: its peak until the last point (the kernel's
+  high-water mark, VmHWM, read from /proc every RSS_POLL_S), and rss_last_point_MiB its
+  resident memory then (VmRSS): the acquisition side apart from the run's final fit;
 * wall_per_point_us: the time from the first to the last point (points.csv ``time_s``)
   divided by the points between them;
 * end_tail_s: from the last point to the run process's exit (run start from run.json,
   plus the last point's ``time_s``, against the moment the process was reaped);
 * longest_pause_ms: the longest gap between two consecutive points, and where it was;
   also the longest within a step (a step's first point waits for the instrument to be
-  configured for it) and the 99.9th percentile of the gaps.
+  configured for it) and the 99th and 99.9th percentiles of the gaps. On a shared
+  machine the longest pause includes whatever else the machine was doing (another
+  process holding both cores); the percentiles say what is typical.
 
 The ratios (second size against the first, and with ``--big`` 1e6 against 1e4) are what
 means something on a shared machine; the absolute figures depend on the machine's load.
@@ -26,10 +31,12 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import os
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 from datetime import datetime
 from pathlib import Path
@@ -41,6 +48,7 @@ from plantext import cv, forward, limits, plan_text  # noqa: E402
 
 DEVICE = "lh-vc510"
 STEPS = 10
+RSS_POLL_S = 0.1
 
 
 def plan_for(points: int) -> str:
@@ -66,6 +74,35 @@ def point_times(run_dir: Path) -> tuple[np.ndarray, np.ndarray]:
     return np.array([float(c[3]) for c in cells]), first
 
 
+def memory_samples(pid: int, stop: threading.Event) -> list[tuple[float, float, float]]:
+    """(time, VmRSS MiB, VmHWM MiB) of a process every RSS_POLL_S until ``stop`` (or the
+    process is gone); filled in by a thread."""
+    samples: list[tuple[float, float, float]] = []
+
+    def poll() -> None:
+        while not stop.is_set():
+            try:
+                text = Path(f"/proc/{pid}/status").read_text()
+            except OSError:
+                return
+            fields = dict(line.split(":", 1) for line in text.splitlines() if ":" in line)
+            try:
+                rss, hwm = (int(fields[k].split()[0]) / 1024 for k in ("VmRSS", "VmHWM"))
+            except (KeyError, ValueError, IndexError):
+                return  # a zombie has no memory lines
+            samples.append((time.time(), rss, hwm))
+            stop.wait(RSS_POLL_S)
+
+    threading.Thread(target=poll, daemon=True).start()
+    return samples
+
+
+def at_last_point(samples, t_last: float) -> tuple[float, float]:
+    """(VmRSS, VmHWM) of the last sample taken before the last point (NaN without)."""
+    before = [s for s in samples if s[0] <= t_last]
+    return (before[-1][1], before[-1][2]) if before else (math.nan, math.nan)
+
+
 def one_run(points: int, base: Path) -> dict:
     out = base / f"n{points}"
     out.mkdir(parents=True, exist_ok=True)
@@ -74,8 +111,11 @@ def one_run(points: int, base: Path) -> dict:
     cmd = [sys.executable, "-m", "pnbench.tui.cli", "run", str(plan), "--simulate", DEVICE,
            "--time-scale", "0", "--headless", "--no-report", "--out", str(out / "runs")]
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    stop = threading.Event()
+    samples = memory_samples(proc.pid, stop)
     _, status, usage = os.wait4(proc.pid, 0)
     ended = time.time()
+    stop.set()
     proc.returncode = os.waitstatus_to_exitcode(status)
     err = proc.stderr.read().decode(errors="replace") if proc.stderr else ""
     run_dir = next((out / "runs").iterdir())
@@ -85,15 +125,18 @@ def one_run(points: int, base: Path) -> dict:
     gaps = np.diff(t)
     within = gaps[~first[1:]]
     worst = int(np.argmax(gaps)) if gaps.size else 0
+    rss_last, hwm_last = at_last_point(samples, started + t[-1])
     return {
         "points": int(t.size), "exit_code": proc.returncode, "status": run["status"],
         "peak_rss_MiB": usage.ru_maxrss / 1024.0,
+        "acquisition_peak_rss_MiB": hwm_last, "rss_last_point_MiB": rss_last,
         "wall_per_point_us": (t[-1] - t[0]) / max(t.size - 1, 1) * 1e6,
         "end_tail_s": ended - (started + t[-1]),
         "longest_pause_ms": float(gaps.max() * 1e3) if gaps.size else 0.0,
         "longest_pause_after_point": worst + 1,
         # a step's first point follows the instrument's configuration for that step
         "longest_pause_within_step_ms": float(within.max() * 1e3) if within.size else 0.0,
+        "pause_p99_ms": float(np.percentile(gaps, 99) * 1e3) if gaps.size else 0.0,
         "pause_p999_ms": float(np.percentile(gaps, 99.9) * 1e3) if gaps.size else 0.0,
         "model_written": (run_dir / "model.json").exists(),
         "stderr_tail": err[-300:] if proc.returncode else "",
@@ -114,14 +157,19 @@ def main() -> None:
             r = one_run(n, base)
             runs.append(r)
             print(f"{r['points']:>8} points: {r['wall_per_point_us']:7.0f} us/point, "
-                  f"peak RSS {r['peak_rss_MiB']:6.1f} MiB, end tail {r['end_tail_s']:5.2f} s,"
+                  f"peak RSS {r['peak_rss_MiB']:6.1f} MiB (until the last point "
+                  f"{r['acquisition_peak_rss_MiB']:.1f}, at it {r['rss_last_point_MiB']:.1f}),"
+                  f" end tail {r['end_tail_s']:5.2f} s,"
                   f" longest pause {r['longest_pause_ms']:6.1f} ms (after point "
                   f"{r['longest_pause_after_point']}; within a step "
-                  f"{r['longest_pause_within_step_ms']:.1f} ms, 99.9 % under "
-                  f"{r['pause_p999_ms']:.1f} ms), exit {r['exit_code']}", flush=True)
+                  f"{r['longest_pause_within_step_ms']:.1f} ms; 99 % under "
+                  f"{r['pause_p99_ms']:.1f} ms, 99.9 % under {r['pause_p999_ms']:.1f} ms),"
+                  f" exit {r['exit_code']}", flush=True)
     first = runs[0]
     ratios = {f"{r['points']}_vs_{first['points']}": {
         "peak_rss": r["peak_rss_MiB"] / first["peak_rss_MiB"],
+        "acquisition_peak_rss": r["acquisition_peak_rss_MiB"]
+        / first["acquisition_peak_rss_MiB"],
         "wall_per_point": r["wall_per_point_us"] / first["wall_per_point_us"],
         "end_tail": r["end_tail_s"] / max(first["end_tail_s"], 1e-9)} for r in runs[1:]}
     print(json.dumps({"runs": runs, "ratios": ratios,

@@ -3,12 +3,18 @@
     python tests/benchmarks/pipeline.py [--points N] [--memory-points M]
 
 1. per_point_ratio: the whole pipeline's cost per point (drivers + run folder + events +
-   the fit worker, fitting on), at time scale 0 on the simulated bench over a real
-   loopback socket, divided by the bare round trip of the same one-message set-and-read
-   query (the `;`-joined message the SMU role sends per point) on the same bench,
-   measured in the same run (interleaved rounds, the fastest of each). The aim is at most
-   1.3. That bare message includes the simulator's own work (parsing, the device
-   physics), which a real instrument does on its own processor; so also
+   the fit worker, fitting on as in a real run), at time scale 0 on the simulated bench
+   over a real loopback socket, divided by the bare round trip of the same one-message
+   set-and-read query (the `;`-joined message the SMU role sends per point) on the same
+   bench. Rounds are interleaved (each round measures the bare message, `*OPC?`, the
+   pipeline with fitting on and with it off, in an order that turns from round to round)
+   and each ratio is taken within its round, so a machine that slows down for a while
+   slows both sides of it; the median over the rounds is the figure, with the spread
+   (lowest and highest round) beside it. The aim is at most 1.3. fit_off_ratio is the
+   same with fitting off: the difference is what the fit thread costs the acquisition
+   thread (through the interpreter lock). That bare message includes the simulator's own
+   work (parsing, the device physics), which a real instrument does on its own
+   processor; so also
 2. opc_ratio: the same pipeline cost against a bare `*OPC?` round trip (the transport
    alone, nearly no work on the simulated instrument): what the pipeline costs on top
    of the wire, simulator included.
@@ -22,8 +28,8 @@
    point, RSS from /proc/self/status); rss_end_MB is after the run's final fit over
    every point, whose working memory grows with the run. The fake SMU never waits on
    I/O, so the acquisition thread holds the interpreter lock nearly all the time and
-   the fit thread falls behind, its queue holding points as objects: this figure is an
-   upper bound; on sockets (overnight.py) the fit thread keeps up.
+   the fit thread falls behind; it takes the rows from the columns when it gets the
+   lock, so nothing queues. ``--memory-points 0`` leaves this part out.
 
 The last line printed is one JSON object with the figures.
 """
@@ -33,6 +39,7 @@ from __future__ import annotations
 import argparse
 import collections
 import json
+import statistics
 import sys
 import tempfile
 import time
@@ -101,7 +108,7 @@ def opc_round_trip_s(sim: SimBench, n: int) -> float:
         session.close()
 
 
-def pipeline_per_point_s(n: int, out: Path) -> float:
+def pipeline_per_point_s(n: int, out: Path, fit: bool = True) -> float:
     stamps: list[float] = []
 
     def listener(event) -> None:
@@ -109,7 +116,7 @@ def pipeline_per_point_s(n: int, out: Path) -> float:
             stamps.append(time.perf_counter())
 
     launch = Launch.new(plan_of(1, n).on_simulated_bench(f"{DEVICE}@pnsim:time_scale=0"),
-                        out_dir=out, listeners=[listener])
+                        out_dir=out, listeners=[listener], fit=fit)
     outcome = launch.run()
     if outcome.status != "completed" or len(stamps) != n:
         raise SystemExit(f"pipeline run did not complete: {outcome}")
@@ -160,54 +167,90 @@ def memory_run(total: int, out: Path) -> dict:
             "points_csv_MB": (folder.path / "points.csv").stat().st_size / 2**20}
 
 
+def one_round(k: int, points: int, out: Path) -> dict[str, float]:
+    """Seconds per point of each side, measured in an order that turns with ``k``."""
+    got: dict[str, float] = {}
+
+    def bare() -> None:
+        sim = SimBench.start(DEVICE, time_scale=0.0)
+        try:
+            got["bare"] = bare_round_trip_s(sim, points)
+            got["opc"] = opc_round_trip_s(sim, points)
+        finally:
+            sim.close()
+
+    def fit_on() -> None:
+        got["on"] = pipeline_per_point_s(points, out / f"on{k}")
+
+    def fit_off() -> None:
+        got["off"] = pipeline_per_point_s(points, out / f"off{k}", fit=False)
+
+    order = [bare, fit_on, fit_off]
+    for side in order[k % 3:] + order[:k % 3]:
+        side()
+    return got
+
+
+def spread(values: list[float]) -> str:
+    return (f"{statistics.median(values):.2f} (rounds {min(values):.2f}..{max(values):.2f})"
+            if values else "-")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--points", type=int, default=3000)
     parser.add_argument("--memory-points", type=int, default=300_000)
-    parser.add_argument("--rounds", type=int, default=3,
-                        help="interleaved rounds of baseline and pipeline (the fastest counts)")
+    parser.add_argument("--rounds", type=int, default=6,
+                        help="interleaved rounds (each ratio within a round; the median "
+                        "over rounds counts)")
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         out = Path(tmp)
-        bare_s, opc_s, pipe_s = [], [], []
-        for k in range(args.rounds):  # interleaved; the least disturbed of each counts
-            sim = SimBench.start(DEVICE, time_scale=0.0)
-            try:
-                bare_s.append(bare_round_trip_s(sim, args.points))
-                opc_s.append(opc_round_trip_s(sim, args.points))
-            finally:
-                sim.close()
-            pipe_s.append(pipeline_per_point_s(args.points, out / f"pipeline{k}"))
-        baseline, opc, per_point = min(bare_s), min(opc_s), min(pipe_s)
+        rounds = [one_round(k, args.points, out) for k in range(args.rounds)]
+        ratio = [r["on"] / r["bare"] for r in rounds]
+        off_ratio = [r["off"] / r["bare"] for r in rounds]
+        opc_ratio = [r["on"] / r["opc"] for r in rounds]
 
-        def us(values):
-            return ", ".join(f"{v * 1e6:.0f}" for v in values)
-        print(f"bare set-and-read message:   {baseline * 1e6:.1f} us (rounds: {us(bare_s)})")
-        print(f"bare *OPC? round trip:       {opc * 1e6:.1f} us (rounds: {us(opc_s)})")
+        def us(key):
+            return ", ".join(f"{r[key] * 1e6:.0f}" for r in rounds)
+
+        def med(key):
+            return statistics.median(r[key] for r in rounds)
+        baseline, opc, per_point = med("bare"), med("opc"), med("on")
+        print(f"bare set-and-read message:   {baseline * 1e6:.1f} us (rounds: {us('bare')})")
+        print(f"bare *OPC? round trip:       {opc * 1e6:.1f} us (rounds: {us('opc')})")
         print(f"whole pipeline per point:    {per_point * 1e6:.1f} us "
-              f"({1 / per_point:.0f} points/s, fitting on; rounds: {us(pipe_s)})")
-        print(f"per_point_ratio:             {per_point / baseline:.2f} (aim <= 1.3)")
-        print(f"opc_ratio:                   {per_point / opc:.2f}")
-        memory = memory_run(args.memory_points, out / "memory")
-        print(f"{args.memory_points} points on the fake SMU: RSS {memory['rss_start_MB']:.1f} "
-              f"-> {memory['rss_last_point_MB']:.1f} MB at the last point "
-              f"({memory['rss_bytes_per_point']:.0f} B/point, fitting on) -> "
-              f"{memory['rss_end_MB']:.1f} MB after the final fit, "
-              f"{memory['fake_points_per_s']:.0f} points/s, points.csv "
-              f"{memory['points_csv_MB']:.0f} MB")
+              f"({1 / per_point:.0f} points/s, fitting on; rounds: {us('on')})")
+        print(f"  the same with fitting off: {med('off') * 1e6:.1f} us (rounds: {us('off')})")
+        print(f"per_point_ratio:             {spread(ratio)} (aim <= 1.3)")
+        print(f"fit_off_ratio:               {spread(off_ratio)}")
+        print(f"opc_ratio:                   {spread(opc_ratio)}")
+        if not args.memory_points:
+            memory = None
+        else:
+            memory = memory_run(args.memory_points, out / "memory")
+            print(f"{args.memory_points} points on the fake SMU: RSS {memory['rss_start_MB']:.1f} "
+                  f"-> {memory['rss_last_point_MB']:.1f} MB at the last point "
+                  f"({memory['rss_bytes_per_point']:.0f} B/point, fitting on) -> "
+                  f"{memory['rss_end_MB']:.1f} MB after the final fit, "
+                  f"{memory['fake_points_per_s']:.0f} points/s, points.csv "
+                  f"{memory['points_csv_MB']:.0f} MB")
     print(json.dumps({
-        "per_point_ratio": round(per_point / baseline, 3),
-        "opc_ratio": round(per_point / opc, 3),
+        "per_point_ratio": round(statistics.median(ratio), 3),
+        "per_point_ratio_rounds": [round(x, 3) for x in ratio],
+        "fit_off_ratio": round(statistics.median(off_ratio), 3),
+        "opc_ratio": round(statistics.median(opc_ratio), 3),
         "opc_round_trip_us": round(opc * 1e6, 1),
         "pipeline_points_per_s": round(1 / per_point, 1),
         "pipeline_us_per_point": round(per_point * 1e6, 1),
         "bare_round_trip_us": round(baseline * 1e6, 1),
-        "memory_points": memory["points"],
-        "rss_growth_MB": round(memory["rss_growth_MB"], 3),
-        "rss_bytes_per_point": round(memory["rss_bytes_per_point"], 1),
-        "rss_last_point_MB": round(memory["rss_last_point_MB"], 1),
-        "rss_end_MB": round(memory["rss_end_MB"], 1),
-        "fake_pipeline_points_per_s": round(memory["fake_points_per_s"], 1),
+        **({} if memory is None else {
+            "memory_points": memory["points"],
+            "rss_growth_MB": round(memory["rss_growth_MB"], 3),
+            "rss_bytes_per_point": round(memory["rss_bytes_per_point"], 1),
+            "rss_last_point_MB": round(memory["rss_last_point_MB"], 1),
+            "rss_end_MB": round(memory["rss_end_MB"], 1),
+            "fake_pipeline_points_per_s": round(memory["fake_points_per_s"], 1)}),
     }))
 
 
