@@ -224,3 +224,25 @@ def test_every_set_point_corrects_again_at_each_stage_temperature(tmp_path, caps
     once = parse_plan(text.replace("every_set_point = true", "every_set_point = false"),
                       "over.toml")
     assert any("runs once, at the first set point" in w for w in once.warnings)
+
+
+def test_the_app_shows_a_software_compensated_run_as_its_fits_see_it(tmp_path):
+    """Live events (the correction, then raw C-V points) and the finished folder read
+    anew both give the app the compensated readings the fits use."""
+    from pnbench.tui.app.folder import read_run_folder
+    from pnbench.tui.app.state import RunState
+
+    launch = Launch.new(_plan({"corrections": ["open"], "confirmed": True,
+                               "apply": "software"}), out_dir=tmp_path, fit=False)
+    live = RunState()
+    launch.listeners.append(live.apply_event)
+    assert launch.run().exit_code == 0
+    raw = _cv_points(launch.run_dir)
+    folder, _ = read_run_folder(launch.run_dir)
+    for state in (live, folder):
+        shown = dict(zip(zip(state.cv.column("voltage_V"), state.cv.column("frequency_Hz"),
+                             strict=True), state.cv.column("capacitance_F"), strict=True))
+        assert shown.keys() == raw.keys()
+        for key, c in shown.items():
+            assert raw[key] - c == pytest.approx(STRAY * (1 - OPEN_RESIDUAL), rel=0.01,
+                                                 abs=0)

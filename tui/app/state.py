@@ -17,6 +17,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from pnbench.sweeps.events import (
+    Correction,
     Event,
     Fit,
     Output,
@@ -87,6 +88,9 @@ class RunState:
     version: int = 0
     _wall_at_last_time: float = field(default=math.nan, repr=False)
     _misfits_logged: set = field(default_factory=set, repr=False)
+    #: the run's LCR correction (run.json's record, or rebuilt from its events): C-V
+    #: points of a run compensated in software are shown as its fits use them
+    correction: dict | None = field(default=None, repr=False)
 
     # ----------------------------------------------------------------- input
     def add_point(self, row: dict) -> None:
@@ -102,6 +106,8 @@ class RunState:
             "1", "true", "1.0") else 0.0
         if not kind:
             kind = "cv" if math.isfinite(values["capacitance_F"]) else "iv"
+        if kind == "cv" and self.correction is not None:
+            values.update(_compensated(self.correction, step, values))
         (self.cv if kind == "cv" else self.iv).append(values, step)
         if step:
             self.progress.add_points(step, [values["time_s"]])
@@ -141,6 +147,13 @@ class RunState:
                 self.reason = str(event.reason or self.reason or "")
                 self.outputs_off_confirmed = bool(event.outputs_off_confirmed)
                 self.connected = event.connected is not False
+            case Correction():
+                runs = [*((self.correction or {}).get("runs") or []),
+                        {"set_point_K": event.set_point_K, "applied_by": event.applied_by,
+                         "values": event.values}]
+                points = {r["set_point_K"] for r in runs}
+                self.correction = {"done": True, "runs": runs,
+                                   "every_set_point": len(points) > 1}
             case Output() if event.role == "stage":
                 self.stage = {**self.stage, "state": "standby"}
             case Output():
@@ -166,6 +179,8 @@ class RunState:
                 chosen = points.select(mask)
                 values = {name: getattr(chosen, name) for name in target.names
                           if name != "compliance"}
+                if kind == "cv" and self.correction is not None:
+                    values = _compensated_columns(self.correction, steps[mask], values)
                 if "compliance" in target.names:
                     values["compliance"] = chosen.compliance.astype(float)
                 target.extend(values, steps[mask])
@@ -193,6 +208,8 @@ class RunState:
         if math.isfinite(temperature) and temperature > 0:
             self.temperature_K = temperature
         self.progress.apply_run_doc(doc)
+        if isinstance(doc.get("lcr_correction"), dict):
+            self.correction = doc["lcr_correction"]
         if self.status in RUN_FINAL and self.outputs_off_confirmed:
             self.outputs = {role: False for role in self.outputs}
         self.version += 1
@@ -323,3 +340,35 @@ def _point_row(event: PointTaken) -> dict:
             "voltage_V": event.voltage_V, "current_A": event.current_A,
             "frequency_Hz": event.frequency_Hz, "capacitance_F": event.capacitance_F,
             "conductance_S": event.conductance_S, "compliance": event.compliance}
+
+
+def _compensated(record: dict, step: str, values: dict) -> dict:
+    """C and G of C-V values (scalars or arrays) of a step compensated with the run's
+    recorded correction where pnbench applied it in software; {} otherwise."""
+    from pnbench.modeling.compensation import compensate_parallel
+    from pnbench.sweeps.fitcorrection import residuals_for
+    from pnbench.tui.report.arrhenius import set_point_of
+
+    residuals = residuals_for(record, set_point_of(step))
+    if residuals is None:
+        return {}
+    c, g = compensate_parallel(np.asarray(values["capacitance_F"], dtype=float),
+                               np.asarray(values["conductance_S"], dtype=float),
+                               np.asarray(values["frequency_Hz"], dtype=float), residuals)
+    if np.ndim(values["capacitance_F"]) == 0:
+        return {"capacitance_F": float(c), "conductance_S": float(g)}
+    return {"capacitance_F": c, "conductance_S": g}
+
+
+def _compensated_columns(record: dict, steps: np.ndarray, values: dict) -> dict:
+    """`_compensated` over columns of several steps (new arrays where changed)."""
+    out = dict(values)
+    for name in dict.fromkeys(steps.tolist()):
+        at = steps == name
+        part = _compensated(record, str(name), {k: np.asarray(v)[at] for k, v in
+                                                values.items()})
+        for key, column in part.items():
+            whole = np.array(out[key], dtype=float)
+            whole[at] = column
+            out[key] = whole
+    return out
