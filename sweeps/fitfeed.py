@@ -184,6 +184,19 @@ class FitWorker:
         self._feed(step.name)
         self._snapshot(step.name)
 
+    def preload_columns(self, step: Step, col: dict, live: bool = True) -> None:
+        """Points already on disk, given by column (`PointColumns.fit_columns`): kept for
+        the run's final model, and with ``live`` fed to the step's fitter and
+        snapshotted (a resumed run goes on with it; end work alone needs no live fit)."""
+        if not self.enabled or not len(col["voltage_V"]):
+            return
+        self._columns[step.name].extend_columns(col)
+        if not live:  # nothing for a live fitter: the run's model is fitted at the end
+            self._fed[step.name] = len(self._columns[step.name])
+            return
+        self._feed(step.name)
+        self._snapshot(step.name)
+
     def finish(self, timeout_s: float = 60.0) -> None:
         """Feed what is left, take the last snapshots and write the final model."""
         if self._thread is not None:

@@ -278,9 +278,11 @@ class Launch:
                                    **{key: folder.run[key] for key in
                                       ("lcr_correction", "stated_noise")
                                       if folder.run.get(key)}})
-        if state is not None:
+        if state is not None:  # by column: a long run's points never become objects
             for step in self.plan.steps:
-                worker.preload(step, state.points.get(step.name, []))
+                if step.name in state.columns:
+                    worker.preload_columns(step, state.columns[step.name].fit_columns(),
+                                           live=not state.end_work_only)
         return worker
 
     def _seconds_per_point(self) -> dict[str, float]:

@@ -39,6 +39,8 @@ class ResumeState:
     ended_by: dict[str, str] = field(default_factory=dict)
     tails: dict[str, list[Point]] = field(default_factory=dict)
     points: dict[str, list[Point]] = field(default_factory=dict)
+    #: each step's points as read, by column (what the fit worker is preloaded with)
+    columns: dict[str, PointColumns] = field(default_factory=dict)
     newly_finished: list[tuple[str, str, str]] = field(default_factory=list)
     last_seq: int = 0
     started_epoch_s: float | None = None
@@ -91,6 +93,7 @@ def load_state(run_dir: str | Path, plan: Plan) -> ResumeState:
                 ended_by[event.step] = str(event.ended_by)
     state = ResumeState(done=done, statuses=statuses, ended_by=ended_by, last_seq=last_seq,
                         previous_status=str(run.status), points=_LazyPoints(by_step),
+                        columns=by_step,
                         guardian=run.get("guardian") or None,
                         started_epoch_s=_epoch(run.started), finishing=run.finishing,
                         outputs_off_confirmed=run.outputs_off_confirmed)

@@ -86,6 +86,14 @@ def test_columns_grow_and_keep_absent_cells_as_nan():
     assert np.isnan(view["capacitance_F"]).all()
     assert cols.view(140)["voltage_V"][0] == pytest.approx(14.0)
     assert fitmodel.arrays(rows, {"s"})["current_A"][3] == pytest.approx(3e-3)
+    # the same points given by column (a run folder read back) hold the same values
+    by_col = fitmodel.Columns()
+    first = fitmodel.arrays(rows[:70], {"s"})
+    del first["frequency_Hz"]  # a column the reader skipped reads as NaN
+    by_col.extend_columns(first)
+    by_col.extend_columns(fitmodel.arrays(rows[70:], {"s"}))
+    for name, col in by_col.view().items():
+        np.testing.assert_array_equal(col, view[name], err_msg=name)
 
 
 def test_no_provisional_model_just_before_the_run_model(monkeypatch):
