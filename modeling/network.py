@@ -27,7 +27,7 @@ import math
 
 import numpy as np
 
-from pnbench.modeling import fit_cv, heldcov, junction, lsq
+from pnbench.modeling import describing, fit_cv, heldcov, junction, lsq
 from pnbench.modeling.fitresult import FitResult, empty_result
 from pnbench.modeling.meternoise import meter_noise
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
@@ -81,11 +81,12 @@ class SplitModel:
     def predict(self, t, x, active):
         """x = (V, f, a_rms, w/|Y| of the reading): the last column is the scale."""
         scale = x[:, 3]
+        # the inner arrays are fresh: their unused G channel is overwritten, not copied
         y, jac = self.inner.predict(t, x, active)
-        y2 = np.column_stack([y[:, 0], y[:, 0] * scale])
-        if jac is None:
-            return y2, None
-        return y2, np.stack([jac[:, 0, :], jac[:, 0, :] * scale[:, None]], axis=1)
+        y[:, 1] = y[:, 0] * scale
+        if jac is not None:
+            np.multiply(jac[:, 0, :], scale[:, None], out=jac[:, 1, :])
+        return y, jac
 
 
 #: Points evaluated at once in the describing function: its grids are points x phases
@@ -96,7 +97,7 @@ _CHUNK = 16_384
 _PHASES = 16
 
 
-class MeterModel(fit_cv.AdmittanceModel):
+class MeterModel(describing.ClosedForm, fit_cv.AdmittanceModel):
     """The admittance the meter reads at its test-signal level: x = (V, f, a_rms, ...).
 
     A test signal of amplitude a on the exponential junction is not small against
@@ -106,6 +107,10 @@ class MeterModel(fit_cv.AdmittanceModel):
     of the amplitude across the junction (RS takes the rest); its relative change of gd
     and Cd is ~(a_j/(N*Vt))**2/8. Where a is 0 or unknown (NaN) the small-signal form.
     The fixture goes around the device: CFIX across it, then RFIX in series.
+
+    Evaluated in closed form with an analytic Jacobian (`describing.ClosedForm`); on the
+    phase grid (`_described`) where the swing crosses the depletion knee, or everywhere
+    with ``exact = True`` (the reference the closed form is tested against).
     """
 
     def __init__(self, temperature_K: float = DEFAULT_TEMPERATURE_K, fc: float = 0.5,
@@ -130,14 +135,25 @@ class MeterModel(fit_cv.AdmittanceModel):
 
     def device_y(self, t, x) -> np.ndarray:
         """The device's complex admittance at the meter's test level (no fixture)."""
+        if not self.exact:
+            return self._closed(t, x)[0]
         if x.shape[1] < 3 or not np.any(np.nan_to_num(x[:, 2]) > 0):
             from pnbench.modeling.smallsignal import device_admittance
 
             return device_admittance(x[:, 0], x[:, 1], self.diode(t), self.temperature_K)
+        return self._on_grid(t, x)
+
+    def _on_grid(self, t, x):
         if len(x) > _CHUNK:  # the same values, with temporaries of a bounded size
             return np.concatenate([self._described(t, x[k:k + _CHUNK])
                                    for k in range(0, len(x), _CHUNK)])
         return self._described(t, x)
+
+    def predict(self, t, x, active):
+        """Values and derivatives: the closed form's analytic ones (`describing`)."""
+        if self.exact or active is None:
+            return super().predict(t, x, active)
+        return self.closed_predict(t, x, active)
 
     def _described(self, t, x):
         """The describing-function admittance of the rows of x (see the class notes)."""

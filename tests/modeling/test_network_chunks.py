@@ -18,6 +18,7 @@ def test_chunked_describing_function_gives_the_same_values(monkeypatch):
     n = 5000
     x = np.column_stack([rng.uniform(-20, 0.75, n), rng.choice([1e5, 1e6], n),
                          np.where(rng.uniform(size=n) < 0.9, 0.02, np.nan)])
+    model.exact = True  # the phase grid, which is what is chunked
     monkeypatch.setattr(network, "_CHUNK", 10 * n)
     whole = model._y(t, x)
     monkeypatch.setattr(network, "_CHUNK", 777)  # several chunks, the last one short
