@@ -17,7 +17,7 @@ import math
 
 import numpy as np
 
-from pnbench.modeling import lsq
+from pnbench.modeling import coarse, lsq
 from pnbench.modeling.fit_reverse import fit_reverse  # noqa: F401  (part of this module's API)
 from pnbench.modeling.fitnoise import as_stated
 from pnbench.modeling.fitresult import FitResult, empty_result
@@ -256,10 +256,10 @@ def forward_state(model: ForwardModel, v: np.ndarray, i: np.ndarray,
         t0 = t0.copy()
         t0[3] = 0.0
     if known is not None and as_stated(noise).voltage is not None:
-        first = lsq.fit(model, x, y, elig, t0, active, forced_use=forced)
+        first = coarse.fit(model, x, y, elig, t0, active, forced_use=forced)
         known = stated_noise(model, noise, v, i, noise_scale, first.t)
         t0 = np.where(active, first.t, t0)
-    return lsq.fit(model, x, y, elig, t0, active, noise=known, forced_use=forced)
+    return coarse.fit(model, x, y, elig, t0, active, noise=known, forced_use=forced)
 
 
 def fit_with_model(model: ForwardModel, v, i, eligible, *, forced=False, noise=None,

@@ -27,7 +27,7 @@ import math
 
 import numpy as np
 
-from pnbench.modeling import describing, fit_cv, heldcov, junction, lsq
+from pnbench.modeling import coarse, describing, fit_cv, heldcov, junction, lsq
 from pnbench.modeling.fitresult import FitResult, empty_result
 from pnbench.modeling.meternoise import meter_noise
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
@@ -288,7 +288,7 @@ def network_state(model: SplitModel, x, y, elig, fixed: dict[str, float],
     if active[k["TT"]] and (start is None or not np.isfinite(start[k["TT"]])):
         t0[k["TT"]] = _tt_start(model.inner, t0, x, y, ok)
     known = None if noise is None else meter_noise(noise, x[:, 3], noise_scale)
-    state = lsq.fit(model, x, y, elig, t0, active, noise=known)
+    state = coarse.fit(model, x, y, elig, t0, active, noise=known)
     state.notes = notes + state.notes
     return state
 
