@@ -124,17 +124,17 @@ def _worth_trying(model, state: lsq.FitState, x, y, dropped: list[int]) -> list[
         return []
     idx = np.flatnonzero(state.active)
     both = np.concatenate([idx, np.asarray(dropped, dtype=int)])
-    r, jac, _ = lsq.weighted_rows(model, state.t, both, x, y, state.used, state.noise)
-    if not (np.all(np.isfinite(jac)) and np.all(np.isfinite(r))):
+    normal = normal_equations(model, state.t, both, x, y, state.used, state.noise)
+    if normal is None:
         return []
+    h_all, g_all = normal
     s2 = state.chi2 / state.dof if state.dof > 0 else math.inf
     if not state.noise.estimated:
         s2 = max(s2, 1.0)
     scores = {}
     for j, k in enumerate(dropped):
         cols = np.concatenate([np.arange(idx.size), [idx.size + j]])
-        h = jac[:, cols].T @ jac[:, cols]
-        g = jac[:, cols].T @ r
+        h, g = h_all[np.ix_(cols, cols)], g_all[cols]
         d = np.sqrt(np.maximum(np.diag(h), 1e-300))
         try:
             inv = np.linalg.inv(h / np.outer(d, d)) / np.outer(d, d)
@@ -146,3 +146,22 @@ def _worth_trying(model, state: lsq.FitState, x, y, dropped: list[int]) -> list[
             if z >= Z_RETRY:
                 scores[k] = z
     return sorted(scores, key=scores.get, reverse=True)
+
+
+def normal_equations(model, t, idx, x, y, use, noise, rows: int = 8192):
+    """(J^T J, J^T r) of the weighted rows over t[idx] (`lsq.weighted_rows`), summed
+    over blocks of ``rows`` rows, so a long run's Jacobian is never whole in memory;
+    None where it is not finite."""
+    h = np.zeros((len(idx), len(idx)))
+    g = np.zeros(len(idx))
+    for a in range(0, len(x), rows):
+        s = slice(a, a + rows)
+        if not np.any(use[s]):
+            continue
+        with np.errstate(all="ignore"):
+            r, jac, _ = lsq.weighted_rows(model, t, idx, x[s], y[s], use[s], noise)
+        if not (np.all(np.isfinite(jac)) and np.all(np.isfinite(r))):
+            return None
+        h += jac.T @ jac
+        g += jac.T @ r
+    return h, g

@@ -95,6 +95,8 @@ def exponential_slope(x: np.ndarray, factor: np.ndarray) -> np.ndarray:
     return out
 
 
+#: Rows evaluated at once (bounds the temporaries of a long run's evaluation).
+BLOCK = 8192
 #: The fitted variables the closed form differentiates: ln CJO, VJ, M, TT.
 DERIVATIVES = ("CJO", "VJ", "M", "TT")
 
@@ -204,10 +206,10 @@ class ClosedForm:
         self._dc_cache = (x, key, (vd, gd))
         return vd, gd
 
-    def _closed(self, t, x, jacobian: bool = False):
-        """(device Y, rows on the grid, `meter_admittance`'s derivative pairs, w)."""
+    def _rows(self, t, x, vd, gd, jacobian: bool):
+        """(device Y, rows on the grid, `meter_admittance`'s derivative pairs, w) of a
+        block of rows with their DC operating point."""
         p = self.diode(t)
-        vd, gd = self._dc(t, x)
         w = 2 * np.pi * x[:, 1]
         amp = (np.sqrt(2.0) * np.nan_to_num(x[:, 2]) if x.shape[1] > 2
                else np.zeros(len(x)))
@@ -217,30 +219,28 @@ class ClosedForm:
             y[grid] = self._on_grid(t, x[grid])
         return y, grid, dy, w
 
+    def _closed(self, t, x):
+        """(device Y, rows on the grid), block by block (temporaries of BLOCK rows)."""
+        vd, gd = self._dc(t, x)
+        y = np.empty(len(x), dtype=complex)
+        grid = np.zeros(len(x), dtype=bool)
+        for a in range(0, len(x), BLOCK):
+            s = slice(a, a + BLOCK)
+            y[s], grid[s] = self._rows(t, x[s], vd[s], gd[s], False)[:2]
+        return y, grid
+
     def closed_predict(self, t, x, active):
         """(C, G) and d(C, G)/d t[active] (m, 2, k) through the fixture: Y1 = Y + j*w*CFIX,
-        Y = Y1/(1 + RFIX*Y1)."""
-        yd, grid, dy, w = self._closed(t, x, jacobian=True)
-        k = self.index
-        y1 = yd + 1j * w * t[k["CFIX"]] if "CFIX" in k else yd
-        rfix = t[k["RFIX"]] if "RFIX" in k else 0.0
-        y = y1 / (1.0 + rfix * y1) if rfix != 0.0 else y1
-        out = np.column_stack([y.imag / w, y.real])
-        chain = 1.0 / (1.0 + rfix * y1) ** 2  # dY/dY1
+        Y = Y1/(1 + RFIX*Y1); block by block, so a long run's rows need their values and
+        Jacobian in memory and little more."""
+        vd, gd = self._dc(t, x)
         names = [self.params[j].name for j in active]
-        jac = np.empty(out.shape + (len(active),))
-
-        def put(name, d):
-            if name in names:
-                j = names.index(name)
-                d = d * chain
-                np.divide(d.imag, w, out=jac[:, 0, j])
-                jac[:, 1, j] = d.real
-
-        for name, d in dy:
-            put(name, d)
-        put("CFIX", 1j * w)
-        put("RFIX", -y1 * y1)
+        out = np.empty((len(x), 2))
+        jac = np.empty((len(x), 2, len(active)))
+        grid = np.zeros(len(x), dtype=bool)
+        for a in range(0, len(x), BLOCK):
+            s = slice(a, a + BLOCK)
+            grid[s] = self._block(t, x[s], vd[s], gd[s], names, out[s], jac[s])
         analytic = (*DERIVATIVES, "CFIX", "RFIX")
         for j, kk in enumerate(active):
             if names[j] not in analytic:
@@ -250,3 +250,26 @@ class ClosedForm:
             jac[grid] = lsq.numeric_jacobian(self._y, t, np.asarray(active), x[grid],
                                              out[grid], self.params)
         return out, jac
+
+    def _block(self, t, x, vd, gd, names, out, jac) -> np.ndarray:
+        """Fill ``out`` and the analytic columns of ``jac`` for a block of rows; the
+        rows on the grid are returned."""
+        yd, grid, dy, w = self._rows(t, x, vd, gd, True)
+        k = self.index
+        y1 = yd + 1j * w * t[k["CFIX"]] if "CFIX" in k else yd
+        rfix = t[k["RFIX"]] if "RFIX" in k else 0.0
+        y = y1 / (1.0 + rfix * y1) if rfix != 0.0 else y1
+        out[:, 0], out[:, 1] = y.imag / w, y.real
+        chain = 1.0 / (1.0 + rfix * y1) ** 2  # dY/dY1
+
+        def put(name, d):
+            if name in names:
+                j = names.index(name)
+                d = d * chain
+                jac[:, 0, j], jac[:, 1, j] = d.imag / w, d.real
+
+        for name, d in dy:
+            put(name, d)
+        put("CFIX", 1j * w)
+        put("RFIX", -y1 * y1)
+        return grid

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from pnbench.modeling import lsq
+from pnbench.modeling import coarse, lsq
 
 
 def to_t_space(model, t: np.ndarray, held: list[int], cov_values: np.ndarray) -> np.ndarray:
@@ -33,13 +33,14 @@ def propagated(model, state: lsq.FitState, x: np.ndarray, y: np.ndarray,
     if idx.size == 0 or len(held) == 0:
         return None
     both = np.concatenate([idx, np.asarray(held, dtype=int)])
-    with np.errstate(all="ignore"):
-        _, jac, _ = lsq.weighted_rows(model, state.t, both, x, y, state.used, state.noise)
-    ja, jh = jac[:, :idx.size], jac[:, idx.size:]
-    if not (np.all(np.isfinite(ja)) and np.all(np.isfinite(jh))):
+    # J^T J over free and held columns, summed over blocks of rows (a long run's
+    # Jacobian is never whole in memory)
+    normal = coarse.normal_equations(model, state.t, both, x, y, state.used, state.noise)
+    if normal is None:
         return None
+    h = normal[0]
     try:
-        a = -np.linalg.solve(ja.T @ ja, ja.T @ jh)
+        a = -np.linalg.solve(h[:idx.size, :idx.size], h[:idx.size, idx.size:])
     except np.linalg.LinAlgError:
         return None
     return a @ held_cov_t @ a.T

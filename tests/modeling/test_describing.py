@@ -179,3 +179,19 @@ def test_analytic_derivatives_match_central_differences(rs, level_V):
         # rows averaged over the phase grid (swing across the knee) keep forward
         # differences: their truncation error is ~1e-5
         assert err[~grid].max() < 1e-6 and err[grid].max() < 1e-4, (name, err.max())
+
+
+def test_values_and_derivatives_do_not_depend_on_the_block_size(monkeypatch):
+    """Long runs are evaluated in blocks of rows (bounded temporaries); the rows are
+    independent, so the numbers are exactly those of one block."""
+    model = network.network_model(300.15, 0.5, True, True)
+    t = _t(model, {**VALUES, "RFIX": 1.5})
+    rng = np.random.default_rng(5)
+    x = np.column_stack([rng.uniform(-20, 0.75, 3000), rng.choice([1e5, 1e6], 3000),
+                         np.where(rng.uniform(size=3000) < 0.9, 0.02, np.nan)])
+    active = np.arange(len(model.params))
+    monkeypatch.setattr(describing, "BLOCK", 10**9)
+    whole = model.predict(t, x, active)
+    monkeypatch.setattr(describing, "BLOCK", 777)  # several blocks, the last one short
+    blocks = model.predict(t, x, active)
+    assert np.array_equal(whole[0], blocks[0]) and np.array_equal(whole[1], blocks[1])
