@@ -159,7 +159,8 @@ def normal_equations(model, t, idx, x, y, use, noise, rows: int = 8192):
         if not np.any(use[s]):
             continue
         with np.errstate(all="ignore"):
-            r, jac, _ = lsq.weighted_rows(model, t, idx, x[s], y[s], use[s], noise)
+            r, jac, _ = lsq.weighted_rows(model, t, idx, x[s], y[s], use[s],
+                                          rows_of(noise, s))
         if not (np.all(np.isfinite(jac)) and np.all(np.isfinite(r))):
             return None
         h += jac.T @ jac

@@ -66,3 +66,26 @@ def test_forward_iv_fit_finished_on_every_point_agrees_with_the_full_fit(monkeyp
     fast = fit_iv.fit_forward(v, i)
     assert {"IS", "N", "RS"} <= set(full.names)
     _agree(fast, full)
+
+
+def test_a_stated_noise_per_point_is_taken_at_the_subset_rows(monkeypatch):
+    """A stated meter noise varies per point (noise_scale: readings averaged); the
+    subset, the blocks and the finish each use the rows' own figures."""
+    v, f, c, g, level = _network_data(3000, seed=4)
+    fixed = {k: VALUES[k] for k in network.DC_NAMES}
+    scale = np.where(np.arange(v.size) % 4 == 0, 0.5, 1.0)  # every 4th point averaged 4x
+    held = np.diag([(1e-3 * VALUES["IS"]) ** 2, 1e-4**2, 1e-3**2, (0.01 * VALUES["RSH"])**2])
+
+    def fit():
+        return network.fit_network(v, f, c, g, fixed=fixed, ac_level_V=level,
+                                   noise=(1e-3, 2e-16), noise_scale=scale,
+                                   held_covariance=held)
+
+    monkeypatch.setattr(coarse, "MAX_ROWS", 10**9)
+    full = fit()
+    monkeypatch.setattr(coarse, "MAX_ROWS", 300)
+    fast = fit()
+    _agree(fast, full)
+    sub = coarse.rows_of(lsq.Noise((0.0,), (1.0,), floor_rows=np.arange(10.0)[:, None],
+                                   scale_rows=np.arange(10.0)), slice(2, 8, 3))
+    assert sub.floor_rows[:, 0].tolist() == [2.0, 5.0] and sub.scale_rows.tolist() == [2, 5]
