@@ -23,7 +23,6 @@ within a few tenths of a standard error of Z_KEEP can be decided either way by e
 
 from __future__ import annotations
 
-import dataclasses
 import math
 
 import numpy as np
@@ -58,13 +57,9 @@ def fit(model, x: np.ndarray, y: np.ndarray, eligible: np.ndarray, t0: np.ndarra
 
 
 def rows_of(noise: lsq.Noise | None, rows) -> lsq.Noise | None:
-    """A noise model for some of the fit's rows: a stated noise's per-row parts
-    (``floor_rows``, ``scale_rows``, ``extra_var``) taken at those rows."""
-    if noise is None:
-        return None
-    cut = {name: part[rows] for name in ("floor_rows", "scale_rows", "extra_var")
-           if (part := getattr(noise, name, None)) is not None}
-    return dataclasses.replace(noise, **cut) if cut else noise
+    """A noise model for some of the fit's rows: a stated noise's per-row parts taken at
+    those rows (`Noise.take`)."""
+    return None if noise is None else noise.take(rows)
 
 
 def _finish(model, x, y, eligible, coarse: lsq.FitState, asked: np.ndarray, forced: bool,
