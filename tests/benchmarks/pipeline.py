@@ -12,7 +12,9 @@
    slows both sides of it; the median over the rounds is the figure, with the spread
    (lowest and highest round) beside it. The aim is at most 1.3. fit_off_ratio is the
    same with fitting off: the difference is what the fit thread costs the acquisition
-   thread (through the interpreter lock). That bare message includes the simulator's own
+   thread (through the interpreter lock). cpu_ratio compares the process's CPU time per
+   point the same way (simulator, pipeline and fit thread together): on a loaded machine
+   it varies far less than the wall time. That bare message includes the simulator's own
    work (parsing, the device physics), which a real instrument does on its own
    processor; so also
 2. opc_ratio: the same pipeline cost against a bare `*OPC?` round trip (the transport
@@ -71,7 +73,17 @@ def plan_of(steps: int, points: int):
     return parse_plan(text, "benchmark.toml")
 
 
-def bare_round_trip_s(sim: SimBench, n: int) -> float:
+def clock() -> tuple[float, float]:
+    """(wall, the process's CPU) seconds: a side's cost is both per point, since the
+    CPU time is what a loaded machine hands out and the wall time what a run waits."""
+    return time.perf_counter(), time.process_time()
+
+
+def per_point(start: tuple[float, float], end: tuple[float, float], n: int):
+    return (end[0] - start[0]) / n, (end[1] - start[1]) / n
+
+
+def bare_round_trip_s(sim: SimBench, n: int) -> tuple[float, float]:
     dialect = load_dialect()
     session = open_session(sim.smu_resource, dialect=dialect)
     try:
@@ -83,44 +95,44 @@ def bare_round_trip_s(sim: SimBench, n: int) -> float:
                                   c.read, c.tripped_sourcing_voltage]) for k in range(n)]
         for m in messages[:50]:
             session.ask(m)
-        start = time.perf_counter()
+        start = clock()
         for m in messages:
             session.ask(m)
-        elapsed = time.perf_counter() - start
+        elapsed = per_point(start, clock(), n)
         smu.safe_off()
-        return elapsed / n
+        return elapsed
     finally:
         session.close()
 
 
-def opc_round_trip_s(sim: SimBench, n: int) -> float:
+def opc_round_trip_s(sim: SimBench, n: int) -> tuple[float, float]:
     """A bare `*OPC?` query and its reply: the transport with nearly no instrument work."""
     dialect = load_dialect()
     session = open_session(sim.smu_resource, dialect=dialect)
     try:
         for _ in range(50):
             session.ask("*OPC?")
-        start = time.perf_counter()
+        start = clock()
         for _ in range(n):
             session.ask("*OPC?")
-        return (time.perf_counter() - start) / n
+        return per_point(start, clock(), n)
     finally:
         session.close()
 
 
-def pipeline_per_point_s(n: int, out: Path, fit: bool = True) -> float:
-    stamps: list[float] = []
+def pipeline_per_point_s(n: int, out: Path, fit: bool = True) -> tuple[float, float]:
+    stamps: list[tuple[float, float]] = []
 
     def listener(event) -> None:
         if event.kind == "point":
-            stamps.append(time.perf_counter())
+            stamps.append(clock())
 
     launch = Launch.new(plan_of(1, n).on_simulated_bench(f"{DEVICE}@pnsim:time_scale=0"),
                         out_dir=out, listeners=[listener], fit=fit)
     outcome = launch.run()
     if outcome.status != "completed" or len(stamps) != n:
         raise SystemExit(f"pipeline run did not complete: {outcome}")
-    return (stamps[-1] - stamps[0]) / (n - 1)
+    return per_point(stamps[0], stamps[-1], n - 1)
 
 
 def rss_kB(field: str = "VmRSS") -> int:
@@ -174,16 +186,17 @@ def one_round(k: int, points: int, out: Path) -> dict[str, float]:
     def bare() -> None:
         sim = SimBench.start(DEVICE, time_scale=0.0)
         try:
-            got["bare"] = bare_round_trip_s(sim, points)
-            got["opc"] = opc_round_trip_s(sim, points)
+            got["bare"], got["bare_cpu"] = bare_round_trip_s(sim, points)
+            got["opc"], got["opc_cpu"] = opc_round_trip_s(sim, points)
         finally:
             sim.close()
 
     def fit_on() -> None:
-        got["on"] = pipeline_per_point_s(points, out / f"on{k}")
+        got["on"], got["on_cpu"] = pipeline_per_point_s(points, out / f"on{k}")
 
     def fit_off() -> None:
-        got["off"] = pipeline_per_point_s(points, out / f"off{k}", fit=False)
+        got["off"], got["off_cpu"] = pipeline_per_point_s(points, out / f"off{k}",
+                                                          fit=False)
 
     order = [bare, fit_on, fit_off]
     for side in order[k % 3:] + order[:k % 3]:
@@ -210,6 +223,8 @@ def main() -> None:
         ratio = [r["on"] / r["bare"] for r in rounds]
         off_ratio = [r["off"] / r["bare"] for r in rounds]
         opc_ratio = [r["on"] / r["opc"] for r in rounds]
+        cpu_ratio = [r["on_cpu"] / r["bare_cpu"] for r in rounds]
+        cpu_off_ratio = [r["off_cpu"] / r["bare_cpu"] for r in rounds]
 
         def us(key):
             return ", ".join(f"{r[key] * 1e6:.0f}" for r in rounds)
@@ -225,6 +240,9 @@ def main() -> None:
         print(f"per_point_ratio:             {spread(ratio)} (aim <= 1.3)")
         print(f"fit_off_ratio:               {spread(off_ratio)}")
         print(f"opc_ratio:                   {spread(opc_ratio)}")
+        print(f"cpu_ratio:                   {spread(cpu_ratio)} (process CPU per point, "
+              f"fitting on; off: {spread(cpu_off_ratio)}; bare {med('bare_cpu') * 1e6:.0f} "
+              f"us, pipeline {med('on_cpu') * 1e6:.0f} us)")
         if not args.memory_points:
             memory = None
         else:
@@ -240,6 +258,8 @@ def main() -> None:
         "per_point_ratio_rounds": [round(x, 3) for x in ratio],
         "fit_off_ratio": round(statistics.median(off_ratio), 3),
         "opc_ratio": round(statistics.median(opc_ratio), 3),
+        "cpu_ratio": round(statistics.median(cpu_ratio), 3),
+        "cpu_off_ratio": round(statistics.median(cpu_off_ratio), 3),
         "opc_round_trip_us": round(opc * 1e6, 1),
         "pipeline_points_per_s": round(1 / per_point, 1),
         "pipeline_us_per_point": round(per_point * 1e6, 1),
