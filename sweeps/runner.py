@@ -17,6 +17,7 @@ of `sweeps.ending` (final fit, model.json and card, report, and only then the st
 
 from __future__ import annotations
 
+import math
 import time
 from dataclasses import dataclass
 
@@ -406,6 +407,8 @@ class Runner:
                    frequency_Hz: float | None = None) -> None:
         """A reading that is not a finite number is an instrument fault: the step and the
         run end as failed, and no further level follows it."""
+        if math.isfinite(a) and math.isfinite(b):  # every point: no message to build
+            return
         where = (f"point {index}" if index is not None else "on the way back") + \
             f" at {level:g} {step.source_unit if step.instrument == 'smu' else 'V'}" + \
             (f", {frequency_Hz:g} Hz" if frequency_Hz is not None else "")

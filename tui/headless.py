@@ -147,8 +147,26 @@ class Progress:
                 self._progress_line()
 
     def _drain(self) -> None:
+        """Apply the queued events in order; a run of points of one step goes to the
+        progress model at once (one batch per step a quarter second: per point, its
+        numpy bookkeeping would cost the acquisition thread the interpreter lock)."""
+        times: list[float] = []
+        last: ev.PointTaken | None = None
         while self._queue:
-            self._apply(self._queue.popleft())
+            e = self._queue.popleft()
+            if isinstance(e, ev.PointTaken):
+                if last is not None and e.step != last.step:
+                    self.model.add_points(last.step or "", times, index=last.index)
+                    times = []
+                times.append(e.time_s)
+                last = e
+                continue
+            if last is not None:
+                self.model.add_points(last.step or "", times, index=last.index)
+                times, last = [], None
+            self._apply(e)
+        if last is not None:
+            self.model.add_points(last.step or "", times, index=last.index)
 
     @property
     def steps(self):
