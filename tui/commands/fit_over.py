@@ -30,6 +30,7 @@ def run_folder_sets(folder, kind: str = "auto") -> list[tuple[float, dict, str]]
         return None
     steps = points.steps()
     kinds = points.kinds().astype(str)
+    scale = _step_noise_scales(folder, steps)
     out = []
     for sp in sorted(set_points):
         rows = np.array([set_point_of(s) == sp for s in steps], dtype=bool)
@@ -42,11 +43,29 @@ def run_folder_sets(folder, kind: str = "auto") -> list[tuple[float, dict, str]]
                 data[k] = {n: getattr(points, n)[pick] for n in (
                     "voltage_V", "current_A", "frequency_Hz", "capacitance_F",
                     "conductance_S", "compliance")}
+                if scale is not None:  # each step's NPLC and averaging, as the run's fit
+                    data[k]["noise_scale"] = scale[pick]
         if "cv" in data:  # compensated as the run's own fit did, with this set point's
             data["cv"] = _compensated(data["cv"], folder, sp)  # recorded correction
         if data:
             out.append((float(np.mean(t)) if t.size else sp, data, f"{folder} @ {sp:g} K"))
     return out
+
+
+def _step_noise_scales(folder, steps):
+    """Per row, 1/sqrt(NPLC x readings) of its step in the run's plan (None when the
+    plan cannot be read: the stated noise then holds unscaled)."""
+    import numpy as np
+
+    from pnbench.errors import PnbenchError
+    from pnbench.sweeps.fitmodel import noise_scale
+    from pnbench.sweeps.launch import plan_of_run
+
+    try:
+        table = {s.name: noise_scale(s) for s in plan_of_run(folder).steps}
+    except (PnbenchError, OSError):
+        return None
+    return np.array([table.get(str(s), 1.0) for s in steps], dtype=float)
 
 
 def _compensated(col: dict, folder, set_point_K: float) -> dict:
@@ -76,7 +95,7 @@ def run(args) -> int:
     from pnbench.modeling.fit_temperature import fit_over_temperature
     from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
     from pnbench.sweeps.datafile import read_data
-    from pnbench.tui.commands.fit import column_names
+    from pnbench.tui.commands.fit import _noise_option, _run_noise, column_names
 
     names = column_names(getattr(args, "column_names", None))
     from pnbench.sweeps.quantities import parse_quantity
@@ -102,7 +121,10 @@ def run(args) -> int:
             if args.leakage_at else None)
     notes: list[str] = []
     sets, files = [], []
+    noise: dict = {}
     for source in args.source:
+        if not noise:  # a run folder's stated noise (the first that states one)
+            noise = _run_noise(source, notes)
         over_t = run_folder_sets(source, args.kind)
         if over_t is not None:
             for t, fit_data, label in over_t:
@@ -126,10 +148,15 @@ def run(args) -> int:
         fit_data = {k: data.select(k) for k in kinds if data.select(k) is not None}
         sets.append((t, fit_data))
         files.append((data, t))
+    noise.update({key: _noise_option(text, option, unit)
+                  for key, text, option, unit in (
+                      ("iv", getattr(args, "smu_noise", None), "--smu-noise", "A"),
+                      ("cv", getattr(args, "lcr_noise", None), "--lcr-noise", "F")) if text})
     try:
         fit = fit_over_temperature(sets, tnom_K=tnom, area_m2=area, ibv_A=ibv,
                                    reference_V=leak,
-                                   extras={"sources": [str(d.path) for d, _ in files]})
+                                   extras={"sources": [str(d.path) for d, _ in files]},
+                                   noise=noise or None)
     except ValueError as exc:
         raise DataFileError(f"{', '.join(args.source)}: {exc}") from None
     if not any(r.success for _, jf in fit.per_temperature for r in jf.results.values()):
