@@ -247,7 +247,19 @@ def model_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
                      extras: dict | None = None):
     """The run's ModelSet fitted from every point, given per step as columns (`Columns`
     views); None when nothing can be fitted. Steps of one kind are pooled."""
-    from pnbench.modeling.joint import fit_run
+    fit = joint_of_columns(steps, columns, temperature_K, area_m2=area_m2, extras=extras)
+    return None if fit is None else fit.model
+
+
+def joint_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
+                     temperature_K: float, *, area_m2: float | None = None,
+                     extras: dict | None = None, **options):
+    """The run's joint fit (`joint.JointFit`, its model stating the meter's correction)
+    from every point, given per step as columns; None when nothing can be fitted. The
+    one fit of a run's model: the end of a run, `pnbench fit RUN_DIR` and the review
+    refit (`runfit`) all come here. ``options`` override the joint fit's defaults (the
+    run's breakdown current, run.json's stated noise)."""
+    from pnbench.modeling.joint import fit_all
     from pnbench.sweeps.fitcorrection import compensated_columns
 
     columns = compensated_columns(steps, columns, (extras or {}).get("lcr_correction"))
@@ -268,10 +280,12 @@ def model_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
             for kind, parts in by_kind.items()}
     from pnbench.sweeps.statednoise import fit_noise
 
-    model = fit_run(data, temperature_K=temperature_K, area_m2=area_m2, extras=extras,
-                    ibv_A=breakdown_current_A(steps.values()),
-                    noise=fit_noise((extras or {}).get("stated_noise")))
-    return note_correction(model, (extras or {}).get("lcr_correction"))
+    options = {"ibv_A": breakdown_current_A(steps.values()),
+               "noise": fit_noise((extras or {}).get("stated_noise")), **options}
+    fit = fit_all(data, temperature_K=temperature_K, area_m2=area_m2, extras=extras,
+                  **options)
+    note_correction(fit.model, (extras or {}).get("lcr_correction"))
+    return fit
 
 
 def noise_scale(step) -> float:

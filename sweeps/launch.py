@@ -32,6 +32,7 @@ from pnbench.sweeps.events import ErrorEvent, EventBus, RunFinished, RunStarted,
 from pnbench.sweeps.fitfeed import FitWorker
 from pnbench.sweeps.plan import Plan, parse_plan
 from pnbench.sweeps.record import RunFolder, iso, plan_path, read_run, utc_now
+from pnbench.sweeps.runfit import run_extras
 from pnbench.sweeps.runner import Outcome, Runner
 from pnbench.sweeps.statednoise import run_noise
 from pnbench.sweeps.statuses import RunStatus, run_status
@@ -274,10 +275,7 @@ class Launch:
         worker = FitWorker(self.plan.steps, bus, temperature_K=self.plan.device.temperature_K,
                            write_model=write_model,
                            enabled=self.fit_enabled, area_m2=self.plan.device.area_m2,
-                           extras={"device": self.plan.device.name,
-                                   **{key: folder.run[key] for key in
-                                      ("lcr_correction", "stated_noise")
-                                      if folder.run.get(key)}})
+                           extras=run_extras(self.plan.device.name, folder.run))
         if state is not None:  # by column: a long run's points never become objects
             for step in self.plan.steps:
                 if step.name in state.columns:

@@ -25,13 +25,13 @@ from pnbench.sweeps.store import Point
 def _run(names, monkeypatch):
     plan = plan_of(names)
     written, calls = [], []
-    real = joint.fit_run
+    real = joint.fit_all
 
     def counting(data, **options):
         calls.append({k: len(v["voltage_V"]) for k, v in data.items()})
         return real(data, **options)
 
-    monkeypatch.setattr(joint, "fit_run", counting)
+    monkeypatch.setattr(joint, "fit_all", counting)
     worker = FitWorker(plan.steps, EventBus(), temperature_K=T_K, snapshot_interval_s=0.01,
                        write_model=written.append, extras={"device": "LH-VC510"})
     worker.start()

@@ -75,3 +75,31 @@ def test_the_live_tt_at_the_admittance_step_end_is_within_two_sigma(demo_folder)
     assert abs(tt["value"] - final_tt["value"]) < 2 * final_tt["sigma"], (tt, final_tt)
     cv = [e for e in events if e["kind"] == "fit" and e["step"] == "cv" and e.get("final")]
     assert "CFIX" in cv[-1]["parameters"], cv[-1]["message"]  # the fixture, found live
+
+
+def test_review_refit_and_fit_run_dir_give_the_runs_own_model(demo_folder, capsys):
+    """One folder, three fits: the run's model.json (fitted at its end from memory),
+    `pnbench fit RUN_DIR` and the app's review refit (both read the folder back through
+    the same inputs) agree on every parameter, sigma and fixture figure to 1e-9."""
+    from pnbench.tui.app.review import load_review, refit
+
+    run = json.loads((demo_folder / "model.json").read_text(encoding="utf-8"))
+    capsys.readouterr()
+    assert cli.main(["fit", str(demo_folder), "--json"]) == 0
+    fitted = json.loads(capsys.readouterr().out)
+    review = load_review(demo_folder)
+    refit(review)
+    for doc in (fitted, review.refit_doc):
+        assert set(doc["parameters"]) == set(run["parameters"])
+        for name, entry in run["parameters"].items():
+            for key in ("value", "sigma"):
+                if entry[key] is None:
+                    assert doc["parameters"][name][key] is None
+                else:
+                    assert math.isclose(doc["parameters"][name][key], entry[key],
+                                        rel_tol=1e-9), (name, key)
+        for key in ("fixture_capacitance_F", "doping"):
+            assert doc[key].keys() == run[key].keys()
+        assert math.isclose(doc["fixture_capacitance_F"]["value"],
+                            run["fixture_capacitance_F"]["value"], rel_tol=1e-9)
+        assert doc["device"] == run["device"]

@@ -1,23 +1,21 @@
 """Reviewing a finished run folder: its points, which of them a refit uses, the refit.
 
 The folder is read with the run record (`sweeps.record`): points as columns, typed
-events, run.json and model.json; the refit goes
-through the same seam the runner uses (`sweeps.fitmodel.run_model` over
-`modeling.joint.fit_run`), with only the points the user kept. Blocking calls (reading,
+events, run.json and model.json; the refit builds its inputs the way `pnbench fit
+RUN_DIR` does and fits them through the call the end of a run uses (`sweeps.runfit`),
+with only the points the user kept. Blocking calls (reading,
 refitting) run on worker threads; everything here returns values.
 """
 
 from __future__ import annotations
 
 import json
-import math
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from types import SimpleNamespace
 
 import numpy as np
 
-from pnbench.errors import DataFileError, PnbenchError
+from pnbench.errors import DataFileError
 from pnbench.modeling.modelset import card_name
 from pnbench.sweeps.events import Fit, PointTaken
 from pnbench.sweeps.record import PointColumns
@@ -143,52 +141,23 @@ def set_step(review: Review, step: str, used: bool) -> None:
 
 
 def refit(review: Review):
-    """Fit the whole model again from the points in use; returns the ModelSet (or
-    raises DataFileError when no point is left). Blocking: call on a worker thread."""
-    from pnbench.sweeps.fitmodel import run_model
+    """Fit the whole model again from the points in use, with the inputs the run's own
+    fit had (`sweeps.runfit`: the plan's steps and test levels, run.json's correction
+    and stated noise); returns the ModelSet (or raises DataFileError when no point is
+    left). Blocking: call on a worker thread."""
+    from pnbench.sweeps.runfit import fit_inputs, read_inputs
 
-    chosen = list(review.columns.select(review.used).rows())
-    if not chosen:
+    chosen = review.columns.select(review.used)
+    if not len(chosen):
         raise DataFileError(f"{review.run_dir}: no point is in use; keep some points "
                             "(space toggles one, t a step, a all) before refitting")
-    planned = _plan_steps(review.run_dir)
-    kinds = review.step_kinds()
-    steps = {name: planned.get(name) or SimpleNamespace(
-                 name=name, kind=kinds.get(name) or _guess_kind(name, chosen),
-                 breakdown_guard_A=None)
-             for name in {p.step for p in chosen}}
-    area = (review.run_doc.get("device") or {}).get("area_m2")
-    # judged, and compensated, as the run's own fit was
-    extras = {k: review.run_doc[k] for k in ("stated_noise", "lcr_correction")
-              if review.run_doc.get(k)}
-    model = run_model(steps, chosen, {}, review.temperature_K,
-                      area_m2=area if isinstance(area, (int, float)) else None,
-                      extras=extras or None)
-    if model is None:
+    fit = fit_inputs(read_inputs(review.run_dir, chosen))
+    if fit is None:
         raise DataFileError(f"{review.run_dir}: the points in use give nothing to fit")
+    model = fit.model
     review.refit_model = model
     review.refit_doc = model.to_json_dict()
     return model
-
-
-def _plan_steps(run_dir: Path) -> dict:
-    """The run's own steps (from its plan.toml: kinds, breakdown guard), when readable."""
-    from pnbench.sweeps.launch import plan_of_run
-
-    try:
-        return {step.name: step for step in plan_of_run(run_dir).steps}
-    except PnbenchError:
-        return {}
-
-
-def _guess_kind(step: str, points: list) -> str:
-    """A step without a kind in run.json: I-V points forward or reverse by sign."""
-    mine = [p for p in points if p.step == step]
-    if mine and mine[0].kind == "cv":
-        return "cv"
-    volts = [p.voltage_V for p in mine if p.voltage_V is not None and math.isfinite(
-        p.voltage_V)]
-    return "iv_reverse" if volts and np.median(volts) < 0 else "iv_forward"
 
 
 def card_text(review: Review) -> str:

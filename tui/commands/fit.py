@@ -118,24 +118,34 @@ def run(args) -> int:
         ibv = _run_breakdown_current(source, notes)
     leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at", low=-1e4, high=1e4)
             if args.leakage_at else None)
-    kinds = data.kinds if args.kind == "auto" else (args.kind,)
-    fit_data = {k: data.select(k) for k in kinds if data.select(k) is not None}
-    for kind, cols in _run_step_columns(source, data).items():
-        if kind in fit_data:  # the meter's test level and each step's noise scale,
-            fit_data[kind] = {**fit_data[kind], **cols}  # as the run's own fit used them
     noise = _run_noise(source, notes)
     noise.update({key: _noise_option(text, option, unit)
                   for key, text, option, unit in (("iv", args.smu_noise, "--smu-noise", "A"),
                                                   ("cv", args.lcr_noise, "--lcr-noise", "F"))
                   if text})
-    result = joint.fit_all(fit_data, temperature_K=temperature, area_m2=area,
-                           reference_V=leak, ibv_A=ibv, with_fixture=True if args.fixture else None,
-                           extras={"source": str(data.path)}, noise=noise or None)
-    correction = _run_correction(source) if len(args.source) == 1 else None
-    if correction is not None:  # the fits state (and judge) it as the run's own did
-        from pnbench.sweeps.fitmodel import note_correction
+    options = {"reference_V": leak, "with_fixture": True if args.fixture else None,
+               "ibv_A": ibv, "noise": noise or None}
+    run_inputs = _run_inputs(source, args.kind)
+    if run_inputs is not None:  # a run folder: fitted as its run's own model was
+        from dataclasses import replace
 
-        note_correction(result.model, correction)
+        from pnbench.sweeps.runfit import fit_inputs
+
+        notes += run_inputs.notes
+        temperature = temperature if args.temperature is not None \
+            else run_inputs.temperature_K
+        run_inputs = replace(run_inputs, temperature_K=temperature,
+                             area_m2=area if args.area else run_inputs.area_m2,
+                             extras={**run_inputs.extras, "source": str(data.path)})
+        result = fit_inputs(run_inputs, **{k: v for k, v in options.items()
+                                           if v is not None or k == "with_fixture"})
+        if result is None:
+            raise DataFileError(f"{data.path}: no points of the run to fit")
+    else:
+        kinds = data.kinds if args.kind == "auto" else (args.kind,)
+        fit_data = {k: data.select(k) for k in kinds if data.select(k) is not None}
+        result = joint.fit_all(fit_data, temperature_K=temperature, area_m2=area,
+                               extras={"source": str(data.path)}, **options)
     if not any(r.success for r in result.results.values()):
         reasons = "; ".join(f"{k}: {r.message}" for k, r in result.results.items())
         raise DataFileError(f"{data.path}: nothing could be fitted ({reasons})")
@@ -224,86 +234,19 @@ def _run_noise(source: str, notes: list[str]) -> dict:
     return noise
 
 
-def _run_step_columns(source: str, data) -> dict:
-    """For a run folder, per data kind, the LCR test level of every C-V row
-    (``ac_level_V``, NaN where unknown) and the noise scale of every row
-    (``noise_scale``: 1/sqrt(NPLC x readings averaged) of its step), from its step in
-    the plan; {} elsewhere. The folder is read through the run record (the step of each
-    row, by column)."""
+def _run_inputs(source: str, kind: str):
+    """For a run folder (run.json and points.csv), its fit inputs (`sweeps.runfit`, only
+    the steps of ``kind`` unless "auto"); None for a data file."""
     from pathlib import Path
 
-    import numpy as np
-
-    from pnbench.errors import PnbenchError
     from pnbench.sweeps import record
-    from pnbench.sweeps.fitmodel import noise_scale
-    from pnbench.sweeps.plan import load_plan
+    from pnbench.sweeps.runfit import read_inputs
 
-    folder = Path(source)
-    if not (folder.is_dir() and record.has(folder, record.layout.PLAN)
+    folder = Path(source).expanduser()
+    if not (folder.is_dir() and record.has(folder, record.layout.RUN)
             and record.has(folder, record.layout.POINTS)):
-        return {}
-    try:
-        plan = load_plan(record.plan_path(folder))
-        steps = record.read_columns(folder, fields=())
-    except (PnbenchError, OSError):
-        return {}  # the plan's trouble is said once already, by _run_breakdown_current
-    level = {s.name: getattr(s, "ac_level_V", None) for s in plan.steps}
-    scale = {s.name: noise_scale(s) for s in plan.steps}
-    names = steps.steps()
-    out: dict = {}
-    for kind in data.kinds:
-        at = np.asarray(data.line_numbers)[data.row_kind == kind] - steps.first_line
-        ok = (at >= 0) & (at < len(names))
-        for column, table in (("ac_level_V", level), ("noise_scale", scale)):
-            values = np.full(at.size, np.nan)
-            values[ok] = [np.nan if table.get(s) is None else table[s]
-                          for s in names[at[ok]]]
-            if np.any(np.isfinite(values)):
-                out.setdefault(kind, {})[column] = values
-        compensated = _compensated_rows(data.select(kind), names, at, ok, plan,
-                                        _run_correction(source))
-        if compensated:
-            out.setdefault(kind, {}).update(compensated)
-    return out
-
-
-def _run_correction(source: str) -> dict | None:
-    """A run folder's recorded LCR correction (run.json ``lcr_correction``), else None."""
-    from pnbench.errors import PnbenchError
-    from pnbench.sweeps import record
-
-    try:
-        record_doc = record.read_run(source).get("lcr_correction")
-    except (PnbenchError, OSError):
         return None
-    return record_doc if isinstance(record_doc, dict) else None
-
-
-def _compensated_rows(col, names, at, ok, plan, correction) -> dict:
-    """C and G of a kind's rows compensated as the run's own fits did it, when its
-    correction was applied in software (sweeps.fitcorrection); {} otherwise."""
-    from pnbench.sweeps.fitcorrection import compensated, runs_of
-
-    if col is None or "capacitance_F" not in col or not any(
-            r.get("applied_by") == "software" for r in runs_of(correction)):
-        return {}
-    steps = {s.name: s for s in plan.steps}
-    c = col["capacitance_F"].copy()
-    g = (col.get("conductance_S") if col.get("conductance_S") is not None
-         else c * float("nan")).copy()
-    row_steps = names[at[ok]]
-    for name in set(row_steps.tolist()):
-        if name not in steps:
-            continue
-        rows = ok.copy()
-        rows[ok] = row_steps == name
-        part = compensated(steps[name], {"voltage_V": col["voltage_V"][rows],
-                                         "frequency_Hz": col["frequency_Hz"][rows],
-                                         "capacitance_F": c[rows],
-                                         "conductance_S": g[rows]}, correction)
-        c[rows], g[rows] = part["capacitance_F"], part["conductance_S"]
-    return {"capacitance_F": c, "conductance_S": g}
+    return read_inputs(folder).only(kind)
 
 
 def _json_default(value):
