@@ -12,11 +12,13 @@ import math
 import tomllib
 from pathlib import Path
 
+import numpy as np
 import pytest
 from scipy import constants
 
 from pnbench.modeling import junction
 from pnbench.modeling.materials import material
+from pnbench.sweeps import record
 from pnbench.tui import cli
 
 CONFIG = Path(__file__).resolve().parents[2] / "sim_configs" / "lh-vc510.toml"
@@ -47,6 +49,8 @@ def test_demo_ends_with_every_parameter_within_three_sigma(demo_folder, capsys):
     fixture = doc["fixture_capacitance_F"]
     z = (fixture["value"] - cfg["lcr"]["fixture_capacitance_F"]) / fixture["sigma"]
     assert abs(z) < 3.0
+    assert "fixture_resistance_ohm" not in doc  # the demo's fixture has no series R
+    assert "RFIX (fixture series resistance) not fitted" in doc["fits"]["cv"]["message"]
     doping = doc["doping"]
     assert "artefact" not in doping  # the corrected Vbi is no longer above the band gap
     vbi = truth["VJ"] + junction.thermal_voltage(300.15)
@@ -103,3 +107,40 @@ def test_review_refit_and_fit_run_dir_give_the_runs_own_model(demo_folder, capsy
         assert math.isclose(doc["fixture_capacitance_F"]["value"],
                             run["fixture_capacitance_F"]["value"], rel_tol=1e-9)
         assert doc["device"] == run["device"]
+
+
+def test_a_fixture_series_resistance_on_the_simulated_bench_is_the_benchs(demo_folder,
+                                                                          tmp_path, capsys):
+    """The demo's part with 0.5 ohm of fixture leads (the simulated meter puts them in
+    series outside the stray capacitance): forward C readings drop by several percent;
+    the run's fit finds RFIX within two standard errors, states it as the bench's, and
+    RS and TT stay within two standard errors of the part's; the live admittance fit
+    at the step's end finds TT within two of its own."""
+    text = CONFIG.read_text(encoding="utf-8").replace(
+        "fixture_capacitance_F = 3.5e-13",
+        "fixture_capacitance_F = 3.5e-13\nfixture_resistance_ohm = 0.5")
+    device = tmp_path / "leads.toml"
+    device.write_text(text, encoding="utf-8")
+    out = tmp_path / "runs"
+    assert cli.main(["demo", "--headless", "--time-scale", "0", "--simulate", str(device),
+                     "--out", str(out)]) == 0
+    capsys.readouterr()
+    (folder,) = [p for p in out.iterdir() if p.is_dir()]
+    with_leads, without = (record.read_columns(f) for f in (folder, demo_folder))
+    top = with_leads.step_mask("admittance") & (with_leads.voltage_V > 0.7)
+    drop = with_leads.capacitance_F[top] / without.capacitance_F[top]  # same noise draws
+    assert np.median(drop) < 0.97
+    doc = json.loads((folder / "model.json").read_text(encoding="utf-8"))
+    truth = tomllib.loads(text)["diode"]
+    series = doc["fixture_resistance_ohm"]
+    assert abs(series["value"] - 0.5) < 2 * series["sigma"], series
+    assert "RFIX" not in doc["parameters"]
+    for name in ("RS", "TT"):
+        par = doc["parameters"][name]
+        assert abs(par["value"] - truth[name]) < 2 * par["sigma"], (name, par)
+    events = [json.loads(line) for line in
+              (folder / "events.jsonl").read_text(encoding="utf-8").splitlines()]
+    (last,) = [e for e in events if e["kind"] == "fit" and e["step"] == "admittance"
+               and e.get("final")]
+    tt = last["parameters"]["TT"]
+    assert abs(tt["value"] - truth["TT"]) < 2 * tt["sigma"], (tt, last["message"])
