@@ -295,18 +295,21 @@ def test_model_json_replaces_live_estimates_and_drops_what_it_leaves_out():
 
 
 def test_model_json_shows_the_fixture_as_the_benchs_and_logs_a_misfit_once():
-    """CFIX comes in from model.json's fixture entry (the table marks it the bench's), and
-    a fit whose model does not describe the data is logged as a warning, once."""
+    """CFIX and RFIX come in from model.json's fixture entries (the table marks them the
+    bench's), and a fit whose model does not describe the data is logged as a warning,
+    once."""
     from pnbench.tui.app.widgets.params import FIXTURE_LABEL, rows
 
     state = RunState()
     doc = {"parameters": {"CJO": {"value": 3.2e-11, "sigma": 1e-14, "unit": "F"}},
            "fixture_capacitance_F": {"value": 3.4e-13, "sigma": 6e-15},
+           "fixture_resistance_ohm": {"value": 0.49, "sigma": 0.06},
            "fits": {"cv": {"message": "CJO VJ M; the model does not describe the data",
                            "lack_of_fit": {"misfit": True}}}}
     state.apply_model_json(doc)
     state.apply_model_json(doc)
     assert state.parameters["CFIX"].value == 3.4e-13
     assert any(r[0] == FIXTURE_LABEL and "fF" in r[1] for r in rows(state.parameters))
+    assert any(r[0] == "RFIX bench" and "ohm" in r[1] for r in rows(state.parameters))
     warned = [e for e in state.log if "does not describe" in e.text]
     assert len(warned) == 1 and warned[0].tag == "WARN"

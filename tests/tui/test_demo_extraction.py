@@ -144,3 +144,7 @@ def test_a_fixture_series_resistance_on_the_simulated_bench_is_the_benchs(demo_f
                and e.get("final")]
     tt = last["parameters"]["TT"]
     assert abs(tt["value"] - truth["TT"]) < 2 * tt["sigma"], (tt, last["message"])
+    report = (folder / "report.html").read_text(encoding="utf-8")
+    assert "Fixture series resistance (the bench" in report
+    assert cli.main(["fit", str(folder)]) == 0
+    assert "fixture series resistance (the bench's leads, not RS" in capsys.readouterr().out
