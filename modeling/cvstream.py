@@ -165,6 +165,12 @@ class NetworkSpec:
     def extras(self) -> dict:
         return held_extras(self.model, self.fixed)
 
+    def describe(self, result):
+        """The snapshot with its message saying what a fitted CFIX or RFIX is."""
+        from pnbench.modeling.network import with_fixture_note
+
+        return with_fixture_note(result)
+
     def carried(self, state, x, y) -> np.ndarray | None:
         """The covariance the held values carry into the free ones at ``state`` (t
         space), once per state."""

@@ -201,7 +201,9 @@ class IncrementalFitter:
             return merge_results("iv", [self._forward.snapshot(), self._reverse.snapshot()],
                                  [fwd_mask, ~fwd_mask])
         stream = self._forward or self._reverse or self._small
-        return stream.snapshot()
+        result = stream.snapshot()
+        describe = getattr(getattr(stream, "spec", None), "describe", None)
+        return describe(result) if describe else result  # e.g. what CFIX, RFIX are
 
     def refit(self) -> None:
         """Refit every point now from scratch (warm-started): noise model and optional
