@@ -74,6 +74,10 @@ class StreamSpec:
         out[:, 0] &= x[:, 0] <= self.v_cut
         return out
 
+    def can_show(self, name: str, elig) -> bool:
+        """Whether a left-out parameter may be called back: not one held (``fixed``)."""
+        return name not in (self.fixed or {})
+
     def extras(self) -> dict:
         return held_extras(self.model, self.fixed) if self.kind == "admittance" else {}
 
@@ -153,6 +157,14 @@ class NetworkSpec:
 
     def eligible_now(self, x, elig):
         return elig
+
+    def can_show(self, name: str, elig) -> bool:
+        """Whether a left-out parameter may be called back by these rows: not one held
+        at an earlier step's value, and TT and RFIX only with a forward point
+        (`network.network_state` holds them absent without one)."""
+        if name in self.fixed:
+            return False
+        return name not in ("TT", "RFIX") or bool(elig[:, 1].any())
 
     def noise_rows(self, x, y, t):
         """The meter's stated noise of these rows (None when it is estimated)."""

@@ -255,6 +255,9 @@ class LsqStream:
         standard error or more."""
         params = self.model.params
         absent = [k for k, p in enumerate(params) if p.optional and not state.active[k]]
+        shown = getattr(self.spec, "can_show", None)  # not held, and shown by these rows
+        if shown is not None:
+            absent = [k for k in absent if shown(params[k].name, self.elig.view())]
         if not absent:
             return False
         trial = state.active.copy()
