@@ -72,3 +72,22 @@ def test_the_test_level_is_modelled_in_the_stream():
     with_level = out[LEVEL_V]
     assert abs(with_level.values["TT"] - PART.TT) < 2 * with_level.sigmas["TT"]
     assert abs(out[None].values["TT"] - with_level.values["TT"]) > with_level.sigmas["TT"]
+
+
+def test_held_values_are_never_called_back_so_refits_stay_warm():
+    """The stream holds IS, N, RS, RSH: its score test for left-out parameters must not
+    free them (that forced a full refit at every refit). Over a long sweep most refits
+    are warm ones (one solve from the current estimate), the geometric schedule's
+    promise of a flat cost per point."""
+    v, f, c, g = _readings(0.0)
+    rng = np.random.default_rng(9)
+    k = rng.integers(0, v.size, 3000)
+    noisy = c[k] * (1 + 3e-4 * rng.standard_normal(k.size))
+    live = IncrementalFitter("cv", temperature_K=T_K, fixed=HELD, ac_level_V=LEVEL_V)
+    for a in range(0, k.size, 25):
+        s = slice(a, a + 25)
+        live.add(v[k][s], frequency_Hz=f[k][s], capacitance_F=noisy[s],
+                 conductance_S=g[k][s])
+    refits = live._small.refits
+    assert refits["warm"] > refits["full"], refits
+    assert live.snapshot().success
