@@ -214,6 +214,16 @@ class IncrementalFitter:
                 if stream is not None:
                     stream.refit()
 
+    def settle(self) -> None:
+        """The end of a sweep when no refit follows: a full refit only where the points
+        since the last one call for an optional parameter it left out (one Jacobian
+        over every point otherwise; see LsqStream.settle)."""
+        with self._lock, np.errstate(all="ignore"):
+            self._cache = None
+            for stream in (self._forward, self._small):
+                if stream is not None:
+                    stream.settle()
+
     def settled(self, target_rel: float | None = None,
                 names: Iterable[str] | None = None) -> dict[str, bool]:
         """Per parameter: relative standard error below ``target_rel`` (or the default)."""

@@ -209,6 +209,21 @@ class LsqStream:
             self.next_select = self.n
             self._full_refit()
 
+    def settle(self) -> None:
+        """The end of a sweep, cheaply: a full refit (`refit`) only when the points
+        added since the last one call for an optional parameter it left out (the score
+        test of warm refits, `_called_for`, at the current estimate over every point),
+        e.g. a fixture resistance that only the sweep's last, highest-bias points show."""
+        if self.state is None or self.n < self.spec.min_points:
+            return
+        now = replace(self.state, t=self.current_t(), used=self.used.view().copy())
+        try:
+            called = self._called_for(now, self.x.view(), self.y.view())
+        except (ValueError, ArithmeticError, np.linalg.LinAlgError):
+            called = True
+        if called:
+            self.refit()
+
     def _warm_refit(self) -> bool:
         """Refit every point keeping the decided optional parameters and the rows'
         eligibility rule, from the current estimate and the last noise model: one

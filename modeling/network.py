@@ -40,6 +40,8 @@ TT_ABSENT = ("TT not determined: the diffusion capacitance never stands three st
 RFIX_ABSENT = ("RFIX (fixture series resistance) not fitted: the readings need no series "
                "resistance beyond the device's RS three standard errors from none")
 #: The fixture's series resistance, fitted beside the held RS (see the module notes).
+#: Where a fit of RFIX starts (a small fraction of an ohm; the fit goes on from there).
+RFIX_START_OHM = 0.05
 RFIX_PARAM = lsq.Param("RFIX", "lin", lower=0.0, upper=1e6, optional=True, step=1e-9,
                        absent_reason=RFIX_ABSENT)
 
@@ -287,6 +289,11 @@ def network_state(model: SplitModel, x, y, elig, fixed: dict[str, float],
                              f"point)")
     if active[k["TT"]] and (start is None or not np.isfinite(start[k["TT"]])):
         t0[k["TT"]] = _tt_start(model.inner, t0, x, y, ok)
+    if "RFIX" in k and active[k["RFIX"]] and (start is None
+                                              or not np.isfinite(start[k["RFIX"]])):
+        # inside its bound: from none (its lower bound) a gradient that TT's coupling
+        # turns around would hold it there and the 3-sigma rule would drop it unseen
+        t0[k["RFIX"]] = RFIX_START_OHM
     known = None if noise is None else meter_noise(noise, x[:, 3], noise_scale)
     state = coarse.fit(model, x, y, elig, t0, active, noise=known)
     state.notes = notes + state.notes

@@ -298,8 +298,14 @@ class FitWorker:
             return
         step = self.steps[name]
         try:
-            if final and refit:  # the step's last word: optional parameters decided afresh
+            # the step's last word: optional parameters decided afresh; when the run's
+            # model follows at once, only where the data call for it, except for a C-V
+            # sweep, whose TT, RFIX and CFIX can stand in for each other until its last
+            # (highest-bias) points are in
+            if final and (refit or step.kind in ("cv", "admittance")):
                 fitter.refit()
+            elif final:
+                fitter.settle()
             result = fitter.snapshot()
         except Exception as exc:  # noqa: BLE001
             self._break(name, exc)

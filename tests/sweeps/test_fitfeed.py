@@ -42,11 +42,13 @@ def iv_points(step: str, v: np.ndarray, rng, rel=1e-3) -> list[Point]:
 
 
 def lcr_points(step: str, v: np.ndarray, f: np.ndarray, rng, rel=2e-3,
-               level_V: float = 0.0) -> list[Point]:
-    """C-V points as the meter reads them at the test level ``level_V`` (rms)."""
+               level_V: float = 0.0, rfix: float = 0.0) -> list[Point]:
+    """C-V points as the meter reads them at the test level ``level_V`` (rms), through
+    a fixture series resistance ``rfix`` when given."""
     vv, ff = np.repeat(v, f.size), np.tile(f, v.size)
     y = np.array([fundamental_admittance(a, b, level_V, TRUE, T_K)
                   for a, b in zip(vv, ff, strict=True)])
+    y = y / (1.0 + rfix * y)
     c, g = parallel_from_admittance(y, ff)
     c = np.asarray(c) * (1 + rel * rng.standard_normal(vv.size))
     g = np.asarray(g) * (1 + rel * rng.standard_normal(vv.size))
@@ -187,3 +189,32 @@ def test_a_reverse_step_runs_to_its_end():
     bv = final(fits, "reverse")["parameters"]["BV"]
     assert bv["sigma"] < 0.01 * bv["value"]  # read over several points through the knee
     assert not box[0].is_settled("reverse")
+
+
+def test_the_last_steps_end_decides_its_fixture_resistance_from_all_its_points():
+    """Fixture leads of 0.5 ohm show only in the admittance sweep's highest-bias points,
+    which arrive last, and the run ends with that step (its model follows at once). The
+    step's final fit event still weighs every point (TT, RFIX and CFIX stand in for each
+    other until then): RFIX and TT within two standard errors of the truth, with the
+    points arriving a few at a time."""
+    from pnbench.sweeps.fitfeed import _STOP
+
+    plan = plan_of(["forward", "cv", "admittance"])
+    bus = EventBus()
+    seen = []
+    bus.add_listener(seen.append)
+    worker = FitWorker(plan.steps, bus, temperature_K=T_K)
+    rng = np.random.default_rng(510)
+    for step in plan.steps[:2]:
+        worker.preload(step, step_points(step.name, rng))
+    points = lcr_points("admittance", np.array([0.55, 0.6, 0.63, 0.66, 0.68, 0.70, 0.72]),
+                        np.array([1e5, 3e5, 1e6, 2e6]), rng, level_V=0.005, rfix=0.5)
+    for k in range(0, len(points), 2):  # two at a time: the last full refit comes early
+        worker._add("admittance", points[k:k + 2])
+        worker._snapshot("admittance")
+    worker._handle([("admittance", None), _STOP])
+    adm = final([e for e in seen if e.kind == "fit"], "admittance")
+    par = adm["parameters"]
+    assert "RFIX" in par, adm["message"]
+    assert abs(par["RFIX"]["value"] - 0.5) < 2 * par["RFIX"]["sigma"], par
+    assert abs(par["TT"]["value"] - TRUE.TT) < 2 * par["TT"]["sigma"], par
