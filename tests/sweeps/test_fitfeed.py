@@ -210,8 +210,7 @@ def test_the_last_steps_end_decides_its_fixture_resistance_from_all_its_points()
     points = lcr_points("admittance", np.array([0.55, 0.6, 0.63, 0.66, 0.68, 0.70, 0.72]),
                         np.array([1e5, 3e5, 1e6, 2e6]), rng, level_V=0.005, rfix=0.5)
     for k in range(0, len(points), 2):  # two at a time: the last full refit comes early
-        worker._add("admittance", points[k:k + 2])
-        worker._snapshot("admittance")
+        worker.preload(plan.steps[2], points[k:k + 2])
     worker._handle([("admittance", None), _STOP])
     adm = final([e for e in seen if e.kind == "fit"], "admittance")
     par = adm["parameters"]
