@@ -146,5 +146,9 @@ def test_a_fixture_series_resistance_on_the_simulated_bench_is_the_benchs(demo_f
     assert abs(tt["value"] - truth["TT"]) < 2 * tt["sigma"], (tt, last["message"])
     report = (folder / "report.html").read_text(encoding="utf-8")
     assert "Fixture series resistance (the bench" in report
+    from pnbench.tui.app.review import load_review, review_state
+
+    shown = review_state(load_review(folder)).parameters  # the review shows the bench's
+    assert shown["RFIX"].value == series["value"] and "CFIX" in shown
     assert cli.main(["fit", str(folder)]) == 0
     assert "fixture series resistance (the bench's leads, not RS" in capsys.readouterr().out

@@ -19,7 +19,7 @@ from pnbench.errors import DataFileError
 from pnbench.modeling.modelset import card_name
 from pnbench.sweeps.events import Fit, PointTaken
 from pnbench.sweeps.record import PointColumns
-from pnbench.tui.app.state import Estimate, RunState
+from pnbench.tui.app.state import Estimate, RunState, fixture_estimates
 
 
 @dataclass
@@ -109,6 +109,7 @@ def estimates(model_doc: dict | None) -> dict[str, Estimate]:
         for name in ((model_doc or {}).get("fits") or {})[kind].get("correlation") or {}:
             if name in out:
                 out[name] = replace(out[name], misfit=True)
+    out.update(fixture_estimates(model_doc))  # the bench's, shown marked as such
     return out
 
 

@@ -251,14 +251,7 @@ class RunState:
                 self._misfits_logged.add((kind, text))
                 self.add_log(LogEntry(self.last_time_s, LOG_TAGS["warning"], None,
                                       f"fit {kind}: {text}"))
-        for name, key in (("CFIX", "fixture_capacitance_F"),  # the bench's, shown
-                          ("RFIX", "fixture_resistance_ohm")):  # marked as such
-            fixture = doc.get(key)
-            if isinstance(fixture, dict) and isinstance(fixture.get("value"), (int, float)):
-                sigma = fixture.get("sigma")
-                self.parameters[name] = Estimate(
-                    float(fixture["value"]),
-                    float(sigma) if isinstance(sigma, (int, float)) else None, True)
+        self.parameters.update(fixture_estimates(doc))
         self.version += 1
 
     def add_log(self, entry: LogEntry) -> None:
@@ -371,4 +364,19 @@ def _compensated_columns(record: dict, steps: np.ndarray, values: dict) -> dict:
             whole = np.array(out[key], dtype=float)
             whole[at] = column
             out[key] = whole
+    return out
+
+
+def fixture_estimates(doc: dict | None) -> dict[str, Estimate]:
+    """The fixture's figures of a model.json document as estimates named CFIX and RFIX
+    (the bench's: the parameter table marks them so, and model curves drawn over the
+    meter's readings include them)."""
+    out = {}
+    for name, key in (("CFIX", "fixture_capacitance_F"), ("RFIX", "fixture_resistance_ohm")):
+        fixture = (doc or {}).get(key)
+        if isinstance(fixture, dict) and isinstance(fixture.get("value"), (int, float)):
+            sigma = fixture.get("sigma")
+            out[name] = Estimate(float(fixture["value"]),
+                                 float(sigma) if isinstance(sigma, (int, float)) else None,
+                                 True)
     return out
