@@ -38,9 +38,12 @@ Z_RETRY = 2.0
 
 def fit(model, x: np.ndarray, y: np.ndarray, eligible: np.ndarray, t0: np.ndarray,
         active: np.ndarray, noise: lsq.Noise | None = None, forced_use: bool = False,
-        rounds: int = 3, max_iter: int = 60, max_rows: int | None = None) -> lsq.FitState:
+        rounds: int = 3, max_iter: int = 60, max_rows: int | None = None,
+        finish: bool = True) -> lsq.FitState:
     """`lsq.fit` with the decisions made on a subset of at most ~max_rows rows
-    (MAX_ROWS by default) and the result finished on every row (see the module notes)."""
+    (MAX_ROWS by default) and the result finished on every row (see the module notes).
+    ``finish`` False gives the subset's state itself where there is one: a start or a
+    slope to weight by, not a result."""
     max_rows = MAX_ROWS if max_rows is None else max_rows
     rows = int(np.count_nonzero(np.any(eligible, axis=1)))
     if rows <= 2 * max_rows:
@@ -49,6 +52,8 @@ def fit(model, x: np.ndarray, y: np.ndarray, eligible: np.ndarray, t0: np.ndarra
     pick = np.flatnonzero(np.any(eligible, axis=1))[::every]
     coarse = lsq.fit(model, x[pick], y[pick], eligible[pick], t0, active,
                      rows_of(noise, pick), forced_use, rounds, max_iter)
+    if not finish:
+        return coarse
     estimate = noise is None or noise.estimated
     with np.errstate(all="ignore"):
         return _finish(model, x, y, eligible, coarse, np.asarray(active, dtype=bool),

@@ -256,7 +256,8 @@ def forward_state(model: ForwardModel, v: np.ndarray, i: np.ndarray,
         t0 = t0.copy()
         t0[3] = 0.0
     if known is not None and as_stated(noise).voltage is not None:
-        first = coarse.fit(model, x, y, elig, t0, active, forced_use=forced)
+        # only the slope dI/dV is wanted of it (for the voltage noise): a subset's will do
+        first = coarse.fit(model, x, y, elig, t0, active, forced_use=forced, finish=False)
         known = stated_noise(model, noise, v, i, noise_scale, first.t)
         t0 = np.where(active, first.t, t0)
     return coarse.fit(model, x, y, elig, t0, active, noise=known, forced_use=forced)

@@ -11,6 +11,7 @@ from test_describing import VALUES, _network_data
 
 from pnbench.modeling import coarse, fit_iv, junction, lsq, network
 from pnbench.modeling.params import DiodeParams
+from pnbench.modeling.stated import StatedNoise
 
 
 def _agree(fast, full):
@@ -53,17 +54,24 @@ def test_a_parameter_the_subset_drops_is_taken_back_on_every_point(monkeypatch):
     assert "TT not determined" not in fast.message
 
 
-@pytest.mark.parametrize("rsh", [np.inf, 2e5])
-def test_forward_iv_fit_finished_on_every_point_agrees_with_the_full_fit(monkeypatch, rsh):
+#: A stated SMU noise with the voltage reading's own (invented figures).
+STATED = StatedNoise(1e-3, 1e-12, voltage=StatedNoise(2e-5, 1e-5))
+
+
+@pytest.mark.parametrize(("rsh", "noise"), [(np.inf, None), (2e5, None), (np.inf, STATED)])
+def test_forward_iv_fit_finished_on_every_point_agrees_with_the_full_fit(monkeypatch, rsh,
+                                                                         noise):
+    """Estimated noise, and a stated one whose voltage part is weighted by the slope
+    dI/dV (taken from the subset's fit on the fast path)."""
     p = DiodeParams(IS=4e-15, N=1.03, RS=0.42, RSH=rsh)
     rng = np.random.default_rng(11)
     v = np.tile(np.linspace(0.05, 0.8, 600), 10)
     i = junction.current(v, p) * (1 + 1e-3 * rng.standard_normal(v.size)) \
         + 1e-12 * rng.standard_normal(v.size)
     monkeypatch.setattr(coarse, "MAX_ROWS", 10**9)
-    full = fit_iv.fit_forward(v, i)
+    full = fit_iv.fit_forward(v, i, noise=noise)
     monkeypatch.setattr(coarse, "MAX_ROWS", 300)
-    fast = fit_iv.fit_forward(v, i)
+    fast = fit_iv.fit_forward(v, i, noise=noise)
     assert {"IS", "N", "RS"} <= set(full.names)
     _agree(fast, full)
 
