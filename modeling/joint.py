@@ -79,7 +79,8 @@ def _pool(data: Mapping[str, Mapping[str, Any]], kinds: Sequence[str]) -> dict |
     out: dict[str, np.ndarray] = {}
     for name in ("voltage_V", "current_A", "frequency_Hz", "capacitance_F",
                  "conductance_S", "ac_level_V", "noise_scale"):
-        out[name] = np.concatenate([_col(p, name, len(_col(p, "voltage_V"))) for p in parts])
+        cols = [_col(p, name, len(_col(p, "voltage_V"))) for p in parts]
+        out[name] = cols[0] if len(cols) == 1 else np.concatenate(cols)  # one: no copy
     out["compliance"] = np.concatenate([
         np.asarray(p["compliance"], dtype=bool).ravel() if p.get("compliance") is not None
         else np.zeros(len(_col(p, "voltage_V")), dtype=bool) for p in parts])
@@ -133,6 +134,7 @@ def _fit_all(data, temperature_K, area_m2, reference_V, ibv_A, with_fixture, sem
                 ibv_A=ibv_A, series_ohm=rs,
                 series_sigma_ohm=fwd.sigmas.get("RS") if rs is not None else None,
                 noise=(noise or {}).get("iv"), noise_scale=iv["noise_scale"])
+        iv = v = i = comp = None  # a long run's I-V columns are not needed past here
     cv = _pool(data, _CV_KINDS)
     if cv is not None:
         from pnbench.modeling import fit_cv
