@@ -152,3 +152,20 @@ def test_a_fixture_series_resistance_on_the_simulated_bench_is_the_benchs(demo_f
     assert shown["RFIX"].value == series["value"] and "CFIX" in shown
     assert cli.main(["fit", str(folder)]) == 0
     assert "fixture series resistance (the bench's leads, not RS" in capsys.readouterr().out
+
+
+def test_a_run_folder_without_its_plan_is_still_fitted_and_says_so(demo_folder, tmp_path,
+                                                                   capsys):
+    """Without plan.toml the folder's steps come from run.json: `pnbench fit RUN_DIR`
+    still fits it, and says what is then unknown (the test level, the breakdown
+    current)."""
+    import shutil
+
+    copy = tmp_path / demo_folder.name
+    shutil.copytree(demo_folder, copy)
+    record.plan_path(copy).unlink()
+    capsys.readouterr()
+    assert cli.main(["fit", str(copy)]) == 0
+    out = capsys.readouterr().out
+    assert "plan does not load" in out and "test level unknown" in out
+    assert "TT" in out and "CJO" in out
