@@ -81,10 +81,10 @@ class _ForwardSpec:
 
 
 class _ReverseStream:
-    def __init__(self, temperature_K, reference_V, ibv_A):
+    def __init__(self, temperature_K, reference_V, ibv_A, noise=None, noise_scale=1.0):
         self.v, self.i, self.comp = Buffer(1), Buffer(1), Buffer(1, dtype=bool)
         self.kw = {"temperature_K": temperature_K, "reference_V": reference_V,
-                   "ibv_A": ibv_A}
+                   "ibv_A": ibv_A, "noise": noise, "noise_scale": noise_scale}
         self.cache: FitResult | None = None
 
     @property
@@ -141,7 +141,8 @@ class IncrementalFitter:
             self._forward = LsqStream(_ForwardSpec(self.temperature_K, noise,
                                                    noise_scale=noise_scale), growth)
         if kind in ("iv", "iv_reverse"):
-            self._reverse = _ReverseStream(self.temperature_K, reference_V, ibv_A)
+            self._reverse = _ReverseStream(self.temperature_K, reference_V, ibv_A,
+                                           noise=noise, noise_scale=noise_scale)
         if kind in ("cv", "admittance"):
             from pnbench.modeling import cvstream
 

@@ -38,13 +38,14 @@ def new_fitter(step_kind: str, temperature_K: float, fixed: dict | None = None,
 
     noise = (fit_noise(stated_noise) or {}).get("iv" if step_kind.startswith("iv") else "cv")
     live = {"noise": noise, "noise_scale": noise_scale(step)} if noise is not None \
-        and step is not None and step_kind != "iv_reverse" else {}
+        and step is not None else {}
     if step_kind in ("cv", "admittance") and fixed:
         return IncrementalFitter(step_kind, temperature_K=temperature_K, fixed=fixed,
                                  ac_level_V=ac_level_V, held_covariance=held_covariance,
                                  **live)
     if step_kind == "iv_reverse" and ibv_A is not None:
-        return IncrementalFitter("iv_reverse", temperature_K=temperature_K, ibv_A=ibv_A)
+        return IncrementalFitter("iv_reverse", temperature_K=temperature_K, ibv_A=ibv_A,
+                                 **live)
     return IncrementalFitter(FIT_KIND[step_kind], temperature_K=temperature_K, **live)
 
 

@@ -177,3 +177,19 @@ def test_live_fits_are_judged_against_the_stated_noise(demo_part, demo_data):
     wrong = _stream(IncrementalFitter("cv", noise=noise["cv"], with_fixture=False), cv,
                     np.flatnonzero(cv["voltage_V"] <= 0))
     assert wrong.extras["lack_of_fit"]["misfit"] and wrong.reduced_chi2 > 5
+
+
+def test_the_live_reverse_fit_takes_the_stated_noise_too(demo_part):
+    """The live reverse analysis weighs its leakage figure by the stated noise exactly
+    as the final reverse fit does."""
+    noise = device_noise(demo_part)["iv"]
+    rev = reverse_data(demo_part, 0)
+    live = _stream(IncrementalFitter("iv_reverse", noise=noise, reference_V=-29.5), rev,
+                   np.arange(rev["voltage_V"].size))
+    final = fit_iv.fit_reverse(rev["voltage_V"], rev["current_A"], noise=noise,
+                               reference_V=-29.5)
+    guessed = fit_iv.fit_reverse(rev["voltage_V"], rev["current_A"], reference_V=-29.5)
+    assert live.extras["leakage_sigma_A"] == pytest.approx(final.extras["leakage_sigma_A"],
+                                                           rel=1e-9, abs=0)
+    assert final.extras["leakage_sigma_A"] != pytest.approx(
+        guessed.extras["leakage_sigma_A"], rel=1e-3, abs=0)
