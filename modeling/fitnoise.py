@@ -3,7 +3,9 @@
 Instruments state their accuracy as a percent of reading plus a floor; the same two
 numbers describe what the fitters see. When the caller does not know them they are
 estimated from the residuals of a fit by maximum likelihood (Gaussian residuals), and
-the fit is repeated with the new weights (iteratively reweighted least squares).
+the fit is repeated with the new weights (iteratively reweighted least squares); the
+residuals are corrected for leverage and a relative part the data cannot tell from zero
+is held at its standard error (``estimate_noise``).
 Weights use the model value, not the reading, so they do not bias the estimates.
 """
 
@@ -18,6 +20,12 @@ from pnbench.modeling.stated import StatedNoise, as_stated  # noqa: F401  (re-ex
 
 #: A log-channel point is used only where the model value exceeds this many floors.
 FLOOR_FACTOR = 10.0
+#: Leverages are capped here, so a row the fit passes through does not divide by zero.
+MAX_LEVERAGE = 0.9
+#: Fits of more rows skip the leverage correction: the k leverages of k parameters are
+#: spread over so many rows that the correction is lost in the noise estimate's own
+#: scatter, and a long run's final fit is spared one more Jacobian per round.
+LEVERAGE_ROWS = 5000
 
 
 @dataclass(frozen=True)
@@ -42,6 +50,8 @@ class Noise:
     floor_rows: np.ndarray | None = field(default=None, compare=False, repr=False)
     scale_rows: np.ndarray | None = field(default=None, compare=False, repr=False)
     extra_var: np.ndarray | None = field(default=None, compare=False, repr=False)
+    #: what ``estimate_noise`` had to decide for the data, for the fit's message
+    notes: tuple[str, ...] = field(default=(), compare=False)
 
     def sigma(self, yhat: np.ndarray) -> np.ndarray:
         rel = np.asarray(self.rel)
@@ -99,10 +109,17 @@ def _noise_newton(q, e2, y2, lo, hi, iterations: int = 40):
     f, g, h = parts(q)
     lam = 1e-3
     for _ in range(iterations):
-        step = None
+        # a component held on a bound that the gradient pushes against stays out of
+        # the step, so the other one reaches its own optimum (projected Newton)
+        free = ~(((q <= lo) & (g > 0)) | ((q >= hi) & (g < 0)))
+        if not free.any():
+            break
+        hf = h[np.ix_(free, free)]
+        step = np.zeros(2)
         while lam < 1e8:
             try:
-                step = -np.linalg.solve(h + lam * np.diag(np.abs(np.diag(h)) + 1e-9), g)
+                step[free] = -np.linalg.solve(
+                    hf + lam * np.diag(np.abs(np.diag(hf)) + 1e-9), g[free])
             except np.linalg.LinAlgError:
                 lam *= 10
                 continue
@@ -121,37 +138,118 @@ def _noise_newton(q, e2, y2, lo, hi, iterations: int = 40):
     return q
 
 
+def _relative_error(a: float, b: float, y2: np.ndarray) -> float:
+    """Standard error of the relative variance component A = rel**2 at (A, B) = (a, b).
+
+    With s2 = A*y2 + B and Gaussian residuals the Fisher information of (A, B) is
+    1/2 sum (y2, 1)(y2, 1)^T / s2**2 (Kay, *Estimation Theory*, 1993, ch. 3, from
+    memory); A's standard error is the root of its inverse's first diagonal element.
+    Infinite when the values span too little for a relative part and a floor to be told
+    apart.
+    """
+    w = 0.5 / np.maximum(a * y2 + b, 1e-300) ** 2
+    i_aa, i_ab, i_bb = float(w @ (y2 * y2)), float(w @ y2), float(w.sum())
+    det = i_aa * i_bb - i_ab * i_ab
+    if not det > 1e-9 * i_aa * i_bb:
+        return math.inf
+    return math.sqrt(i_bb / det)
+
+
+def _components(e2: np.ndarray, y2: np.ndarray) -> tuple[float, float, str]:
+    """(A, B, which rule applied) for one channel in units of its largest value (y2 <= 1):
+    the maximum-likelihood estimate with A held at or above its standard error
+    (``estimate_noise`` says why); "" when the bound does not bind."""
+    big = y2 >= np.median(y2)
+    a0 = max(float(np.median(e2[big] / np.maximum(y2[big], 1e-300))), 1e-30)
+    b0 = max(float(np.median(e2[~big])) if np.any(~big) else 0.0, 1e-24)
+    lo, hi = np.log([1e-30, 1e-30]), np.log([100.0, 1.0])
+    q = _noise_newton(np.clip(np.log([a0, b0]), lo, hi), e2, y2, lo, hi)
+    held = ""
+    alone = float(np.mean(e2 / np.maximum(y2, 1e-300)))  # A with no floor at all
+    for _ in range(8):  # the bound moves with the estimate: a few rounds settle it
+        se = _relative_error(math.exp(q[0]), math.exp(q[1]), y2)
+        if not se < alone:
+            return alone, 0.0, "one"
+        if math.exp(q[0]) >= se * (1 - 1e-3):
+            break
+        held = "rel"
+        low = np.array([min(max(lo[0], math.log(se)), hi[0]), lo[1]])
+        q = _noise_newton(np.clip(q, low, hi), e2, y2, low, hi)
+    return math.exp(q[0]), math.exp(q[1]), held
+
+
+def leverages(jac_rows: np.ndarray, use: np.ndarray) -> np.ndarray:
+    """Leverage h of every used row (shaped as ``use``; 0 elsewhere): the diagonal of
+    the hat matrix J (J^T J)^-1 J^T of the weighted Jacobian rows a fit used."""
+    out = np.zeros(use.shape)
+    if jac_rows.ndim != 2 or jac_rows.shape[0] <= jac_rows.shape[1] or \
+            not np.all(np.isfinite(jac_rows)):
+        return out
+    d = np.sqrt(np.sum(jac_rows**2, axis=0))
+    q = np.linalg.qr(jac_rows[:, d > 0] / d[d > 0])[0]
+    out[use] = np.minimum(np.sum(q * q, axis=1), MAX_LEVERAGE)
+    return out
+
+
 def estimate_noise(model, y: np.ndarray, yhat: np.ndarray,
-                   eligible: np.ndarray, previous: Noise) -> Noise:
-    """Maximum-likelihood noise model per channel from the residuals y - yhat.
+                   eligible: np.ndarray, previous: Noise,
+                   leverage: np.ndarray | None = None) -> Noise:
+    """Noise model per channel from the residuals y - yhat: maximum likelihood, bounded.
 
     Minimizes sum(ln s2 + e**2/s2) with s2 = rel**2 yhat**2 + floor**2 (Gaussian
-    residuals), over ln rel and ln floor, from moment estimates (median e**2/yhat**2 over
+    residuals) over ln rel and ln floor, from moment estimates (median e**2/yhat**2 over
     the larger half of the values, median e**2 over the smaller half).
+
+    Two corrections make the estimate fit for weighting (both measured over Monte Carlo
+    draws of C-V data: tests/modeling/test_fitnoise.py):
+
+    * Residuals of a fit are smaller than the noise where the fit leans on few points
+      (E e**2 = sigma**2 (1 - h), h the row's leverage), and in C-V those are the
+      largest readings, near 0 V. With ``leverage`` (``leverages`` of the fit's
+      weighted Jacobian) each e**2 is divided by 1 - h (the studentized residuals of
+      variance-function estimation, Carroll and Ruppert, *Transformation and Weighting
+      in Regression*, 1988, ch. 3, from memory).
+    * A relative part the data cannot resolve is held at its standard error, not
+      zero. Its estimate falls on zero whenever the few largest readings happen to
+      scatter little; with a few dozen points spanning less than a decade (C-V) that
+      was one fit in four. The largest readings were then weighted as if they were as
+      precise as the floor, and the sigmas of what they decide came out too small (over
+      draws of a varactor's C-V, CJO's rms of (value - truth)/sigma was 1.55). So
+      rel**2 is held at or above its standard error from the Fisher information of the
+      two parts (``_relative_error``). The floor is left to the likelihood: a floor of
+      zero is plain percent-of-reading weighting, and holding an unseen floor at its
+      standard error flattened the weights of data without one and measured worse.
+      When the values span too little to tell the parts apart at all, the noise is
+      taken as relative alone. Either rule is said in the fit's message
+      (``Noise.notes``).
     """
     rel, floor = list(previous.rel), list(previous.floor)
+    notes = []
     for c in range(len(model.channels)):
         ok = eligible[:, c] & np.isfinite(y[:, c]) & np.isfinite(yhat[:, c])
         if np.count_nonzero(ok) < 6:
             continue
         e2 = (y[ok, c] - yhat[ok, c]) ** 2
+        if leverage is not None and leverage.shape == y.shape:
+            e2 = e2 / (1.0 - leverage[ok, c])
         y2 = yhat[ok, c] ** 2
         top = math.sqrt(float(np.max(y2)))
         if not 1e-100 < top < 1e100:
             continue  # a model of (almost) nothing: keep the previous noise model
-        big = y2 >= np.median(y2)
-        a0 = math.sqrt(max(float(np.median(e2[big] / np.maximum(y2[big], 1e-300))), 1e-30))
-        b0 = math.sqrt(max(float(np.median(e2[~big])) if np.any(~big) else 0.0,
-                           (1e-12 * top) ** 2))
         # in units of the largest value, so the likelihood's powers stay in range
-        lo = np.array([math.log(1e-15), math.log(1e-15)])
-        hi = np.array([math.log(10.0), 0.0])
-        q = np.clip(np.log([a0, b0 / top]), lo, hi)
         with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
-            q = _noise_newton(2 * q, np.minimum(e2 / top**2, 1e100), y2 / top**2,
-                              2 * lo, 2 * hi) / 2
-        rel[c], floor[c] = math.exp(q[0]), math.exp(q[1]) * top
-    return Noise(tuple(rel), tuple(floor), estimated=True)
+            a, b, held = _components(np.minimum(e2 / top**2, 1e100), y2 / top**2)
+        rel[c], floor[c] = math.sqrt(a), math.sqrt(b) * top
+        which = f" of channel {c}" if len(model.channels) > 1 else ""
+        if held == "one":
+            notes.append(f"estimated noise{which}: the values span too little to tell a "
+                         f"relative part from a floor, so it is taken as relative alone "
+                         f"({100 * rel[c]:.2g} % of reading)")
+        elif held:
+            notes.append(f"estimated noise{which}: the data do not resolve its relative "
+                         f"part, held at its standard error ({100 * rel[c]:.2g} % of "
+                         f"reading) rather than zero")
+    return Noise(tuple(rel), tuple(floor), estimated=True, notes=tuple(notes))
 
 
 def initial_noise(model, y: np.ndarray, eligible: np.ndarray) -> Noise:

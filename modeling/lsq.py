@@ -27,6 +27,7 @@ from typing import Protocol
 
 import numpy as np
 
+from pnbench.modeling import fitnoise
 from pnbench.modeling.fitnoise import FLOOR_FACTOR, Noise, estimate_noise, initial_noise
 from pnbench.modeling.fitresult import FitResult, correlation_from_covariance
 
@@ -324,7 +325,8 @@ def _rounds(model, x, y, eligible, t, active, noise, forced, rounds, estimate, m
         yhat, _ = model.predict(t, x, None)
         if not estimate or i == rounds - 1:
             break
-        noise = estimate_noise(model, y, yhat, eligible, noise)
+        noise = estimate_noise(model, y, yhat, eligible, noise,
+                               leverage=leverages_at(model, t, x, y, use, active, noise))
     # final normal equations with weights at the solution
     use = usable_rows(model, y, yhat, eligible, noise, forced)
     idx = np.flatnonzero(active)
@@ -332,6 +334,15 @@ def _rounds(model, x, y, eligible, t, active, noise, forced, rounds, estimate, m
     return FitState(t=t, active=active, noise=noise, used=use, hessian=jac.T @ jac,
                     gradient=jac.T @ r, chi2=float(r @ r), n_rows=int(use.sum()),
                     converged=converged)
+
+
+def leverages_at(model, t, x, y, use, active, noise) -> np.ndarray | None:
+    """The leverage of every used row at t (``fitnoise.leverages``), for the noise
+    estimate; None for fits of more than ``fitnoise.LEVERAGE_ROWS`` rows."""
+    if use.sum() > fitnoise.LEVERAGE_ROWS:
+        return None
+    _, jac, _ = weighted_rows(model, t, np.flatnonzero(active), x, y, use, noise)
+    return fitnoise.leverages(jac, use)
 
 
 def at_bounds(model: Model, state: FitState) -> list[str]:
@@ -380,6 +391,7 @@ def to_result(model, state: FitState, kind: str, n_points: int,
              f"{n_points} points" if ok else "fit failed: the data do not determine "
              f"{' '.join(n for n, s in sigmas.items() if not math.isfinite(s)) or 'it'}"]
     parts += state.notes
+    parts += state.noise.notes
     parts += verdict.notes
     if not state.converged:
         parts.append("the solver stopped before converging")

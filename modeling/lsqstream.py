@@ -244,7 +244,9 @@ class LsqStream:
                                                   max_iter=WARM_MAX_ITER, yhat_ref=yhat)
             yhat, _ = model.predict(t, x, None)
             if noise.estimated:
-                noise = lsq.estimate_noise(model, y, yhat, elig, noise)
+                noise = lsq.estimate_noise(model, y, yhat, elig, noise,
+                                           leverage=lsq.leverages_at(model, t, x, y, use,
+                                                                     st.active, noise))
             use = lsq.usable_rows(model, y, yhat, elig, noise)
             idx = np.flatnonzero(st.active)
             r, jac, _ = lsq.weighted_rows(model, t, idx, x, y, use, noise)

@@ -37,11 +37,14 @@ def _readings(rfix: float, seed: int = 5):
     return vv, ff, y.imag / w, y.real
 
 
-@pytest.mark.parametrize("rfix", [0.0, 0.6])
+@pytest.mark.parametrize("rfix", [0.0, 2.0])
 def test_streamed_points_give_the_final_fits_values(rfix):
     """Points added a few at a time, then the step's closing refit: the same CJO, VJ, M,
     TT, CFIX (and RFIX when the fixture has one) as the one fit of the network over all
-    of them, to a tenth of a standard error."""
+    of them, to a tenth of a standard error. The fixture's 2 ohm stand about five
+    standard errors out on these readings, so the 3-sigma rule keeps RFIX on any seed
+    (0.6 ohm sat at the threshold once the noise estimate stopped understating the
+    largest readings' scatter)."""
     v, f, c, g = _readings(rfix)
     batch = network.fit_network(v, f, c, g, fixed=HELD, ac_level_V=LEVEL_V,
                                 temperature_K=T_K)
