@@ -57,7 +57,8 @@ def _line_fit(t: np.ndarray, y: np.ndarray, s: np.ndarray, tnom: float):
     w = 1.0 / np.where(known, s, np.max(s[known]) if known.any() else 1.0) ** 2
     x = np.column_stack([np.ones_like(t), t - tnom]) * np.sqrt(w)[:, None]
     coef, *_ = np.linalg.lstsq(x, y * np.sqrt(w), rcond=None)
-    cov = np.linalg.inv(x.T @ x)
+    r_inv = np.linalg.inv(np.linalg.qr(x, mode="r"))  # stable when one sigma is tiny
+    cov = r_inv @ r_inv.T
     dof = t.size - 2
     if dof > 0:  # the scatter speaks; stated sigmas only as a floor
         r = (y - coef[0] - coef[1] * (t - tnom)) * np.sqrt(w)

@@ -159,17 +159,22 @@ def _components(e2: np.ndarray, y2: np.ndarray) -> tuple[float, float, str]:
     """(A, B, which rule applied) for one channel in units of its largest value (y2 <= 1):
     the maximum-likelihood estimate with A held at or above its standard error
     (``estimate_noise`` says why); "" when the bound does not bind."""
+    if not np.any(e2 > 0):  # data without noise, fitted exactly: the smallest noise
+        return 1e-30, 1e-30, ""
     big = y2 >= np.median(y2)
     a0 = max(float(np.median(e2[big] / np.maximum(y2[big], 1e-300))), 1e-30)
     b0 = max(float(np.median(e2[~big])) if np.any(~big) else 0.0, 1e-24)
     lo, hi = np.log([1e-30, 1e-30]), np.log([100.0, 1.0])
     q = _noise_newton(np.clip(np.log([a0, b0]), lo, hi), e2, y2, lo, hi)
     held = ""
-    alone = float(np.mean(e2 / np.maximum(y2, 1e-300)))  # A with no floor at all
+    # A with no floor at all (both within the likelihood's bounds, so residuals that
+    # are exactly zero, from data without noise, still give finite weights)
+    alone = min(max(float(np.mean(e2 / np.maximum(y2, 1e-300))), math.exp(lo[0])),
+                math.exp(hi[0]))
     for _ in range(8):  # the bound moves with the estimate: a few rounds settle it
         se = _relative_error(math.exp(q[0]), math.exp(q[1]), y2)
         if not se < alone:
-            return alone, 0.0, "one"
+            return alone, math.exp(lo[1]), "one"
         if math.exp(q[0]) >= se * (1 - 1e-3):
             break
         held = "rel"
