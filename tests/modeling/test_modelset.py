@@ -92,7 +92,7 @@ def test_card_reader_understands_simulator_syntax():
     m = ModelSet.from_card_text(text, name="DX1")
     assert m.values == pytest.approx({"IS": 10e-12, "N": 1.9, "RS": 1.5, "CJO": 2.5e-12,
                                       "M": 0.33, "VJ": 0.7, "BV": 1200.0, "IBV": 50e-6,
-                                      "TT": 4e-9})
+                                      "TT": 4e-9}, rel=1e-6, abs=0)
     assert m.temperature_K == pytest.approx(323.15)
     assert m.extras[OTHER_CARD_PARAMETERS] == {"IKF": 1e-3, "LEVEL": 1.0}
     assert ModelSet.from_card_text(".model z D IS=2MEG N=1").values["IS"] == 2e6

@@ -49,7 +49,7 @@ def test_rd_is_about_26_ohm_at_1_mA_and_gd_is_current_over_n_vt():
     q = smallsignal.operating_point(p, current=1e-3)
     assert q.rd_ohm == pytest.approx(26.0, abs=0.3)
     assert q.gd_S == pytest.approx((1e-3 + 1e-14) / junction.thermal_voltage(), rel=1e-12)
-    assert q.cd_F == pytest.approx(4e-9 * q.gd_S, rel=1e-15)
+    assert q.cd_F == pytest.approx(4e-9 * q.gd_S, rel=1e-15, abs=0)
     assert q.bias_voltage_V == pytest.approx(q.junction_voltage_V + 1e-3 * 3.0, rel=1e-15)
 
 

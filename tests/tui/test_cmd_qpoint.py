@@ -39,7 +39,8 @@ def test_json_output_has_the_issue_keys_and_the_physics(model_json, capsys):
     # rd ~ 26 ohm at 1 mA for N = 1 (common practice, no source).
     assert doc["rd_ohm"] == pytest.approx(26.0, abs=0.3)
     q = smallsignal.operating_point(MODEL.to_params(), current=1e-3)
-    assert doc["cd_F"] == pytest.approx(q.cd_F) and doc["cj_F"] == pytest.approx(q.cj_F)
+    assert doc["cd_F"] == pytest.approx(q.cd_F, rel=1e-6, abs=0)
+    assert doc["cj_F"] == pytest.approx(q.cj_F, rel=1e-6, abs=0)
     assert [e["frequency_Hz"] for e in doc["admittance"]] == [1e3, 1e7]
     for entry in doc["admittance"]:
         y = q.admittance(entry["frequency_Hz"])
@@ -64,7 +65,7 @@ def test_card_file_and_run_folder_give_the_same_answer(model_json, tmp_path, cap
 def test_reverse_bias_with_negative_prefixed_value(model_json, capsys):
     doc = _json_run(capsys, model_json, "--bias-voltage=-5", "--freq", "1MHz")
     assert doc["bias_voltage_V"] == -5.0
-    assert doc["cj_F"] == pytest.approx(4e-12 * (1 + 5 / 0.75) ** -0.4)
+    assert doc["cj_F"] == pytest.approx(4e-12 * (1 + 5 / 0.75) ** -0.4, rel=1e-6, abs=0)
 
 
 def test_temperature_moves_is_and_is_always_printed(model_json, capsys):
