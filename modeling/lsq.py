@@ -28,6 +28,7 @@ from typing import Protocol
 import numpy as np
 
 from pnbench.modeling import fitnoise
+from pnbench.modeling.blocked import normal_sums, residual_sum, weighted_rows  # noqa: F401
 from pnbench.modeling.fitnoise import FLOOR_FACTOR, Noise, estimate_noise, initial_noise
 from pnbench.modeling.fitresult import FitResult, correlation_from_covariance
 
@@ -122,39 +123,6 @@ def numeric_jacobian(f, t: np.ndarray, active: np.ndarray, x: np.ndarray,
     return jac
 
 
-def weighted_rows(model: Model, t: np.ndarray, active_idx: np.ndarray, x: np.ndarray,
-                  y: np.ndarray, use: np.ndarray, noise: Noise,
-                  want_jac: bool = True, yhat_ref: np.ndarray | None = None):
-    """Weighted residuals (model - data)/sigma and their Jacobian, rows where ``use``.
-
-    Sigma comes from ``yhat_ref`` (the model at the start of a reweighting round) when
-    given, so the weights stay fixed while the solver moves.
-    """
-    yhat, jac = model.predict(t, x, active_idx if want_jac else None)
-    # rows outside ``use`` may overflow (model values far below the floor): masked out
-    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        ref = yhat if yhat_ref is None else yhat_ref
-        sig = noise.sigma(np.abs(ref))
-        r = np.empty_like(yhat)
-        scale = np.empty_like(yhat)
-        tiny = 1e-300
-        for c, kind in enumerate(model.channels):
-            if kind == "log":
-                pos = np.maximum(np.abs(ref[:, c]), tiny)
-                s = np.maximum(sig[:, c] / pos, 1e-15)
-                r[:, c] = (np.log(np.maximum(yhat[:, c], tiny))
-                           - np.log(np.where(use[:, c], y[:, c], 1.0))) / s
-                scale[:, c] = 1.0 / (s * np.maximum(yhat[:, c], tiny))
-            else:
-                s = np.maximum(sig[:, c], 1e-300)
-                r[:, c] = (yhat[:, c] - y[:, c]) / s
-                scale[:, c] = 1.0 / s
-        rows = r[use]
-        if not want_jac:
-            return rows, None, yhat
-        return rows, (jac * scale[..., None])[use], yhat
-
-
 def _solve_scaled(h: np.ndarray, g: np.ndarray, lam: float) -> np.ndarray:
     d = np.sqrt(np.maximum(np.diag(h), 1e-300))
     hs = h / np.outer(d, d) + lam * np.eye(len(d))
@@ -169,20 +137,19 @@ def levenberg(model: Model, t0: np.ndarray, active: np.ndarray, x: np.ndarray,
               yhat_ref: np.ndarray | None = None):
     """Minimize the weighted sum of squares over t[active] from t0.
 
-    Returns (t, H, g, chi2, converged) with H = J^T J and g = J^T r at the result.
+    Returns (t, H, g, chi2, converged) with H = J^T J and g = J^T r at the result. The
+    normal equations are summed over blocks of rows (`blocked`) and a trial step needs
+    only its residuals, so a long run's Jacobian is never whole in memory.
     """
     idx = np.flatnonzero(active)
     lower = np.array([model.params[k].lower for k in idx])
     upper = np.array([model.params[k].upper for k in idx])
     t = t0.astype(float).copy()
     t[idx] = np.clip(t[idx], lower, upper)
-    r, jac, _ = weighted_rows(model, t, idx, x, y, use, noise, yhat_ref=yhat_ref)
-    chi2 = float(r @ r)
+    h, g, chi2 = normal_sums(model, t, idx, x, y, use, noise, yhat_ref)
     lam = 1e-3
     converged = False
     for _ in range(max_iter):
-        h = jac.T @ jac
-        g = jac.T @ r
         if not (np.all(np.isfinite(h)) and np.all(np.isfinite(g))):
             converged = False  # the data overwhelm double precision here: stop, say so
             break
@@ -199,17 +166,18 @@ def levenberg(model: Model, t0: np.ndarray, active: np.ndarray, x: np.ndarray,
             t_new = t.copy()
             t_new[idx] = np.clip(t[idx] + step, lower, upper)
             try:
-                r_new, jac_new, _ = weighted_rows(model, t_new, idx, x, y, use, noise,
-                                                  yhat_ref=yhat_ref)
+                with np.errstate(over="ignore", invalid="ignore"):
+                    chi2_new = residual_sum(model, t_new, idx, x, y, use, noise, yhat_ref)
+                if np.isfinite(chi2_new) and chi2_new <= chi2:
+                    h_new, g_new, _ = normal_sums(model, t_new, idx, x, y, use, noise,
+                                                  yhat_ref)
             except (ValueError, ArithmeticError):  # a trial point the model cannot take
                 lam *= 6.0
                 continue
-            with np.errstate(over="ignore", invalid="ignore"):
-                chi2_new = float(r_new @ r_new)
             if np.isfinite(chi2_new) and chi2_new <= chi2:
                 actual = t_new[idx] - t[idx]
                 gain = float(actual @ h @ actual)
-                t, r, jac = t_new, r_new, jac_new
+                t, h, g = t_new, h_new, g_new
                 drop = chi2 - chi2_new
                 chi2 = chi2_new
                 lam = max(lam / 5.0, 1e-12)
@@ -223,7 +191,7 @@ def levenberg(model: Model, t0: np.ndarray, active: np.ndarray, x: np.ndarray,
             break
         if converged:
             break
-    return t, jac.T @ jac, jac.T @ r, chi2, converged
+    return t, h, g, chi2, converged
 
 
 def usable_rows(model: Model, y: np.ndarray, yhat: np.ndarray, eligible: np.ndarray,
@@ -330,10 +298,9 @@ def _rounds(model, x, y, eligible, t, active, noise, forced, rounds, estimate, m
     # final normal equations with weights at the solution
     use = usable_rows(model, y, yhat, eligible, noise, forced)
     idx = np.flatnonzero(active)
-    r, jac, _ = weighted_rows(model, t, idx, x, y, use, noise)
-    return FitState(t=t, active=active, noise=noise, used=use, hessian=jac.T @ jac,
-                    gradient=jac.T @ r, chi2=float(r @ r), n_rows=int(use.sum()),
-                    converged=converged)
+    h, g, chi2 = normal_sums(model, t, idx, x, y, use, noise)
+    return FitState(t=t, active=active, noise=noise, used=use, hessian=h, gradient=g,
+                    chi2=chi2, n_rows=int(use.sum()), converged=converged)
 
 
 def leverages_at(model, t, x, y, use, active, noise) -> np.ndarray | None:

@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.special import chdtrc  # chi2.sf without loading scipy.stats (~50 MB, ~1 s)
 
-from pnbench.modeling import lsq
+from pnbench.modeling import blocked, lsq
 
 #: Runs-test threshold (one-sided p ~ 5e-4: one false alarm in ~2000 honest fits).
 Z_RUNS = 3.3
@@ -51,29 +51,39 @@ class Verdict:
 
 def ordered_residuals(model, state: lsq.FitState, x: np.ndarray, y: np.ndarray):
     """Weighted residuals per channel, ordered by the second condition then the first
-    (frequency, then bias): a list of 1-d arrays, one per channel and frequency."""
+    (frequency, then bias): a list of 1-d arrays, one per channel and frequency. The
+    residuals are computed over blocks of rows (`blocked`), so nothing larger than one
+    value per point is made for a long run."""
     idx = np.flatnonzero(state.active)
     out = []
     for c in range(len(model.channels)):
         rows = np.flatnonzero(state.used[:, c])
         if rows.size == 0:
             continue
-        use = np.zeros_like(state.used)
-        use[rows, c] = True
-        r, _, _ = lsq.weighted_rows(model, state.t, idx, x, y, use, state.noise,
-                                    want_jac=False)
+        r = np.concatenate(list(_channel_residuals(model, state, idx, x, y, c)))
         if x.shape[1] > 1:  # one sequence per value of the second condition (frequency)
-            order = np.lexsort((x[rows, 0], x[rows, 1]))
-        else:
-            order = np.argsort(x[rows, 0], kind="stable")
-        xs, rs = x[rows][order], r[order]
-        if x.shape[1] > 1:
-            other = xs[:, 1:2]
-            cut = np.flatnonzero(np.any(np.diff(other, axis=0) != 0, axis=1)) + 1
+            other = x[rows, 1]
+            order = np.lexsort((x[rows, 0], other))
+            rs, other = r[order], other[order]
+            cut = np.flatnonzero(np.diff(other) != 0) + 1
             out += [p for p in np.split(rs, cut) if p.size]
         else:
-            out.append(rs)
+            out.append(r[np.argsort(x[rows, 0], kind="stable")])
     return out
+
+
+def _channel_residuals(model, state: lsq.FitState, idx, x, y, c: int):
+    """The used rows' weighted residuals of channel c, block by block in row order."""
+    step = blocked.BLOCK_ROWS
+    for a in range(0, len(x), step):
+        s = slice(a, a + step)
+        use = np.zeros_like(state.used[s])
+        use[:, c] = state.used[s, c]
+        if not use.any():
+            continue
+        r, _, _ = lsq.weighted_rows(model, state.t, idx, x[s], y[s], use,
+                                    state.noise.take(s), want_jac=False)
+        yield r
 
 
 def runs_test(sequences) -> tuple[int, float, float] | None:
