@@ -246,11 +246,15 @@ def forward_state(model: ForwardModel, v: np.ndarray, i: np.ndarray,
     floor0 = known.floor[0] if known else lsq.initial_noise(model, y, elig).floor[0]
     above = i[pos] > floor0 * lsq.FLOOR_FACTOR
     floor_cut = floor0 * lsq.FLOOR_FACTOR if np.count_nonzero(above) >= 2 else 0.0
-    t0 = start_values(v[pos], i[pos], model.temperature_K, floor_cut)
+    sv, si = v[pos], i[pos]
+    if sv.size > 2 * coarse.MAX_ROWS:  # a long run's start: an even subset's reading will do
+        every = math.ceil(sv.size / coarse.MAX_ROWS)
+        sv, si = sv[::every], si[::every]
+    t0 = start_values(sv, si, model.temperature_K, floor_cut)
     if start is not None:  # warm start: keep the data's own guess where start has none
         t0 = np.where(np.isfinite(start), start, t0)
         if shunt and t0[3] <= 0:
-            t0[3] = max(start_values(v[pos], i[pos], model.temperature_K)[3], 0.0)
+            t0[3] = max(start_values(sv, si, model.temperature_K)[3], 0.0)
     active = np.array([True, True, True, shunt])
     if not shunt:
         t0 = t0.copy()

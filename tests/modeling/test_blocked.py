@@ -62,3 +62,25 @@ def test_blocked_sums_give_the_whole_array_fit(monkeypatch, noise):
             assert got.sigmas[name] == pytest.approx(sd, rel=5e-3), (kind, name)
     assert whole["iv_forward"].success and "RSH" in whole["iv_forward"].names
     assert {"CJO", "VJ", "M"} <= set(whole["cv"].names)
+
+
+def test_a_long_forward_run_reads_its_start_values_off_an_even_subset(monkeypatch):
+    """The start values' window sums are made over at most ~2*MAX_ROWS points of a long
+    run, and the fit ends where a start from every point ends (within 0.01 sigma)."""
+    from pnbench.modeling import coarse, fit_iv
+
+    iv = _run(30_000)["iv"]
+    sizes = []
+    inner = fit_iv.start_values
+    monkeypatch.setattr(fit_iv, "start_values",
+                        lambda v, *a, **k: sizes.append(v.size) or inner(v, *a, **k))
+    thinned = fit_iv.fit_forward(iv["voltage_V"], iv["current_A"])
+    assert sizes and max(sizes) <= 2 * coarse.MAX_ROWS
+    limit = 2 * coarse.MAX_ROWS
+    sizes.clear()
+    monkeypatch.setattr(coarse, "MAX_ROWS", 20_000)  # every point's start, lsq.fit on all
+    every = fit_iv.fit_forward(iv["voltage_V"], iv["current_A"])
+    assert max(sizes) > limit
+    assert every.names == thinned.names and every.success
+    for name in every.names:
+        assert abs(thinned.values[name] - every.values[name]) < 0.01 * every.sigmas[name]
