@@ -149,8 +149,8 @@ def prime_source(smu, source: str, level: float) -> None:
 
 def _open_role(conn: Connection):
     from pnbench.drivers.dialect import load_dialect
+    from pnbench.drivers.opening import open_session
     from pnbench.drivers.roles import LcrMeter, Smu
-    from pnbench.drivers.session import open_session
 
     dialect = load_dialect(conn.dialect_path)
     session = open_session(conn.resource, backend=conn.backend, timeout_ms=conn.timeout_ms,

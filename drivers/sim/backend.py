@@ -139,7 +139,7 @@ REGISTRY = _Registry()
 def open_sim_session(resource: str, backend: str, timeout_ms: int, dialect):
     """A session on the simulated instrument ``resource`` of the bench ``backend``; the
     bench lives while any session on it (or `acquire` holder) does."""
-    from pnbench.drivers.session import open_session
+    from pnbench.drivers.opening import open_session
 
     role = role_of(resource)
     bench = REGISTRY.acquire(backend)

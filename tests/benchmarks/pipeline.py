@@ -53,8 +53,8 @@ from plantext import forward, limits, plan_text  # noqa: E402
 from sweepfake import FakeBench, FakeSmu  # noqa: E402
 
 from pnbench.drivers.dialect import load_dialect  # noqa: E402
+from pnbench.drivers.opening import open_session  # noqa: E402
 from pnbench.drivers.roles import Smu  # noqa: E402
-from pnbench.drivers.session import open_session  # noqa: E402
 from pnbench.drivers.sim.bench import SimBench  # noqa: E402
 from pnbench.sweeps.events import EventBus  # noqa: E402
 from pnbench.sweeps.fitfeed import FitWorker  # noqa: E402

@@ -31,8 +31,8 @@ import warnings
 import numpy as np
 import pyvisa
 
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.roles import Smu
-from pnbench.drivers.session import open_session
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.instruments import SimSmu
 

@@ -10,8 +10,8 @@ import math
 import numpy as np
 
 from pnbench.drivers.dialect import load_dialect
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.roles import LcrMeter, Smu
-from pnbench.drivers.session import open_session
 from pnbench.drivers.sim.bench import SimBench
 
 #: The demo plan's C-V and admittance points (sim_configs/plans/lh-vc510.toml).

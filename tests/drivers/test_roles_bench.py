@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 
 from pnbench.drivers import dialect as dl
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.roles import LcrMeter, Smu
-from pnbench.drivers.session import open_session
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.errors import InstrumentError
 from pnbench.modeling import smallsignal

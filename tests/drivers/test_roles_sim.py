@@ -9,8 +9,8 @@ import pytest
 from sim_resources import BROKEN_SMU, LCR, SMU
 
 from pnbench.drivers import dialect as dl
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.roles import LcrMeter, Smu
-from pnbench.drivers.session import open_session
 from pnbench.errors import BadInput, DialectError, InstrumentError
 
 

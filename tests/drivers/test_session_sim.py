@@ -5,7 +5,8 @@ from __future__ import annotations
 import pytest
 from sim_resources import BROKEN_SMU, LCR, SMU
 
-from pnbench.drivers.session import count_queries, open_session, resolve_backend
+from pnbench.drivers.opening import open_session, resolve_backend
+from pnbench.drivers.session import count_queries
 from pnbench.errors import BadInput, InstrumentError
 
 

@@ -8,7 +8,7 @@ import time
 import pytest
 from loopback_instrument import LoopbackInstrument
 
-from pnbench.drivers.session import open_session
+from pnbench.drivers.opening import open_session
 from pnbench.errors import InstrumentError
 
 

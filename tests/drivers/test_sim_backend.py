@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import pytest
 
-from pnbench.drivers.session import open_session
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.sim.backend import REGISTRY, backend_for, parse
 from pnbench.errors import BadInput
 from pnbench.sweeps.plan import parse_plan

@@ -15,8 +15,8 @@ import time
 
 import pytest
 
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.roles import LcrMeter, Smu
-from pnbench.drivers.session import open_session
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.instrument import ERROR_QUEUE_LENGTH
 from pnbench.errors import BadInput, DeviceFileError, InstrumentError

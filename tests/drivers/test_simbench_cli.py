@@ -10,7 +10,7 @@ import sys
 
 import pytest
 
-from pnbench.drivers.session import open_session
+from pnbench.drivers.opening import open_session
 from pnbench.tui import cli
 
 

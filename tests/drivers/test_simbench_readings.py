@@ -14,8 +14,8 @@ import pytest
 from scipy.special import i1
 from spicehelp import ac_admittance
 
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.roles import LcrMeter, Smu
-from pnbench.drivers.session import open_session
 from pnbench.drivers.sim import physics as simphysics
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.device import parse_device

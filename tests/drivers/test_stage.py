@@ -14,8 +14,8 @@ import pytest
 from spicehelp import dc_sweep, reference_params
 
 from pnbench.drivers.dialect import default_dialect_text, load_dialect, parse_dialect_text
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.roles import Smu
-from pnbench.drivers.session import open_session
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.device import parse_device
 from pnbench.drivers.sim.stage import SimClock, ThermalModel

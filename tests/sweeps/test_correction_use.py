@@ -18,7 +18,7 @@ from pathlib import Path
 import pytest
 from plantext import cv, forward, plan_text, table
 
-from pnbench.drivers.session import open_session
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.sim.instruments import OPEN_RESIDUAL
 from pnbench.errors import PlanError
 from pnbench.sweeps import events as ev

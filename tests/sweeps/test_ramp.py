@@ -8,8 +8,8 @@ from __future__ import annotations
 import pytest
 from plantext import Raw, limits, plan_text, reverse
 
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.roles import RAMP_DWELL_S, RAMP_MAX_STEPS, RAMP_RATE_V_PER_S, Smu
-from pnbench.drivers.session import open_session
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.errors import PlanError
 from pnbench.sweeps import guardian

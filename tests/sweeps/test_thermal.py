@@ -10,7 +10,7 @@ import math
 
 import pytest
 
-from pnbench.drivers.session import open_session
+from pnbench.drivers.opening import open_session
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.device import parse_device
 from pnbench.drivers.sim.stage import SimClock

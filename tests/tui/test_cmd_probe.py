@@ -11,7 +11,7 @@ import pytest
 import tomli_w
 
 from pnbench.drivers.dialect import default_dialect_text
-from pnbench.drivers.session import open_session
+from pnbench.drivers.opening import open_session
 from pnbench.tui import cli
 
 SMU = "TCPIP0::192.0.2.11::5025::SOCKET"

@@ -61,7 +61,7 @@ def with_run_identities(rows: list[InstrumentRow], run_doc: dict,
 def scan_resources(backends: list[str]) -> list[tuple[str, str]]:
     """(backend, resource) for everything each backend lists; raw sockets are never
     listed by VISA, so a socket instrument appears only through the plan."""
-    from pnbench.drivers.session import list_visible, open_manager
+    from pnbench.drivers.opening import list_visible, open_manager
 
     found = []
     for backend in backends:
@@ -82,7 +82,7 @@ def identify_rows(rows: list[InstrumentRow], plan,
     With a simulated device a simulated bench is started for the question and closed
     after it; outputs are never switched."""
     from pnbench.drivers.dialect import load_dialect
-    from pnbench.drivers.session import open_session
+    from pnbench.drivers.opening import open_session
 
     sim = None
     resources = {}

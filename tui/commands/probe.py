@@ -45,7 +45,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _list(backend: str, dialect) -> dict:
-    from pnbench.drivers.session import list_visible, open_manager, open_session
+    from pnbench.drivers.opening import list_visible, open_manager, open_session
 
     rows = []
     for name in list_visible(open_manager(backend)):
@@ -123,7 +123,7 @@ def _check_stage(session, dialect, report: dict) -> None:
 
 
 def _probe_one(resource: str, backend: str, timeout_ms: int, dialect, role: str | None) -> dict:
-    from pnbench.drivers.session import open_session
+    from pnbench.drivers.opening import open_session
 
     report: dict = {"resource": resource, "backend": backend, "dialect": dialect.source,
                     "role": role, "checks": {}}
