@@ -91,28 +91,22 @@ def parameters(data: RunData, an: Analysis) -> str:
                      num(esc(qty(sigma, UNITS[name], prec=2) if sigma is not None else "unknown")),
                      num(esc(rel))])
     parts.append(table(["Parameter", "Value", "\u03c3", "\u03c3 / value"], rows))
-    fixture = m.extras.get("fixture_capacitance_F")
-    if isinstance(fixture, dict) and isinstance(fixture.get("value"), (int, float)):
-        sd = fixture.get("sigma")
-        parts.append("<p>Fixture capacitance (the bench's, not the device's; fitted "
-                     "across the terminals and kept off the model card): "
-                     f"{esc(qty(fixture['value'], 'F'))}"
-                     + (f" \u00b1 {esc(qty(sd, 'F', prec=2))}" if isinstance(sd, (int, float))
-                        else "") + (": the residual after the meter's open correction"
-                                    if m.extras.get("open_corrected") else "") + ".</p>")
+    fixture = _bench_part(m.extras, "fixture_capacitance_F", "F", "open_corrected",
+                          "Fixture capacitance (the bench's, not the device's; fitted "
+                          "across the terminals and kept off the model card)",
+                          "the residual after the meter's open correction")
+    if fixture:
+        parts.append(fixture)
     elif m.extras.get("open_corrected"):
         parts.append("<p>The meter's open correction was run: the fixture's stray "
                      "capacitance is subtracted from the readings, and no residual (CFIX) "
                      "stands out of the noise.</p>")
-    series = m.extras.get("fixture_resistance_ohm")
-    if isinstance(series, dict) and isinstance(series.get("value"), (int, float)):
-        sd = series.get("sigma")
-        parts.append("<p>Fixture series resistance (the bench's leads, not the device's "
-                     "RS, which the four-wire I-V measured; kept off the model card): "
-                     f"{esc(qty(series['value'], 'ohm'))}"
-                     + (f" \u00b1 {esc(qty(sd, 'ohm', prec=2))}" if isinstance(sd, (int, float))
-                        else "") + (": the residual after the meter's short correction"
-                                    if m.extras.get("short_corrected") else "") + ".</p>")
+    series = _bench_part(m.extras, "fixture_resistance_ohm", "ohm", "short_corrected",
+                         "Fixture series resistance (the bench's leads, not the device's "
+                         "RS, which the four-wire I-V measured; kept off the model card)",
+                         "the residual after the meter's short correction")
+    if series:
+        parts.append(series)
     parts.append(_fit_quality(an))
     for label, names, matrix in an.correlations:
         parts.append(f"<h3>Correlation of the estimates ({esc(label)})</h3>")
@@ -126,6 +120,20 @@ def parameters(data: RunData, an: Analysis) -> str:
     source = data.card_name or "made from model.json"
     parts.append(f"<h3>Model card ({esc(source)})</h3><pre>{esc(card)}</pre>")
     return "".join(parts)
+
+
+def _bench_part(extras: dict, key: str, unit: str, corrected_key: str, label: str,
+                residual: str) -> str:
+    """A paragraph for a part of the bench the C-V fit found (fixture capacitance or
+    series resistance), with its sigma and, after the meter's correction, as a residual;
+    "" when the model has none."""
+    part = extras.get(key)
+    if not (isinstance(part, dict) and isinstance(part.get("value"), (int, float))):
+        return ""
+    sd = part.get("sigma")
+    spread = f" \u00b1 {esc(qty(sd, unit, prec=2))}" if isinstance(sd, (int, float)) else ""
+    after = f": {residual}" if extras.get(corrected_key) else ""
+    return f"<p>{label}: {esc(qty(part['value'], unit))}{spread}{after}.</p>"
 
 
 def _correlation_table(names: tuple[str, ...], matrix) -> str:
