@@ -42,13 +42,14 @@ def read_plan_noise(t: TableReader, role: str | None) -> StatedNoise | None:
     if not any(t.has(k) for k in keys):
         return None
     got: dict[str, float | None] = {}
+    before = len(t.problems.items)
     for key, (unit, _meaning) in keys.items():
         if unit == "%":
             got[key] = t.number(key, 0.0, 0.0, MAX_PERCENT)
         else:
             got[key] = t.quantity(key, unit, 0.0, nonnegative=True)
-    if any(v is None for v in got.values()):
-        return None
+    if any(v is None for v in got.values()) or len(t.problems.items) > before:
+        return None  # a figure was refused: said once, with its key
     if role == "smu":
         if not got["current_noise_percent"] and not got["current_noise_floor"]:
             t.problem("current_noise_percent", "a stated SMU noise needs the current's: "
