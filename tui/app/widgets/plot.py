@@ -14,6 +14,7 @@ import numpy as np
 from quantiphy import Quantity
 from textual.app import ComposeResult
 from textual.containers import Vertical
+from textual.css.query import NoMatches
 from textual.widgets import Static
 from textual_plot import HiResMode, NumericAxisFormatter, PlotWidget
 
@@ -80,6 +81,7 @@ class SweepPlot(Vertical):
     def __init__(self, *, id: str | None = None, classes: str | None = None):
         super().__init__(id=id, classes=classes)
         self.current: PlotData | None = None
+        self._position = ""
 
     def compose(self) -> ComposeResult:
         yield Static("", classes="plot-title", markup=False)
@@ -92,12 +94,18 @@ class SweepPlot(Vertical):
         plot.margin_top = 1
         plot.margin_bottom = 1
         plot.margin_left = 8
+        if self.current is not None:  # data that came before the children existed
+            self.show(self.current, self._position)
 
     def show(self, data: PlotData, position: str = "") -> None:
-        """Draw `data`; `position` (such as '2/6') goes into the title line."""
-        self.current = data
-        plot = self.query_one(PlotWidget)
-        title = self.query_one(".plot-title", Static)
+        """Draw `data`; `position` (such as '2/6') goes into the title line. Before the
+        widget's children exist (a live feed can be that quick) it is kept for mounting."""
+        self.current, self._position = data, position
+        try:
+            plot = self.query_one(PlotWidget)
+            title = self.query_one(".plot-title", Static)
+        except NoMatches:
+            return
         x_title = f"{data.x_title} [{data.x_unit}]" if data.x_unit else data.x_title
         y_title = f"{data.y_title} [{data.y_unit}]" if data.y_unit else data.y_title
         head = f"[{position}] {data.title}" if position else data.title
