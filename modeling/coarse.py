@@ -27,7 +27,7 @@ import math
 
 import numpy as np
 
-from pnbench.modeling import lsq
+from pnbench.modeling import blocked, lsq
 
 #: Rows the decisions are made on (the subset's size).
 MAX_ROWS = 4000
@@ -148,21 +148,12 @@ def _worth_trying(model, state: lsq.FitState, x, y, dropped: list[int]) -> list[
     return sorted(scores, key=scores.get, reverse=True)
 
 
-def normal_equations(model, t, idx, x, y, use, noise, rows: int = 8192):
-    """(J^T J, J^T r) of the weighted rows over t[idx] (`lsq.weighted_rows`), summed
-    over blocks of ``rows`` rows, so a long run's Jacobian is never whole in memory;
-    None where it is not finite."""
-    h = np.zeros((len(idx), len(idx)))
-    g = np.zeros(len(idx))
-    for a in range(0, len(x), rows):
-        s = slice(a, a + rows)
-        if not np.any(use[s]):
-            continue
-        with np.errstate(all="ignore"):
-            r, jac, _ = lsq.weighted_rows(model, t, idx, x[s], y[s], use[s],
-                                          rows_of(noise, s))
-        if not (np.all(np.isfinite(jac)) and np.all(np.isfinite(r))):
-            return None
-        h += jac.T @ jac
-        g += jac.T @ r
+def normal_equations(model, t, idx, x, y, use, noise):
+    """(J^T J, J^T r) of the weighted rows over t[idx], summed over blocks of rows by
+    `blocked.normal_sums` (a long run's Jacobian is never whole in memory); None where
+    it is not finite."""
+    with np.errstate(all="ignore"):
+        h, g, _ = blocked.normal_sums(model, t, idx, x, y, use, noise)
+    if not (np.all(np.isfinite(h)) and np.all(np.isfinite(g))):
+        return None
     return h, g
