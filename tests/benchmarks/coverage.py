@@ -42,7 +42,7 @@ DEVICES = {
     "varactor": dict(p=DiodeParams(IS=4e-15, N=1.03, RS=0.42, CJO=3.2e-11, VJ=0.72, M=0.5,
                                    TT=2e-9, BV=34.0, IBV=1e-5),
                      cfix=0.35e-12, freqs=(1e5, 1e6), top=0.95,
-                     bias=(0.55, 0.6, 0.63, 0.66, 0.68, 0.7, 0.72)),
+                     bias=(0.55, 0.6, 0.63, 0.66, 0.68, 0.7, 0.72), area=2.5e-7),
     "rectifier": dict(p=DiodeParams(IS=2e-9, N=1.8, RS=0.25, CJO=5e-11, VJ=0.62, M=0.45,
                                     TT=3e-6, BV=120.0, IBV=1e-4),
                       cfix=1.5e-12, freqs=(1e3, 1e4), top=1.4,
@@ -56,6 +56,11 @@ DEVICES = {
 I_REL, I_FLOOR = 2e-4, 5e-12
 Y_REL, C_FLOOR = 3e-4, 2e-15
 PARAMS = ("IS", "N", "RS", "RSH", "CJO", "VJ", "M", "TT", "BV", "CFIX")
+#: Mott-Schottky results, checked on the abrupt part only (M = 1/2, given an area): there
+#: the truth is defined by docs/physics.md section 7 (1/C^2 a straight line crossing zero
+#: at VJ, so Vbi = VJ + kT/q and N = 2*VJ*CJO^2/(q*eps*A^2)); for graded parts the doping
+#: is an average of a profile and has no single true value.
+DOPING = ("doping", "Vbi")
 
 
 def conditions(dev: dict):
@@ -116,6 +121,31 @@ def z_scores(dev: dict, fit) -> dict[str, float]:
             continue
         s = sig.get(name)
         out[name] = (got[name] - t) / s if s else math.inf
+    if dev.get("area"):
+        out.update(doping_z_scores(dev, m))
+    return out
+
+
+def doping_z_scores(dev: dict, model) -> dict[str, float]:
+    """z of the Mott-Schottky doping and built-in voltage against the abrupt part's."""
+    from scipy import constants
+
+    from pnbench.modeling.depletion import permittivity
+    from pnbench.modeling.junction import thermal_voltage
+
+    p, area = dev["p"], dev["area"]
+    truth = {"doping": 2 * p.VJ * p.CJO**2 / (constants.e * permittivity("Si") * area**2),
+             "Vbi": p.VJ + thermal_voltage(T)}
+    d = model.extras.get("doping") or {}
+    got = {"doping": (d.get("doping_per_m3"), d.get("doping_sigma_per_m3")),
+           "Vbi": (d.get("built_in_voltage_V"), d.get("built_in_sigma_V"))}
+    out = {}
+    for name in DOPING:
+        value, sigma = got[name]
+        if value is None:
+            out[name] = math.nan
+        else:
+            out[name] = (value - truth[name]) / sigma if sigma else math.inf
     return out
 
 
@@ -139,7 +169,7 @@ def main(argv: list[str]) -> dict:
         misfits = 0
         for _ in range(draws):
             fit = joint.fit_all(draw(dev, rng, clean, linear=stated), ibv_A=dev["p"].IBV,
-                                noise=noise)
+                                noise=noise, area_m2=dev.get("area"))
             misfits += sum(bool(r.extras.get("lack_of_fit", {}).get("misfit"))
                            for r in fit.results.values())
             for k, z in z_scores(dev, fit).items():
@@ -159,6 +189,10 @@ def main(argv: list[str]) -> dict:
     report["rms_z_pooled"] = {k: round(float(np.sqrt(np.mean(np.square(v)))), 3)
                               for k, v in pooled.items() if v}
     report["within_0.7_1.4"] = {k: 0.7 <= v <= 1.4 for k, v in report["rms_z_pooled"].items()}
+    # share of draws whose value lies within one sigma of the truth: 0.683 for a normal z
+    # (a single run, such as the demo's, is outside its sigma about one time in three)
+    report["share_within_1_sigma"] = {
+        k: round(float(np.mean(np.abs(v) <= 1.0)), 3) for k, v in pooled.items() if v}
     report["seconds"] = round(time.perf_counter() - start, 1)
     return report
 
