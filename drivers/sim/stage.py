@@ -35,7 +35,7 @@ from pnbench.drivers.sim.instrument import (
     number_argument,
     one_argument,
 )
-from pnbench.drivers.sim.instruments import OutputHook, SimInstrumentWithOutput
+from pnbench.drivers.sim.withoutput import OutputHook, SimInstrumentWithOutput
 
 ZERO_C_K = 273.15
 

@@ -34,7 +34,7 @@ import pyvisa
 from pnbench.drivers.opening import open_session
 from pnbench.drivers.roles import Smu
 from pnbench.drivers.sim.bench import SimBench
-from pnbench.drivers.sim.instruments import SimSmu
+from pnbench.drivers.sim.smu import SimSmu
 
 DEVICE = "lh-qt16"
 

@@ -13,7 +13,8 @@ from spicehelp import parse_ascii_raw
 
 from pnbench.drivers.sim import physics as simphysics
 from pnbench.drivers.sim.device import parse_device
-from pnbench.drivers.sim.instruments import SimLcr, SimSmu
+from pnbench.drivers.sim.lcr import SimLcr
+from pnbench.drivers.sim.smu import SimSmu
 from pnbench.modeling import aclevel, junction, smallsignal
 from pnbench.modeling.modelset import ModelSet
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K, DiodeParams

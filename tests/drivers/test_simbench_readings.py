@@ -19,7 +19,7 @@ from pnbench.drivers.roles import LcrMeter, Smu
 from pnbench.drivers.sim import physics as simphysics
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.device import parse_device
-from pnbench.drivers.sim.instruments import OPEN_RESIDUAL
+from pnbench.drivers.sim.lcr import OPEN_RESIDUAL
 from pnbench.modeling import junction, smallsignal
 
 NOISY = """

@@ -2,7 +2,7 @@
 values (points.csv stays raw), a residual judged against the open the meter measured,
 repeated at each stage set point on request, and reused on resume when it still holds.
 
-The simulated meter (drivers/sim/instruments.py) leaves OPEN_RESIDUAL of its fixture's
+The simulated meter (drivers/sim/lcr.py) leaves OPEN_RESIDUAL of its fixture's
 stray capacitance after an open correction; the compensation formula is checked against
 the circuit in tests/modeling/test_compensation.py."""
 
@@ -19,7 +19,7 @@ import pytest
 from plantext import cv, forward, plan_text, table
 
 from pnbench.drivers.opening import open_session
-from pnbench.drivers.sim.instruments import OPEN_RESIDUAL
+from pnbench.drivers.sim.lcr import OPEN_RESIDUAL
 from pnbench.errors import PlanError
 from pnbench.sweeps import events as ev
 from pnbench.sweeps.fitcorrection import SOFTWARE, residual_note, series_note
