@@ -5,7 +5,7 @@ eligible now).
 With the DC part known from an I–V fit (IS and N held) the points are fitted on the
 network the meter sees, exactly as the run's final fit does (`NetworkSpec` on
 `network`'s models and rows); without it on the depletion and admittance models of
-`fit_cv` (`StreamSpec`)."""
+`cvmodels`, fitted as `fit_cv` fits them (`StreamSpec`)."""
 
 from __future__ import annotations
 
@@ -13,14 +13,12 @@ import math
 
 import numpy as np
 
+from pnbench.modeling.cvmodels import AdmittanceModel, DepletionModel, held_extras
 from pnbench.modeling.fit_cv import (
     MIN_CV_POINTS,
-    AdmittanceModel,
-    DepletionModel,
     admittance_state,
     cv_arrays,
     depletion_state,
-    held_extras,
 )
 from pnbench.modeling.meternoise import meter_rows_noise
 

@@ -27,7 +27,7 @@ import math
 
 import numpy as np
 
-from pnbench.modeling import coarse, describing, fit_cv, heldcov, junction, lsq
+from pnbench.modeling import coarse, cvmodels, describing, fit_cv, heldcov, junction, lsq
 from pnbench.modeling.fitresult import FitResult, empty_result
 from pnbench.modeling.meternoise import meter_noise
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
@@ -47,7 +47,7 @@ RFIX_PARAM = lsq.Param("RFIX", "lin", lower=0.0, upper=1e6, optional=True, step=
 
 
 def network_model(temperature_K: float, fc: float, with_fixture: bool | None,
-                  with_series: bool | None = False) -> fit_cv.AdmittanceModel:
+                  with_series: bool | None = False) -> cvmodels.AdmittanceModel:
     """The admittance model with CFIX, and the fixture's series resistance RFIX, each
     optional (None: kept when the data determine it), forced (True) or absent (False)."""
     model = MeterModel(temperature_K, fc, fixture=with_fixture, series=with_series)
@@ -75,7 +75,7 @@ class SplitModel:
 
     channels = ("lin", "lin")
 
-    def __init__(self, inner: fit_cv.AdmittanceModel):
+    def __init__(self, inner: cvmodels.AdmittanceModel):
         self.inner = inner
         self.params = inner.params
         self.index = inner.index
@@ -99,7 +99,7 @@ _CHUNK = 16_384
 _PHASES = 16
 
 
-class MeterModel(describing.ClosedForm, fit_cv.AdmittanceModel):
+class MeterModel(describing.ClosedForm, cvmodels.AdmittanceModel):
     """The admittance the meter reads at its test-signal level: x = (V, f, a_rms, ...).
 
     A test signal of amplitude a on the exponential junction is not small against
@@ -223,7 +223,7 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
     if isinstance(state, str):
         return empty_result(kind, len(x), state)
     extra_cov = held_covariance_t(model, state, x, y, fixed, held_covariance)
-    out = lsq.to_result(model, state, kind, len(x), extras=fit_cv.held_extras(model, fixed),
+    out = lsq.to_result(model, state, kind, len(x), extras=cvmodels.held_extras(model, fixed),
                         min_rows=fit_cv.MIN_CV_POINTS, x=x, y=y,
                         extra_cov_t=extra_cov)
     return with_fixture_note(out)

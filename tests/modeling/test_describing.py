@@ -17,7 +17,7 @@ import pytest
 from scipy.integrate import quad
 from scipy.special import hyp2f1, iv
 
-from pnbench.modeling import coarse, describing, fit_cv, network
+from pnbench.modeling import coarse, cvmodels, describing, network
 
 
 def _mean_2sin2(f) -> float:
@@ -158,7 +158,7 @@ def test_analytic_derivatives_match_central_differences(rs, level_V):
     active = np.arange(len(model.params))
     y, jac = model.predict(t, x, active)
     np.testing.assert_array_equal(y, model._y(t, x))
-    generic = fit_cv.AdmittanceModel.predict(model, t, x, active)[1]
+    generic = cvmodels.AdmittanceModel.predict(model, t, x, active)[1]
     grid = model._closed(t, x)[1]
     assert grid.sum() >= 2  # the rows at the knee are there
     for j, k in enumerate(active):
