@@ -316,6 +316,16 @@ def finish_report(run_dir, stream=None) -> Path | None:
         return None
 
 
+def print_part_check(run_dir, stream) -> None:
+    """After a rehearsal on the simulated bench: the fitted values against the part's
+    (`sweeps.rehearsal`); nothing for a run on real instruments."""
+    from pnbench.sweeps.rehearsal import from_folder
+
+    check = from_folder(run_dir)
+    if check is not None and check.rows:
+        print(check.summary(), file=stream)
+
+
 def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
                  report: bool = True) -> int:
     """Run `launch` on this thread with progress output; signals stop it gracefully.
@@ -352,6 +362,8 @@ def run_headless(launch, plan, *, stream=None, tty: bool | None = None,
                 print(f"run folder: {launch.run_dir}", file=progress.stream)
     for path in written:
         print(f"report: {path}", file=sys.stdout)
+    if launch.run_dir is not None and outcome is not None:
+        print_part_check(launch.run_dir, progress.stream)
     if outcome.exit_code != 0:
         print(f"pnbench: run {outcome.status}: {outcome.reason}"
               + ("" if outcome.outputs_off_confirmed else

@@ -169,3 +169,30 @@ def test_a_run_folder_without_its_plan_is_still_fitted_and_says_so(demo_folder, 
     out = capsys.readouterr().out
     assert "plan does not load" in out and "test level unknown" in out
     assert "TT" in out and "CJO" in out
+
+
+def test_the_report_and_terminal_set_the_fit_against_the_simulated_part(demo_folder):
+    """The rehearsal check (sweeps/rehearsal.py) gives the same z as this module's own
+    truth for every parameter, the report has its section, and headless prints it."""
+    import io
+
+    from pnbench.sweeps.rehearsal import from_folder
+    from pnbench.tui.headless import print_part_check
+
+    doc = json.loads((demo_folder / "model.json").read_text(encoding="utf-8"))
+    truth = dict(tomllib.loads(CONFIG.read_text(encoding="utf-8"))["diode"])
+    a = truth["N"] * junction.thermal_voltage(300.15)
+    truth["BV"] = truth["BV"] + a * math.log(doc["parameters"]["IBV"]["value"] / truth["IBV"])
+    check = from_folder(demo_folder)
+    rows = {r.name: r for r in check.rows}
+    for name in ("IS", "N", "RS", "CJO", "VJ", "M", "TT", "BV"):
+        par = doc["parameters"][name]
+        assert rows[name].z == pytest.approx((par["value"] - truth[name]) / par["sigma"],
+                                             rel=1e-9, abs=1e-9), name
+    assert {"CFIX", "doping", "Vbi"} <= set(rows)
+    page = (demo_folder / "report.html").read_text(encoding="utf-8")
+    assert 'id="rehearsal"' in page and "LH-VC510" in page
+    out = io.StringIO()
+    print_part_check(demo_folder, out)
+    assert out.getvalue().startswith("against the simulated part LH-VC510: ")
+    assert f"of {len(check.rows)} values within 1 sigma" in out.getvalue()

@@ -11,7 +11,7 @@ import base64
 import json
 
 from pnbench.sweeps.events import Compliance, ErrorEvent, Event, Fit, Limit, WarningEvent
-from pnbench.tui.report import arrhenius
+from pnbench.tui.report import arrhenius, rehearsal
 from pnbench.tui.report.analysis import Analysis
 from pnbench.tui.report.data import RunData
 from pnbench.tui.report.figures import FigureFile
@@ -271,8 +271,8 @@ def render(data: RunData, an: Analysis, figures: list[FigureFile], missing: list
     """The whole report page as a string."""
     body = "".join([
         _header(data, an, version), _missing(data, missing), parameters(data, an),
-        _figures(figures), qpoints(an), _device_and_instruments(data, an), _plan(data),
-        _events(data),
+        rehearsal.section(data), _figures(figures), qpoints(an),
+        _device_and_instruments(data, an), _plan(data), _events(data),
         f"<footer>Made by pnbench {esc(version)} at {esc(made_at)} from the files of this "
         "run folder.</footer>",
     ])
