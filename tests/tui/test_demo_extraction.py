@@ -171,9 +171,11 @@ def test_a_run_folder_without_its_plan_is_still_fitted_and_says_so(demo_folder, 
     assert "TT" in out and "CJO" in out
 
 
-def test_the_report_and_terminal_set_the_fit_against_the_simulated_part(demo_folder):
+def test_the_report_and_terminal_set_the_fit_against_the_simulated_part(demo_folder,
+                                                                       capsys):
     """The rehearsal check (sweeps/rehearsal.py) gives the same z as this module's own
-    truth for every parameter, the report has its section, and headless prints it."""
+    truth for every parameter, the report has its section, and headless and
+    `pnbench fit RUN_DIR` print it."""
     import io
 
     from pnbench.sweeps.rehearsal import from_folder
@@ -196,3 +198,6 @@ def test_the_report_and_terminal_set_the_fit_against_the_simulated_part(demo_fol
     print_part_check(demo_folder, out)
     assert out.getvalue().startswith("against the simulated part LH-VC510: ")
     assert f"of {len(check.rows)} values within 1 sigma" in out.getvalue()
+    capsys.readouterr()
+    assert cli.main(["fit", str(demo_folder)]) == 0
+    assert out.getvalue().strip() in capsys.readouterr().out

@@ -153,7 +153,20 @@ def run(args) -> int:
         print(json.dumps(result.model.to_json_dict(), indent=2, default=_json_default))
         return 0
     print(format_table(result, data, temperature, notes, math))
+    if run_inputs is not None:  # a rehearsal on the simulated bench: against its part
+        _print_part_check(source, result.model.to_json_dict())
     return 0
+
+
+def _print_part_check(folder: str, model_doc: dict) -> None:
+    from pathlib import Path
+
+    from pnbench.sweeps import record
+    from pnbench.sweeps.rehearsal import against_part
+
+    check = against_part(record.read_run_doc(folder), model_doc, Path(folder).expanduser())
+    if check is not None and check.rows:
+        print(f"\n  {check.summary()}")
 
 
 def _over_temperature(args) -> bool:
