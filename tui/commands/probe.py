@@ -59,6 +59,20 @@ def _list(backend: str, dialect) -> dict:
     return {"backend": backend, "resources": rows}
 
 
+@contextlib.contextmanager
+def _left_off(role, report: dict):
+    """Leave ``role`` off on every way out of the checks: after a fault (the fault is the
+    error that matters, not one from switching off an output that was off) and after the
+    checks, whose safe-off notes go into the report."""
+    try:
+        yield
+    except BaseException:
+        with contextlib.suppress(InstrumentError):
+            role.safe_off()
+        raise
+    report["safe_off_notes"] = role.safe_off()
+
+
 def _check_smu(session, dialect, report: dict) -> None:
     from pnbench.drivers.roles import Smu
 
@@ -66,7 +80,7 @@ def _check_smu(session, dialect, report: dict) -> None:
     if smu.output_is_on():
         raise SafetyStop(f"{session.resource_name}: the SMU output is ON; probe changes no "
                          "settings of an instrument that is sourcing. Turn it off first.")
-    try:
+    with _left_off(smu, report):
         smu.configure("current", limit=1.0)
         smu.configure("voltage", limit=1e-4)
         c = smu.commands
@@ -75,11 +89,6 @@ def _check_smu(session, dialect, report: dict) -> None:
             if query:
                 report["checks"][key] = session.query(query)
         session.drain_errors(context="the compliance status queries")
-    except BaseException:
-        with contextlib.suppress(InstrumentError):  # it was off; the first fault matters
-            smu.safe_off()
-        raise
-    report["safe_off_notes"] = smu.safe_off()
     report["checks"]["configuration"] = "accepted (voltage and current sourcing)"
     report["checks"]["output"] = "off"
 
@@ -91,15 +100,10 @@ def _check_lcr(session, dialect, report: dict) -> None:
     if lcr.bias_is_on():
         raise SafetyStop(f"{session.resource_name}: the LCR meter's DC bias is ON; probe "
                          "changes no settings of an instrument that is biasing a device.")
-    try:
+    with _left_off(lcr, report):
         lcr.configure(0.02)
         reading = lcr.apply_and_read(0.0, 1000.0)  # bias level 0 with the bias off
         session.drain_errors(context="a reading at 1 kHz")
-    except BaseException:
-        with contextlib.suppress(InstrumentError):
-            lcr.safe_off()
-        raise
-    report["safe_off_notes"] = lcr.safe_off()
     report["checks"]["configuration"] = f"accepted (form {lcr.form}, AC level 20 mV)"
     report["checks"]["reading_1kHz"] = {"form": lcr.form, "primary": reading.primary,
                                         "secondary": reading.secondary}
