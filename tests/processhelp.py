@@ -3,6 +3,8 @@ for what it writes."""
 
 from __future__ import annotations
 
+import os
+import subprocess
 import sys
 import time
 
@@ -10,6 +12,20 @@ import time
 def pnbench(*args: str) -> list[str]:
     """The argv that runs this checkout's pnbench in a fresh interpreter."""
     return [sys.executable, "-m", "pnbench.tui.cli", *args]
+
+
+def unbuffered() -> dict:
+    """The environment of a child pnbench whose output is read as it comes."""
+    return {**os.environ, "PYTHONUNBUFFERED": "1"}
+
+
+def start_run(plan, out, *options: str) -> subprocess.Popen:
+    """`pnbench run PLAN --headless --out OUT OPTIONS...` in its own process (stdout
+    dropped, stderr piped for the message of a run that fails)."""
+    return subprocess.Popen(pnbench("run", str(plan), "--headless", "--out", str(out),
+                                    *options),
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
+                            env=unbuffered())
 
 
 def wait_for(predicate, timeout_s: float) -> bool:

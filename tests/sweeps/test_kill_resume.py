@@ -20,7 +20,7 @@ from pathlib import Path
 
 import pytest
 from plantext import cv, forward, limits, plan_text, reverse
-from processhelp import pnbench, wait_for
+from processhelp import pnbench, start_run, unbuffered, wait_for
 
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.sweeps.store import read_events, read_points, read_run
@@ -66,10 +66,8 @@ def test_kill_9_then_resume(bench, tmp_path, repetition):
     plan = tmp_path / "plan.toml"
     plan.write_text(plan_for(bench))
     out = tmp_path / "runs"
-    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
-    proc = subprocess.Popen(pnbench("run", str(plan), "--headless", "--no-report",
-                                    "--out", str(out)),
-                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
+    env = unbuffered()
+    proc = start_run(plan, out, "--no-report")
     try:
         assert wait_for(lambda: any(out.glob("*/points.csv")), 30), "no run folder"
         run_dir = next(out.glob("*/points.csv")).parent
@@ -126,9 +124,8 @@ def test_kill_9_in_the_end_work_then_resume_finishes_it(bench, tmp_path):
     plan = tmp_path / "plan.toml"
     plan.write_text(plan_for(bench))
     out = tmp_path / "runs"
-    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
-    proc = subprocess.Popen(pnbench("run", str(plan), "--headless", "--out", str(out)),
-                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
+    env = unbuffered()
+    proc = start_run(plan, out)
 
     def ending() -> bool:
         try:

@@ -11,14 +11,13 @@ point again before the next point is taken.
 from __future__ import annotations
 
 import json
-import os
 import signal
 import subprocess
 from pathlib import Path
 
 import pytest
 from plantext import forward, limits, plan_text, table
-from processhelp import pnbench, wait_for
+from processhelp import pnbench, start_run, unbuffered, wait_for
 
 from pnbench.drivers.sim.bench import SimBench
 from pnbench.drivers.sim.device import parse_device
@@ -82,10 +81,8 @@ def test_kill_9_during_a_ramp_or_a_soak_then_resume(bench, tmp_path, moment):
     plan = tmp_path / "plan.toml"
     plan.write_text(_plan(bench), encoding="utf-8")
     out = tmp_path / "runs"
-    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
-    proc = subprocess.Popen(pnbench("run", str(plan), "--headless", "--no-report",
-                                     "--out", str(out)),
-                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
+    env = unbuffered()
+    proc = start_run(plan, out, "--no-report")
     try:
         assert wait_for(lambda: any(out.glob("*/events.jsonl")), 30), "no run folder"
         run_dir = next(out.glob("*"))
