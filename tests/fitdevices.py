@@ -124,3 +124,20 @@ def instrument_noise(rng: np.random.Generator, y: np.ndarray, rel: float, floor:
     no source)."""
     shape = y.shape if draws is None else (draws,) + y.shape
     return (y + rel * y * rng.standard_normal(shape) + floor * rng.standard_normal(shape))
+
+
+def inverse_fisher(jac: np.ndarray, y: np.ndarray, rel: float, floor: float) -> np.ndarray:
+    """(J^T W J)^-1: the Cramér-Rao bound of the parameters whose derivatives are the
+    columns of ``jac``, for readings ``y`` with the noise of `instrument_noise`
+    (W = 1/((rel*y)**2 + floor**2); docs/physics.md §9; Kay, 1993, ch. 3)."""
+    w = 1.0 / ((rel * y) ** 2 + floor**2)
+    return np.linalg.inv(jac.T @ (jac * w[:, None]))
+
+
+def draw_stats(est, sig, truth, bound) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Of fits to many noise draws (rows of ``est`` and their ``sig``), per parameter: the
+    share of draws whose truth lies within 2 sigma, the mean sigma and the spread of the
+    estimates, both over the Cramér-Rao ``bound``."""
+    est, sig = np.asarray(est), np.asarray(sig)
+    inside = np.mean(np.abs(est - truth) < 2 * sig, axis=0)
+    return inside, sig.mean(axis=0) / bound, est.std(axis=0) / bound
