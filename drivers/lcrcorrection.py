@@ -1,5 +1,6 @@
 """The LCR meter's open/short fixture correction, as the dialect spells it: run it, turn
-the stored correction on or off and ask whether it is on, read what it measured.
+the stored correction on or off and ask whether it is on, read what it measured; and, on
+the simulated bench, set its fixture's state (`fixture_is`).
 
 A mixin of `roles.LcrMeter` (it uses the role's session, dialect and commands); kept apart
 so the role module stays small. Every string comes from the dialect's ``[lcr]`` table.
@@ -66,3 +67,17 @@ class LcrCorrections:
         units = self.session.ask(message)
         values = _fields(self.session, units[0], ("primary", "secondary"), message)
         return values["primary"], values["secondary"]
+
+    def fixture_is(self, state: str) -> None:
+        """The fixture now holds the device, or is open or shorted (``state`` "device",
+        "open", "short"), as the operator confirmed. A real meter is told nothing (the
+        operator's hands did it); the simulated bench's meter is told with its own
+        command (`drivers.sim.fixture`), so its readings follow."""
+        from pnbench.drivers.sim.backend import is_sim_backend
+
+        if not is_sim_backend(getattr(self.session, "backend", None)):
+            return
+        from pnbench.drivers.sim.fixture import PATTERN, state_word
+
+        self.session.write(f"{PATTERN} {state_word(state)}")
+        self.session.drain_errors(context=f"setting the simulated fixture {state}")

@@ -11,7 +11,9 @@ Yo = 1/(Zo - Zs) here; the usual form takes Yo = 1/Zo, which is the same where
 |Zs| << |Zo|. Algebra of series and parallel impedances (no outside source needed); the
 expression is the open/short compensation LCR-meter manuals state (from memory).
 
-The correction is measured at a few frequencies; in between, and beyond the ends, the
+The correction is measured at a few frequencies (and, when pnbench reads the open and
+the short itself, at each test level: the rows of the level nearest a step's are used);
+in between, and beyond the ends, the
 open's conductance and capacitance (B/w) and the short's resistance and inductance (X/w)
 are interpolated linearly in log f and held at the end values: a fixture's stray C, R and
 L change slowly with frequency.
@@ -48,11 +50,13 @@ class FixtureResiduals:
         return self.short_frequency_Hz is not None
 
     @classmethod
-    def from_values(cls, values: Mapping | None) -> FixtureResiduals | None:
+    def from_values(cls, values: Mapping | None,
+                    ac_level_V: float | None = None) -> FixtureResiduals | None:
         """From a run's recorded correction values ({"open": {"frequency_Hz", "G_S",
         "B_S"}, "short": {"frequency_Hz", "R_ohm", "X_ohm"}}; a kind may be None or
-        absent). None when neither holds usable numbers; ValueError when one is
-        malformed."""
+        absent). A table with an ``ac_level_V`` column (read at several test levels)
+        gives the rows of the level nearest ``ac_level_V`` (the lowest when None). None
+        when neither holds usable numbers; ValueError when one is malformed."""
         if not isinstance(values, Mapping):
             return None
         got: dict[str, np.ndarray] = {}
@@ -62,9 +66,10 @@ class FixtureResiduals:
                 continue
             if not isinstance(table, Mapping):
                 raise ValueError(f"{which} correction values: expected a table")
+            names = ("frequency_Hz", *keys) + (("ac_level_V",) if "ac_level_V" in table
+                                               else ())
             try:
-                cols = [np.asarray(table[k], dtype=float).ravel()
-                        for k in ("frequency_Hz", *keys)]
+                cols = [np.asarray(table[k], dtype=float).ravel() for k in names]
             except (KeyError, TypeError, ValueError) as exc:
                 raise ValueError(f"{which} correction values: {exc}") from None
             f = cols[0]
@@ -72,7 +77,9 @@ class FixtureResiduals:
                     or not all(np.all(np.isfinite(c)) for c in cols) or np.any(f <= 0):
                 raise ValueError(f"{which} correction values: columns of equal length, "
                                  "finite numbers, frequencies > 0 expected")
-            got[f"{which}_frequency_Hz"] = f
+            if len(cols) == 4:  # per test level: the rows of the nearest one
+                cols = _at_level(cols, ac_level_V, which)
+            got[f"{which}_frequency_Hz"] = cols[0]
             got[f"{which}_{keys[0]}"], got[f"{which}_{keys[1]}"] = cols[1], cols[2]
         return cls(**got) if got else None
 
@@ -101,6 +108,21 @@ class FixtureResiduals:
         if not self.has_open:
             return None
         return float(np.median(self.open_B_S / (2 * math.pi * self.open_frequency_Hz)))
+
+
+def _at_level(cols: list[np.ndarray], ac_level_V: float | None,
+              which: str) -> list[np.ndarray]:
+    """The frequency and value columns of the rows at the test level nearest
+    ``ac_level_V`` (cols[3]; the lowest level when None)."""
+    levels = np.unique(cols[3])
+    level = levels[0] if ac_level_V is None else levels[
+        np.argmin(np.abs(np.log(levels / ac_level_V)) if ac_level_V > 0 and levels[0] > 0
+                  else np.abs(levels - ac_level_V))]
+    rows = cols[3] == level
+    f = cols[0][rows]
+    if np.unique(f).size != f.size:
+        raise ValueError(f"{which} correction values: a frequency twice at one test level")
+    return [c[rows] for c in cols[:3]]
 
 
 def _interp(f: np.ndarray, at: np.ndarray, values: np.ndarray) -> np.ndarray:

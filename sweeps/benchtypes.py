@@ -58,6 +58,8 @@ class LcrRole(Protocol):
 
     def set_correction_state(self, which: str, on: bool) -> bool: ...
 
+    def fixture_is(self, state: str) -> None: ...
+
 
 @runtime_checkable
 class BenchLike(Protocol):

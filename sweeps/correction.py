@@ -5,13 +5,16 @@ before the first one (and, with ``every_set_point``, before the first one at eac
 set point). Every output is switched off (and confirmed off) first; then, for each
 correction in order (open, then short), the operator is asked to set the fixture state
 and confirm it (an ``operator_prompt`` event answered through `Control.answer`), unless
-the plan says the states are prepared in advance (``confirmed = true``). What the meter
-measured is read back at each of the plan's LCR frequencies where the dialect has a query
-for it. ``apply = "meter"``: the meter's stored correction is turned on (where the dialect
-can) and corrects every reading after. ``apply = "software"``: it is turned off, the
-readings stay raw in points.csv and the fits compensate them from the recorded values
-(`sweeps.fitmodel.compensated`). Each run of the correction is one entry of run.json's
-``lcr_correction["runs"]`` (its set point, who applies it, the values) and an
+the plan says the states are prepared in advance (``confirmed = true``).
+``apply = "meter"``: the meter runs its own correction command, what it measured is read
+back at each of the plan's LCR frequencies where the dialect has a query for it, and its
+stored correction is turned on (where the dialect can) and corrects every reading after.
+``apply = "software"``: the meter's stored correction is turned off and pnbench reads the
+open and the shorted fixture itself, as ordinary readings, at every test level and
+frequency of the plan's LCR steps (`sweeps.fixturereadings`; no correction command
+needed); the readings stay raw in points.csv and the fits compensate them from these
+values (`sweeps.fitcorrection.compensated`). Each run of the correction is one entry of
+run.json's ``lcr_correction["runs"]`` (its set point, who applies it, the values) and an
 ``lcr_correction`` event.
 
 A resumed run reuses the entry recorded for its set point (``on_resume = "reuse"``, the
@@ -27,6 +30,7 @@ import math
 
 from pnbench.errors import DialectError, InstrumentError, OperatorStop
 from pnbench.sweeps import events as ev
+from pnbench.sweeps import fixturereadings
 from pnbench.sweeps.control import Control
 from pnbench.sweeps.plan import Plan
 
@@ -82,21 +86,17 @@ class Corrections:
 
     def check(self) -> None:
         """DialectError when the LCR meter's dialect cannot do what the plan asks
-        (checked before the first step, so no data is taken for nothing)."""
+        (checked before the first step, so no data is taken for nothing). Software
+        compensation needs no correction command: pnbench reads the open and the short."""
         correction, lcr = self.plan.correction, self.bench.lcr
         commands = getattr(lcr, "commands", None)
-        if correction is None or commands is None:
+        if correction is None or commands is None or correction.apply == "software":
             return
         for which in correction.which:
             if not getattr(commands, f"{which}_correction", ""):
                 raise DialectError(f"[lcr_correction] asks for the {which} correction, and "
                                    f"the LCR meter's dialect has no {which}_correction "
                                    "command to start it")
-            if correction.apply == "software" and not getattr(
-                    commands, f"{which}_data_query", ""):
-                raise DialectError(f"[lcr_correction] apply = \"software\" needs what the "
-                                   f"{which} correction measured, and the LCR meter's "
-                                   f"dialect has no {which}_data_query to ask for it")
 
     def before_lcr_step(self, step) -> None:
         """Run (or reuse) the correction if this step needs one first."""
@@ -108,27 +108,37 @@ class Corrections:
             return
         record = self.folder.run.get("lcr_correction")
         earlier = entry_for(record, key)
+        reason = ""  # why a resumed run corrects again
         if earlier is not None:  # recorded by an earlier process of this run: a resume
             if correction.on_resume == "repeat":
-                self._say(step, "resumed: the plan asks to repeat the LCR correction "
-                          "(on_resume = \"repeat\")", warning=False)
-            elif self._reusable(earlier, step):
-                self.done_here.add(key)
-                self._tell_fit(record)
-                self.bus.emit(ev.Correction, step.name, corrections=list(correction.which),
-                              confirmed=correction.confirmed, values=earlier.get("values"),
-                              applied_by=earlier.get("applied_by", "meter"),
-                              set_point_K=earlier.get("set_point_K"), reused=True)
-                return
+                reason = ("resumed: the plan asks to repeat the LCR correction "
+                          "(on_resume = \"repeat\")")
+                self._say(step, reason, warning=False)
+            else:
+                reused, reason = self._reusable(earlier, step)
+                if reused:
+                    self.done_here.add(key)
+                    self._tell_fit(record)
+                    self.bus.emit(ev.Correction, step.name,
+                                  corrections=list(correction.which),
+                                  confirmed=correction.confirmed,
+                                  values=earlier.get("values"),
+                                  applied_by=earlier.get("applied_by", "meter"),
+                                  set_point_K=earlier.get("set_point_K"), reused=True,
+                                  reason=reason)
+                    return
         entry = run_correction(self.plan, self.bench, self.bus, self.control, self.folder,
                                step.name, step.set_point_K)
+        if reason:
+            entry["reason"] = reason
         record = {**correction.to_json_dict(), "done": True,
                   "applied_by": entry["applied_by"], "values": entry["values"],
                   "runs": [*runs_of(record), entry]}
         self.folder.update_run(lcr_correction=record)
         self.bus.emit(ev.Correction, step.name, corrections=list(correction.which),
                       confirmed=correction.confirmed, values=entry["values"],
-                      applied_by=entry["applied_by"], set_point_K=entry["set_point_K"])
+                      applied_by=entry["applied_by"], set_point_K=entry["set_point_K"],
+                      reason=reason)
         self.done_here.add(key)
         self._tell_fit(record)
 
@@ -141,35 +151,66 @@ class Corrections:
         if warning:
             self.bus.emit(ev.WarningEvent, step.name, message=message)
 
-    def _reusable(self, entry: dict, step) -> bool:
+    def _reusable(self, entry: dict, step) -> tuple[bool, str]:
         """Whether the recorded entry still holds on this meter (see the module notes),
-        saying why either way."""
+        and why, said in the run's log (and as a warning when it runs again)."""
         lcr = self.bench.lcr
         which = self.plan.correction.which
         where = _where(entry.get("set_point_K"))
         if entry.get("applied_by") == "software":
             for w in which:  # a meter switched on again may apply its stored data
                 lcr.set_correction_state(w, False)
-            self._say(step, f"resumed: the LCR correction recorded{where} is reused; its "
-                      "values compensate the readings in software", warning=False)
-            return True
+            text = (f"resumed: the LCR correction recorded{where} is reused; its values "
+                    "compensate the readings in software")
+            self._say(step, text, warning=False)
+            return True, text
         states = {w: lcr.correction_state(w) for w in which}
         if all(states.values()):
-            self._say(step, f"resumed: the LCR meter still applies the correction "
-                      f"recorded{where}; it is reused", warning=False)
-            return True
+            text = (f"resumed: the LCR meter still applies the correction recorded{where}; "
+                    "it is reused")
+            self._say(step, text, warning=False)
+            return True, text
         lost = [w for w, on in states.items() if on is False]
         if lost:
-            self._say(step, f"resumed: the LCR meter no longer applies its "
-                      f"{' and '.join(lost)} correction (switched off or reset since the "
-                      f"run stopped?): the correction runs again")
+            text = (f"resumed: the LCR meter no longer applies its {' and '.join(lost)} "
+                    "correction (switched off or reset since the run stopped?): the "
+                    "correction runs again, every output off")
         else:
-            self._say(step, "resumed: the LCR meter cannot report whether it still applies "
-                      f"the correction recorded{where} (its dialect has no state query); "
-                      "if it was switched off since, the correction is lost, so it runs "
-                      "again" + ("" if self.plan.correction.confirmed else
-                                 ", each fixture state confirmed by the operator"))
-        return False
+            text = ("resumed: " + NO_STATE_QUERY.format(
+                queries=" or ".join(f"{w}_state_query" for w, on in states.items()
+                                    if on is None), where=where)
+                    + ("" if self.plan.correction.confirmed else
+                       ", each fixture state confirmed by the operator"))
+        self._say(step, text)
+        return False, text
+
+
+#: Why a meter whose dialect cannot report its correction state is corrected again.
+NO_STATE_QUERY = ("the LCR meter cannot report whether it still applies the correction "
+                  "recorded{where} (its dialect has no {queries}); if it was switched off "
+                  "since, the correction is lost, so it runs again, every output off")
+
+
+def resume_note(plan: Plan) -> str | None:
+    """What a resumed run of ``plan`` will do about a correction the meter applies when
+    the LCR meter's dialect cannot report its correction state (None otherwise): said by
+    `pnbench check`, so the operator knows before the run why a resume corrects again."""
+    correction = plan.correction
+    if correction is None or correction.apply != "meter" or correction.on_resume != "reuse":
+        return None
+    from pnbench.drivers.dialect import load_dialect
+
+    lcr = plan.instruments.get("lcr")
+    commands = load_dialect(getattr(lcr, "dialect", None)).lcr
+    missing = [f"{w}_state_query" for w in correction.which
+               if not getattr(commands, f"{w}_state_query", "")]
+    if not missing:
+        return None
+    return ("on resume the LCR correction runs again: the meter's dialect has no "
+            f"{' or '.join(missing)} to say whether the meter still applies it (a meter "
+            "switched off since has lost it), so a resumed run corrects again, every "
+            "output off" + ("" if correction.confirmed else
+                            ", the operator asked for each fixture state again"))
 
 
 def _where(set_point_K: object) -> str:
@@ -189,24 +230,28 @@ def run_correction(plan: Plan, bench, bus: ev.EventBus, control: Control, folder
         raise InstrumentError("the outputs could not be confirmed off before the LCR "
                               "correction; nothing was corrected")
     lcr = bench.lcr
-    frequencies = lcr_frequencies(plan)
     values: dict[str, dict | None] = {}
     notes: list[str] = []
+    software = correction.apply == "software"
+    if software:  # raw readings: the meter's own stored correction must not touch them
+        for which in correction.which:
+            notes += _keep_off(lcr, which)
     for which in correction.which:
         _confirm(which, correction.confirmed, bus, control, step)
-        folder.log(f"LCR {which} correction" + _where(set_point_K))
-        getattr(lcr, f"{which}_correction")()
-        values[which] = _data(lcr, which, frequencies)
-        if correction.apply == "software":
-            if values[which] is None:
-                raise DialectError(f"[lcr_correction] apply = \"software\" needs what the "
-                                   f"{which} correction measured, and the LCR meter's dialect "
-                                   f"has no {which}_data_query to ask for it")
-            notes += _keep_off(lcr, which)
+        lcr.fixture_is(which)
+        folder.log(f"LCR {which} correction" + _where(set_point_K)
+                   + (": pnbench reads the fixture" if software else ""))
+        if software:
+            values[which] = fixturereadings.measure(
+                lcr, which, fixturereadings.level_frequency_pairs(plan),
+                fixturereadings.readings_for(plan))
         else:
+            getattr(lcr, f"{which}_correction")()
+            values[which] = _data(lcr, which, lcr_frequencies(plan))
             lcr.set_correction_state(which, True)
     if not correction.confirmed:
         _confirm("device", False, bus, control, step)
+    lcr.fixture_is("device")
     return {"set_point_K": set_point_K, "applied_by": correction.apply, "values": values,
             "step": step, "notes": notes}
 

@@ -235,6 +235,7 @@ class Correction(Event):
     applied_by: str = "meter"  # or "software": pnbench compensates at fit time
     set_point_K: float | None = None  # the stage set point it was taken at
     reused: bool = False  # a resumed run kept the one recorded before
+    reason: str = ""  # on resume: why it was reused or run again
 
 
 @dataclass(frozen=True, kw_only=True, slots=True)

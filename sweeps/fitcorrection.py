@@ -25,20 +25,22 @@ from pnbench.sweeps.correction import entry_for, runs_of
 #: (a meter's open correction leaves well under one percent of it; common practice, no
 #: source).
 STALE_FRACTION = 0.05
-SOFTWARE = ("open/short compensation applied in software from the values the meter "
-            "measured (points.csv keeps the raw readings; the fits use the compensated "
-            "ones)")
+SOFTWARE = ("open/short compensation applied in software from the recorded open and "
+            "short readings (points.csv keeps the raw readings; the fits use the "
+            "compensated ones)")
 _LCR_KINDS = ("cv", "admittance")
 
 
-def residuals_for(record: object, set_point_K: float | None) -> FixtureResiduals | None:
-    """The recorded values to compensate points at this set point with, when the record
-    says pnbench applies them (None otherwise, or when they are unusable)."""
+def residuals_for(record: object, set_point_K: float | None,
+                  ac_level_V: float | None = None) -> FixtureResiduals | None:
+    """The recorded values to compensate points at this set point (and test level, where
+    the open and short were read at several) with, when the record says pnbench applies
+    them (None otherwise, or when they are unusable)."""
     entry = entry_for(record, set_point_K)
     if entry is None or entry.get("applied_by") != "software":
         return None
     try:
-        return FixtureResiduals.from_values(entry.get("values"))
+        return FixtureResiduals.from_values(entry.get("values"), ac_level_V)
     except ValueError:
         return None
 
@@ -48,7 +50,8 @@ def compensated(step, col: Mapping[str, np.ndarray], record: object) -> Mapping:
     ``col`` is left as it is); the columns themselves otherwise."""
     if getattr(step, "kind", None) not in _LCR_KINDS or not len(col["voltage_V"]):
         return col
-    residuals = residuals_for(record, getattr(step, "set_point_K", None))
+    residuals = residuals_for(record, getattr(step, "set_point_K", None),
+                              getattr(step, "ac_level_V", None))
     if residuals is None:
         return col
     c, g = compensate_parallel(col["capacitance_F"], col["conductance_S"],

@@ -167,6 +167,9 @@ class FakeLcr:
         self.applied[which] = bool(on)
         return True
 
+    def fixture_is(self, state: str) -> None:
+        self.log.append(("fixture", state))
+
     def safe_off(self) -> list[str]:
         self.bias_on = False
         return []

@@ -13,7 +13,8 @@ fixture's stray capacitance in the readings, a short correction on none of its s
 resistance; `:SENS:CORR:OPEN:DATA?` answers the open's G, B and `:SENS:CORR:SHOR:DATA?`
 the short's R, X at the frequency set (zeros before the correction was run), what the
 meter measured with the fixture in that state (the open through the fixture's series
-resistance). A new bench is a meter switched on afresh: no correction. The AC level
+resistance). A new bench is a meter switched on afresh: no correction. Its fixture
+holds the device unless `:SIMulation:FIXTure` opens or shorts it (`fixture`). The AC level
 is the rms voltage across the device. The bias source sags to hold its current limit.
 """
 
@@ -24,6 +25,7 @@ import math
 import numpy as np
 
 from pnbench.drivers import scpi
+from pnbench.drivers.sim import fixture as simfixture
 from pnbench.drivers.sim import physics as simphysics
 from pnbench.drivers.sim.device import SimDevice
 from pnbench.drivers.sim.instrument import (
@@ -79,6 +81,7 @@ class SimLcr(SimInstrumentWithOutput):
                          "form": "PARallel"}
         self.measured = {"open": False, "short": False}  # the correction's data taken
         self.applied = {"open": False, "short": False}  # and turned on
+        self.fixture = "DEVice"  # the fixture's state, not a setting (`sim.fixture`)
         self._admittances: dict[tuple, complex] = {}
         super().__init__(spec["identity"], device.timing["command_s"], on_output)
         self.reset()
@@ -119,6 +122,7 @@ class SimLcr(SimInstrumentWithOutput):
             (":SENSe:CORRection:SHORt:STATe", True, state_query("short")),
             (":SENSe:CORRection:OPEN:DATA", True, data("open")),
             (":SENSe:CORRection:SHORt:DATA", True, data("short")),
+            *simfixture.commands(self),
             (":READ:IMPedance", True, self._read),
             (":FETCh:IMPedance", True, self._fetch),
         ]
@@ -129,11 +133,15 @@ class SimLcr(SimInstrumentWithOutput):
         if t != self.temperature_K:
             self.temperature_K, self.params = t, self.device.params_at(t)
         key = (self.bias_V if self.output else 0.0, self.frequency_Hz, self.ac_level_V,
-               self.applied["open"], self.applied["short"], t)
+               self.applied["open"], self.applied["short"], t, self.fixture)
         return remembered(self._admittances, key, lambda: self._terminal_admittance(key[0]))
 
     def _terminal_admittance(self, bias_V: float) -> complex:
         spec = self.spec
+        if self.fixture != "DEVice":  # nothing in it: the fixture's stray, or its short
+            return simfixture.empty_fixture_admittance(
+                self.fixture, 2.0 * math.pi * self.frequency_Hz, spec, self.applied,
+                OPEN_RESIDUAL)
         bias, _ = simphysics.bias_point(self.params, self.temperature_K, bias_V,
                                         spec["bias_current_limit_A"])
         y = simphysics.fundamental_admittance(bias, self.frequency_Hz, self.ac_level_V,

@@ -97,3 +97,27 @@ def test_malformed_values_are_refused(values):
 def test_nothing_recorded_is_nothing_to_compensate():
     assert FixtureResiduals.from_values(None) is None
     assert FixtureResiduals.from_values({"open": None, "short": None}) is None
+
+
+def test_values_read_at_several_test_levels_compensate_at_the_nearest_level():
+    """pnbench's own open and short carry a test-level column: a step is compensated
+    with the rows of the level nearest its own (the lowest without one)."""
+    y_dut = 1e-6 + 1j * W * 12e-12
+    zo = ZS + 1.0 / YO
+    yo = 1.0 / zo
+    levels = [0.005] * 3 + [0.05] * 3
+    values = {"open": {"frequency_Hz": [*F, *F], "ac_level_V": levels,
+                       "G_S": [*yo.real, *(2 * yo.real)], "B_S": [*yo.imag, *(2 * yo.imag)]},
+              "short": {"frequency_Hz": [*F, *F], "ac_level_V": levels,
+                        "R_ohm": [*ZS.real, *ZS.real], "X_ohm": [*ZS.imag, *ZS.imag]}}
+    low = FixtureResiduals.from_values(values, 0.006)
+    assert compensate(_measured(y_dut), F, low) == pytest.approx(y_dut, rel=1e-10, abs=0)
+    assert FixtureResiduals.from_values(values).open_G_S == pytest.approx(yo.real, abs=0)
+    high = FixtureResiduals.from_values(values, 0.04)
+    assert high.open_B_S == pytest.approx(2 * yo.imag, rel=1e-12, abs=0)
+    twice = {"open": {"frequency_Hz": [1e5, 1e5], "ac_level_V": [0.01, 0.01],
+                      "G_S": [0.0, 0.0], "B_S": [1e-7, 1e-7]}}
+    with pytest.raises(ValueError, match="a frequency twice at one test level"):
+        FixtureResiduals.from_values(twice)
+    with pytest.raises(ValueError, match="correction values"):
+        FixtureResiduals.from_values({"open": {**twice["open"], "ac_level_V": ["x", 1]}})

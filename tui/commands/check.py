@@ -55,7 +55,16 @@ def summary(plan) -> dict:
         "warnings": list(plan.warnings),
         "temperature": plan.temperature.to_json_dict() if plan.temperature else None,
         "lcr_correction": plan.correction.to_json_dict() if plan.correction else None,
+        "lcr_correction_on_resume": resume_note(plan),
     }
+
+
+def resume_note(plan) -> str | None:
+    """What a resumed run will do about the correction when the meter cannot say whether
+    it still applies it (sweeps.correction.resume_note)."""
+    from pnbench.sweeps.correction import resume_note as note
+
+    return note(plan)
 
 
 def correction_text(correction) -> str:
@@ -63,7 +72,8 @@ def correction_text(correction) -> str:
     which = " then ".join(correction.which)
     when = ("before the first LCR step at each stage set point"
             if correction.every_set_point else "before the first LCR step")
-    how = ("; compensated in software (points.csv keeps the raw readings)"
+    how = ("; pnbench reads the open and the short itself and compensates in software "
+           "(points.csv keeps the raw readings)"
            if correction.apply == "software" else "")
     if correction.confirmed:
         return (f"LCR correction: {which}, {when}, unattended "
@@ -136,6 +146,9 @@ def run(args) -> int:
         print("instruments: none in the plan (run it with --simulate DEVICE)")
     if plan.correction is not None:
         print(correction_text(plan.correction))
+        note = resume_note(plan)
+        if note:
+            print(note)
     width = max(len(s.name) for s in plan.steps)
     print(f"\n{'#':>2} {'step':<{width}} {'kind':<11} {'points':>6} {'time':>8} "
           f"{'worst P':>9}  range")

@@ -170,25 +170,37 @@ def _correction(record: object) -> str:
         parts.append("<p>Compensated in software from the values below: points.csv holds "
                      "the raw readings, the fits and this report's C–V figures use the "
                      "compensated ones.</p>")
+    values = record.get("values") or {}
+    if any(isinstance(v, dict) and v.get("measured_by") == "pnbench"
+           for v in values.values()):
+        n = next(v.get("readings") for v in values.values() if isinstance(v, dict))
+        parts.append(f"<p>pnbench read the open and the short itself, as ordinary "
+                     f"readings (the mean of {esc(str(n))} each), at every test level and "
+                     "frequency of the C–V and admittance steps.</p>")
+    for r in runs:
+        if isinstance(r, dict) and r.get("reason"):
+            parts.append(f"<p>{esc(str(r['reason']))}.</p>")
     at = [r["set_point_K"] for r in runs if isinstance(r, dict)
           and isinstance(r.get("set_point_K"), (int, float))]
     if len(at) > 1:
         parts.append("<p>Run at each stage set point: "
                      + esc(", ".join(f"{t:g} K" for t in at))
                      + "; the values below are the last.</p>")
-    values = record.get("values") or {}
     rows = []
     for which, data in values.items():
         if not isinstance(data, dict):
-            rows.append([esc(which), "the meter does not report it", "", ""])
+            rows.append([esc(which), "the meter does not report it", "", "", ""])
             continue
         cols = (("C_F", "F"), ("G_S", "S")) if which == "open" else (("R_ohm", "Ω"),
                                                                       ("X_ohm", "Ω"))
         for k, f in enumerate(data.get("frequency_Hz") or ()):
+            level = _at(data.get("ac_level_V"), k)
             rows.append([esc(which), num(esc(qty(f, "Hz"))),
+                         num(esc(qty(level, "V"))) if level is not None else "",
                          *[num(esc(qty(_at(data.get(c), k), u))) for c, u in cols]])
     if rows:
-        parts.append(table(["Correction", "Frequency", "C or R", "G or X"], rows))
+        parts.append(table(["Correction", "Frequency", "Test level", "C or R", "G or X"],
+                           rows))
     return "".join(parts)
 
 
