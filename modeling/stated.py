@@ -15,14 +15,18 @@ if TYPE_CHECKING:
 class StatedNoise:
     """An instrument's stated 1-sigma noise of one reading at 1 NPLC, in the fits' form:
 
-        sigma = relative * |reading| + max(floor, floor_of_range * range)
+        sigma = relative * |reading| + max(floor, floor_of_range * range,
+                                           floor_by_range[range'])
 
     (the two parts add, as instrument specifications state them), where ``range`` is the
     smallest of ``ranges`` at or above |reading| (the autorange rule; no ranges: the
-    floor alone). For I-V the reading is the current (A) and ``voltage`` the voltage
-    reading's own noise (same form, V); for C-V it is |Y| and the floor a capacitance
-    (F, times 2 pi f in siemens). Readings averaged or integrated longer scale it by
-    1/sqrt(NPLC x readings), white noise assumed (the fits take that per point).
+    floor alone), and ``floor_by_range`` a table of (range, floor) pairs, a floor per
+    range as a specification lists it, ``range'`` the smallest range of that table at or
+    above |reading| (its largest above them all). For I-V the reading is the current (A)
+    and ``voltage`` the voltage reading's own noise (same form, V); for C-V it is |Y| and
+    the floor a capacitance (F, times 2 pi f in siemens). Readings averaged or integrated
+    longer scale it by 1/sqrt(NPLC x readings), white noise assumed (the fits take that
+    per point).
     """
 
     relative: float
@@ -30,17 +34,23 @@ class StatedNoise:
     floor_of_range: float = 0.0
     ranges: tuple[float, ...] = ()
     voltage: StatedNoise | None = None
+    floor_by_range: tuple[tuple[float, float], ...] = ()
 
     def floors(self, reading: np.ndarray) -> np.ndarray:
         """The floor of each reading: max(floor, floor_of_range x its range)."""
         import numpy as np
 
         mag = np.abs(np.asarray(reading, dtype=float))
-        if not self.ranges or self.floor_of_range <= 0:
-            return np.full(mag.shape, self.floor)
-        ranges = np.asarray(sorted(self.ranges))
-        k = np.minimum(np.searchsorted(ranges, mag * (1 - 1e-9)), ranges.size - 1)
-        return np.maximum(self.floor, self.floor_of_range * ranges[k])
+        out = np.full(mag.shape, self.floor)
+        if self.ranges and self.floor_of_range > 0:
+            ranges = np.asarray(sorted(self.ranges))
+            k = np.minimum(np.searchsorted(ranges, mag * (1 - 1e-9)), ranges.size - 1)
+            out = np.maximum(out, self.floor_of_range * ranges[k])
+        if self.floor_by_range:
+            table = np.asarray(sorted(self.floor_by_range), dtype=float)
+            k = np.minimum(np.searchsorted(table[:, 0], mag * (1 - 1e-9)), len(table) - 1)
+            out = np.maximum(out, table[k, 1])
+        return out
 
     def sigma(self, reading: np.ndarray) -> np.ndarray:
         import numpy as np
@@ -50,13 +60,17 @@ class StatedNoise:
 
     @property
     def smallest_floor(self) -> float:
+        """The floor of a reading of zero (the smallest range)."""
         low = self.floor_of_range * min(self.ranges) if self.ranges else 0.0
-        return max(self.floor, low)
+        table = min(self.floor_by_range)[1] if self.floor_by_range else 0.0
+        return max(self.floor, low, table)
 
     def to_json_dict(self) -> dict:
         out = {"relative": self.relative, "floor": self.floor}
         if self.ranges and self.floor_of_range > 0:
             out.update(floor_of_range=self.floor_of_range, ranges=list(self.ranges))
+        if self.floor_by_range:
+            out["floor_by_range"] = [[r, f] for r, f in sorted(self.floor_by_range)]
         if self.voltage is not None:
             out["voltage"] = self.voltage.to_json_dict()
         return out
@@ -80,7 +94,28 @@ class StatedNoise:
                              f"ranges >= 0, found {doc!r}")
         volt = doc.get("voltage")
         return cls(rel, floor, of_range, ranges,
-                   None if volt is None else cls.from_json_dict(volt))
+                   None if volt is None else cls.from_json_dict(volt),
+                   floor_table(doc.get("floor_by_range", ())))
+
+
+def floor_table(raw) -> tuple[tuple[float, float], ...]:
+    """(range, floor) pairs, sorted by range, from pairs or a {range: floor} mapping
+    (numbers, or text a float reads); ValueError naming what is wrong: each range above
+    zero, each floor zero or above, every number finite, no range twice."""
+    items = raw.items() if isinstance(raw, dict) else raw
+    try:
+        pairs = sorted((float(r), float(f)) for r, f in items)
+    except (TypeError, ValueError):
+        raise ValueError(f"a floor per range is pairs of numbers (range, floor), found "
+                         f"{raw!r}") from None
+    bad = [p for p in pairs if not (math.isfinite(p[0]) and math.isfinite(p[1])
+                                    and p[0] > 0 and p[1] >= 0)]
+    if bad:
+        raise ValueError(f"a floor per range needs ranges above zero and floors of zero "
+                         f"or more, found range {bad[0][0]!r} floor {bad[0][1]!r}")
+    if len({r for r, _ in pairs}) != len(pairs):
+        raise ValueError("a floor per range lists a range twice")
+    return tuple(pairs)
 
 
 def as_stated(noise) -> StatedNoise | None:

@@ -12,13 +12,19 @@ run's final fit, `pnbench fit RUN_DIR` and the app's review refit.
 
 from __future__ import annotations
 
-from pnbench.modeling.stated import StatedNoise
+from pnbench.errors import BadInput
+from pnbench.modeling.stated import StatedNoise, floor_table
 from pnbench.sweeps.planread import TableReader
+from pnbench.sweeps.quantities import parse_quantity
 
+#: The unit word of a table of floors per range (`read_floor_table`).
+RANGE_TABLE = "A per range"
 #: Keys an instrument table may carry about its noise, per role: key -> (unit, meaning).
 PLAN_KEYS = {
     "smu": {"current_noise_percent": ("%", "current noise, percent of the reading"),
             "current_noise_floor": ("A", "current noise floor"),
+            "current_noise_floor_per_range": (RANGE_TABLE, "current noise floor of each "
+                                              "current range: { range = floor }"),
             "voltage_noise_percent": ("%", "voltage noise, percent of the reading"),
             "voltage_noise_floor": ("V", "voltage noise floor")},
     "lcr": {"noise_percent": ("%", "noise of G and of B, percent of |Y|"),
@@ -43,29 +49,73 @@ def read_plan_noise(t: TableReader, role: str | None) -> StatedNoise | None:
         return None
     got: dict[str, float | None] = {}
     before = len(t.problems.items)
+    table: tuple = ()
     for key, (unit, _meaning) in keys.items():
         if unit == "%":
             got[key] = t.number(key, 0.0, 0.0, MAX_PERCENT)
+        elif unit == RANGE_TABLE:
+            table = read_floor_table(t, key)
         else:
             got[key] = t.quantity(key, unit, 0.0, nonnegative=True)
     if any(v is None for v in got.values()) or len(t.problems.items) > before:
         return None  # a figure was refused: said once, with its key
     if role == "smu":
-        if not got["current_noise_percent"] and not got["current_noise_floor"]:
+        if not got["current_noise_percent"] and not got["current_noise_floor"] \
+                and not any(f for _, f in table):
             t.problem("current_noise_percent", "a stated SMU noise needs the current's: "
-                      "give current_noise_percent and/or current_noise_floor above zero")
+                      "give current_noise_percent, current_noise_floor and/or "
+                      "current_noise_floor_per_range above zero")
             return None
         volt = None
         if got["voltage_noise_percent"] or got["voltage_noise_floor"]:
             volt = StatedNoise(got["voltage_noise_percent"] / 100.0,
                                got["voltage_noise_floor"])
         return StatedNoise(got["current_noise_percent"] / 100.0,
-                           got["current_noise_floor"], voltage=volt)
+                           got["current_noise_floor"], voltage=volt, floor_by_range=table)
     if not got["noise_percent"] and not got["noise_floor"]:
         t.problem("noise_percent", "a stated LCR noise needs noise_percent and/or "
                   "noise_floor above zero")
         return None
     return StatedNoise(got["noise_percent"] / 100.0, got["noise_floor"])
+
+
+def read_floor_table(t: TableReader, key: str) -> tuple[tuple[float, float], ...]:
+    """A table of current floors per range, ``{ "1 uA" = "2 pA", "1e-3" = 5e-9 }``: each
+    key a current range (a quantity in A, quoted as TOML keys are), each value its floor
+    (a number in A or a quantity); () when absent or refused (the problem named on
+    ``t``)."""
+    raw = t.raw(key)
+    if raw is None:
+        return ()
+    if not isinstance(raw, dict) or not raw:
+        t.problem(key, "expected a table of current range = noise floor, such as "
+                  '{ "1 uA" = "2 pA", "1 mA" = "5 nA" }, found ' + repr(raw))
+        return ()
+    pairs = []
+    for name, value in raw.items():
+        try:
+            rng = parse_quantity(name, "A", what=f"range {name!r}", low=0.0)
+        except BadInput as exc:
+            t.problem(key, str(exc))
+            return ()
+        if not rng > 0:
+            t.problem(key, f"range {name!r} must be above zero")
+            return ()
+        if isinstance(value, bool) or not isinstance(value, (int, float, str)):
+            t.problem(key, f"range {name!r}: expected a floor in A such as 2e-12 or "
+                      f'"2 pA", found {value!r}')
+            return ()
+        try:
+            floor = parse_quantity(value, "A", what=f"the floor of range {name!r}", low=0.0)
+        except BadInput as exc:
+            t.problem(key, str(exc))
+            return ()
+        pairs.append((rng, floor))
+    try:
+        return floor_table(pairs)
+    except ValueError as exc:
+        t.problem(key, str(exc))
+        return ()
 
 
 def run_noise(plan) -> dict:

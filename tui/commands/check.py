@@ -94,6 +94,9 @@ def noise_lines(plan) -> list[str]:
     for fit, doc in run_noise(plan).items():
         unit = "A" if fit == "iv" else "F"
         text = f"{doc['relative'] * 100:.3g} % + {q(doc['floor'], unit, 3)}"
+        if doc.get("floor_by_range"):
+            text += ", floor per range: " + ", ".join(
+                f"{q(f, unit, 3)} up to {q(r, unit, 3)}" for r, f in doc["floor_by_range"])
         volt = doc.get("voltage")
         if volt:
             text += f", voltage {volt['relative'] * 100:.3g} % + {q(volt['floor'], 'V', 3)}"
