@@ -9,11 +9,12 @@ Columns (header row; extra columns are kept and ignored by the fits):
   apply to a row.
 
 Lines starting with ``#`` are comments; ``# key = value`` comments are metadata
-(``temperature_K``, ``area_m2``, ``device``, ...). Anything that cannot be used raises
-DataFileError naming the file, the line and the column, what was found and what would be
-accepted; no partial guesses. A run folder is read by column through the run record
-(`sweeps.record`); it may end in a half-written line (a run killed while writing): that
-line is left out and counted in ``DataSet.notes``.
+(``temperature_K``, ``area_m2``, ``device``, ...; ``smu.KEY`` and ``lcr.KEY`` state the
+instruments' noise, as a sidecar ``STEM.noise.toml`` may: `sweeps.datanoise`). Anything
+that cannot be used raises DataFileError naming the file, the line and the column, what
+was found and what would be accepted; no partial guesses. A run folder is read by column
+through the run record (`sweeps.record`); it may end in a half-written line (a run killed
+while writing): that line is left out and counted in ``DataSet.notes``.
 """
 
 from __future__ import annotations
@@ -26,7 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from pnbench.errors import BadInput, DataFileError
-from pnbench.sweeps import record
+from pnbench.sweeps import datanoise, record
 from pnbench.sweeps.quantities import parse_quantity
 
 IV_COLUMNS = ("voltage_V", "current_A")
@@ -56,6 +57,9 @@ class DataSet:
     temperature_K: float | None = None
     area_m2: float | None = None
     notes: tuple[str, ...] = ()
+    #: {"iv"|"cv": StatedNoise} from the header or the sidecar (`sweeps.datanoise`)
+    stated_noise: dict = field(default_factory=dict)
+    noise_notes: dict = field(default_factory=dict)  # {"iv"|"cv": where it came from}
 
     def __len__(self) -> int:
         return int(self.row_kind.size)
@@ -224,6 +228,7 @@ def read_data_file(path: str | Path, kind: str = "auto", *,
             body.append((n, stripped))
     if header is None:
         raise DataFileError(f"{path}: empty (no header row and no data); {_ACCEPTED}")
+    noise, noise_notes = datanoise.stated_noise(path, meta)
     if columns:
         absent = [name for name in columns if name not in header]
         if absent:
@@ -263,7 +268,8 @@ def read_data_file(path: str | Path, kind: str = "auto", *,
         row_kind=np.array(row_kind), compliance=np.array(compliance, dtype=bool),
         line_numbers=np.array(line_numbers), metadata={k: v for k, (v, _) in meta.items()},
         temperature_K=_meta_number(meta, "temperature_K", "K", path),
-        area_m2=_meta_number(meta, "area_m2", "m2", path), notes=tuple(notes))
+        area_m2=_meta_number(meta, "area_m2", "m2", path), notes=tuple(notes),
+        stated_noise=noise, noise_notes=noise_notes)
     _check_usable(data, kind)
     return data
 

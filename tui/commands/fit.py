@@ -119,6 +119,10 @@ def run(args) -> int:
     leak = (parse_quantity(args.leakage_at, "V", what="--leakage-at", low=-1e4, high=1e4)
             if args.leakage_at else None)
     noise = _run_noise(source, notes)
+    if not noise and data.stated_noise:  # a data file's header or sidecar
+        noise = dict(data.stated_noise)
+        notes += [note for key, note in data.noise_notes.items()
+                  if not (args.smu_noise if key == "iv" else args.lcr_noise)]
     noise.update({key: _noise_option(text, option, unit)
                   for key, text, option, unit in (("iv", args.smu_noise, "--smu-noise", "A"),
                                                   ("cv", args.lcr_noise, "--lcr-noise", "F"))
