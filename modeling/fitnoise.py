@@ -26,6 +26,9 @@ MAX_LEVERAGE = 0.9
 #: spread over so many rows that the correction is lost in the noise estimate's own
 #: scatter, and a long run's final fit is spared one more Jacobian per round.
 LEVERAGE_ROWS = 5000
+#: A channel's noise is estimated from no fewer rows; a model may lend a sparser channel
+#: the noise of another (``lend_noise``), else it keeps the previous noise model.
+MIN_NOISE_ROWS = 6
 
 
 @dataclass(frozen=True)
@@ -227,12 +230,20 @@ def estimate_noise(model, y: np.ndarray, yhat: np.ndarray,
       When the values span too little to tell the parts apart at all, the noise is
       taken as relative alone. Either rule is said in the fit's message
       (``Noise.notes``).
+
+    A channel with fewer than MIN_NOISE_ROWS rows has no estimate of its own. A model
+    whose channels are readings of one instrument may say how another channel's noise
+    carries over to it (``model.lend_noise(rel, floor, sparse, yhat, eligible)`` fills
+    in the sparse channels and returns notes); without that the channel keeps the
+    previous noise model.
     """
     rel, floor = list(previous.rel), list(previous.floor)
     notes = []
+    sparse = []
     for c in range(len(model.channels)):
         ok = eligible[:, c] & np.isfinite(y[:, c]) & np.isfinite(yhat[:, c])
-        if np.count_nonzero(ok) < 6:
+        if np.count_nonzero(ok) < MIN_NOISE_ROWS:
+            sparse.append(c)
             continue
         e2 = (y[ok, c] - yhat[ok, c]) ** 2
         if leverage is not None and leverage.shape == y.shape:
@@ -254,6 +265,9 @@ def estimate_noise(model, y: np.ndarray, yhat: np.ndarray,
             notes.append(f"estimated noise{which}: the data do not resolve its relative "
                          f"part, held at its standard error ({100 * rel[c]:.2g} % of "
                          f"reading) rather than zero")
+    lend = getattr(model, "lend_noise", None)
+    if sparse and lend is not None and len(sparse) < len(model.channels):
+        notes += lend(rel, floor, sparse, yhat, eligible)
     return Noise(tuple(rel), tuple(floor), estimated=True, notes=tuple(notes))
 
 

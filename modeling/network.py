@@ -90,6 +90,29 @@ class SplitModel:
             np.multiply(jac[:, 0, :], scale[:, None], out=jac[:, 1, :])
         return y, jac
 
+    @staticmethod
+    def lend_noise(rel: list, floor: list, sparse: list, yhat, eligible) -> list[str]:
+        """Noise for a channel with too few points to estimate its own (`fitnoise`),
+        from the other's: both are one meter's readings, whose noise is a share of |Y|
+        plus a floor on C. On C*w/|Y| that is the constant share plus the floor times
+        w/|Y| (taken at the median of the channel's points), and at reverse bias, where
+        |Y| ~ w*C, the share of |Y| is the share of C. Without this the few forward
+        points kept the first round's weights (100 % of reading) and counted for
+        nothing, so TT was never determined from them."""
+        if sparse == [1]:
+            ok = eligible[:, 1] & np.isfinite(yhat[:, 1]) & (np.abs(yhat[:, 0]) > 0)
+            k = float(np.median(np.abs(yhat[ok, 1] / yhat[ok, 0]))) if ok.any() else 0.0
+            rel[1], floor[1] = 0.0, math.hypot(rel[0], floor[0] * k)
+            which = "forward"
+        elif sparse == [0]:
+            rel[0], floor[0] = math.hypot(rel[1], floor[1]), 0.0
+            which = "reverse"
+        else:
+            return []
+        return [f"estimated noise: the {which}-bias points are too few to estimate their "
+                f"own, so they are weighted by the other points' noise (the same share of "
+                f"|Y|)"]
+
 
 #: Points evaluated at once in the describing function: its grids are points x phases
 #: complex values, which for a long run's C-V points would take gigabytes at once.
@@ -289,15 +312,36 @@ def network_state(model: SplitModel, x, y, elig, fixed: dict[str, float],
                              f"point)")
     if active[k["TT"]] and (start is None or not np.isfinite(start[k["TT"]])):
         t0[k["TT"]] = _tt_start(model.inner, t0, x, y, ok)
+    known = None if noise is None else meter_noise(noise, x[:, 3], noise_scale)
     if "RFIX" in k and active[k["RFIX"]] and (start is None
                                               or not np.isfinite(start[k["RFIX"]])):
+        t0 = _without_series_start(model, x, y, elig, t0, active, known)
         # inside its bound: from none (its lower bound) a gradient that TT's coupling
         # turns around would hold it there and the 3-sigma rule would drop it unseen
         t0[k["RFIX"]] = RFIX_START_OHM
-    known = None if noise is None else meter_noise(noise, x[:, 3], noise_scale)
     state = coarse.fit(model, x, y, elig, t0, active, noise=known)
     state.notes = notes + state.notes
     return state
+
+
+def _without_series_start(model, x, y, elig, t0, active, noise) -> np.ndarray:
+    """A start for the fit with RFIX: the fit without it (on the coarse subset of a long
+    run). From the rough start values RFIX's C**3-like effect on the reverse points
+    trades against CJO, VJ, M and CFIX along a narrow valley; on precise data the
+    solver followed it to a hundred ohms and more and stopped there unconverged, with TT
+    dropped (clean ngspice data). RFIX is then offered from the solution without it."""
+    k = model.index
+    first = active.copy()
+    first[k["RFIX"]] = False
+    t1 = t0.copy()
+    t1[k["RFIX"]] = model.params[k["RFIX"]].null
+    pre = coarse.fit(model, x, y, elig, t1, first, noise=noise, finish=False)
+    if not lsq.healthy(model, pre):
+        return t0
+    out = t0.copy()
+    kept = first & pre.active  # a parameter the first fit dropped keeps its start value
+    out[kept] = pre.t[kept]
+    return out
 
 
 def held_covariance_t(model, state: lsq.FitState, x, y, fixed: dict[str, float],
