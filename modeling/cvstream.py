@@ -187,7 +187,7 @@ class NetworkSpec:
         if self.held_covariance is None:
             return None
         if self._carried is None or self._carried[0] is not state:
-            from pnbench.modeling.network import held_covariance_t, held_names
+            from pnbench.modeling.heldcov import held_covariance_t, held_names
 
             names, cov = self.held_covariance
             chosen = held_names(self.model, self.fixed, tuple(names))

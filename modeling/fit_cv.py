@@ -21,7 +21,7 @@ import math
 
 import numpy as np
 
-from pnbench.modeling import lsq
+from pnbench.modeling import lsq, precision
 from pnbench.modeling.cvmodels import (
     CFIX_ABSENT,
     AdmittanceModel,
@@ -145,6 +145,8 @@ def fit_cv(voltage_V, frequency_Hz, capacitance_F, *, compliance=None, use=None,
                             noise=meter_rows_noise(noise, x, y, 1, noise_scale))
     if isinstance(state, str):
         return empty_result("cv", len(x), state)
+    state = precision.drop_unresolved(model, state, x, y[:, :1], ("CFIX",), lambda t, act: (
+        lsq.fit(model, x, y[:, :1], state.used, t, act, noise=state.noise, rounds=2)))
     left = elig[:, 0] & np.isfinite(y[:, 0]) & (y[:, 0] > 0) & ~state.used[:, 0]
     if left.any():  # points are left out only with a stated reason
         state.notes.append(

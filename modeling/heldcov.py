@@ -12,6 +12,8 @@ Regression*, Wiley 1989, sec. 2.1, from memory).
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from pnbench.modeling import coarse, lsq
@@ -44,3 +46,30 @@ def propagated(model, state: lsq.FitState, x: np.ndarray, y: np.ndarray,
     except np.linalg.LinAlgError:
         return None
     return a @ held_cov_t @ a.T
+
+
+def held_covariance_t(model, state: lsq.FitState, x, y, fixed: dict[str, float],
+                      held_covariance: np.ndarray | None,
+                      names: tuple[str, ...]) -> np.ndarray | None:
+    """The covariance the held parameters ``names`` (`held_names`: ``held_covariance`` in
+    values' units, in that order) carry into the free ones (t space, `propagated`); None
+    without any."""
+    k = model.index
+    held = [k[nm] for nm in held_names(model, fixed, names)]
+    if held_covariance is None or not held:
+        return None
+    return propagated(model, state, x, y, np.array(held),
+                      to_t_space(model, state.t, held, held_covariance))
+
+
+def held_names(model, fixed: dict[str, float], names: tuple[str, ...]) -> list[str]:
+    """Those of ``names`` the model holds at a finite value other than none (a held
+    uncertainty means something only for them)."""
+    k = model.index
+    return [nm for nm in names if nm in fixed and nm in k
+            and _finite_held(model, k[nm], fixed[nm])]
+
+
+def _finite_held(model, j: int, value: float) -> bool:
+    p = model.params[j]
+    return math.isfinite(value) and not (p.optional and p.to_t(value) == p.null)

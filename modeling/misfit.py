@@ -17,6 +17,10 @@ sqrt((1 + rho)/(1 - rho)) (rho: lag-1 autocorrelation of the residuals, read fro
 the rate of sign changes; the variance
 factor of a mean of an AR(1) series, e.g. Box, Jenkins & Reinsel, *Time Series
 Analysis*, 4th ed., 2008, from memory) and marked as lower bounds.
+
+Data without noise (residuals at the rounding of their digits, or below any
+instrument's resolution: `precision`) are not judged by the runs test; the fit's
+message says what the residuals are instead.
 """
 
 from __future__ import annotations
@@ -27,7 +31,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.special import chdtrc  # chi2.sf without loading scipy.stats (~50 MB, ~1 s)
 
-from pnbench.modeling import blocked, lsq
+from pnbench.modeling import blocked, lsq, precision
 
 #: Runs-test threshold (one-sided p ~ 5e-4: one false alarm in ~2000 honest fits).
 Z_RUNS = 3.3
@@ -152,16 +156,23 @@ def assess(model, state: lsq.FitState, x: np.ndarray, y: np.ndarray) -> Verdict:
         else:
             out.notes.append(f"reduced chi-square {red:.3g} against the stated instrument "
                              f"noise ({state.dof} degrees of freedom, p = {p:.2g})")
+    free = precision.assess(model, state, x, y)
+    if free is not None:
+        out.figures["noise_free"] = free.figures()
     with np.errstate(all="ignore"):
         seqs = ordered_residuals(model, state, x, y)
     rt = runs_test(seqs)
     if rt is None:
+        if free is not None:
+            out.notes.append(free.statement())
         return out
     runs, expected, z = rt
     rho = sign_correlation(runs, seqs)
     out.figures.update({"runs": runs, "expected_runs": round(expected, 2),
                         "runs_z": round(z, 3), "lag1_correlation": round(rho, 4)})
-    if z < -Z_RUNS:
+    if free is not None:  # no noise: the tests describe rounding or the simulator
+        out.notes.append(free.statement(z if z < -Z_RUNS else None))
+    elif z < -Z_RUNS:
         out.misfit = True
         inflation = math.sqrt((1 + rho) / (1 - rho)) if 0 < rho < 1 else 1.0
         out.inflation = min(max(inflation, 1.0), MAX_INFLATION)

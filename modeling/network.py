@@ -31,6 +31,7 @@ from pnbench.modeling import coarse, cvmodels, describing, fit_cv, heldcov, junc
 from pnbench.modeling.fitresult import FitResult, empty_result
 from pnbench.modeling.meternoise import meter_noise
 from pnbench.modeling.params import DEFAULT_TEMPERATURE_K
+from pnbench.modeling.precision import drop_unresolved
 
 #: The DC parameters an I–V fit supplies and the network fit holds.
 DC_NAMES = ("IS", "N", "RS", "RSH")
@@ -91,14 +92,20 @@ class SplitModel:
         return y, jac
 
     @staticmethod
+    def readings(x, y):
+        """The capacitances read, from the channels' values (`precision`)."""
+        out = np.array(y, dtype=float)
+        out[:, 1] = out[:, 1] / x[:, 3]
+        return out
+
+    @staticmethod
     def lend_noise(rel: list, floor: list, sparse: list, yhat, eligible) -> list[str]:
         """Noise for a channel with too few points to estimate its own (`fitnoise`),
         from the other's: both are one meter's readings, whose noise is a share of |Y|
         plus a floor on C. On C*w/|Y| that is the constant share plus the floor times
-        w/|Y| (taken at the median of the channel's points), and at reverse bias, where
-        |Y| ~ w*C, the share of |Y| is the share of C. Without this the few forward
-        points kept the first round's weights (100 % of reading) and counted for
-        nothing, so TT was never determined from them."""
+        w/|Y| (at the median of the channel's points); at reverse bias, where |Y| ~ w*C,
+        the share of |Y| is the share of C. Without it a few forward points kept the
+        first round's weights (100 % of reading) and TT was never determined."""
         if sparse == [1]:
             ok = eligible[:, 1] & np.isfinite(yhat[:, 1]) & (np.abs(yhat[:, 0]) > 0)
             k = float(np.median(np.abs(yhat[ok, 1] / yhat[ok, 0]))) if ok.any() else 0.0
@@ -245,7 +252,8 @@ def fit_network(voltage_V, frequency_Hz, capacitance_F, conductance_S=None, *,
     state = network_state(model, x, y, elig, fixed, noise, noise_scale=noise_scale)
     if isinstance(state, str):
         return empty_result(kind, len(x), state)
-    extra_cov = held_covariance_t(model, state, x, y, fixed, held_covariance)
+    extra_cov = heldcov.held_covariance_t(model, state, x, y, fixed, held_covariance,
+                                         DC_NAMES)
     out = lsq.to_result(model, state, kind, len(x), extras=cvmodels.held_extras(model, fixed),
                         min_rows=fit_cv.MIN_CV_POINTS, x=x, y=y,
                         extra_cov_t=extra_cov)
@@ -320,6 +328,9 @@ def network_state(model: SplitModel, x, y, elig, fixed: dict[str, float],
         # turns around would hold it there and the 3-sigma rule would drop it unseen
         t0[k["RFIX"]] = RFIX_START_OHM
     state = coarse.fit(model, x, y, elig, t0, active, noise=known)
+    state = drop_unresolved(  # on data without noise (e.g. a simulator's)
+        model, state, x, y, ("CFIX", "RFIX"),
+        lambda t, act: coarse.fit(model, x, y, elig, t, act, noise=known))
     state.notes = notes + state.notes
     return state
 
@@ -342,33 +353,6 @@ def _without_series_start(model, x, y, elig, t0, active, noise) -> np.ndarray:
     kept = first & pre.active  # a parameter the first fit dropped keeps its start value
     out[kept] = pre.t[kept]
     return out
-
-
-def held_covariance_t(model, state: lsq.FitState, x, y, fixed: dict[str, float],
-                      held_covariance: np.ndarray | None,
-                      names: tuple[str, ...] = DC_NAMES) -> np.ndarray | None:
-    """The covariance the held parameters ``names`` (`held_names`: ``held_covariance`` in
-    values' units, in that order) carry into the free ones (t space, ``heldcov``); None
-    without any."""
-    k = model.index
-    held = [k[nm] for nm in held_names(model, fixed, names)]
-    if held_covariance is None or not held:
-        return None
-    return heldcov.propagated(model, state, x, y, np.array(held),
-                              heldcov.to_t_space(model, state.t, held, held_covariance))
-
-
-def held_names(model, fixed: dict[str, float], names: tuple[str, ...]) -> list[str]:
-    """Those of ``names`` the model holds at a finite value other than none (a held
-    uncertainty means something only for them)."""
-    k = model.index
-    return [nm for nm in names if nm in fixed and nm in k
-            and _finite_held(model, k[nm], fixed[nm])]
-
-
-def _finite_held(model, j: int, value: float) -> bool:
-    p = model.params[j]
-    return math.isfinite(value) and not (p.optional and p.to_t(value) == p.null)
 
 
 def with_fixture_note(result: FitResult) -> FitResult:
