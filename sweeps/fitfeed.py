@@ -154,7 +154,10 @@ class FitWorker:
 
     # -- called from the acquisition thread ------------------------------------------
     def start(self) -> None:
+        """Start the worker thread, after importing what it will use (`fitmodel.warm_up`,
+        on this thread: before the run's first point, not beside the acquisition)."""
         if self.enabled and self._thread is None:
+            fitmodel.warm_up(s.kind for s in self.steps.values())
             self._thread = threading.Thread(target=self._loop, name="pnbench-fit",
                                             daemon=True)
             self._thread.start()

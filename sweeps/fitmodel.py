@@ -7,6 +7,7 @@ and the fit worker never depend on how the modeling package spells its arguments
 
 from __future__ import annotations
 
+import importlib
 import importlib.util
 from array import array
 
@@ -23,6 +24,26 @@ FIT_KIND = {"iv_forward": "iv_forward", "iv_reverse": "iv_reverse", "cv": "cv",
 def available() -> bool:
     """Whether the incremental fitters are installed (they are part of pnbench)."""
     return importlib.util.find_spec("pnbench.modeling.incremental") is not None
+
+
+#: What the fit thread would import on a step's first fit and at its end (the provisional
+#: model): `warm_up` imports them before the run's first point.
+WARM_MODULES = ("pnbench.modeling.incremental", "pnbench.modeling.cvstream",
+                "pnbench.modeling.joint", "pnbench.modeling.fit_iv",
+                "pnbench.modeling.fit_cv", "pnbench.modeling.fit_reverse",
+                "pnbench.modeling.mottschottky", "pnbench.sweeps.statednoise")
+
+
+def warm_up(step_kinds) -> None:
+    """Import what the live fits of these step kinds use and build one fitter of each
+    kind (their specs import the rest), on the calling thread: done before a run's first
+    point, so no import (its module locks, an extension's loading with the interpreter
+    lock held) runs on the fit thread beside the acquisition."""
+    for name in WARM_MODULES:
+        importlib.import_module(name)
+    for kind in sorted(set(step_kinds)):
+        new_fitter(kind, 300.0, {"IS": 1e-14, "N": 1.0} if kind in ("cv", "admittance")
+                   else None)
 
 
 def new_fitter(step_kind: str, temperature_K: float, fixed: dict | None = None,
