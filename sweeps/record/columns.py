@@ -5,7 +5,9 @@ file as numpy columns, which is how every reader takes it: `read_columns` parses
 in blocks with numpy's C parser, so a million points read in about a second, and its
 memory is the columns plus one block, never one Python object per row. A malformed row
 raises DataFileError naming the file and the line; a torn last line (a write cut short
-by a kill) is left out and said in ``torn``.
+by a kill, or a row of a live run still being written) is left out and said in ``torn``.
+A file that grows while it is read (a run in progress) is read as it was when its lines
+were counted: the rows appended since are left for the next read.
 """
 
 from __future__ import annotations
@@ -186,11 +188,13 @@ def read_columns(path: Path, fields: tuple[str, ...] | None = None) -> PointColu
     """Every complete row of the points.csv at ``path``, as columns. ``fields`` names the
     numeric columns wanted (all of `FIELDS` by default); the others read as NaN (index:
     -1) and take no memory. The file is read twice in blocks: once to count its lines,
-    so the columns are allocated once, then to parse it."""
+    so the columns are allocated once, then to parse it, up to the bytes counted (rows a
+    live run appends meanwhile are left for the next read; a row cut by the count's end
+    is a torn last line)."""
     wanted = FIELDS if fields is None else tuple(f for f in FIELDS if f in fields)
     if (fields is None or TEMPERATURE in fields) and _has_temperature(path):
         wanted += (TEMPERATURE,)
-    lines_at_most = _count_lines(path)
+    lines_at_most, size = _count_lines(path)
     floats = (*_FLOATS, TEMPERATURE)
     out = {name: np.empty(lines_at_most, dtype=np.float64 if name in floats else
                           np.int64 if name == "index" else np.int32)
@@ -205,7 +209,8 @@ def read_columns(path: Path, fields: tuple[str, ...] | None = None) -> PointColu
     with open(path, "rb") as handle:
         rest = b""
         while True:
-            chunk = handle.read(BLOCK_BYTES)
+            chunk = handle.read(min(BLOCK_BYTES, size))
+            size -= len(chunk)
             data = rest + chunk
             if not chunk:
                 torn = bool(data.strip())
@@ -234,18 +239,20 @@ def read_columns(path: Path, fields: tuple[str, ...] | None = None) -> PointColu
                         first_line=header_line + 1, metadata=metadata, torn=torn, **cols)
 
 
-def _count_lines(path: Path) -> int:
+def _count_lines(path: Path) -> tuple[int, int]:
+    """(newlines, bytes) of the file now."""
     try:
         handle = open(path, "rb")
     except FileNotFoundError:
         raise DataFileError(f"{path}: missing; not a pnbench run folder") from None
     except OSError as exc:
         raise DataFileError(f"{path}: cannot be read ({exc.strerror or exc})") from None
-    count = 0
+    count = size = 0
     with handle:
         while chunk := handle.read(BLOCK_BYTES):
             count += chunk.count(b"\n")
-    return count
+            size += len(chunk)
+    return count, size
 
 
 def _head(body: bytes, path: Path, metadata: dict, line: int) -> tuple[bytes, int, int]:

@@ -269,3 +269,66 @@ def test_columns_not_asked_for_read_as_nan_and_take_no_memory(tmp_path):
     assert np.isnan(cols.time_s).all() and (cols.index == -1).all()
     assert cols.time_s.strides == (0,)  # one value seen 50 times, not 50 values
     assert len(cols.select(cols.step_mask("fwd")).time_s) == 50
+
+
+def test_columns_of_a_file_that_grows_while_it_is_read(tmp_path, monkeypatch):
+    """A live run appends rows between the count of the lines and their parse: the
+    rows there were at the count are read, a row cut there is a torn tail, and the rows
+    appended after are left for the next read (they used to overflow the columns)."""
+    from pnbench.sweeps.record import columns
+
+    monkeypatch.setattr(columns, "BLOCK_BYTES", 700)  # the parse takes several blocks
+    folder = make(tmp_path)
+    for k in range(40):
+        folder.append_point(Point("fwd", k, "iv", 0.1 * k, 0.01 * k, 1e-9 * k))
+    folder.close()
+    path = folder.path / "points.csv"
+    with open(path, "a") as f:
+        f.write("fwd,40,iv,4.0,0.4")  # a row still being written
+    counted = columns._count_lines
+
+    def count_then_grow(p):
+        out = counted(p)
+        with open(p, "a") as f:  # the writer goes on: the row completes, more follow
+            f.write(",4e-08,,,,0\n")
+            f.writelines(Point("fwd", k, "iv", 0.1 * k, 0.01 * k, 1e-9 * k).to_row()
+                         for k in range(41, 400))
+        return out
+
+    monkeypatch.setattr(columns, "_count_lines", count_then_grow)
+    cols = read_columns(folder.path)
+    assert cols.index.tolist() == list(range(40)) and cols.torn
+    monkeypatch.setattr(columns, "_count_lines", counted)
+    again = read_columns(folder.path)
+    assert again.index.tolist() == list(range(400)) and not again.torn
+
+
+def test_columns_read_while_another_thread_appends(tmp_path):
+    """Reads racing a writer that appends rows in pieces (cut anywhere, as a buffered
+    writer may leave them) always give whole rows, in order, from the first on."""
+    folder = make(tmp_path)
+    folder.close()
+    path = folder.path / "points.csv"
+    text = "".join(Point("fwd", k, "iv", 1e-3 * k, 1e-4 * k, 1e-12 * k).to_row()
+                   for k in range(20_000))
+    done = threading.Event()
+
+    def writer():
+        with open(path, "a") as f:
+            for a in range(0, len(text), 997):  # pieces that cut rows anywhere
+                f.write(text[a:a + 997])
+                f.flush()
+        done.set()
+
+    thread = threading.Thread(target=writer)
+    thread.start()
+    seen = [0]
+    while not done.is_set():
+        cols = read_columns(folder.path)
+        assert cols.index.tolist() == list(range(len(cols)))
+        assert np.array_equal(cols.voltage_V, 1e-4 * np.arange(len(cols)))
+        assert len(cols) >= seen[-1]
+        seen.append(len(cols))
+    thread.join()
+    last = read_columns(folder.path)
+    assert len(last) == 20_000 and not last.torn
