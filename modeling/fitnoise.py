@@ -29,6 +29,10 @@ LEVERAGE_ROWS = 5000
 #: A channel's noise is estimated from no fewer rows; a model may lend a sparser channel
 #: the noise of another (``lend_noise``), else it keeps the previous noise model.
 MIN_NOISE_ROWS = 6
+#: The noise likelihood's sums run over blocks of this many rows, so a long run's final
+#: fit keeps a block's temporaries, not a dozen arrays as long as the run (one block, and
+#: the same sums to the last bit, for every fit of fewer rows).
+SUM_ROWS = 1 << 16
 
 
 @dataclass(frozen=True)
@@ -94,19 +98,31 @@ class Noise:
         return replace(self, **parts)
 
 
+def _blocks(n: int):
+    """Slices of at most SUM_ROWS rows covering 0..n (one slice for a short fit)."""
+    return [slice(a, a + SUM_ROWS) for a in range(0, max(n, 1), SUM_ROWS)]
+
+
 def _noise_newton(q, e2, y2, lo, hi, iterations: int = 40):
     """Minimize sum(ln s2 + e2/s2), s2 = exp(q0) y2 + exp(q1), by damped Newton in q."""
 
     def parts(q):
         a, b = math.exp(q[0]), math.exp(q[1])
-        s2 = np.maximum(a * y2 + b, 1e-300)
-        f = float(np.sum(np.log(s2) + e2 / s2))
-        u = 1.0 / s2 - e2 / s2**2  # df/ds2
-        v = -1.0 / s2**2 + 2 * e2 / s2**3  # d2f/ds2^2
-        ga, gb = a * float(u @ y2), b * float(u.sum())
-        haa = a * a * float(v @ (y2 * y2)) + ga
-        hbb = b * b * float(v.sum()) + gb
-        hab = a * b * float(v @ y2)
+        # the sums over blocks of rows: a long run's temporaries stay a block long
+        f = su = suy = sv = svy = svyy = 0.0
+        for rows in _blocks(len(y2)):
+            yb, eb = y2[rows], e2[rows]
+            s2 = np.maximum(a * yb + b, 1e-300)
+            f += float(np.sum(np.log(s2) + eb / s2))
+            u = 1.0 / s2 - eb / s2**2  # df/ds2
+            v = -1.0 / s2**2 + 2 * eb / s2**3  # d2f/ds2^2
+            suy, su = suy + float(u @ yb), su + float(u.sum())
+            svyy, sv, svy = svyy + float(v @ (yb * yb)), sv + float(v.sum()), \
+                svy + float(v @ yb)
+        ga, gb = a * suy, b * su
+        haa = a * a * svyy + ga
+        hbb = b * b * sv + gb
+        hab = a * b * svy
         return f, np.array([ga, gb]), np.array([[haa, hab], [hab, hbb]])
 
     f, g, h = parts(q)
@@ -150,8 +166,12 @@ def _relative_error(a: float, b: float, y2: np.ndarray) -> float:
     Infinite when the values span too little for a relative part and a floor to be told
     apart.
     """
-    w = 0.5 / np.maximum(a * y2 + b, 1e-300) ** 2
-    i_aa, i_ab, i_bb = float(w @ (y2 * y2)), float(w @ y2), float(w.sum())
+    i_aa = i_ab = i_bb = 0.0
+    for rows in _blocks(len(y2)):  # summed over blocks of rows, as in _noise_newton
+        yb = y2[rows]
+        w = 0.5 / np.maximum(a * yb + b, 1e-300) ** 2
+        i_aa, i_ab, i_bb = i_aa + float(w @ (yb * yb)), i_ab + float(w @ yb), \
+            i_bb + float(w.sum())
     det = i_aa * i_bb - i_ab * i_ab
     if not det > 1e-9 * i_aa * i_bb:
         return math.inf
@@ -252,9 +272,12 @@ def estimate_noise(model, y: np.ndarray, yhat: np.ndarray,
         top = math.sqrt(float(np.max(y2)))
         if not 1e-100 < top < 1e100:
             continue  # a model of (almost) nothing: keep the previous noise model
-        # in units of the largest value, so the likelihood's powers stay in range
+        # in units of the largest value, so the likelihood's powers stay in range (in
+        # place: a long run's final fit holds two arrays as long as the run here, not four)
         with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
-            a, b, held = _components(np.minimum(e2 / top**2, 1e100), y2 / top**2)
+            e2 /= top**2
+            y2 /= top**2
+            a, b, held = _components(np.minimum(e2, 1e100, out=e2), y2)
         rel[c], floor[c] = math.sqrt(a), math.sqrt(b) * top
         which = f" of channel {c}" if len(model.channels) > 1 else ""
         if held == "one":
