@@ -335,15 +335,18 @@ class FitWorker:
         if self.write_model is None:
             return
         try:
+            # the run's end: the columns hand their memory over (nothing is appended any
+            # more), and the fit lets each step's go once pooled
+            columns = {name: c.take() for name, c in self._columns.items() if len(c)} \
+                if final else {}
             if final and thermalfit.over_temperature(self.steps):
-                columns = {name: c.view() for name, c in self._columns.items() if len(c)}
                 model = thermalfit.model_over_temperature(
                     self.steps, columns, area_m2=self.area_m2, extras=self.extras,
                     ibv_A=fitmodel.breakdown_current_A(self.steps.values()))
             elif final:
-                columns = {name: c.view() for name, c in self._columns.items() if len(c)}
                 model = fitmodel.model_of_columns(self.steps, columns, self.temperature_K,
-                                                  area_m2=self.area_m2, extras=self.extras)
+                                                  area_m2=self.area_m2, extras=self.extras,
+                                                  consume=True)
             else:
                 model = fitmodel.model_of_snapshots(self.steps, self.latest,
                                                     self.temperature_K,

@@ -9,11 +9,16 @@ from __future__ import annotations
 
 import importlib
 import importlib.util
-from array import array
 
 import numpy as np
 
 from pnbench.modeling.smallsignal import admittance_from_parallel
+from pnbench.sweeps.fitcolumns import (  # noqa: F401  (re-exported)
+    KIND_COLUMNS,
+    VALUE_COLUMNS,
+    Columns,
+    kind_columns,
+)
 from pnbench.sweeps.record import Point
 
 #: The fitter kind of each step kind (the same names).
@@ -145,90 +150,6 @@ def admittance_of(point: Point) -> complex:
                                             point.frequency_Hz))
 
 
-#: The value columns of points.csv a fit uses.
-VALUE_COLUMNS = ("voltage_V", "current_A", "frequency_Hz", "capacitance_F", "conductance_S",
-                 "temperature_K")
-#: The value columns a step of each kind fills (the others are empty in points.csv).
-KIND_COLUMNS = {"iv": ("voltage_V", "current_A"),
-                "cv": ("voltage_V", "frequency_Hz", "capacitance_F", "conductance_S")}
-
-
-def kind_columns(step_kind: str | None, temperature: bool = False) -> tuple[str, ...]:
-    """The value columns `Columns` keeps for a step kind (None: every one)."""
-    if step_kind is None:
-        return VALUE_COLUMNS
-    names = KIND_COLUMNS["iv" if step_kind.startswith("iv") else "cv"]
-    return (*names, "temperature_K") if temperature else names
-
-
-class Columns:
-    """One step's points as typed columns: what the fit worker keeps of a run, so the
-    run's model is fitted from memory, never re-read.
-
-    Each column is an `array.array` of doubles (8 bytes a value, grown in place by a
-    small fraction; the compliance flag one byte), holding only the columns the step's
-    kind fills (`kind_columns`): 17 bytes an I-V point, 33 a C-V point, 8 more over
-    temperature; no object per point. The acquisition thread appends (`append`, about a
-    microsecond) while another thread reads (`view`): the count is raised only after
-    every column has the point, and a view copies the rows below the count it read.
-    """
-
-    def __init__(self, step_kind: str | None = None, temperature: bool = False) -> None:
-        self.names = kind_columns(step_kind, temperature)
-        self._values = {name: array("d") for name in self.names}
-        self._appenders = [(self._values[name].append, name) for name in self.names]
-        self._compliance = array("b")
-        self.n = 0
-
-    def __len__(self) -> int:
-        return self.n
-
-    def nbytes(self) -> int:
-        """Bytes held by the columns (their allocation may be a little larger)."""
-        return self.n * (8 * len(self.names) + 1)
-
-    def append(self, point: Point) -> None:
-        """Append one point (an absent cell becomes NaN)."""
-        for append, name in self._appenders:
-            value = getattr(point, name)
-            append(_NAN if value is None else value)
-        self._compliance.append(1 if point.compliance else 0)
-        self.n += 1
-
-    def extend(self, points: list[Point]) -> None:
-        """Append points (absent cells become NaN)."""
-        for p in points:
-            self.append(p)
-
-    def extend_columns(self, col: dict[str, np.ndarray]) -> None:
-        """Append points given as columns (a run folder's, `PointColumns.fit_columns`;
-        a missing value column reads as NaN), with no object per point."""
-        k = len(col["voltage_V"])
-        for name in self.names:
-            values = col.get(name)
-            values = (np.full(k, np.nan) if values is None
-                      else np.ascontiguousarray(values, dtype=float))
-            self._values[name].frombytes(values.tobytes())
-        comp = col.get("compliance")
-        comp = np.zeros(k, np.int8) if comp is None else np.asarray(comp, dtype=np.int8)
-        self._compliance.frombytes(np.ascontiguousarray(comp).tobytes())
-        self.n += k
-
-    def view(self, start: int = 0) -> dict[str, np.ndarray]:
-        """The columns from point ``start`` on, as numpy arrays (copies of the rows there
-        were when called; safe while another thread appends)."""
-        n = self.n
-        col = {name: np.frombuffer(self._values[name][start:n], dtype=np.float64)
-               if n > start else np.zeros(0) for name in self.names}
-        comp = self._compliance[start:n]
-        col["compliance"] = (np.frombuffer(comp, dtype=np.int8).astype(bool)
-                             if n > start else np.zeros(0, dtype=bool))
-        return col
-
-
-_NAN = float("nan")
-
-
 def add_points(fitter, step_kind: str, points: list[Point]) -> None:
     """Add run points to a step's fitter as one batch."""
     if points:
@@ -266,40 +187,40 @@ def run_model(steps: dict, points: list[Point], latest: dict, temperature_K: flo
 
 def model_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
                      temperature_K: float, *, area_m2: float | None = None,
-                     extras: dict | None = None):
+                     extras: dict | None = None, consume: bool = False):
     """The run's ModelSet fitted from every point, given per step as columns (`Columns`
-    views); None when nothing can be fitted. Steps of one kind are pooled."""
-    fit = joint_of_columns(steps, columns, temperature_K, area_m2=area_m2, extras=extras)
+    views); None when nothing can be fitted. Steps of one kind are pooled; ``consume``:
+    see `joint_of_columns`."""
+    fit = joint_of_columns(steps, columns, temperature_K, area_m2=area_m2, extras=extras,
+                           consume=consume)
     return None if fit is None else fit.model
 
 
 def joint_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
                      temperature_K: float, *, area_m2: float | None = None,
-                     extras: dict | None = None, **options):
+                     extras: dict | None = None, consume: bool = False, **options):
     """The run's joint fit (`joint.JointFit`, its model stating the meter's correction)
     from every point, given per step as columns; None when nothing can be fitted. The
     one fit of a run's model: the end of a run, `pnbench fit RUN_DIR` and the review
     refit (`runfit`) all come here. ``options`` override the joint fit's defaults (the
-    run's breakdown current, run.json's stated noise)."""
+    run's breakdown current, run.json's stated noise). With ``consume`` the mapping is
+    emptied and each step's arrays are let go as soon as they are pooled by kind (the
+    run's end: a night's points are then held once during the fit)."""
     from pnbench.modeling.joint import fit_all
     from pnbench.sweeps.fitcorrection import compensated_columns
 
-    columns = compensated_columns(steps, columns, (extras or {}).get("lcr_correction"))
-    by_kind: dict[str, list[dict]] = {}
+    given = compensated_columns(steps, columns, (extras or {}).get("lcr_correction"))
+    parts_of: dict[str, list[tuple[object, dict]]] = {}
     for name, step in steps.items():
-        if name in columns and len(columns[name]["voltage_V"]):
-            col = columns[name]
-            n = len(col["voltage_V"])
-            if step.kind in ("cv", "admittance"):  # the LCR test level, for the C-V fit
-                level = getattr(step, "ac_level_V", None)
-                col = {**col, "ac_level_V": np.full(n, np.nan if level is None else level)}
-            col = {**col, "noise_scale": np.full(n, noise_scale(step))}
-            by_kind.setdefault(step.kind, []).append(col)
-    if not by_kind:
+        if name in given and len(given[name]["voltage_V"]):
+            parts_of.setdefault(step.kind, []).append((step, dict(given[name])))
+    given = None
+    if consume:
+        columns.clear()
+    if not parts_of:
         return None
-    data = {kind: parts[0] if len(parts) == 1 else
-            {c: np.concatenate([p[c] for p in parts]) for c in parts[0]}
-            for kind, parts in by_kind.items()}
+    data = {kind: _pooled(kind, parts) for kind, parts in parts_of.items()}
+    parts_of.clear()
     from pnbench.sweeps.statednoise import fit_noise
 
     options = {"ibv_A": breakdown_current_A(steps.values()),
@@ -308,6 +229,27 @@ def joint_of_columns(steps: dict, columns: dict[str, dict[str, np.ndarray]],
                   **options)
     note_correction(fit.model, (extras or {}).get("lcr_correction"))
     return fit
+
+
+def _pooled(kind: str, parts: list[tuple[object, dict]]) -> dict[str, np.ndarray]:
+    """One kind's steps as one set of columns, with each point's step's noise scale and
+    (C-V kinds) LCR test level; every column is concatenated in turn and the steps' own
+    arrays of it dropped from ``parts`` (the caller's last reference, when it let go)."""
+    lengths = [len(col["voltage_V"]) for _, col in parts]
+    constants = {"noise_scale": [noise_scale(step) for step, _ in parts]}
+    if kind in ("cv", "admittance"):  # the LCR test level, for the C-V fit
+        levels = [getattr(step, "ac_level_V", None) for step, _ in parts]
+        constants["ac_level_V"] = [np.nan if v is None else v for v in levels]
+    out: dict[str, np.ndarray] = {}
+    for name in list(parts[0][1]):
+        arrays = [col.pop(name) for _, col in parts]
+        out[name] = arrays[0] if len(arrays) == 1 else np.concatenate(arrays)
+        del arrays
+    for name, values in constants.items():
+        out[name] = np.concatenate([np.full(n, v) for n, v in zip(lengths, values,
+                                                                strict=True)]) \
+            if len(set(values)) > 1 else np.full(sum(lengths), values[0])
+    return out
 
 
 def noise_scale(step) -> float:

@@ -124,7 +124,7 @@ def test_no_object_per_point_stays_in_memory(tmp_path):
     diff = snaps[last].filter_traces(ours).compare_to(snaps[first].filter_traces(ours),
                                                       "filename")
     grown = {s.traceback[0].filename: s.size_diff for s in diff if s.size_diff > 0}
-    columns = grown.pop(str(PROJECT / "sweeps" / "fitmodel.py"), 0)
+    columns = grown.pop(str(PROJECT / "sweeps" / "fitcolumns.py"), 0)
     assert columns <= 17 * 1.25 * (last - first) + 4096, columns
     assert sum(grown.values()) < 2 * (last - first), grown
 

@@ -121,3 +121,38 @@ def test_no_provisional_model_just_before_the_run_model(monkeypatch):
     worker._handle([("forward", None)])  # a step's end alone: refit, provisional
     assert len(refits) == 1 and len(written) == 1 and written[0].extras.get("provisional")
     assert worker._fitters == {} and worker.latest["forward"].success  # fitter let go
+
+
+def test_the_run_s_end_takes_the_columns_without_a_copy():
+    """At the run's end the columns hand their memory to the fit (`Columns.take`: the
+    same values as a view, no copy made, the columns left empty), and the fit lets each
+    step's arrays go once pooled (``consume``), giving the same model as from views."""
+    import tracemalloc
+
+    plan = plan_of(["forward", "cv"])
+    steps = {s.name: s for s in plan.steps}
+    rng = np.random.default_rng(510)
+    store = {}
+    for step in plan.steps:
+        store[step.name] = fitmodel.Columns(step.kind)
+        for _ in range(40):  # a few thousand points: their bytes dwarf the arrays' headers
+            store[step.name].extend(step_points(step.name, rng))
+    held = sum(c.nbytes() for c in store.values())
+    views = {name: c.view() for name, c in store.items()}
+    tracemalloc.start()
+    try:
+        taken = {name: c.take() for name, c in store.items()}
+        copied = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert copied < held / 10 and all(len(c) == 0 for c in store.values())
+    for name, view in views.items():
+        assert set(taken[name]) == set(view)
+        for column, values in view.items():
+            np.testing.assert_array_equal(taken[name][column], values, err_msg=column)
+    kept = fitmodel.model_of_columns(steps, views, T_K, extras={"device": "LH-VC510"})
+    let_go = fitmodel.model_of_columns(steps, taken, T_K, extras={"device": "LH-VC510"},
+                                       consume=True)
+    assert taken == {} and set(views) == set(steps)
+    assert json.dumps(let_go.to_json_dict(), sort_keys=True) == \
+        json.dumps(kept.to_json_dict(), sort_keys=True)
