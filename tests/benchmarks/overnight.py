@@ -16,15 +16,18 @@ own process, fitting on. From each run:
   divided by the points between them;
 * end_tail_s: from the last point to the run process's exit (run start from run.json,
   plus the last point's ``time_s``, against the moment the process was reaped);
-* longest_pause_ms: the longest gap between two consecutive points, and where it was;
-  also the longest within a step (a step's first point waits for the instrument to be
-  configured for it) and the 99th and 99.9th percentiles of the gaps. On a shared
-  machine the longest pause includes whatever else the machine was doing (another
-  process holding both cores); the percentiles say what is typical.
+* longest_pause_ms: the longest gap between two consecutive points, and where it was
+  (``longest_pause_where``: the step and the point); also the longest within a step (a
+  step's first point waits for the instrument to be configured for it) and the 99th and
+  99.9th percentiles of the gaps. On a shared machine the longest pause includes
+  whatever else the machine was doing (another process holding both cores); the
+  percentiles say what is typical, and `pauses.py` takes the machine's share out.
 
 The ratios (second size against the first, and with ``--big`` 1e6 against 1e4) are what
 means something on a shared machine; the absolute figures depend on the machine's load.
-The last line printed is one JSON object with every figure.
+The last line printed is one JSON object with every figure; its last key, ``done_when``,
+gives per size what the issue's done-when lines read: peak RSS (and until the last
+point), the end tail, and the longest pause with where it fell.
 
 Measured on 2 shared cores (load 4-6, 640 us a point at both sizes), before and after the
 run's final fit got its closed-form meter model and its coarse-to-fine rounds
@@ -72,13 +75,22 @@ def plan_for(points: int) -> str:
                      limits=limits(max_power="1 W"))
 
 
-def point_times(run_dir: Path) -> tuple[np.ndarray, np.ndarray]:
-    """Each point's time and whether it starts a new step."""
+def point_times(run_dir: Path) -> tuple[np.ndarray, np.ndarray, list[str], np.ndarray]:
+    """Each point's time, whether it starts a new step, its step and its index there."""
     with open(run_dir / "points.csv", encoding="utf-8") as f:
         cells = [line.split(",", 4) for line in f if line[:1] not in ("#", "s")]
     steps = np.array([c[0] for c in cells])
     first = np.concatenate([[True], steps[1:] != steps[:-1]])
-    return np.array([float(c[3]) for c in cells]), first
+    return (np.array([float(c[3]) for c in cells]), first, [c[0] for c in cells],
+            np.array([int(c[1]) for c in cells]))
+
+
+def where(steps: list[str], index: np.ndarray, first: np.ndarray, k: int) -> str:
+    """Where the gap before point ``k`` (0-based) fell, in words."""
+    if k <= 0:
+        return "before the first point"
+    at = f"before point {index[k]} of step {steps[k]} (point {k + 1} of the run)"
+    return at + (", the step's first (its configuration comes first)" if first[k] else "")
 
 
 def memory_samples(pid: int, stop: threading.Event) -> list[tuple[float, float, float]]:
@@ -128,10 +140,12 @@ def one_run(points: int, base: Path) -> dict:
     run_dir = next((out / "runs").iterdir())
     run = json.loads((run_dir / "run.json").read_text(encoding="utf-8"))
     started = datetime.fromisoformat(run["started"].replace("Z", "+00:00")).timestamp()
-    t, first = point_times(run_dir)
+    t, first, steps, index = point_times(run_dir)
     gaps = np.diff(t)
     within = gaps[~first[1:]]
     worst = int(np.argmax(gaps)) if gaps.size else 0
+    inside = np.where(first[1:], -np.inf, gaps)
+    worst_within = int(np.argmax(inside)) if within.size else 0
     rss_last, hwm_last = at_last_point(samples, started + t[-1])
     return {
         "points": int(t.size), "exit_code": proc.returncode, "status": run["status"],
@@ -141,8 +155,11 @@ def one_run(points: int, base: Path) -> dict:
         "end_tail_s": ended - (started + t[-1]),
         "longest_pause_ms": float(gaps.max() * 1e3) if gaps.size else 0.0,
         "longest_pause_after_point": worst + 1,
+        "longest_pause_where": where(steps, index, first, worst + 1) if gaps.size else "",
         # a step's first point follows the instrument's configuration for that step
         "longest_pause_within_step_ms": float(within.max() * 1e3) if within.size else 0.0,
+        "longest_pause_within_step_where": where(steps, index, first, worst_within + 1)
+        if within.size else "",
         "pause_p99_ms": float(np.percentile(gaps, 99) * 1e3) if gaps.size else 0.0,
         "pause_p999_ms": float(np.percentile(gaps, 99.9) * 1e3) if gaps.size else 0.0,
         "model_written": (run_dir / "model.json").exists(),
@@ -167,9 +184,10 @@ def main() -> None:
                   f"peak RSS {r['peak_rss_MiB']:6.1f} MiB (until the last point "
                   f"{r['acquisition_peak_rss_MiB']:.1f}, at it {r['rss_last_point_MiB']:.1f}),"
                   f" end tail {r['end_tail_s']:5.2f} s,"
-                  f" longest pause {r['longest_pause_ms']:6.1f} ms (after point "
-                  f"{r['longest_pause_after_point']}; within a step "
-                  f"{r['longest_pause_within_step_ms']:.1f} ms; 99 % under "
+                  f" longest pause {r['longest_pause_ms']:6.1f} ms ("
+                  f"{r['longest_pause_where']}; within a step "
+                  f"{r['longest_pause_within_step_ms']:.1f} ms, "
+                  f"{r['longest_pause_within_step_where']}; 99 % under "
                   f"{r['pause_p99_ms']:.1f} ms, 99.9 % under {r['pause_p999_ms']:.1f} ms),"
                   f" exit {r['exit_code']}", flush=True)
     first = runs[0]
@@ -179,8 +197,19 @@ def main() -> None:
         / first["acquisition_peak_rss_MiB"],
         "wall_per_point": r["wall_per_point_us"] / first["wall_per_point_us"],
         "end_tail": r["end_tail_s"] / max(first["end_tail_s"], 1e-9)} for r in runs[1:]}
+    # what the issue's done-when lines read, per size: last in the JSON
+    done_when = {str(r["points"]): {
+        "peak_rss_MiB": round(r["peak_rss_MiB"], 1),
+        "peak_rss_until_last_point_MiB": round(r["acquisition_peak_rss_MiB"], 1),
+        "end_tail_s": round(r["end_tail_s"], 2),
+        "longest_pause_ms": round(r["longest_pause_ms"], 1),
+        "longest_pause_where": r["longest_pause_where"],
+        "longest_pause_within_step_ms": round(r["longest_pause_within_step_ms"], 1),
+        "longest_pause_within_step_where": r["longest_pause_within_step_where"],
+        "pause_p999_ms": round(r["pause_p999_ms"], 1)} for r in runs}
     print(json.dumps({"runs": runs, "ratios": ratios,
-                      "longest_pause_ms": max(r["longest_pause_ms"] for r in runs)}))
+                      "longest_pause_ms": max(r["longest_pause_ms"] for r in runs),
+                      "done_when": done_when}))
 
 
 if __name__ == "__main__":
