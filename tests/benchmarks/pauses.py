@@ -20,7 +20,8 @@ gap is reported three ways:
   capped at the gap. The interpreter lock lets one thread run Python at a time, so on an
   idle machine a gap is about this long; it is the best estimate of the pause the run
   itself causes, whatever the machine's load (it counts numpy work that runs without
-  the lock beside the acquisition as pause, so it errs long).
+  the lock beside the acquisition as pause, so it errs long);
+* ``fit_thread_cpu``: the fit thread's share of that, what the live fits cost a gap.
 
 The figures are the longest, the 99th and 99.9th percentiles and the count over 50 ms,
 then the six longest gaps (by ``process_cpu``) with their parts and the fit thread's
@@ -145,7 +146,7 @@ def measure(points: int, out: Path) -> dict:
     return {"points": n, "status": str(outcome.status),
             "wall_per_point_us": float((wall[n - 1] - wall[0]) / (n - 1) * 1e6),
             "gaps": figures(gaps), "without_waits_for_a_core": figures(own),
-            "process_cpu": figures(busy),
+            "process_cpu": figures(busy), "fit_thread_cpu": figures(fit_busy),
             "longest": [{"after_point": int(i + 1), "gap_ms": float(gaps[i]),
                          "process_cpu_ms": float(busy[i]),
                          "fit_thread_cpu_ms": float(fit_busy[i]),
@@ -162,7 +163,8 @@ def main() -> None:
     print(f"{r['points']} points, {r['wall_per_point_us']:.0f} us/point")
     for key, label in (("gaps", "gaps between points"),
                        ("without_waits_for_a_core", "less the waits for a core"),
-                       ("process_cpu", "the process's CPU in them")):
+                       ("process_cpu", "the process's CPU in them"),
+                       ("fit_thread_cpu", "the fit thread's share")):
         f = r[key]
         print(f"{label:>27}: longest {f['longest_ms']:.1f} ms (after point "
               f"{f['after_point']}), 99 % under {f['p99_ms']:.2f} ms, 99.9 % under "
