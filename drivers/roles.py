@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from pnbench.drivers import scpi
 from pnbench.drivers.dialect import Dialect, LcrCommands, SmuCommands
 from pnbench.drivers.lcrcorrection import LcrCorrections
-from pnbench.drivers.session import Session
+from pnbench.drivers.session import Session, count_queries
 from pnbench.errors import BadInput, DialectError, InstrumentError
 from pnbench.modeling import smallsignal
 
@@ -34,14 +34,14 @@ RAMP_DWELL_S = 0.02
 RAMP_MAX_STEPS = 500
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class SmuReading:
     voltage_V: float
     current_A: float
     compliance: bool
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class LcrReading:
     frequency_Hz: float
     bias_V: float
@@ -64,7 +64,8 @@ def _finite(name: str, x: float) -> float:
     return x
 
 
-def _fields(session: Session, reply: str, names: tuple[str, ...], message: str) -> dict:
+def _values(session: Session, reply: str, names: tuple[str, ...], message: str) -> list:
+    """The numbers of a reading, one per name of the dialect's read_fields."""
     try:
         values = scpi.parse_numbers(reply)
     except ValueError as exc:
@@ -74,7 +75,11 @@ def _fields(session: Session, reply: str, names: tuple[str, ...], message: str) 
         raise InstrumentError(
             f"{session.resource_name}: reading {reply!r} has {len(values)} fields, the "
             f"dialect's read_fields name {len(names)} ({', '.join(names)})")
-    return dict(zip(names, values, strict=True))
+    return values
+
+
+def _fields(session: Session, reply: str, names: tuple[str, ...], message: str) -> dict:
+    return dict(zip(names, _values(session, reply, names, message), strict=True))
 
 
 def _flag(session: Session, reply: str, message: str) -> bool:
@@ -128,6 +133,23 @@ class _Role:
         return still_on
 
 
+@dataclass(frozen=True, slots=True)
+class _Exchange:
+    """The set-and-read message of one source function, worked out once: the message
+    for a level is ``head + scpi.format_value(level) + tail``, with ``queries`` replies;
+    the reading's fields sit at ``voltage``, ``current`` and ``compliance`` (-1: the
+    dialect reads no compliance field) of ``fields``."""
+
+    head: str
+    tail: str
+    queries: int
+    fields: tuple[str, ...]
+    voltage: int
+    current: int
+    compliance: int
+    tripped: bool
+
+
 class Smu(_Role):
     """A source-measure unit: source voltage or current, limit the other, read both."""
 
@@ -145,6 +167,7 @@ class Smu(_Role):
         self.ramp_rate_V_per_s = RAMP_RATE_V_PER_S
         self.ramp_time_scale = 1.0
         self._output_on = False
+        self._exchanges: dict[str, _Exchange] = {}  # by source function
 
     def _set_command(self, level: float) -> str:
         template = self.commands.set_voltage if self.source == "voltage" else (
@@ -205,30 +228,47 @@ class Smu(_Role):
         self.level = level
         self.session.write(self._set_command(level))
 
+    def _exchange(self) -> _Exchange:
+        """The set-and-read message of the configured source function (built once)."""
+        ex = self._exchanges.get(self.source)
+        if ex is None:
+            c, sep = self.commands, self.dialect.separator
+            voltage = self.source == "voltage"
+            tripped = c.tripped_sourcing_voltage if voltage else c.tripped_sourcing_current
+            head, tail = scpi.value_template(c.set_voltage if voltage else c.set_current)
+            rest = self.dialect.join([c.read, tripped])
+            tail += sep + rest if rest else ""
+            names = tuple(c.read_fields)
+            ex = _Exchange(head, tail, count_queries(head + "0" + tail, sep), names,
+                           names.index("voltage"), names.index("current"),
+                           names.index("compliance") if "compliance" in names else -1,
+                           bool(tripped.strip()))
+            self._exchanges[self.source] = ex
+        return ex
+
     def apply_and_read(self, level: float) -> SmuReading:
-        """Set the level, read, and ask for compliance: one message, one reply."""
+        """Set the level, read, and ask for compliance: one message, one reply (the
+        message from a template worked out once, the reply parsed once)."""
         self._require_configured()
         level = _finite("SMU level", level)
-        c = self.commands
-        tripped = (c.tripped_sourcing_voltage if self.source == "voltage"
-                   else c.tripped_sourcing_current)
-        message = self.dialect.join([self._set_command(level), c.read, tripped])
+        ex = self._exchange()
+        message = ex.head + scpi.format_value(level) + ex.tail
         self.level = level
-        units = self.session.ask(message)
-        values = _fields(self.session, units[0], c.read_fields, message)
+        units = self.session.ask(message, ex.queries)
+        values = _values(self.session, units[0], ex.fields, message)
+        voltage, current = values[ex.voltage], values[ex.current]
         compliance = False
-        if "compliance" in values:
-            compliance = round(values["compliance"]) != 0 if math.isfinite(
-                values["compliance"]) else False
-        if tripped:
+        if ex.compliance >= 0:
+            flag = values[ex.compliance]
+            compliance = math.isfinite(flag) and round(flag) != 0
+        if ex.tripped:
             compliance = compliance or _flag(self.session, units[1], message)
-        elif "compliance" not in values:
-            measured = values["current" if self.source == "voltage" else "voltage"]
+        elif ex.compliance < 0:
+            measured = current if self.source == "voltage" else voltage
             compliance = abs(measured) >= self.limit * (1.0 - COMPLIANCE_FRACTION)
-        if math.isfinite(values["voltage"]):
-            self.last_voltage_V = values["voltage"]
-        return SmuReading(voltage_V=values["voltage"], current_A=values["current"],
-                          compliance=bool(compliance))
+        if math.isfinite(voltage):
+            self.last_voltage_V = voltage
+        return SmuReading(voltage, current, compliance)
 
     def output(self, on: bool) -> None:
         """Turn the output on or off; turning it on checks the instrument accepted it."""

@@ -147,6 +147,19 @@ def fill(
 
 
 @lru_cache(maxsize=1024)
+def value_template(template: str) -> tuple[str, str]:
+    """``(head, tail)`` of a template whose one placeholder is ``{value}``, stripped as
+    `join` strips a unit: ``head + format_value(x) + tail`` is ``fill(template,
+    value=x).strip()`` for any finite x, without `fill`'s checks on every call (a
+    role builds its per-point message this way). ValueError for any other template."""
+    pieces, used = _template(template)
+    if used != ("value",):
+        raise ValueError(f"{template!r} must have exactly one placeholder, {{value}}; "
+                         f"found {', '.join('{' + u + '}' for u in used) or 'none'}")
+    return pieces[0].lstrip(), pieces[1].rstrip()
+
+
+@lru_cache(maxsize=1024)
 def _template(template: str) -> tuple[tuple[str, ...], tuple[str, ...]]:
     """A template's literal pieces around its placeholders, and the placeholder names
     (``pieces[0] name[0] pieces[1] ...``), once per distinct template."""
@@ -328,6 +341,19 @@ def parse_number(text: str) -> float:
     if not isinstance(text, str):
         raise ValueError(f"expected text, got {type(text).__name__}")
     s = text.strip()
+    if s.isascii() and "_" not in s:  # the common case, without the pattern match
+        try:
+            x = float(s)
+        except ValueError:
+            x = math.nan
+        # on ASCII text without "_", float() takes a finite value exactly when the
+        # pattern of decimal numbers does; its words (nan, inf) go the long way below
+        if math.isfinite(x):
+            if abs(x) == NAN_MARKER:
+                return math.nan
+            if abs(x) == OVERFLOW_MARKER:
+                return math.copysign(math.inf, x)
+            return x
     special = _SPECIAL_NUMBERS.get(s.upper())
     if special is not None:
         return special
@@ -343,7 +369,10 @@ def parse_number(text: str) -> float:
 
 def parse_numbers(text: str) -> list[float]:
     """A comma-separated list of numbers; ValueError names the field that is not one."""
-    fields = split_args(text)
+    if '"' not in text and "'" not in text and text.strip():
+        fields = text.split(",")  # parse_number strips each field
+    else:
+        fields = split_args(text)
     if not fields:
         raise ValueError("empty reply where numbers were expected")
     values = []
@@ -351,13 +380,18 @@ def parse_numbers(text: str) -> list[float]:
         try:
             values.append(parse_number(f))
         except ValueError:
-            raise ValueError(f"field {k} of {text.strip()!r} is not a number: {f!r}") from None
+            raise ValueError(f"field {k} of {text.strip()!r} is not a number: "
+                             f"{f.strip()!r}") from None
     return values
 
 
 def parse_bool(text: str) -> bool:
     """A SCPI boolean: ``1``/``0``/``ON``/``OFF``, or a number (rounded, nonzero is on)."""
     s = text.strip().upper()
+    if s == "0":  # the common replies first
+        return False
+    if s == "1":
+        return True
     if s == "ON":
         return True
     if s == "OFF":

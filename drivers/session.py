@@ -205,13 +205,16 @@ class Session:
         self.write(message)
         return self._read_line(message)
 
-    def ask(self, message: str) -> list[str]:
+    def ask(self, message: str, queries: int | None = None) -> list[str]:
         """Send a message with several queries; return one response unit per query.
 
         Accepts both IEEE 488.2 replies (all units on one line, joined by the separator)
-        and instruments that answer each query on its own line.
+        and instruments that answer each query on its own line. ``queries`` is how many
+        queries the message holds when the caller knows it (`count_queries` of a
+        message built from a fixed template: a role counts once, not per point).
         """
-        expected = count_queries(message, self.dialect.separator)
+        expected = count_queries(message, self.dialect.separator) if queries is None \
+            else queries
         if expected == 0:
             self.write(message)
             return []

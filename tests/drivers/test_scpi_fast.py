@@ -109,3 +109,76 @@ def test_counting_queries_by_header_equals_parsing_them(units):
             count_queries(message)
         return
     assert count_queries(message) == expected
+
+
+_NUMBER_BY_PATTERN = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?", re.ASCII)
+_WORDS = {"NAN": math.nan, "INF": math.inf, "INFINITY": math.inf, "+INF": math.inf,
+          "+INFINITY": math.inf, "-INF": -math.inf, "-INFINITY": -math.inf,
+          "NINF": -math.inf, "NINFINITY": -math.inf}
+
+
+def _number_by_pattern(text: str) -> float:
+    """The former parse_number: the special words, else the decimal pattern of SCPI-1999
+    vol. 1 7.2.1 (NR1/NR2/NR3) and the markers of 7.2.1.5."""
+    s = text.strip()
+    if s.upper() in _WORDS:
+        return _WORDS[s.upper()]
+    if not _NUMBER_BY_PATTERN.fullmatch(s):
+        raise ValueError(s)
+    x = float(s)
+    if abs(x) == scpi.NAN_MARKER:
+        return math.nan
+    if abs(x) == scpi.OVERFLOW_MARKER:
+        return math.copysign(math.inf, x)
+    return x
+
+
+def _same(a: float, b: float) -> bool:
+    return (math.isnan(a) and math.isnan(b)) or a == b
+
+
+number_texts = st.one_of(
+    st.text(st.sampled_from(list("0123456789.eE+-_ \tnaifNAIFxX٣")), max_size=12),
+    st.floats().map(repr), st.floats().map(lambda x: f"{x:+.6E}"),
+    st.sampled_from(["9.91E37", "-9.91e+37", "9.9E37", "-9.9E+37", "NaN", "-inf",
+                     "Infinity", "nINF", "+nan", "1_0", "1e500", "-1e-500", "0x10",
+                     "5.", ".5", "+.5e-3", "1.e5", " 7 ", "١", "infinity"]))
+
+
+@given(number_texts)
+def test_number_fast_path_reads_what_the_pattern_reads(text):
+    try:
+        expected = _number_by_pattern(text)
+    except ValueError:
+        with pytest.raises(ValueError):
+            scpi.parse_number(text)
+        return
+    assert _same(scpi.parse_number(text), expected)
+
+
+@given(st.lists(number_texts, min_size=1, max_size=4))
+def test_numbers_split_and_read_as_field_by_field(fields):
+    text = ",".join(fields)
+    try:
+        expected = [_number_by_pattern(f) for f in scpi.split_args(text)] or None
+    except ValueError:
+        expected = None
+    if expected is None:
+        with pytest.raises(ValueError):
+            scpi.parse_numbers(text)
+        return
+    got = scpi.parse_numbers(text)
+    assert len(got) == len(expected) and all(map(_same, got, expected))
+
+
+@given(literals, literals, st.floats(allow_nan=False, allow_infinity=False))
+def test_value_template_builds_what_fill_builds(before, after, value):
+    template = f"{before}{{value}}{after}"
+    head, tail = scpi.value_template(template)
+    assert head + scpi.format_value(value) + tail == scpi.fill(template, value=value).strip()
+
+
+def test_value_template_takes_one_value_placeholder_only():
+    for template in (":OUTP {state}", ":SOUR:VOLT", ":A {value};:B {value}"):
+        with pytest.raises(ValueError, match="exactly one placeholder"):
+            scpi.value_template(template)
