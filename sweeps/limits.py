@@ -161,6 +161,10 @@ class StepGuard:
         if self.source == "current" and abs(level) > lim.max_current_A:
             return Verdict("current", f"level {level:g} A exceeds max_current "
                            f"{lim.max_current_A:g} A", level=level)
+        # the measured quantity is held at the compliance, so below this bound no
+        # prediction can exceed max_power: the extrapolation is skipped (same verdicts)
+        if abs(level) * self.compliance <= lim.max_power_W:
+            return None
         power = self.predicted_power_W(level)
         if power > lim.max_power_W:
             return Verdict("power", f"the next level {level:g} "

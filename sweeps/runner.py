@@ -20,6 +20,7 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 from pnbench.errors import InstrumentError, OperatorStop, SafetyStop
 from pnbench.modeling.smallsignal import parallel_from_admittance
@@ -35,6 +36,9 @@ from pnbench.sweeps.planstep import Step
 from pnbench.sweeps.record import Point, RunFolder
 from pnbench.sweeps.statuses import ExitCode, RunStatus, StepStatus, exit_code_for, step_finished
 from pnbench.sweeps.thermalrun import StageRun
+
+if TYPE_CHECKING:
+    from pnbench.drivers.roles import SmuReading
 
 #: run.json is refreshed (done counts) at most this often while points flow.
 RUN_JSON_REFRESH_S = 5.0
@@ -260,7 +264,7 @@ class Runner:
                                 reading.current_A)
                 self._record(step, Point(step.name, planned.index, "iv", self.bus.elapsed_s(),
                                          reading.voltage_V, reading.current_A,
-                                         compliance=reading.compliance,
+                                         compliance=bool(reading.compliance),
                                          temperature_K=self.stage.temperature_K(step.name)))
                 verdict = guard.after(planned.level, reading)
                 if verdict is None and self._settled(step):
@@ -306,14 +310,16 @@ class Runner:
                 return verdict
         return None
 
-    def _read_smu(self, step: Step, level: float) -> Reading:
+    def _read_smu(self, step: Step, level: float) -> Reading | SmuReading:
+        """The reading at ``level`` (settled, averaged); either kind carries the three
+        fields the guards and the point take (no copy of a single reading)."""
         smu = self.bench.smu
         r = smu.apply_and_read(level)
         if step.settle_s > 0 and self.time_scale > 0:
             self._sleep(step.settle_s)
             r = smu.apply_and_read(level)
         if step.average == 1:
-            return Reading(r.voltage_V, r.current_A, bool(r.compliance))
+            return r
         readings = [r] + [smu.apply_and_read(level) for _ in range(step.average - 1)]
         n = len(readings)
         return Reading(sum(x.voltage_V for x in readings) / n,

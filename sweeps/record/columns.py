@@ -48,10 +48,15 @@ class Point:
     def to_row(self, temperature: bool = False) -> str:
         """The CSV line, newline included (floats in shortest round-trip form); with
         ``temperature`` the temperature_K cell of a run over temperature ends it."""
+        v, i, f, c, g = (self.voltage_V, self.current_A, self.frequency_Hz,
+                         self.capacitance_F, self.conductance_S)
+        # the cells written inline (this runs once a point): _cell's rule, None -> ""
         return (f"{self.step},{self.index},{self.kind},{self.time_s:.6f},"
-                f"{_cell(self.voltage_V)},{_cell(self.current_A)},{_cell(self.frequency_Hz)},"
-                f"{_cell(self.capacitance_F)},{_cell(self.conductance_S)},"
-                f"{1 if self.compliance else 0}"
+                f"{'' if v is None else repr(float(v))},"
+                f"{'' if i is None else repr(float(i))},"
+                f"{'' if f is None else repr(float(f))},"
+                f"{'' if c is None else repr(float(c))},"
+                f"{'' if g is None else repr(float(g))},{1 if self.compliance else 0}"
                 + (f",{_cell(self.temperature_K)}\n" if temperature else "\n"))
 
     @classmethod

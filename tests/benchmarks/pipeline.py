@@ -1,37 +1,42 @@
 """Speed and memory of the acquisition pipeline.
 
-    python tests/benchmarks/pipeline.py [--points N] [--memory-points M]
+    nice python tests/benchmarks/pipeline.py [--points N] [--rounds R] [--memory-points M]
 
-1. per_point_ratio: the whole pipeline's cost per point (drivers + run folder + events +
-   the fit worker, fitting on as in a real run), at time scale 0 on the simulated bench
-   over a real loopback socket, divided by the bare round trip of the same one-message
-   set-and-read query (the `;`-joined message the SMU role sends per point) on the same
-   bench. Rounds are interleaved (each round measures the bare message, `*OPC?`, the
-   pipeline with fitting on and with it off, in an order that turns from round to round)
-   and each ratio is taken within its round, so a machine that slows down for a while
-   slows both sides of it; the median over the rounds is the figure, with the spread
-   (lowest and highest round) beside it. The aim is at most 1.3. fit_off_ratio is the
-   same with fitting off: the difference is what the fit thread costs the acquisition
-   thread (through the interpreter lock). cpu_ratio compares the process's CPU time per
-   point the same way (simulator, pipeline and fit thread together): on a loaded machine
-   it varies far less than the wall time. That bare message includes the simulator's own
+1. The pipeline's cost per point against the bare message. The pipeline is a whole run
+   (drivers, run folder, events, the fit worker with fitting on as in a real run) on the
+   simulated bench at time scale 0 over a real loopback socket; its cost per point is
+   taken from its first point to its last. The bare side sends the same one-message
+   set-and-read query the SMU role sends per point (the `;`-joined set, read and
+   tripped query) through the same session, the cheapest way the session offers (its
+   query count given, as the role gives it), and nothing else. A second bare side is a
+   bare `*OPC?` round trip: the transport with nearly no work on the instrument.
+
+   Both are measured as wall time and as the process's CPU time per point. The
+   simulated bench runs in this process, so the CPU figures hold the simulator's own
    work (parsing, the device physics), which a real instrument does on its own
-   processor; so also
-2. opc_ratio: the same pipeline cost against a bare `*OPC?` round trip (the transport
-   alone, nearly no work on the simulated instrument): what the pipeline costs on top
-   of the wire, simulator included.
-3. pipeline_points_per_s: points per second of that pipeline.
-4. rss_growth_MB over a long run (default 300 000 points, --memory-points): the runner,
+   processor: against the bare message that work is on both sides of the ratio;
+   against `*OPC?` it is on the pipeline's side only. The CPU time is also split by
+   thread (acquisition, fit worker, simulator, the run folder's sync thread) so that
+   the extra cost of the pipeline is placed where it is spent.
+
+   Rounds are interleaved: each round measures the bare sides and the pipeline with
+   fitting on and off, in an order that turns from round to round, and each ratio is
+   taken within its round, so a machine that slows down for a while slows both sides.
+   The figure is the median over the rounds, with the lowest and highest round beside
+   it (on a shared machine the CPU ratio varies far less than the wall ratio). The aim
+   is a ratio of at most 1.3 with fitting on against the bare message.
+
+   Not in the per-point figures, stated beside them: the fit worker's work at the
+   step's end (the last rows, the step's final refit), which is once a step.
+2. rss_growth_MB over a long run (default 300 000 points, --memory-points): the runner,
    run folder, event stream and the fit worker with fitting on, driven by a fast
    in-process fake SMU (tests/sweepfake.py; no sockets), with a listener that queues
    every event as the app does. The fit worker keeps every point as columns (about 41
    bytes) and the running step's fitter its own copy, so some growth per point is by
    design: rss_bytes_per_point states it (from the first 20 000 points to the last
    point, RSS from /proc/self/status); rss_end_MB is after the run's final fit over
-   every point, whose working memory grows with the run. The fake SMU never waits on
-   I/O, so the acquisition thread holds the interpreter lock nearly all the time and
-   the fit thread falls behind; it takes the rows from the columns when it gets the
-   lock, so nothing queues. ``--memory-points 0`` leaves this part out.
+   every point, whose working memory grows with the run. ``--memory-points 0`` leaves
+   this part out.
 
 The last line printed is one JSON object with the figures.
 """
@@ -41,9 +46,11 @@ from __future__ import annotations
 import argparse
 import collections
 import json
+import math
 import statistics
 import sys
 import tempfile
+import threading
 import time
 from pathlib import Path
 
@@ -55,6 +62,7 @@ from sweepfake import FakeBench, FakeSmu  # noqa: E402
 from pnbench.drivers.dialect import load_dialect  # noqa: E402
 from pnbench.drivers.opening import open_session  # noqa: E402
 from pnbench.drivers.roles import Smu  # noqa: E402
+from pnbench.drivers.session import count_queries  # noqa: E402
 from pnbench.drivers.sim.bench import SimBench  # noqa: E402
 from pnbench.sweeps.events import EventBus  # noqa: E402
 from pnbench.sweeps.fitfeed import FitWorker  # noqa: E402
@@ -73,17 +81,32 @@ def plan_of(steps: int, points: int):
     return parse_plan(text, "benchmark.toml")
 
 
-def clock() -> tuple[float, float]:
-    """(wall, the process's CPU) seconds: a side's cost is both per point, since the
-    CPU time is what a loaded machine hands out and the wall time what a run waits."""
-    return time.perf_counter(), time.process_time()
+#: thread name -> the part of the pipeline it is
+THREADS = {"MainThread": "acquisition", "pnbench-fit": "fit", "pnbench-simbench": "simulator",
+           "pnbench-sync": "sync"}
 
 
-def per_point(start: tuple[float, float], end: tuple[float, float], n: int):
-    return (end[0] - start[0]) / n, (end[1] - start[1]) / n
+def clock() -> dict[str, float]:
+    """Wall and process CPU seconds, and the CPU seconds of each thread of the pipeline
+    (a side's cost is all of them per point: the CPU time is what a loaded machine hands
+    out, the wall time what a run waits)."""
+    now = {"wall": time.perf_counter(), "cpu": time.process_time()}
+    for thread in threading.enumerate():
+        part = THREADS.get(thread.name)
+        if part is not None and thread.ident is not None:
+            try:
+                now[part] = time.clock_gettime(time.pthread_getcpuclockid(thread.ident))
+            except (OSError, AttributeError):  # ended meanwhile; no per-thread clocks
+                pass
+    return now
 
 
-def bare_round_trip_s(sim: SimBench, n: int) -> tuple[float, float]:
+def per_point(start: dict[str, float], end: dict[str, float], n: int) -> dict[str, float]:
+    """Seconds per point of each clock read at both ends."""
+    return {k: (end[k] - start[k]) / n for k in end if k in start}
+
+
+def bare_round_trip_s(sim: SimBench, n: int) -> dict[str, float]:
     dialect = load_dialect()
     session = open_session(sim.smu_resource, dialect=dialect)
     try:
@@ -93,11 +116,12 @@ def bare_round_trip_s(sim: SimBench, n: int) -> tuple[float, float]:
         c = smu.commands
         messages = [dialect.join([dialect.fill(c.set_voltage, value=0.3 + 0.4 * k / n),
                                   c.read, c.tripped_sourcing_voltage]) for k in range(n)]
+        queries = count_queries(messages[0], dialect.separator)
         for m in messages[:50]:
-            session.ask(m)
+            session.ask(m, queries)
         start = clock()
         for m in messages:
-            session.ask(m)
+            session.ask(m, queries)
         elapsed = per_point(start, clock(), n)
         smu.safe_off()
         return elapsed
@@ -105,34 +129,46 @@ def bare_round_trip_s(sim: SimBench, n: int) -> tuple[float, float]:
         session.close()
 
 
-def opc_round_trip_s(sim: SimBench, n: int) -> tuple[float, float]:
+def opc_round_trip_s(sim: SimBench, n: int) -> dict[str, float]:
     """A bare `*OPC?` query and its reply: the transport with nearly no instrument work."""
     dialect = load_dialect()
     session = open_session(sim.smu_resource, dialect=dialect)
     try:
         for _ in range(50):
-            session.ask("*OPC?")
+            session.ask("*OPC?", 1)
         start = clock()
         for _ in range(n):
-            session.ask("*OPC?")
+            session.ask("*OPC?", 1)
         return per_point(start, clock(), n)
     finally:
         session.close()
 
 
-def pipeline_per_point_s(n: int, out: Path, fit: bool = True) -> tuple[float, float]:
-    stamps: list[tuple[float, float]] = []
+def pipeline_per_point_s(n: int, out: Path, fit: bool = True) -> dict[str, float]:
+    """Per point from the first point to the last; ``fit_end`` is the fit worker's CPU
+    seconds from the last point to the step's final fit event (once a step)."""
+    marks: dict[str, dict[str, float]] = {}
+    count = [0]
 
     def listener(event) -> None:
         if event.kind == "point":
-            stamps.append(clock())
+            count[0] += 1
+            if count[0] == 1:
+                marks["first"] = clock()
+            elif count[0] == n:
+                marks["last"] = clock()
+        elif event.kind == "fit" and event.final and "last" in marks:
+            marks["fitted"] = clock()
 
     launch = Launch.new(plan_of(1, n).on_simulated_bench(f"{DEVICE}@pnsim:time_scale=0"),
                         out_dir=out, listeners=[listener], fit=fit)
     outcome = launch.run()
-    if outcome.status != "completed" or len(stamps) != n:
+    if outcome.status != "completed" or count[0] != n:
         raise SystemExit(f"pipeline run did not complete: {outcome}")
-    return per_point(stamps[0], stamps[-1], n - 1)
+    got = per_point(marks["first"], marks["last"], n - 1)
+    if "fitted" in marks and "fit" in marks["fitted"] and "fit" in marks["last"]:
+        got["fit_end"] = marks["fitted"]["fit"] - marks["last"]["fit"]
+    return got
 
 
 def rss_kB(field: str = "VmRSS") -> int:
@@ -179,24 +215,23 @@ def memory_run(total: int, out: Path) -> dict:
             "points_csv_MB": (folder.path / "points.csv").stat().st_size / 2**20}
 
 
-def one_round(k: int, points: int, out: Path) -> dict[str, float]:
+def one_round(k: int, points: int, out: Path) -> dict[str, dict[str, float]]:
     """Seconds per point of each side, measured in an order that turns with ``k``."""
-    got: dict[str, float] = {}
+    got: dict[str, dict[str, float]] = {}
 
     def bare() -> None:
         sim = SimBench.start(DEVICE, time_scale=0.0)
         try:
-            got["bare"], got["bare_cpu"] = bare_round_trip_s(sim, points)
-            got["opc"], got["opc_cpu"] = opc_round_trip_s(sim, points)
+            got["bare"] = bare_round_trip_s(sim, points)
+            got["opc"] = opc_round_trip_s(sim, points)
         finally:
             sim.close()
 
     def fit_on() -> None:
-        got["on"], got["on_cpu"] = pipeline_per_point_s(points, out / f"on{k}")
+        got["on"] = pipeline_per_point_s(points, out / f"on{k}")
 
     def fit_off() -> None:
-        got["off"], got["off_cpu"] = pipeline_per_point_s(points, out / f"off{k}",
-                                                          fit=False)
+        got["off"] = pipeline_per_point_s(points, out / f"off{k}", fit=False)
 
     order = [bare, fit_on, fit_off]
     for side in order[k % 3:] + order[:k % 3]:
@@ -204,45 +239,64 @@ def one_round(k: int, points: int, out: Path) -> dict[str, float]:
     return got
 
 
-def spread(values: list[float]) -> str:
-    return (f"{statistics.median(values):.2f} (rounds {min(values):.2f}..{max(values):.2f})"
-            if values else "-")
+def spread(values: list[float]) -> dict[str, float]:
+    return {"median": round(statistics.median(values), 3), "low": round(min(values), 3),
+            "high": round(max(values), 3)}
+
+
+def shown(s: dict[str, float]) -> str:
+    return f"{s['median']:.2f} (rounds {s['low']:.2f}..{s['high']:.2f})"
+
+
+def ratios(rounds: list[dict], side: str, base: str, clock_name: str) -> dict[str, float]:
+    return spread([r[side][clock_name] / r[base][clock_name] for r in rounds])
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--points", type=int, default=3000)
     parser.add_argument("--memory-points", type=int, default=300_000)
-    parser.add_argument("--rounds", type=int, default=6,
+    parser.add_argument("--rounds", type=int, default=8,
                         help="interleaved rounds (each ratio within a round; the median "
                         "over rounds counts)")
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         out = Path(tmp)
-        rounds = [one_round(k, args.points, out) for k in range(args.rounds)]
-        ratio = [r["on"] / r["bare"] for r in rounds]
-        off_ratio = [r["off"] / r["bare"] for r in rounds]
-        opc_ratio = [r["on"] / r["opc"] for r in rounds]
-        cpu_ratio = [r["on_cpu"] / r["bare_cpu"] for r in rounds]
-        cpu_off_ratio = [r["off_cpu"] / r["bare_cpu"] for r in rounds]
+        rounds = []
+        for k in range(args.rounds):
+            rounds.append(one_round(k, args.points, out))
+            print(f"round {k + 1}/{args.rounds}: wall ratio "
+                  f"{rounds[-1]['on']['wall'] / rounds[-1]['bare']['wall']:.2f}, CPU ratio "
+                  f"{rounds[-1]['on']['cpu'] / rounds[-1]['bare']['cpu']:.2f}", flush=True)
 
-        def us(key):
-            return ", ".join(f"{r[key] * 1e6:.0f}" for r in rounds)
+        def us(side: str, key: str) -> float:
+            return statistics.median(r[side].get(key, math.nan) for r in rounds) * 1e6
 
-        def med(key):
-            return statistics.median(r[key] for r in rounds)
-        baseline, opc, per_point = med("bare"), med("opc"), med("on")
-        print(f"bare set-and-read message:   {baseline * 1e6:.1f} us (rounds: {us('bare')})")
-        print(f"bare *OPC? round trip:       {opc * 1e6:.1f} us (rounds: {us('opc')})")
-        print(f"whole pipeline per point:    {per_point * 1e6:.1f} us "
-              f"({1 / per_point:.0f} points/s, fitting on; rounds: {us('on')})")
-        print(f"  the same with fitting off: {med('off') * 1e6:.1f} us (rounds: {us('off')})")
-        print(f"per_point_ratio:             {spread(ratio)} (aim <= 1.3)")
-        print(f"fit_off_ratio:               {spread(off_ratio)}")
-        print(f"opc_ratio:                   {spread(opc_ratio)}")
-        print(f"cpu_ratio:                   {spread(cpu_ratio)} (process CPU per point, "
-              f"fitting on; off: {spread(cpu_off_ratio)}; bare {med('bare_cpu') * 1e6:.0f} "
-              f"us, pipeline {med('on_cpu') * 1e6:.0f} us)")
+        print(f"\nper point, median of {args.rounds} rounds of {args.points} points (us)")
+        print(f"{'':24s}{'wall':>8s}{'CPU':>8s}   CPU by thread")
+        for side, name in (("bare", "bare message"), ("opc", "bare *OPC?"),
+                           ("on", "pipeline, fitting on"), ("off", "pipeline, fitting off")):
+            parts = ", ".join(f"{part} {us(side, part):.1f}" for part in THREADS.values()
+                              if not math.isnan(us(side, part)))
+            print(f"{name:24s}{us(side, 'wall'):8.1f}{us(side, 'cpu'):8.1f}   {parts}")
+        extra = {part: round(us("on", part) - us("bare", part), 1)
+                 for part in ("acquisition", "simulator")}
+        extra["fit"] = round(us("on", "fit"), 1)
+        extra["sync"] = round(us("on", "sync"), 1)
+        fit_end = statistics.median(r["on"].get("fit_end", math.nan) for r in rounds)
+        print(f"extra CPU of the pipeline over the bare message, by thread (us/point): "
+              f"{extra}; fit worker at the step's end {fit_end * 1e3:.0f} ms (once a step)")
+        figures = {
+            "wall_ratio": ratios(rounds, "on", "bare", "wall"),
+            "cpu_ratio": ratios(rounds, "on", "bare", "cpu"),
+            "opc_wall_ratio": ratios(rounds, "on", "opc", "wall"),
+            "opc_cpu_ratio": ratios(rounds, "on", "opc", "cpu"),
+            "fit_off_wall_ratio": ratios(rounds, "off", "bare", "wall"),
+            "fit_off_cpu_ratio": ratios(rounds, "off", "bare", "cpu"),
+        }
+        for key, value in figures.items():
+            print(f"{key + ':':20s} {shown(value)}"
+                  + ("   (aim <= 1.3)" if key in ("wall_ratio", "cpu_ratio") else ""))
         if not args.memory_points:
             memory = None
         else:
@@ -254,16 +308,16 @@ def main() -> None:
                   f"{memory['fake_points_per_s']:.0f} points/s, points.csv "
                   f"{memory['points_csv_MB']:.0f} MB")
     print(json.dumps({
-        "per_point_ratio": round(statistics.median(ratio), 3),
-        "per_point_ratio_rounds": [round(x, 3) for x in ratio],
-        "fit_off_ratio": round(statistics.median(off_ratio), 3),
-        "opc_ratio": round(statistics.median(opc_ratio), 3),
-        "cpu_ratio": round(statistics.median(cpu_ratio), 3),
-        "cpu_off_ratio": round(statistics.median(cpu_off_ratio), 3),
-        "opc_round_trip_us": round(opc * 1e6, 1),
-        "pipeline_points_per_s": round(1 / per_point, 1),
-        "pipeline_us_per_point": round(per_point * 1e6, 1),
-        "bare_round_trip_us": round(baseline * 1e6, 1),
+        "points": args.points, "rounds": args.rounds,
+        **figures,
+        "per_point_ratio": figures["wall_ratio"]["median"],
+        "bare_round_trip_us": round(us("bare", "wall"), 1),
+        "opc_round_trip_us": round(us("opc", "wall"), 1),
+        "pipeline_us_per_point": round(us("on", "wall"), 1),
+        "pipeline_cpu_us_per_point": round(us("on", "cpu"), 1),
+        "bare_cpu_us_per_point": round(us("bare", "cpu"), 1),
+        "extra_cpu_us_by_thread": extra,
+        "fit_end_ms": round(fit_end * 1e3, 1),
         **({} if memory is None else {
             "memory_points": memory["points"],
             "rss_growth_MB": round(memory["rss_growth_MB"], 3),
