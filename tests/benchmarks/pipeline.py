@@ -114,8 +114,10 @@ def bare_round_trip_s(sim: SimBench, n: int) -> dict[str, float]:
         smu.configure(source="voltage", limit=0.1)
         smu.output(True)
         c = smu.commands
-        messages = [dialect.join([dialect.fill(c.set_voltage, value=0.3 + 0.4 * k / n),
-                                  c.read, c.tripped_sourcing_voltage]) for k in range(n)]
+        # the pipeline's own levels, so that the simulator does the same work on both sides
+        messages = [dialect.join([dialect.fill(c.set_voltage, value=level), c.read,
+                                  c.tripped_sourcing_voltage])
+                    for level in plan_of(1, n).steps[0].levels]
         queries = count_queries(messages[0], dialect.separator)
         for m in messages[:50]:
             session.ask(m, queries)
