@@ -36,6 +36,7 @@ NAN_MARKER = 9.91e37
 #: SCPI-1999 vol. 1, 7.2.1.5: the value for positive infinity (negative: its negative).
 OVERFLOW_MARKER = 9.9e37
 
+_MARKERS = (NAN_MARKER, OVERFLOW_MARKER)
 _NUMBER = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?", re.ASCII)
 _SPECIAL_NUMBERS = {
     "NAN": math.nan,
@@ -371,6 +372,15 @@ def parse_numbers(text: str) -> list[float]:
     """A comma-separated list of numbers; ValueError names the field that is not one."""
     if '"' not in text and "'" not in text and text.strip():
         fields = text.split(",")  # parse_number strips each field
+        if text.isascii() and "_" not in text:  # a reading: every field at once
+            try:
+                values = [float(f) for f in fields]
+            except ValueError:
+                values = None
+            # parse_number's fast path, field by field: finite and not a marker
+            if values is not None and all(math.isfinite(x) and abs(x) not in _MARKERS
+                                          for x in values):
+                return values
     else:
         fields = split_args(text)
     if not fields:

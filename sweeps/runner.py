@@ -248,26 +248,30 @@ class Runner:
         clean = False
         try:
             verdict = self._approach(step, start, guard) if start > 0 else None
-            for planned in step.points[start:]:
+            # (index, level) straight from the step's lazy levels: no planned-point
+            # object a point (an SMU step's point k is its level k)
+            for index, level in enumerate(step.levels[start:], start):
+                level = float(level)
                 if verdict is not None:
                     break
                 if self._checkpoint(step):
                     self._arm_smu(step)
-                    verdict = self._approach(step, planned.index, guard)
+                    verdict = self._approach(step, index, guard)
                     if verdict is not None:
                         break
-                verdict = guard.before(planned.level)
+                verdict = guard.before(level)
                 if verdict is not None:
                     break
-                reading = self._read_smu(step, planned.level)
-                self._judgeable(step, planned.index, planned.level, reading.voltage_V,
-                                reading.current_A)
-                self._record(step, Point(step.name, planned.index, "iv", self.bus.elapsed_s(),
-                                         reading.voltage_V, reading.current_A,
+                reading = self._read_smu(step, level)
+                v, i = reading.voltage_V, reading.current_A
+                if not (math.isfinite(v) and math.isfinite(i)):
+                    self._judgeable(step, index, level, v, i)
+                self._record(step, Point(step.name, index, "iv", self.bus.elapsed_s(), v, i,
                                          compliance=bool(reading.compliance),
                                          temperature_K=self.stage.temperature_K(step.name)))
-                verdict = guard.after(planned.level, reading)
-                if verdict is None and self._settled(step):
+                verdict = guard.after(level, reading)
+                if verdict is None and step.end_when_settled is not None and \
+                        self._settled(step):
                     clean = True
                     return StepStatus.SETTLED, None
             if verdict is not None and verdict.ends == "run":
@@ -427,8 +431,11 @@ class Runner:
     def _checkpoint(self, step: Step) -> bool:
         """Raise OperatorStop on abort; on pause, turn the step's source off, wait, and
         return True so the caller re-arms it. False when nothing happened."""
-        self.control.check()
-        if not self.control.paused:
+        control = self.control
+        if control.abort_request is None and not control.paused:  # every point
+            return False
+        control.check()
+        if not control.paused:
             return False
         if step.instrument == "smu":
             self._disarm_smu()
