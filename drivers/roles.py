@@ -12,10 +12,13 @@ import math
 import time
 from dataclasses import dataclass
 
-from pnbench.drivers import scpi
 from pnbench.drivers.dialect import Dialect, LcrCommands, SmuCommands
+from pnbench.drivers.exchange import LcrExchange, SmuExchange
+from pnbench.drivers.exchange import flag as _flag
+from pnbench.drivers.exchange import reading_fields as _fields  # noqa: F401 - lcrcorrection's
+from pnbench.drivers.exchange import reading_values as _values
 from pnbench.drivers.lcrcorrection import LcrCorrections
-from pnbench.drivers.session import Session, count_queries
+from pnbench.drivers.session import Session
 from pnbench.errors import BadInput, DialectError, InstrumentError
 from pnbench.modeling import smallsignal
 
@@ -64,32 +67,6 @@ def _finite(name: str, x: float) -> float:
     return x
 
 
-def _values(session: Session, reply: str, names: tuple[str, ...], message: str) -> list:
-    """The numbers of a reading, one per name of the dialect's read_fields."""
-    try:
-        values = scpi.parse_numbers(reply)
-    except ValueError as exc:
-        raise InstrumentError(f"{session.resource_name}: malformed reading in reply to "
-                              f"{message!r}: {exc}") from None
-    if len(values) != len(names):
-        raise InstrumentError(
-            f"{session.resource_name}: reading {reply!r} has {len(values)} fields, the "
-            f"dialect's read_fields name {len(names)} ({', '.join(names)})")
-    return values
-
-
-def _fields(session: Session, reply: str, names: tuple[str, ...], message: str) -> dict:
-    return dict(zip(names, _values(session, reply, names, message), strict=True))
-
-
-def _flag(session: Session, reply: str, message: str) -> bool:
-    try:
-        return scpi.parse_bool(reply)
-    except ValueError:
-        raise InstrumentError(f"{session.resource_name}: expected 1/0/ON/OFF in reply to "
-                              f"{message!r}, got {reply!r}") from None
-
-
 class _Role:
     """What every instrument role shares: its session, dialect and identity."""
 
@@ -133,23 +110,6 @@ class _Role:
         return still_on
 
 
-@dataclass(frozen=True, slots=True)
-class _Exchange:
-    """The set-and-read message of one source function, worked out once: the message
-    for a level is ``head + scpi.format_value(level) + tail``, with ``queries`` replies;
-    the reading's fields sit at ``voltage``, ``current`` and ``compliance`` (-1: the
-    dialect reads no compliance field) of ``fields``."""
-
-    head: str
-    tail: str
-    queries: int
-    fields: tuple[str, ...]
-    voltage: int
-    current: int
-    compliance: int
-    tripped: bool
-
-
 class Smu(_Role):
     """A source-measure unit: source voltage or current, limit the other, read both."""
 
@@ -167,7 +127,7 @@ class Smu(_Role):
         self.ramp_rate_V_per_s = RAMP_RATE_V_PER_S
         self.ramp_time_scale = 1.0
         self._output_on = False
-        self._exchanges: dict[str, _Exchange] = {}  # by source function
+        self._exchanges: dict[str, SmuExchange] = {}  # by source function
 
     def _set_command(self, level: float) -> str:
         template = self.commands.set_voltage if self.source == "voltage" else (
@@ -228,22 +188,11 @@ class Smu(_Role):
         self.level = level
         self.session.write(self._set_command(level))
 
-    def _exchange(self) -> _Exchange:
+    def _exchange(self) -> SmuExchange:
         """The set-and-read message of the configured source function (built once)."""
         ex = self._exchanges.get(self.source)
         if ex is None:
-            c, sep = self.commands, self.dialect.separator
-            voltage = self.source == "voltage"
-            tripped = c.tripped_sourcing_voltage if voltage else c.tripped_sourcing_current
-            head, tail = scpi.value_template(c.set_voltage if voltage else c.set_current)
-            rest = self.dialect.join([c.read, tripped])
-            tail += sep + rest if rest else ""
-            names = tuple(c.read_fields)
-            ex = _Exchange(head, tail, count_queries(head + "0" + tail, sep), names,
-                           names.index("voltage"), names.index("current"),
-                           names.index("compliance") if "compliance" in names else -1,
-                           bool(tripped.strip()))
-            self._exchanges[self.source] = ex
+            ex = self._exchanges[self.source] = SmuExchange.of(self.dialect, self.source)
         return ex
 
     def apply_and_read(self, level: float) -> SmuReading:
@@ -252,7 +201,7 @@ class Smu(_Role):
         self._require_configured()
         level = _finite("SMU level", level)
         ex = self._exchange()
-        message = ex.head + scpi.format_value(level) + ex.tail
+        message = ex.message(level)
         self.level = level
         units = self.session.ask(message, ex.queries)
         values = _values(self.session, units[0], ex.fields, message)
@@ -385,6 +334,7 @@ class LcrMeter(LcrCorrections, _Role):
         self.form = self.commands.form
         self.ac_level_V: float | None = None
         self._bias_on = False
+        self._exchange: LcrExchange | None = None  # the per-point message, built once
 
     def configure(self, ac_level_V: float) -> None:
         """Select the dialect's reading form, set the AC level; DC bias to zero and off."""
@@ -406,13 +356,13 @@ class LcrMeter(LcrCorrections, _Role):
         """Set the DC bias and the frequency, then read: one message, one reply."""
         bias_V = _finite("LCR bias", bias_V)
         frequency_Hz = _positive("LCR frequency", frequency_Hz)
-        c = self.commands
-        message = self.dialect.join([self.dialect.fill(c.bias_level, value=bias_V),
-                                     self.dialect.fill(c.frequency, value=frequency_Hz),
-                                     c.read])
-        units = self.session.ask(message)
-        values = _fields(self.session, units[0], c.read_fields, message)
-        primary, secondary = values["primary"], values["secondary"]
+        ex = self._exchange
+        if ex is None:
+            ex = self._exchange = LcrExchange.of(self.dialect)
+        message = ex.message(bias_V, frequency_Hz)
+        units = self.session.ask(message, ex.queries)
+        values = _values(self.session, units[0], ex.fields, message)
+        primary, secondary = values[ex.primary], values[ex.secondary]
         return LcrReading(
             frequency_Hz=frequency_Hz, bias_V=bias_V,
             admittance_S=admittance_from_reading(self.form, primary, secondary, frequency_Hz),

@@ -20,8 +20,10 @@ Not supported: arbitrary block data (``#`` blocks) and non-decimal numbers (``#H
 Speed: these functions run several times per bias point. Text without a quote character
 is split with ``str.split`` (the character walk that respects quotes runs only when a
 quote is present; both give the same units), and what depends on a template or a
-header pattern alone (placeholders, pattern nodes, node forms) is computed once per
-distinct text and cached.
+header pattern alone (placeholders, pattern nodes, node forms; headers are matched in
+`scpiheaders`) is computed once per distinct text and cached. A number is read with
+``float()`` first and checked against the decimal pattern only when that does not give
+a plain finite value (the two agree: tests/drivers/test_scpi_fast.py).
 """
 
 from __future__ import annotations
@@ -30,6 +32,8 @@ import math
 import re
 from dataclasses import dataclass, field
 from functools import lru_cache
+
+from pnbench.drivers.scpiheaders import header_matches  # noqa: F401 - part of this module's API
 
 #: SCPI-1999 vol. 1, 7.2.1.5: the value an instrument returns for not-a-number.
 NAN_MARKER = 9.91e37
@@ -51,7 +55,6 @@ _SPECIAL_NUMBERS = {
 }
 _PLACEHOLDER = re.compile(r"\{([^{}]*)\}")
 _HEADER = re.compile(r"\*[A-Za-z][A-Za-z0-9]*|:?[A-Za-z][A-Za-z0-9_]*(?::[A-Za-z][A-Za-z0-9_]*)*")
-_NODE = re.compile(r"([A-Z0-9_]*)([a-z0-9_]*)")
 
 
 @dataclass(frozen=True)
@@ -256,79 +259,6 @@ def parse_command(unit: str) -> Command:
     if any(a == "" for a in args):
         raise ValueError(f"empty argument in {unit!r}")
     return Command(header=head, args=args, query=query)
-
-
-# --- headers -----------------------------------------------------------------------------
-
-@lru_cache(maxsize=4096)
-def _pattern_nodes(pattern: str) -> tuple[tuple[str, bool], ...]:
-    """(mnemonic, optional) pairs of a header pattern such as ``:SOURce[:LEVel]``."""
-    nodes: list[tuple[str, bool]] = []
-    i = 0
-    text = pattern.strip()
-    while i < len(text):
-        ch = text[i]
-        if ch == "[":
-            end = text.find("]", i)
-            if end < 0:
-                raise ValueError(f"unclosed [ in header pattern {pattern!r}")
-            inner = text[i + 1 : end].strip(":")
-            if not inner or ":" in inner:
-                raise ValueError(f"an optional part must be one node: {pattern!r}")
-            nodes.append((inner, True))
-            i = end + 1
-        elif ch == ":":
-            i += 1
-        else:
-            end = i
-            while end < len(text) and text[end] not in ":[":
-                end += 1
-            nodes.append((text[i:end], False))
-            i = end
-    return tuple(nodes)
-
-
-@lru_cache(maxsize=4096)
-def _node_forms(mnemonic: str) -> tuple[str, str]:
-    """(long, short) upper-case forms: the short form is the leading capitals/digits."""
-    match = _NODE.match(mnemonic)
-    short = match.group(1) if match and match.group(1) else mnemonic
-    # trailing digits after lowercase letters (OUTPut2) belong to both forms
-    digits = re.search(r"[0-9]+$", mnemonic)
-    if digits and not short.endswith(digits.group(0)):
-        short += digits.group(0)
-    return mnemonic.upper(), short.upper()
-
-
-def _match_nodes(nodes: tuple[tuple[str, bool], ...], words: list[str]) -> bool:
-    if not nodes:
-        return not words
-    (mnemonic, optional), rest = nodes[0], nodes[1:]
-    if words and words[0].upper() in _node_forms(mnemonic):
-        if _match_nodes(rest, words[1:]):
-            return True
-    return optional and _match_nodes(rest, words)
-
-
-def header_matches(pattern: str, header: str) -> bool:
-    """Whether `header` (as sent) names the command `pattern` (as documented).
-
-    ``:SOURce:VOLTage[:LEVel]`` matches ``:SOUR:VOLT``, ``source:voltage:level`` and
-    ``:SOUR:VOLT:LEV``; a leading colon is optional on both sides; a trailing ``?`` must be
-    on both or neither. Common commands (``*IDN?``) compare without regard to case.
-    """
-    pattern = pattern.strip()
-    header = header.strip()
-    if pattern.endswith("?") != header.endswith("?"):
-        return False
-    pattern = pattern.rstrip("?")
-    header = header.rstrip("?")
-    if pattern.startswith("*") or header.startswith("*"):
-        return pattern.upper() == header.upper()
-    words = header.lstrip(":").split(":")
-    if not header or any(not w for w in words):
-        return False
-    return _match_nodes(_pattern_nodes(pattern), words)
 
 
 # --- replies -----------------------------------------------------------------------------

@@ -109,3 +109,22 @@ def test_a_current_source_has_its_own_message():
     c = dialect.smu
     assert resource.sent[-1] == dialect.join([dialect.fill(c.set_current, value=1e-3), c.read,
                                               c.tripped_sourcing_current])
+
+
+@pytest.mark.parametrize("path", [None, DIALECTS / "examples" / "harrow-lane-lcr.toml"])
+@pytest.mark.parametrize(("bias", "frequency"), [(0.0, 1e3), (-2.5, 1e6), (1 / 3, 123.4)])
+def test_the_lcr_message_is_the_one_fill_and_join_build_and_read_once(path, bias, frequency):
+    from pnbench.drivers.roles import LcrMeter
+
+    dialect = dl.load_dialect(path)
+    resource = Resource({"READ:IMP": "1e-11,2e-3", "RESULT": "1e-11,2e-3,7"})
+    lcr = LcrMeter(Session(resource, "fake::lcr", dialect, "fake"), dialect)
+    lcr.configure(0.02)
+    writes, reads = len(resource.sent), resource.reads
+    reading = lcr.apply_and_read(bias, frequency)
+    c = dialect.lcr
+    assert resource.sent[-1] == dialect.join([dialect.fill(c.bias_level, value=bias),
+                                              dialect.fill(c.frequency, value=frequency),
+                                              c.read])
+    assert (len(resource.sent) - writes, resource.reads - reads) == (1, 1)
+    assert (reading.primary, reading.secondary) == (1e-11, 2e-3)
