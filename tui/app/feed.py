@@ -1,4 +1,5 @@
-"""Keeping the app's RunState fresh: the live sweep's queue drained on a UI timer, a
+"""Keeping the app's RunState fresh: the live sweep's queue drained on a UI timer (all
+that arrived since the last tick, each run of points taken as columns in one go), a
 watched folder polled, the banner and status words updated, and word of the report when a
 sweep this app ran has ended (the engine writes it in its end work, before the status).
 A mixin of the app class (it uses the app's `control`, `state`, `notify` and workers); no
@@ -12,7 +13,9 @@ from pathlib import Path
 from pnbench.errors import PnbenchError
 from pnbench.sweeps import record
 from pnbench.sweeps.events import OperatorPrompt
+from pnbench.sweeps.record import PointColumns
 from pnbench.tui.app.folder import FolderTail, apply_batch
+from pnbench.tui.app.intake import batches
 from pnbench.tui.app.widgets.banner import banner_text
 from pnbench.tui.app.words import status_words
 
@@ -23,10 +26,13 @@ class RunFeed:
         if live is None:
             return
         was_active = self._was_active
-        for event in live.drain():
-            self.state.apply_event(event)
-            if isinstance(event, OperatorPrompt):
-                self._ask_operator(live, event)
+        for item in batches(live.drain()):  # each run of points at once, as columns
+            if isinstance(item, PointColumns):
+                self.state.add_points(item)
+                continue
+            self.state.apply_event(item)
+            if isinstance(item, OperatorPrompt):
+                self._ask_operator(live, item)
         if live.run_dir is not None:
             self.last_run_dir = Path(live.run_dir)
         problem = live.failure()

@@ -41,6 +41,14 @@ __all__ = ["Estimate", "LogEntry", "RunState", "Snapshot", "StepProgress", "desc
            "format_duration"]
 
 
+#: The coordinates on which points are told apart when thinned for display: as the I-V
+#: views draw them (V, log |I|, in compliance or not) and the C-V and admittance views
+#: (V, each frequency, C, log G).
+IV_CELLS = (("voltage_V", "lin"), ("current_A", "log"), ("compliance", "exact"))
+CV_CELLS = (("voltage_V", "lin"), ("frequency_Hz", "exact"), ("capacitance_F", "lin"),
+            ("conductance_S", "log"))
+
+
 @dataclass
 class Estimate:
     """One fitted parameter as the last `fit` event gave it."""
@@ -56,10 +64,11 @@ class Estimate:
 class RunState:
     """Everything a run screen shows, built from points, events and run.json."""
 
+    #: points as the plots draw them (bounded: thinned for display past a capacity)
     iv: Columns = field(default_factory=lambda: Columns(
-        ("voltage_V", "current_A", "time_s", "compliance")))
+        ("voltage_V", "current_A", "time_s", "compliance"), IV_CELLS))
     cv: Columns = field(default_factory=lambda: Columns(
-        ("voltage_V", "frequency_Hz", "capacitance_F", "conductance_S", "time_s")))
+        ("voltage_V", "frequency_Hz", "capacitance_F", "conductance_S", "time_s"), CV_CELLS))
     parameters: dict[str, Estimate] = field(default_factory=dict)
     log: deque = field(default_factory=lambda: deque(maxlen=2000))
     #: log entries ever added (the deque keeps only the newest)
@@ -269,7 +278,8 @@ class RunState:
     # ----------------------------------------------------------------- derived
     @property
     def point_count(self) -> int:
-        return len(self.iv) + len(self.cv)
+        """Points of the run so far (the plots may keep fewer: see `Columns`)."""
+        return self.iv.total + self.cv.total
 
     @property
     def source_on(self) -> bool:

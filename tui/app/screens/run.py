@@ -33,6 +33,10 @@ PANELS = (("params", "Parameters"), ("qpoint", "Small-signal at Q-point"),
 WIDE_COLUMNS = 150
 WIDE_ROWS = 40
 
+#: Log lines the screen holds; older entries are counted in the panel's title (the run
+#: folder's events.jsonl keeps every event).
+LOG_LINES = 500
+
 TABLE_PERIOD_S = 0.25
 PLOT_PERIOD_S = 0.5
 
@@ -75,7 +79,7 @@ class RunScreen(Screen):
                 yield Static("", id="panel-title", markup=False)
                 yield ParamTable(id="params")
                 yield QPointPanel(id="qpoint")
-                yield RichLog(id="log", max_lines=2000, auto_scroll=True, wrap=True)
+                yield RichLog(id="log", max_lines=LOG_LINES, auto_scroll=True, wrap=True)
         yield RunProgress(id="run-progress")
         yield Static("", id="run-last", markup=False)
         yield Footer(compact=True)
@@ -166,8 +170,10 @@ class RunScreen(Screen):
         if not fresh:
             return
         log = self.query_one(RichLog)
-        for entry in fresh:
+        for entry in fresh[-LOG_LINES:]:  # a burst longer than the log: its newest
             log.write(Text(entry.line()))
+        if self.state.log_total > LOG_LINES:
+            self._show_panel()  # the count of earlier entries in the title
         important = [e for e in fresh if e.tag in ("COMPL", "LIMIT", "WARN", "ERROR")]
         if important:
             self.query_one("#run-last", Static).update("last: " + important[-1].line())
@@ -194,8 +200,15 @@ class RunScreen(Screen):
         for panel_key, _ in PANELS:
             self.query_one(f"#{panel_key}").set_class(panel_key == key, "-current")
         wide = self.has_class("-wide")
-        self.query_one("#panel-title", Static).update(
-            "Parameters | Q-point | Log" if wide else f"{title}  (p: next panel)")
+        earlier = self.state.log_total - LOG_LINES
+        more = f" (+{earlier} earlier in events.jsonl)" if earlier > 0 else ""
+        if wide:
+            text = "Parameters | Q-point | Log" + more
+        elif key == "log":
+            text = (f"{title}{more}" if more else f"{title}  (p: next panel)")
+        else:
+            text = f"{title}  (p: next panel)"
+        self.query_one("#panel-title", Static).update(text)
 
     # ------------------------------------------------------------------ actions
     def check_action(self, action: str, parameters: tuple) -> bool | None:
