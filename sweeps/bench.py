@@ -19,7 +19,7 @@ import contextlib
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 
-from pnbench.errors import BadInput, InstrumentError
+from pnbench.errors import BadInput, InstrumentError, PnbenchError
 from pnbench.sweeps.plan import Plan
 
 
@@ -247,6 +247,37 @@ def open_bench(plan: Plan, *, expected: dict | None = None, force_identity: bool
                 from pnbench.drivers.sim.backend import REGISTRY
 
                 REGISTRY.release(held)
+
+
+def identify_roles(plan: Plan, roles) -> dict[str, str | PnbenchError]:
+    """Each role's identity (IEEE 488.2 *IDN?), asked through the connections a run of
+    ``plan`` opens (same resources, backends, dialects and sessions), each closed again;
+    nothing is switched. A role that cannot be reached gets its error instead. A plan on
+    the simulated bench has the bench held for the whole question, as a run holds it."""
+    spec = plan.simulated
+    held = None
+    out: dict[str, str | PnbenchError] = {}
+    try:
+        if spec is not None:
+            from pnbench.drivers.sim.backend import REGISTRY
+
+            REGISTRY.acquire(spec.backend)
+            held = spec.backend
+        for role in sorted(roles):
+            try:
+                instrument = _open_role(connections_for(plan, {role})[role])
+                try:
+                    out[role] = instrument.identity
+                finally:
+                    instrument.session.close()
+            except PnbenchError as exc:
+                out[role] = exc
+    finally:
+        if held is not None:
+            from pnbench.drivers.sim.backend import REGISTRY
+
+            REGISTRY.release(held)
+    return out
 
 
 def _check_identities(bench: Bench, expected: dict, force: bool) -> None:

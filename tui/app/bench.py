@@ -77,42 +77,25 @@ def scan_resources(backends: list[str]) -> list[tuple[str, str]]:
 
 def identify_rows(rows: list[InstrumentRow], plan,
                   simulate: str | None = None) -> list[InstrumentRow]:
-    """Ask each instrument for its identity (IEEE 488.2 *IDN?) and close again.
+    """Ask each instrument for its identity (IEEE 488.2 *IDN?) and close again, through
+    the bench layer a run opens its instruments with (`sweeps.bench.identify_roles`), so
+    a real backend and the simulated bench (``DEVICE@pnsim``, in the plan or from
+    ``simulate``) are asked the same way. Outputs are never switched."""
+    from pnbench.drivers.sim.backend import backend_for
+    from pnbench.sweeps.bench import identify_roles
 
-    With a simulated device a simulated bench is started for the question and closed
-    after it; outputs are never switched."""
-    from pnbench.drivers.dialect import load_dialect
-    from pnbench.drivers.opening import open_session
-
-    sim = None
-    resources = {}
-    if simulate:
-        from pnbench.drivers.sim.bench import SimBench
-
-        sim = SimBench.start(simulate, time_scale=0.0)
-        resources = {"smu": (sim.smu_resource, "@py"), "lcr": (sim.lcr_resource, "@py"),
-                     "stage": (sim.stage_resource, "@py")}
+    if plan is None:
+        return list(rows)
+    if simulate:  # as a run with --simulate: the plan's instruments on the simulated bench
+        plan = plan.on_simulated_bench(backend_for(simulate, 0.0))
+    asked = identify_roles(plan, [r.role for r in rows if r.role in plan.instruments])
     out = []
-    try:
-        for row in rows:
-            inst = plan.instruments.get(row.role) if plan else None
-            if row.role in resources:
-                resource, backend = resources[row.role]
-            elif inst is not None:
-                resource, backend = inst.resource, inst.backend
-            else:
-                out.append(row)
-                continue
-            timeout = inst.timeout_ms if inst is not None else 2000
-            try:
-                dialect = load_dialect(inst.dialect if inst and inst.dialect else None)
-                with open_session(resource, backend, timeout_ms=timeout,
-                                  dialect=dialect) as session:
-                    identity = session.identify()
-                out.append(replace(row, identity=identity, state="answered"))
-            except PnbenchError as exc:
-                out.append(replace(row, identity="", state=f"error: {exc}"))
-    finally:
-        if sim is not None:
-            sim.close()
+    for row in rows:
+        answer = asked.get(row.role)
+        if answer is None:
+            out.append(row)
+        elif isinstance(answer, str):
+            out.append(replace(row, identity=answer, state="answered"))
+        else:
+            out.append(replace(row, identity="", state=f"error: {answer}"))
     return out
