@@ -173,6 +173,8 @@ class PnbenchApp(RunFeed, App):
             self.state.set_plan_steps([(s.name, s.kind, s.planned) for s in plan.steps])
             self.state.device = plan.device.to_json_dict()
             self.state.temperature_K = plan.device.temperature_K
+            if plan.temperature is not None:
+                self.state.set_points_K = tuple(plan.temperature.set_points_K)
 
     def _plan_changed(self, checked: bool = False) -> None:
         self._plan_state()

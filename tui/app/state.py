@@ -81,6 +81,8 @@ class RunState:
     outputs: dict[str, bool] = field(default_factory=dict)
     #: a run over temperature: the stage's last news (set point, reading, state, wait)
     stage: dict = field(default_factory=dict)
+    #: a run over temperature: the plan's set points in run order (K)
+    set_points_K: tuple = ()
     outputs_off_confirmed: bool = False
     #: who confirmed the outputs off: the runner, or the guardian after a killed run
     outputs_off_by: str = "runner"
@@ -171,7 +173,8 @@ class RunState:
                 self.stage = {"set_point_K": event.set_point_K,
                               "temperature_K": event.temperature_K,
                               "state": event.kind.removeprefix("stage_"),
-                              "waited_s": getattr(event, "waited_s", None)}
+                              "waited_s": getattr(event, "waited_s", None),
+                              "ramp_K_per_min": getattr(event, "ramp_K_per_min", None)}
         if event.kind in LOG_TAGS:
             self.add_log(LogEntry(t, LOG_TAGS[event.kind], step, describe(event)))
         self.version += 1

@@ -1,4 +1,5 @@
-"""The run screen: live plot, parameters, Q-point, log, progress; pause, resume, abort.
+"""The run screen: live plot, parameters, Q-point, log, progress, and the stage of a run
+over temperature; pause, resume, abort.
 
 It reads the app's RunState (filled on the UI thread from the runner's queue or from a
 folder being watched) on a timer, and redraws only what changed: tables and progress at
@@ -24,6 +25,7 @@ from pnbench.tui.app.widgets.params import ParamTable
 from pnbench.tui.app.widgets.plot import SweepPlot
 from pnbench.tui.app.widgets.progress import RunProgress
 from pnbench.tui.app.widgets.qpoint import QPointPanel
+from pnbench.tui.app.widgets.stage import StagePanel
 
 #: Side panels in the order the panel key cycles through them on a small terminal.
 PANELS = (("params", "Parameters"), ("qpoint", "Small-signal at Q-point"),
@@ -76,6 +78,7 @@ class RunScreen(Screen):
         with Horizontal(id="run-body"):
             yield SweepPlot(id="run-plot")
             with Vertical(id="run-side"):
+                yield StagePanel(id="stage")
                 yield Static("", id="panel-title", markup=False)
                 yield ParamTable(id="params")
                 yield QPointPanel(id="qpoint")
@@ -126,6 +129,7 @@ class RunScreen(Screen):
                                          has_dc_fit(state.parameters),
                                          set(state.parameters))
         self.query_one(RunProgress).show(state)
+        self.query_one(StagePanel).show(state)
         self._append_log()
         self._show_hint()
         now = time.monotonic()
