@@ -26,6 +26,7 @@ from pnbench.tui.app.widgets.plot import SweepPlot
 from pnbench.tui.app.widgets.progress import RunProgress
 from pnbench.tui.app.widgets.qpoint import QPointPanel
 from pnbench.tui.app.widgets.stage import StagePanel
+from pnbench.tui.app.widgets.text import set_text
 
 #: Side panels in the order the panel key cycles through them on a small terminal.
 PANELS = (("params", "Parameters"), ("qpoint", "Small-signal at Q-point"),
@@ -40,7 +41,15 @@ WIDE_ROWS = 40
 LOG_LINES = 500
 
 TABLE_PERIOD_S = 0.25
+#: While points stream in fast (this many or more since the last redraw: a run at time
+#: scale 0), tables and progress are redrawn every STREAM_PERIOD_S instead: the words
+#: cannot be read any faster, and each redraw takes the interpreter from the run.
+STREAM_POINTS = 100
+STREAM_PERIOD_S = 0.5
 PLOT_PERIOD_S = 0.5
+#: The share of the UI thread a redraw of the plot may take while points stream in: a
+#: redraw that costs more (a long run at time scale 0, a slow terminal) comes less often.
+PLOT_SHARE = 0.04
 
 
 class RunScreen(Screen):
@@ -67,8 +76,12 @@ class RunScreen(Screen):
         self.follow_step = True
         self.panel_index = 0
         self._drawn_version = -1
+        self._drawn_points = 0
+        self._drawn_at = 0.0
         self._plot_version = -1
         self._plot_drawn_at = 0.0
+        #: seconds the last plot took: its data on the worker, and drawing it
+        self._plot_cost_s = 0.0
         self._log_count = 0
 
     def compose(self) -> ComposeResult:
@@ -120,7 +133,12 @@ class RunScreen(Screen):
         if not force and state.version == self._drawn_version:
             self._tick_progress()
             return
-        self._drawn_version = state.version
+        now = time.monotonic()
+        if not force and state.point_count - self._drawn_points >= STREAM_POINTS \
+                and now - self._drawn_at < STREAM_PERIOD_S:
+            return
+        self._drawn_version, self._drawn_points, self._drawn_at = (
+            state.version, state.point_count, now)
         if self.follow_step:
             self._follow(state)
         params = model_params(state.parameters)
@@ -132,8 +150,7 @@ class RunScreen(Screen):
         self.query_one(StagePanel).show(state)
         self._append_log()
         self._show_hint()
-        now = time.monotonic()
-        if force or now - self._plot_drawn_at >= PLOT_PERIOD_S:  # throttled
+        if force or self._plot_due(now):
             self._draw_plot()
 
     def _follow(self, state) -> None:
@@ -147,8 +164,14 @@ class RunScreen(Screen):
     def _tick_progress(self) -> None:
         """Elapsed time moves while nothing arrives; the plot catches up if it lagged."""
         self.query_one(RunProgress).show(self.state)
-        if self._plot_version != self.state.version:
+        if self._plot_version != self.state.version and self._plot_due(time.monotonic()):
             self._draw_plot()
+
+    def _plot_due(self, now: float) -> bool:
+        """Throttled: at most every PLOT_PERIOD_S, and less often when a redraw costs
+        more than PLOT_SHARE of the time between two."""
+        period = max(PLOT_PERIOD_S, self._plot_cost_s / PLOT_SHARE)
+        return now - self._plot_drawn_at >= period
 
     def _draw_plot(self) -> None:
         """Copy the state here (cheap), compute the view on a worker thread (the costly
@@ -160,13 +183,18 @@ class RunScreen(Screen):
         self._plot_drawn_at = time.monotonic()
 
         def work() -> None:
+            start = time.thread_time()  # this thread's CPU: what it held the lock for
             data = plot_data(key, snapshot)
-            self.app.call_from_thread(self._show_plot, data, position)
+            self.app.call_from_thread(self._show_plot, data, position,
+                                      time.thread_time() - start)
 
         self.run_worker(work, thread=True, exclusive=True, group="plot")
 
-    def _show_plot(self, data, position: str) -> None:
-        self.query_one(SweepPlot).show(data, position)
+    def _show_plot(self, data, position: str, compute_s: float = 0.0) -> None:
+        plot = self.query_one(SweepPlot)
+        drawn_s = plot.draw_s  # the drawing of the view shown until now
+        plot.show(data, position)
+        self._plot_cost_s = compute_s + drawn_s
 
     def _append_log(self) -> None:
         fresh = self.state.new_log_entries(self._log_count)
@@ -180,7 +208,7 @@ class RunScreen(Screen):
             self._show_panel()  # the count of earlier entries in the title
         important = [e for e in fresh if e.tag in ("COMPL", "LIMIT", "WARN", "ERROR")]
         if important:
-            self.query_one("#run-last", Static).update("last: " + important[-1].line())
+            set_text(self.query_one("#run-last", Static), "last: " + important[-1].line())
 
     def _show_hint(self) -> None:
         """Before any sweep: what s would start, or where to get a plan."""
@@ -196,7 +224,7 @@ class RunScreen(Screen):
             name = plan.title or plan.device.name
             text = (f"ready: s starts '{name}' ({len(plan.steps)} steps, "
                     f"{plan.total_points} points) on {where}")
-        self.query_one("#run-last", Static).update(text)
+        set_text(self.query_one("#run-last", Static), text)
 
     def _show_panel(self) -> None:
         key, title = PANELS[self.panel_index]
@@ -212,7 +240,7 @@ class RunScreen(Screen):
             text = (f"{title}{more}" if more else f"{title}  (p: next panel)")
         else:
             text = f"{title}  (p: next panel)"
-        self.query_one("#panel-title", Static).update(text)
+        set_text(self.query_one("#panel-title", Static), text)
 
     # ------------------------------------------------------------------ actions
     def check_action(self, action: str, parameters: tuple) -> bool | None:

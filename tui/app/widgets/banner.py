@@ -12,6 +12,8 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal
 from textual.widgets import Static
 
+from pnbench.tui.app.widgets.text import set_text
+
 #: Screens in the order of their keys: (mode, key, title).
 SCREENS: tuple[tuple[str, str, str], ...] = (
     ("bench", "F2", "Bench"),
@@ -42,7 +44,7 @@ class SourceBanner(Static):
         text = str(getattr(self.app, "output_text", ""))
         self.set_class(on, "-on")
         self.set_class(not on, "-off")
-        self.update(f">>> {text} <<<" if on else text)
+        set_text(self, f">>> {text} <<<" if on else text)
 
 
 def banner_text(outputs: dict[str, bool], *, simulated: bool = False, state=None,
@@ -127,4 +129,4 @@ class ScreenBar(Horizontal):
         self.watch(self.app, "status_text", self._status, init=True)
 
     def _status(self, text: str) -> None:
-        self.query_one("#bar-status", Static).update(text)
+        set_text(self.query_one("#bar-status", Static), text, auto_width=True)

@@ -88,7 +88,14 @@ class ParamTable(DataTable):
         new = rows(parameters, self.detailed)
         if new == self._shown and self.row_count:
             return
-        self._shown = new
+        old, self._shown = self._shown, new
+        if old and [r[0] for r in old] == [r[0] for r in new]:  # the same names: in place
+            for before, row in zip(old, new, strict=True):
+                for key, was, value in zip(("value", "sigma", "mark"), before[1:], row[1:],
+                                           strict=True):
+                    if value != was:
+                        self.update_cell(row[0], key, value, update_width=True)
+            return
         self.clear()
         if not new:
             self.add_row("--", "no fit yet", "", "")

@@ -8,6 +8,7 @@ second or third decade when the axis is short. Linear axes get SI-prefixed label
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Sequence
 
 import numpy as np
@@ -19,6 +20,7 @@ from textual.widgets import Static
 from textual_plot import HiResMode, NumericAxisFormatter, PlotWidget
 
 from pnbench.tui.app.plots import PlotData
+from pnbench.tui.app.widgets.text import set_text
 
 
 def _si_label(value: float, unit: str = "") -> str:
@@ -69,6 +71,20 @@ class SIFormatter(NumericAxisFormatter):
         return [_si_label(t, self.unit) for t in ticks]
 
 
+class _TimedPlot(PlotWidget):
+    """textual-plot's widget, timing its own drawing (the costly part of a redraw): the
+    longest render since `draw_s` was last reset."""
+
+    draw_s = 0.0
+
+    def render(self):
+        start = time.thread_time()
+        try:
+            return super().render()
+        finally:
+            self.draw_s = max(self.draw_s, time.thread_time() - start)
+
+
 class SweepPlot(Vertical):
     """A title line over a PlotWidget; `show(data)` replaces what is drawn."""
 
@@ -85,7 +101,7 @@ class SweepPlot(Vertical):
 
     def compose(self) -> ComposeResult:
         yield Static("", classes="plot-title", markup=False)
-        plot = PlotWidget(allow_pan_and_zoom=False)
+        plot = _TimedPlot(allow_pan_and_zoom=False)
         plot.can_focus = False
         yield plot
 
@@ -96,6 +112,14 @@ class SweepPlot(Vertical):
         plot.margin_left = 8
         if self.current is not None:  # data that came before the children existed
             self.show(self.current, self._position)
+
+    @property
+    def draw_s(self) -> float:
+        """CPU seconds the drawing of what was last shown took (so far)."""
+        try:
+            return self.query_one(_TimedPlot).draw_s
+        except NoMatches:
+            return 0.0
 
     def show(self, data: PlotData, position: str = "") -> None:
         """Draw `data`; `position` (such as '2/6') goes into the title line. Before the
@@ -119,7 +143,8 @@ class SweepPlot(Vertical):
             head += f" | {data.note}"
         elif data.empty:
             head += " | no points yet"
-        title.update(head)
+        set_text(title, head)
+        plot.draw_s = 0.0
         plot.clear()
         plot.set_x_formatter(DecadeFormatter(data.x_unit) if data.x_log
                              else SIFormatter(data.x_unit))

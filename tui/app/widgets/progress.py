@@ -9,6 +9,7 @@ from textual.containers import Horizontal, Vertical
 from textual.widgets import ProgressBar, Static
 
 from pnbench.tui.app.state import RunState, StepProgress, format_duration
+from pnbench.tui.app.widgets.text import set_text
 
 #: Step status words as shown (status words of run.json map onto these).
 _STATUS = {"pending": "waiting", "running": "running", "completed": "done",
@@ -80,6 +81,6 @@ class RunProgress(Vertical):
             bar.update(total=100, progress=round(100 * fraction, 1))
         else:
             bar.update(total=None)
-        self.query_one("#progress-summary", Static).update(summary_line(state))
+        set_text(self.query_one("#progress-summary", Static), summary_line(state))
         lines = [step_line(p, p.name == state.current_step) for p in state.steps.values()]
-        self.query_one("#progress-steps", Static).update("\n".join(lines))
+        set_text(self.query_one("#progress-steps", Static), "\n".join(lines))

@@ -17,6 +17,7 @@ from pnbench.modeling.params import DiodeParams
 from pnbench.modeling.smallsignal import junction_off, off_rd_bound_ohm, operating_point
 from pnbench.sweeps.quantities import format_quantity, parse_quantity
 from pnbench.tui.app.widgets.params import format_value
+from pnbench.tui.app.widgets.text import set_text
 
 
 @dataclass(frozen=True)
@@ -101,18 +102,23 @@ class QPointPanel(Static):
     def __init__(self, *, id: str | None = None):
         super().__init__("", id=id, markup=False)
         self.choice = QChoice()
+        self._asked: tuple | None = None
 
     def show(self, params: DiodeParams | None, temperature_K: float,
              have_dc_fit: bool, known: set[str] | None = None) -> None:
+        asked = (params, self.choice, temperature_K, have_dc_fit, known)
+        if asked == self._asked:
+            return  # the same model and choice: the same rows
+        self._asked = asked
         head = f"Q-point {self.choice.describe()}"
         if params is None or not have_dc_fit:
-            self.update(f"{head}\n  waiting for an I-V fit (IS, N)")
+            set_text(self, f"{head}\n  waiting for an I-V fit (IS, N)")
             return
         try:
             lines = qpoint_rows(params, self.choice, temperature_K, known)
         except (ValueError, ArithmeticError) as exc:
-            self.update(f"{head}\n  cannot evaluate: {exc}")
+            set_text(self, f"{head}\n  cannot evaluate: {exc}")
             return
         width = max(len(label) for label, _ in lines)
         body = "\n".join(f"  {label:<{width}}  {value}" for label, value in lines)
-        self.update(f"{head}\n{body}")
+        set_text(self, f"{head}\n{body}")

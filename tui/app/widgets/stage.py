@@ -14,6 +14,7 @@ from textual.widgets import Static
 
 from pnbench.sweeps.statuses import StepStatus
 from pnbench.tui.app.state import RunState, format_duration
+from pnbench.tui.app.widgets.text import set_text
 
 ZERO_C_K = 273.15
 _AT = re.compile(r"@([0-9.]+)K$")
@@ -109,4 +110,4 @@ class StagePanel(Static):
         lines = stage_lines(state)
         self.display = bool(lines)
         if lines:
-            self.update("\n".join(lines))
+            set_text(self, "\n".join(lines))
