@@ -19,7 +19,8 @@
    thread (acquisition, fit worker, simulator, the run folder's sync thread) so that
    the extra cost of the pipeline is placed where it is spent.
 
-   Rounds are interleaved: each round measures the bare sides and the pipeline with
+   A short round first is not counted (what the process pays once: imports, first
+   calls). Rounds are interleaved: each round measures the bare sides and the pipeline with
    fitting on and off, in an order that turns from round to round, and each ratio is
    taken within its round, so a machine that slows down for a while slows both sides.
    The figure is the median over the rounds, with the lowest and highest round beside
@@ -273,6 +274,8 @@ def main() -> None:
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         out = Path(tmp)
+        # a round not counted: what a process pays once (imports, first calls)
+        one_round(0, min(args.points, 500), out / "warm-up")
         rounds = []
         for k in range(args.rounds):
             rounds.append(one_round(k, args.points, out))
