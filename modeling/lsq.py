@@ -240,6 +240,10 @@ def significance(model: Model, state: FitState) -> dict[int, float]:
         p = model.params[k]
         if not p.optional:
             continue
+        if cov[j, j] == 0.0 and state.chi2 == 0.0:  # through every reading exactly (data
+            # computed by this model): set exactly, not undetermined, unless at none
+            out[int(k)] = math.inf if state.t[k] != p.null else 0.0
+            continue
         sd = math.sqrt(cov[j, j]) if np.isfinite(cov[j, j]) and cov[j, j] > 0 else math.inf
         out[int(k)] = abs(state.t[k] - p.null) / sd if math.isfinite(sd) else 0.0
     return out

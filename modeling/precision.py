@@ -96,7 +96,9 @@ class NoiseFree:
         it would have read the residuals as a misfit)."""
         tests = "the chi-square, the runs test and the sigmas"
         if self.at_rounding:
-            return (f"the data look noise-free, rounded to {self.digits} significant digits: "
+            written = (f"rounded to {self.digits} significant digits"
+                       if self.digits < FULL_DIGITS else "exact to double precision")
+            return (f"the data look noise-free, {written}: "
                     f"the residuals ({self.residual:.2g} of the readings, typically) are "
                     f"that rounding (their rms {self.ratio:.2g} times its own), so {tests} "
                     f"describe the rounding, not the model")

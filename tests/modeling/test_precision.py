@@ -80,3 +80,19 @@ def test_a_fixture_term_below_resolution_is_not_kept_and_one_above_is():
     assert not small.extras["lack_of_fit"]["misfit"]
     big = fit_cv.fit_cv(V, F, C + 1e-5 * C.min())
     assert big.values["CFIX"] == pytest.approx(1e-5 * C.min(), rel=1e-3, abs=0)
+
+
+def test_iv_computed_by_the_model_itself_gives_its_parameters_back():
+    """Forward I-V computed by the model at full precision: the fit passes through every
+    point exactly (zero residuals, so zero variance), which once read as "not
+    determined" and dropped RS, leaving IS 11 times too large and N = 1.22. Now every
+    value comes back and the data are said to be exact (common practice, no source)."""
+    from pnbench.modeling import fit_iv, junction
+
+    p = DiodeParams(IS=2e-14, N=1.05, RS=1.5)
+    v = np.linspace(0.2, 0.9, 60)
+    fit = fit_iv.fit_forward(v, np.asarray(junction.current(v, p)))
+    for name in ("IS", "N", "RS"):
+        assert fit.values[name] == pytest.approx(getattr(p, name), rel=1e-9, abs=0), name
+    assert "RSH" not in fit.values and not fit.extras["lack_of_fit"]["misfit"]
+    assert "the data look noise-free" in fit.message
