@@ -120,3 +120,35 @@ def test_clean_data_written_to_a_file_and_fitted_by_the_command(clean, tmp_path,
             assert ("the data look computed, not measured" in message
                     or "rounded to 12 significant digits" in message), message
         assert fits[kind]["lack_of_fit"]["noise_free"]["significant_digits"] == digits
+
+
+#: A second invented part, swept as an engineer might: C-V from -10 V to +0.3 V in 40
+#: steps, so only two points are forward and one of them carries the diffusion
+#: capacitance.
+SPARSE = DiodeParams(IS=1.5e-14, N=1.06, RS=1.8, CJO=12e-12, VJ=0.72, M=0.38, TT=6e-9)
+
+
+def test_two_forward_points_still_give_tt_and_no_fixture(ngspice, tmp_path, capsys):
+    """With two forward C-V points (too few for their own noise estimate) TT comes from
+    the one at 0.3 V (Cd ~ 3e-16 F, far above 12 digits), within 0.5 %; no fixture
+    resistance or capacitance is kept, the solver converges, no misfit (ngspice data
+    written with 12 digits; before: TT dropped, RFIX = 147 ohm and CFIX kept)."""
+    v, i = dc_sweep(ngspice, SPARSE, np.linspace(0.2, 0.9, 60))
+    cv_v = np.linspace(-10.0, 0.3, 40)
+    y = ac_admittance(ngspice, SPARSE, cv_v, [FREQUENCY_HZ])[:, 0]
+    w = 2 * np.pi * FREQUENCY_HZ
+    data = {"iv": {"voltage_V": v, "current_A": i},
+            "cv": {"voltage_V": cv_v, "frequency_Hz": np.full(cv_v.size, FREQUENCY_HZ),
+                   "capacitance_F": y.imag / w, "conductance_S": y.real}}
+    path = tmp_path / "lh-sparse-12.csv"
+    _write(path, data, 12)
+    assert cli.main(["fit", str(path), "--json", "--temperature", "300.15"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    cv = doc["fits"]["cv"]
+    assert doc["parameters"]["TT"]["value"] == pytest.approx(SPARSE.TT, rel=5e-3, abs=0)
+    for name in ("CJO", "VJ", "M"):
+        assert doc["parameters"][name]["value"] == pytest.approx(getattr(SPARSE, name),
+                                                                 rel=1e-6, abs=0), name
+    assert "fixture_capacitance_F" not in doc and "fixture_resistance_ohm" not in doc
+    assert not cv["lack_of_fit"]["misfit"] and "before converging" not in cv["message"]
+    assert "too few to estimate their own" in cv["message"]
