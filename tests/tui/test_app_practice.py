@@ -178,8 +178,11 @@ async def test_a_sweep_in_the_app_ends_with_its_report_unless_told_not_to(tmp_pa
                            "the report")
             await wait_for(pilot, lambda: "report written" in app.last_message, "word")
         else:
-            await pilot.pause(1.0)
+            await wait_for(pilot, lambda: "against the simulated part" in app.last_message,
+                           "the rehearsal check")
             assert not (app.last_run_dir / "report.html").exists()
+        # a rehearsal on the simulated bench also sets the fit against its part
+        assert "against the simulated part LH-QT16: " in app.last_message
 
 
 def test_the_hazardous_voltage_message_has_no_internal_aside():

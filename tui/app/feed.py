@@ -65,11 +65,15 @@ class RunFeed:
     def _report_written(self, run_dir: Path) -> None:
         """Say where the sweep's report is (the engine wrote it in the run's end work, as
         for headless runs), unless --no-report said otherwise."""
+        check = part_check_line(run_dir)
         if not self.control.report:
+            if check:
+                self.notify(check, timeout=12)
             return
         path = record.report_path(run_dir)
         if path.exists():
-            self.notify(f"report written: {path}", timeout=8)
+            self.notify(f"report written: {path}" + (f"\n{check}" if check else ""),
+                        timeout=12 if check else 8)
         else:
             self.notify(f"the report could not be written (see the log); try "
                         f"`pnbench report {run_dir}`", severity="error", timeout=12)
@@ -116,3 +120,11 @@ class RunFeed:
             self._shown_status = state.status
             self.refresh_bindings()
 
+
+def part_check_line(run_dir: Path) -> str:
+    """For a rehearsal on the simulated bench, its fit against the part in one line
+    (`sweeps.rehearsal`); "" for a run on real instruments."""
+    from pnbench.sweeps.rehearsal import from_folder
+
+    check = from_folder(run_dir)
+    return check.summary() if check is not None and check.rows else ""
