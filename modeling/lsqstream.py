@@ -4,7 +4,10 @@
 sums linearized at a reference point, relinearizes when a step grows beyond about one
 standard error, and refits over every point on a geometric schedule (warm refits in
 between full ones); the module docstring of `pnbench.modeling.incremental` explains the
-schedule. Pure: no threads, clocks or files (the caller holds the lock).
+schedule. The sums over a step's every row are taken over blocks of rows
+(`blocked.normal_sums`), so a refit of a long step holds one block's Jacobian at a time and
+no single numpy call grows with the step. Pure: no threads, clocks or files (the caller
+holds the lock).
 """
 
 from __future__ import annotations
@@ -14,7 +17,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from pnbench.modeling import lsq, misfit
+from pnbench.modeling import blocked, lsq, misfit
 from pnbench.modeling.fitresult import FitResult, empty_result
 
 #: Rebuild the sums when the pending step moves the estimate by more than this
@@ -137,11 +140,11 @@ class LsqStream:
         if not use.any():
             return
         idx = np.flatnonzero(st.active)
-        r, jac, _ = lsq.weighted_rows(self.model, st.t, idx, x, y, use, noise)
-        self.h += jac.T @ jac
-        self.g += jac.T @ r
-        self.s += float(r @ r)
-        self.rows += len(r)
+        h, g, s = blocked.normal_sums(self.model, st.t, idx, x, y, use, noise)
+        self.h += h
+        self.g += g
+        self.s += s
+        self.rows += int(np.count_nonzero(use))
 
     def _stated(self, x, y, t):
         """The spec's stated noise for these rows at estimate t (None: the stream's
@@ -176,9 +179,9 @@ class LsqStream:
         use = lsq.usable_rows(self.model, y, yhat, elig, noise)
         t, *_ = lsq.levenberg(self.model, t, st.active, x, y, use, noise, max_iter=4)
         idx = np.flatnonzero(st.active)
-        r, jac, _ = lsq.weighted_rows(self.model, t, idx, x, y, use, noise)
-        self._reset_sums(replace(st, t=t, noise=noise, used=use, hessian=jac.T @ jac,
-                                 gradient=jac.T @ r, chi2=float(r @ r), n_rows=int(use.sum())))
+        h, g, s = blocked.normal_sums(self.model, t, idx, x, y, use, noise)
+        self._reset_sums(replace(st, t=t, noise=noise, used=use, hessian=h, gradient=g,
+                                 chi2=s, n_rows=int(use.sum())))
 
     def _full_refit(self) -> None:
         healthy = self.state is not None and lsq.healthy(self.model, self.state)
@@ -249,11 +252,11 @@ class LsqStream:
                                                                      st.active, noise))
             use = lsq.usable_rows(model, y, yhat, elig, noise)
             idx = np.flatnonzero(st.active)
-            r, jac, _ = lsq.weighted_rows(model, t, idx, x, y, use, noise)
+            h, g, s = blocked.normal_sums(model, t, idx, x, y, use, noise)
         except (ValueError, ArithmeticError, np.linalg.LinAlgError):
             return False
-        state = replace(st, t=t, noise=noise, used=use, hessian=jac.T @ jac,
-                        gradient=jac.T @ r, chi2=float(r @ r), n_rows=int(use.sum()),
+        state = replace(st, t=t, noise=noise, used=use, hessian=h, gradient=g, chi2=s,
+                        n_rows=int(use.sum()),
                         converged=converged)
         if not (np.all(np.isfinite(state.hessian)) and lsq.healthy(model, state)):
             return False
@@ -280,9 +283,8 @@ class LsqStream:
         trial = state.active.copy()
         trial[absent] = True
         idx = np.flatnonzero(trial)
-        r, jac, _ = lsq.weighted_rows(self.model, state.t, idx, x, y, state.used, state.noise)
-        h_all = jac.T @ jac
-        g_all = jac.T @ r
+        h_all, g_all, _ = blocked.normal_sums(self.model, state.t, idx, x, y, state.used,
+                                              state.noise)
         if not (np.all(np.isfinite(h_all)) and np.all(np.isfinite(g_all))):
             return True
         kept = [j for j, k in enumerate(idx) if state.active[k]]
