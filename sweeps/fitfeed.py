@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import math
 import queue
+import sys
 import threading
 import time
 from collections.abc import Callable
@@ -48,6 +49,12 @@ MAX_REL_SIGMA = 1.0
 SETTLE_TARGETS = {"iv_forward": ("IS", "N", "RS"), "cv": ("CJO", "VJ", "M"),
                   "admittance": ("TT",), "iv_reverse": ()}
 OPTIONAL_TARGETS = frozenset({"RS"})
+#: How often the interpreter hands its lock from a running thread to a waiting one while
+#: the worker runs (Python's default is 5 ms). Each point's acquisition thread waits on
+#: instrument replies a few times, and each time it wakes it waits for the lock: behind
+#: a fit in full flight that was up to 5 ms a wait, some tens of milliseconds a point
+#: (the convoy effect of one busy thread among waiting ones).
+SWITCH_INTERVAL_S = 0.001
 
 
 def estimates(result) -> tuple[list[str], dict[str, str]]:
@@ -150,14 +157,18 @@ class FitWorker:
         self._settled: set[str] = set()
         self.latest: dict[str, object] = {}  # step -> FitResult
         self._thread: threading.Thread | None = None
+        self._switch_s = sys.getswitchinterval()
         self._last_snapshot = 0.0
 
     # -- called from the acquisition thread ------------------------------------------
     def start(self) -> None:
         """Start the worker thread, after importing what it will use (`fitmodel.warm_up`,
-        on this thread: before the run's first point, not beside the acquisition)."""
+        on this thread: before the run's first point, not beside the acquisition), with
+        the interpreter switching threads every SWITCH_INTERVAL_S until `finish`."""
         if self.enabled and self._thread is None:
             fitmodel.warm_up(s.kind for s in self.steps.values())
+            self._switch_s = sys.getswitchinterval()
+            sys.setswitchinterval(min(self._switch_s, SWITCH_INTERVAL_S))
             self._thread = threading.Thread(target=self._loop, name="pnbench-fit",
                                             daemon=True)
             self._thread.start()
@@ -206,6 +217,7 @@ class FitWorker:
             self._queue.put(_STOP)
             self._thread.join(timeout_s)
             self._thread = None
+            sys.setswitchinterval(self._switch_s)
         elif self.enabled:
             self._write_model(final=True)
 

@@ -1,6 +1,7 @@
 """What the fit thread may not do beside the acquisition (issue: overnight scale): import
 modules (an import takes module locks, and an extension module loads with the
-interpreter lock held, stalling the acquisition thread), or call a BLAS that spins
+interpreter lock held, stalling the acquisition thread), keep the interpreter lock for
+Python's default 5 ms whenever the acquisition thread wakes, or call a BLAS that spins
 helper threads while the interpreter lock is held. Each check runs in a fresh
 interpreter, since the test process has everything imported already."""
 
@@ -44,9 +45,14 @@ plan = parse_plan(text, "t.toml").on_simulated_bench("lh-vc510@pnsim:time_scale=
 seen = [0]
 
 
+switch = []  # the interpreter's switch interval at the first point
+
+
 def listener(event):
     if event.kind == "point":
         seen[0] += 1
+        if seen[0] == 1:
+            switch.append(sys.getswitchinterval())
         if seen[0] == plan.total_points:
             acquiring[0] = False  # the run's end work may import what it needs
     elif event.kind == "fit":
@@ -56,11 +62,13 @@ def listener(event):
 fits = []
 with tempfile.TemporaryDirectory() as tmp:
     Launch.new(plan, out_dir=Path(tmp), listeners=[listener]).run()
-print(json.dumps({{"imports": imports, "points": seen[0], "fits": sorted(set(fits))}}))
+switch.append(sys.getswitchinterval())
+print(json.dumps({{"imports": imports, "points": seen[0], "fits": sorted(set(fits)),
+                  "switch": switch}}))
 """
 
 
-def test_the_fit_thread_imports_nothing_while_points_are_taken():
+def test_the_fit_thread_imports_nothing_and_yields_often_while_points_are_taken():
     """The live fits' modules are imported when the fit worker starts, before the run's
     first point (`fitmodel.warm_up`): while points are taken the fit thread starts no
     import, through the first fit of every step kind and the provisional model at each
@@ -71,6 +79,9 @@ def test_the_fit_thread_imports_nothing_while_points_are_taken():
     got = json.loads(out.stdout.strip().splitlines()[-1])
     assert got["points"] == 180 and got["fits"] == ["cv", "fwd", "fwd2"]
     assert got["imports"] == []
+    # while points are taken the interpreter hands its lock on every millisecond (not
+    # Python's 5 ms), and the run's end gives the default back
+    assert got["switch"] == [0.001, 0.005]
 
 
 _BLAS = """
