@@ -82,3 +82,30 @@ def residual_sum(model, t: np.ndarray, idx: np.ndarray, x: np.ndarray, y: np.nda
                                 yhat_ref=ref)
         chi2 += float(r @ r)
     return chi2
+
+
+class InBlocks:
+    """A model whose predictions without a Jacobian (the residuals of a reweighting
+    round, the noise estimate's model values) are computed over blocks of BLOCK_ROWS
+    rows and gathered into one array: a long run's model evaluation then makes one
+    block's temporaries (complex admittances, the meter's describing function), not a
+    dozen arrays as long as the run. Rows are independent, so the values are those of
+    one evaluation over every row. Everything else is the wrapped model's."""
+
+    def __init__(self, model) -> None:
+        self.model = model
+
+    def __getattr__(self, name: str):
+        return getattr(self.model, name)
+
+    def predict(self, t, x, active=None):
+        if active is not None or len(x) <= BLOCK_ROWS:
+            return self.model.predict(t, x, active)
+        out = None
+        for a in range(0, len(x), BLOCK_ROWS):
+            part, _ = self.model.predict(t, x[a:a + BLOCK_ROWS], None)
+            if out is None:
+                out = np.empty((len(x), *part.shape[1:]), dtype=part.dtype)
+            out[a:a + len(part)] = part
+        return out, None
+

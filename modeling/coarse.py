@@ -55,8 +55,9 @@ def fit(model, x: np.ndarray, y: np.ndarray, eligible: np.ndarray, t0: np.ndarra
     if not finish:
         return coarse
     estimate = noise is None or noise.estimated
-    with np.errstate(all="ignore"):
-        return _finish(model, x, y, eligible, coarse, np.asarray(active, dtype=bool),
+    with np.errstate(all="ignore"):  # every row: model values in blocks of rows
+        return _finish(blocked.InBlocks(model), x, y, eligible, coarse,
+                       np.asarray(active, dtype=bool),
                        forced_use, estimate, max_iter,
                        coarse.noise if estimate else noise)
 

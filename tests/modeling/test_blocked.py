@@ -84,3 +84,36 @@ def test_a_long_forward_run_reads_its_start_values_off_an_even_subset(monkeypatc
     assert every.names == thinned.names and every.success
     for name in every.names:
         assert abs(thinned.values[name] - every.values[name]) < 0.01 * every.sigmas[name]
+
+
+def test_a_long_fit_s_model_values_come_in_blocks(monkeypatch):
+    """The finishing rounds of a long fit (coarse.fit over every row) evaluate the model
+    without a Jacobian over one block of rows at a time (`blocked.InBlocks`), giving the
+    same fit as one evaluation over every row: the rows are independent."""
+    from pnbench.modeling import coarse, fit_iv
+
+    data = _run(30_000)["iv"]
+    model = fit_iv.ForwardModel(300.15)
+    x, y = data["voltage_V"][:, None], data["current_A"][:, None]
+    elig = (x > 0) & np.isfinite(y)
+    t0 = fit_iv.start_values(x[:, 0][::10], y[:, 0][::10], 300.15)
+    active = np.ones(4, dtype=bool)
+    monkeypatch.setattr(blocked, "BLOCK_ROWS", 4000)
+    sizes = []
+    inner = fit_iv.ForwardModel.predict
+
+    def recorded(self, t, xs, act):
+        if act is None:
+            sizes.append(len(xs))
+        return inner(self, t, xs, act)
+
+    monkeypatch.setattr(fit_iv.ForwardModel, "predict", recorded)
+    parts = coarse.fit(model, x, y, elig, t0, active)
+    assert sizes and max(sizes) <= 4000 and sum(s == 4000 for s in sizes) > 2
+    monkeypatch.setattr(coarse.blocked, "InBlocks", lambda m: m)  # every row at once
+    sizes.clear()
+    whole = coarse.fit(model, x, y, elig, t0, active)
+    assert max(sizes) == len(x)
+    np.testing.assert_allclose(parts.t, whole.t, rtol=1e-12, atol=0)
+    np.testing.assert_array_equal(parts.active, whole.active)
+    assert parts.chi2 == pytest.approx(whole.chi2, rel=1e-12)
