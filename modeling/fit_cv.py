@@ -155,6 +155,9 @@ def fit_cv(voltage_V, frequency_Hz, capacitance_F, *, compliance=None, use=None,
     state = precision.drop_unresolved(model, state, x, y[:, :1], ("CFIX",), lambda t, act: (
         lsq.fit(model, x, y[:, :1], state.used, t, act, noise=state.noise, rounds=2)))
     left = elig[:, 0] & np.isfinite(y[:, 0]) & (y[:, 0] > 0) & ~state.used[:, 0]
+    state = precision.readmit(model, state, x, y[:, :1], left, lambda use: lsq.fit(
+        model, x, y[:, :1], use, state.t, state.active, noise=state.noise, rounds=2))
+    left &= ~state.used[:, 0]
     if left.any():  # points are left out only with a stated reason
         state.notes.append(
             f"{int(left.sum())} points from {float(x[left, 0].min()):.3g} V up left out: "
