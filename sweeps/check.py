@@ -7,6 +7,9 @@ settles, then it is read). The overhead per reading (`SMU_OVERHEAD_S`,
 `LCR_OVERHEAD_S`) covers command parsing, ranging and transfer: rough figures of
 common practice (no source), which a real instrument's manual may correct.
 
+With ``[lcr_correction] apply = "software"`` the open and the short pnbench reads itself
+add their readings (`correction_seconds`).
+
 Worst-case power is what a step could put into the device without the runner's power
 guard: |V| x compliance current when forcing voltage, |I| x compliance voltage when
 forcing current. Above max_power, the runner's prediction ends the step first.
@@ -32,11 +35,13 @@ class Estimate:
     worst_power_W: float
     guarded_steps: list[str]  # steps whose worst case is above max_power
     thermal_s: float = 0.0  # a run over temperature: the stage's ramps, waits and soaks
+    correction_s: float = 0.0  # pnbench's own readings of the open and the short
 
     def to_json_dict(self) -> dict:
         return {"total_s": self.total_s, "step_s": self.step_s,
                 "step_power_W": self.step_power_W, "worst_power_W": self.worst_power_W,
-                "guarded_steps": self.guarded_steps, "thermal_s": self.thermal_s}
+                "guarded_steps": self.guarded_steps, "thermal_s": self.thermal_s,
+                "correction_s": self.correction_s}
 
 
 def step_seconds(step: Step, line_frequency_Hz: float = 50.0) -> float:
@@ -68,5 +73,24 @@ def estimate(plan: Plan) -> Estimate:
         from pnbench.sweeps.thermalplan import thermal_seconds
 
         thermal = thermal_seconds(plan.temperature)
-    return Estimate(total_s=sum(per_step) + thermal, step_s=per_step, step_power_W=power,
-                    worst_power_W=worst, guarded_steps=guarded, thermal_s=thermal)
+    fixture = correction_seconds(plan)
+    return Estimate(total_s=sum(per_step) + thermal + fixture, step_s=per_step,
+                    step_power_W=power, worst_power_W=worst, guarded_steps=guarded,
+                    thermal_s=thermal, correction_s=fixture)
+
+
+def correction_seconds(plan: Plan) -> float:
+    """The time of pnbench's own readings of the open and the shorted fixture
+    (``[lcr_correction] apply = "software"``: `sweeps.fixturereadings`), at each set
+    point with ``every_set_point``; 0 otherwise (the meter's own correction takes the
+    meter's time, which its manual states)."""
+    correction = plan.correction
+    if correction is None or correction.apply != "software":
+        return 0.0
+    from pnbench.sweeps.fixturereadings import level_frequency_pairs, readings_for
+
+    once = (len(level_frequency_pairs(plan)) * readings_for(plan) * len(correction.which)
+            * (LCR_READING_S + LCR_OVERHEAD_S))
+    if not correction.every_set_point:
+        return once
+    return once * len({s.set_point_K for s in plan.steps if s.instrument == "lcr"})

@@ -388,6 +388,9 @@ def correction_line(e) -> str:
     at = f" at {e.set_point_K:g} K" if isinstance(e.set_point_K, (int, float)) else ""
     how = ("compensated in software from its recorded values" if e.applied_by == "software"
            else "applied by the meter")
+    if any(isinstance(v, dict) and v.get("measured_by") == "pnbench"
+           for v in (e.values or {}).values()):
+        how = "the fixture read by pnbench, " + how
     if e.reused:
         return f"LCR {which} correction recorded{at} reused ({how})"
     return f"LCR {which} correction done{at} ({how})"

@@ -231,3 +231,34 @@ def cli_check(tmp_path, plan, capsys) -> str:
     path.write_text(plan.text, encoding="utf-8")
     assert cli.main(["check", str(path)]) == 0
     return capsys.readouterr().out
+
+
+def test_the_headless_line_says_who_read_the_fixture():
+    from pnbench.tui.headless import correction_line
+
+    mine = ev.Correction(corrections=["open"], applied_by="software",
+                         values={"open": {"measured_by": "pnbench"}})
+    theirs = ev.Correction(corrections=["open"], applied_by="meter",
+                           values={"open": {"C_F": [1e-13]}})
+    assert correction_line(mine) == ("LCR open correction done (the fixture read by "
+                                     "pnbench, compensated in software from its recorded "
+                                     "values)")
+    assert correction_line(theirs) == "LCR open correction done (applied by the meter)"
+
+
+def test_check_counts_the_time_of_the_fixture_readings(tmp_path, capsys):
+    """6 level/frequency pairs x 16 readings x 2 corrections at the LCR reading's
+    estimated 33 ms (sweeps.check)."""
+    from pnbench.sweeps.check import LCR_OVERHEAD_S, LCR_READING_S, estimate
+
+    soft = _demo_plan({"corrections": ["open", "short"], "apply": "software"})
+    meter = _demo_plan({"corrections": ["open", "short"]})
+    expected = 6 * MIN_READINGS * 2 * (LCR_READING_S + LCR_OVERHEAD_S)
+    assert estimate(soft).correction_s == pytest.approx(expected, rel=1e-12, abs=0)
+    assert estimate(soft).total_s - estimate(meter).total_s == pytest.approx(
+        expected, rel=1e-9, abs=0)
+    assert estimate(meter).correction_s == 0.0
+    path = tmp_path / "plan.toml"
+    path.write_text(soft.text, encoding="utf-8")
+    assert cli.main(["check", str(path)]) == 0
+    assert "the fixture's open and short readings 0:06" in capsys.readouterr().out

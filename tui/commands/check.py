@@ -162,8 +162,10 @@ def run(args) -> int:
               f"{power:>9}  {_range(s)}")
     print(f"\n{plan.total_points} points, estimated {format_duration(est.total_s)} "
           "(points x (settle + integration + overhead)"
-          + (f"; the stage's ramps, stability and soaks {format_duration(est.thermal_s)})"
-             if est.thermal_s else ")"))
+          + (f"; the stage's ramps, stability and soaks {format_duration(est.thermal_s)}"
+             if est.thermal_s else "")
+          + (f"; the fixture's open and short readings {format_duration(est.correction_s)}"
+             if est.correction_s else "") + ")")
     print(f"worst-case power without the power guard: {q(est.worst_power_W, 'W', 3)}"
           + (f"; above max_power in {', '.join(est.guarded_steps)}: the runner predicts "
              "each level's power and ends the step before it" if est.guarded_steps else ""))
