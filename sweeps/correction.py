@@ -252,8 +252,12 @@ def run_correction(plan: Plan, bench, bus: ev.EventBus, control: Control, folder
     if not correction.confirmed:
         _confirm("device", False, bus, control, step)
     lcr.fixture_is("device")
-    return {"set_point_K": set_point_K, "applied_by": correction.apply, "values": values,
-            "step": step, "notes": notes}
+    entry = {"set_point_K": set_point_K, "applied_by": correction.apply, "values": values,
+             "step": step, "notes": notes}
+    if software:  # which test level's values compensate each step's points
+        entry["step_ac_level_V"] = {s.name: s.ac_level_V for s in plan.steps
+                                    if s.instrument == "lcr"}
+    return entry
 
 
 def _keep_off(lcr, which: str) -> list[str]:

@@ -32,13 +32,18 @@ _LCR_KINDS = ("cv", "admittance")
 
 
 def residuals_for(record: object, set_point_K: float | None,
-                  ac_level_V: float | None = None) -> FixtureResiduals | None:
+                  ac_level_V: float | None = None,
+                  step: str | None = None) -> FixtureResiduals | None:
     """The recorded values to compensate points at this set point (and test level, where
-    the open and short were read at several) with, when the record says pnbench applies
-    them (None otherwise, or when they are unusable)."""
+    the open and short were read at several: ``ac_level_V``, else the one the entry
+    records for ``step``) with, when the record says pnbench applies them (None
+    otherwise, or when they are unusable)."""
     entry = entry_for(record, set_point_K)
     if entry is None or entry.get("applied_by") != "software":
         return None
+    if ac_level_V is None and step is not None:
+        level = (entry.get("step_ac_level_V") or {}).get(step)
+        ac_level_V = level if isinstance(level, (int, float)) else None
     try:
         return FixtureResiduals.from_values(entry.get("values"), ac_level_V)
     except ValueError:

@@ -53,7 +53,7 @@ def _demo_plan(correction: dict):
 
 
 def test_software_compensation_reads_the_fixture_itself_and_recovers_the_demo_part(
-        tmp_path):
+        tmp_path, capsys):
     plan = _demo_plan({"corrections": ["open", "short"], "confirmed": True,
                        "apply": "software"})
     held = open_session("PNSIM::STAGE", SIM)  # keeps the bench (and its meter) alive
@@ -99,6 +99,17 @@ def test_software_compensation_reads_the_fixture_itself_and_recovers_the_demo_pa
     report = write_report(launch.run_dir).read_text(encoding="utf-8")
     assert "pnbench read the open and the short itself" in report
     assert "Test level" in report
+    # each step is compensated with the values of its own test level, by the run's fit
+    # and by a refit of the folder alike
+    assert record["runs"][0]["step_ac_level_V"] == {"cv": 0.02, "admittance": 0.005}
+    at_5mV = [b for b, level in zip(values["open"]["B_S"], values["open"]["ac_level_V"],
+                                    strict=True) if level == 0.005]
+    assert residuals_for(record, None, step="admittance").open_B_S.tolist() == at_5mV
+    assert cli.main(["fit", str(launch.run_dir), "--json"]) == 0
+    refit = json.loads(capsys.readouterr().out)["parameters"]
+    for name in ("CJO", "VJ", "M", "TT"):
+        assert refit[name]["value"] == pytest.approx(model["parameters"][name]["value"],
+                                                     rel=1e-6, abs=0), name
 
 
 def _sim_plan(correction: dict, dialect: Path):

@@ -355,7 +355,7 @@ def _compensated(record: dict, step: str, values: dict) -> dict:
     from pnbench.sweeps.fitcorrection import residuals_for
     from pnbench.tui.report.arrhenius import set_point_of
 
-    residuals = residuals_for(record, set_point_of(step))
+    residuals = residuals_for(record, set_point_of(step), step=step)
     if residuals is None:
         return {}
     c, g = compensate_parallel(np.asarray(values["capacitance_F"], dtype=float),

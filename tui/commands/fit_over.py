@@ -46,7 +46,8 @@ def run_folder_sets(folder, kind: str = "auto") -> list[tuple[float, dict, str]]
                 if scale is not None:  # each step's NPLC and averaging, as the run's fit
                     data[k]["noise_scale"] = scale[pick]
         if "cv" in data:  # compensated as the run's own fit did, with this set point's
-            data["cv"] = _compensated(data["cv"], folder, sp)  # recorded correction
+            data["cv"] = _compensated(data["cv"], folder, sp,  # recorded correction
+                                      steps[rows & (kinds == "cv")])
         if data:
             out.append((float(np.mean(t)) if t.size else sp, data, f"{folder} @ {sp:g} K"))
     return out
@@ -68,9 +69,12 @@ def _step_noise_scales(folder, steps):
     return np.array([table.get(str(s), 1.0) for s in steps], dtype=float)
 
 
-def _compensated(col: dict, folder, set_point_K: float) -> dict:
-    """C-V columns compensated with the run's correction entry for this set point when
-    the run applied it in software (sweeps.fitcorrection); as they are otherwise."""
+def _compensated(col: dict, folder, set_point_K: float, steps) -> dict:
+    """C-V columns (of the rows of ``steps``) compensated with the run's correction entry
+    for this set point when the run applied it in software, each step with the values of
+    its test level (sweeps.fitcorrection); as they are otherwise."""
+    import numpy as np
+
     from pnbench.errors import PnbenchError
     from pnbench.modeling.compensation import compensate_parallel
     from pnbench.sweeps import record
@@ -80,11 +84,14 @@ def _compensated(col: dict, folder, set_point_K: float) -> dict:
         correction = record.read_run(folder).get("lcr_correction")
     except (PnbenchError, OSError):
         return col
-    residuals = residuals_for(correction, set_point_K)
-    if residuals is None:
-        return col
-    c, g = compensate_parallel(col["capacitance_F"], col["conductance_S"],
-                               col["frequency_Hz"], residuals)
+    c, g = col["capacitance_F"].copy(), col["conductance_S"].copy()
+    names = np.asarray(steps).astype(str)
+    for name in dict.fromkeys(names.tolist()):
+        residuals = residuals_for(correction, set_point_K, step=name)
+        if residuals is None:
+            return col
+        at = names == name
+        c[at], g[at] = compensate_parallel(c[at], g[at], col["frequency_Hz"][at], residuals)
     return {**col, "capacitance_F": c, "conductance_S": g}
 
 

@@ -157,12 +157,8 @@ def compensated_cv(data: RunData) -> Points:
         return cv
     c, g = cv.capacitance_F.copy(), cv.conductance_S.copy()
     steps = np.array(cv.step, dtype=object)
-    levels = {s.get("name"): s.get("ac_level_V") for s in (data.run or {}).get("steps") or ()
-              if isinstance(s, dict)}
     for name in dict.fromkeys(cv.step):
-        level = levels.get(str(name))
-        residuals = residuals_for(record, set_point_of(str(name)),
-                                  level if isinstance(level, (int, float)) else None)
+        residuals = residuals_for(record, set_point_of(str(name)), step=str(name))
         if residuals is not None:
             at = steps == name
             c[at], g[at] = compensate_parallel(c[at], g[at], cv.frequency_Hz[at], residuals)
