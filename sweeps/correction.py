@@ -244,7 +244,7 @@ def run_correction(plan: Plan, bench, bus: ev.EventBus, control: Control, folder
         if software:
             values[which] = fixturereadings.measure(
                 lcr, which, fixturereadings.level_frequency_pairs(plan),
-                fixturereadings.readings_for(plan))
+                fixturereadings.readings_for(plan), check=control.check)
         else:
             getattr(lcr, f"{which}_correction")()
             values[which] = _data(lcr, which, lcr_frequencies(plan))

@@ -42,15 +42,19 @@ def readings_for(plan: Plan) -> int:
                                 if s.instrument == "lcr")])
 
 
-def measure(lcr, which: str, pairs: list[tuple[float, float]], readings: int) -> dict:
+def measure(lcr, which: str, pairs: list[tuple[float, float]], readings: int,
+            check=None) -> dict:
     """Read the open (``which`` "open") or the shorted fixture at every pair; the table
     above. InstrumentError when a reading is not finite (nothing is compensated with
-    it)."""
+    it). ``check`` (the run's `Control.check`) is called before each pair, so an abort
+    stops the readings there (OperatorStop)."""
     import numpy as np  # not at import: `pnbench check` imports sweeps.correction
 
     rows = []
     level_now = None
     for level, f in pairs:
+        if check is not None:
+            check()
         if level != level_now:
             lcr.configure(ac_level_V=level)  # DC bias to 0 V and off
             level_now = level

@@ -273,3 +273,24 @@ def test_check_counts_the_time_of_the_fixture_readings(tmp_path, capsys):
     path.write_text(soft.text, encoding="utf-8")
     assert cli.main(["check", str(path)]) == 0
     assert "the fixture's open and short readings 0:06" in capsys.readouterr().out
+
+
+def test_an_abort_stops_the_fixture_readings_between_pairs():
+    from pnbench.errors import OperatorStop
+    from pnbench.sweeps.control import Control
+    from pnbench.sweeps.fixturereadings import measure
+
+    control = Control()
+    read = []
+
+    class Meter(_NanLcr):
+        def apply_and_read(self, bias_V, frequency_Hz):
+            from pnbench.drivers.roles import LcrReading
+
+            read.append(frequency_Hz)
+            control.abort()  # the operator stops while the first pair is read
+            return LcrReading(frequency_Hz, bias_V, complex(0.0, 1e-7), 0.0, 0.0)
+
+    with pytest.raises(OperatorStop):
+        measure(Meter(), "open", [(0.02, 1e5), (0.02, 1e6)], 4, check=control.check)
+    assert read == [1e5] * 4  # the second pair was never read
