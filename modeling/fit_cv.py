@@ -257,6 +257,8 @@ def fit_admittance(voltage_V, frequency_Hz, capacitance_F, conductance_S, *,
                              noise=meter_rows_noise(noise, x, y, 2, noise_scale))
     if isinstance(state, str):
         return empty_result("admittance", len(x), state)
+    state = precision.drop_unresolved(model, state, x, y, ("CFIX",), lambda t, act: (
+        lsq.fit(model, x, y, state.used, t, act, noise=state.noise, rounds=2)))
     return lsq.to_result(model, state, "admittance", len(x), extras=held_extras(model, fixed),
                          min_rows=MIN_CV_POINTS, x=x, y=y)
 

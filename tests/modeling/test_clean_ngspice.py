@@ -152,3 +152,22 @@ def test_two_forward_points_still_give_tt_and_no_fixture(ngspice, tmp_path, caps
     assert "fixture_capacitance_F" not in doc and "fixture_resistance_ohm" not in doc
     assert not cv["lack_of_fit"]["misfit"] and "before converging" not in cv["message"]
     assert "too few to estimate their own" in cv["message"]
+
+
+def test_clean_cv_alone_gives_tt_from_the_conductance_and_no_fixture(clean, tmp_path,
+                                                                     capsys):
+    """The C-V file alone (12 digits): the depletion fit and the admittance fit (TT with
+    IS, N, RS from the forward conductance) give the card's CJO, VJ, M and TT (within
+    0.5 %) with no fixture capacitance and no misfit verdict (ngspice AC analysis; the
+    admittance fit once kept a CFIX of 9e-20 F, ngspice's TT*GMIN and the like)."""
+    path = tmp_path / "lh-ss12-cv-12.csv"
+    _write(path, {"iv": {"voltage_V": [], "current_A": []}, "cv": clean["cv"]}, 12)
+    assert cli.main(["fit", str(path), "--json", "--temperature", "300.15"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["parameters"]["TT"]["value"] == pytest.approx(PART.TT, rel=5e-3, abs=0)
+    for name in ("CJO", "VJ", "M"):
+        assert doc["parameters"][name]["value"] == pytest.approx(getattr(PART, name),
+                                                                 rel=1e-6, abs=0), name
+    assert "fixture_capacitance_F" not in doc
+    for kind in ("cv", "admittance"):
+        assert not doc["fits"][kind]["lack_of_fit"]["misfit"], doc["fits"][kind]["message"]
