@@ -22,6 +22,13 @@ against headless at each size (time per point, peak RSS), and the app's largest 
 against its smallest (peak RSS up to the last point). The aims: the app within 1.3x of
 headless in time per point, and its memory flat (ratio near 1) between 1e4 and 1e5
 points. On a shared machine the ratios mean more than the absolute figures.
+
+Measured on 2 shared cores under load, before and after the app took its points as
+columns and bounded its plot data and redraws: at 1e5 points the app went from 7179 to
+592 us a point (headless 641 and 443 in the same rounds: x11.2 -> x1.34), its peak RSS
+from 298 to 150 MiB (headless 115 and 110), and it showed the last point 15.7 s -> 0.16 s
+after it was taken. At 1e4: x1.20 in time per point; the app's RSS up to the last point
+118 MiB at 1e4 and 141 MiB at 1e5 (x1.19; headless x1.08).
 """
 
 from __future__ import annotations
