@@ -85,8 +85,10 @@ class Launch:
         if plan is None:
             plan = plan_of_run(run_dir, run)
             backend = simulated_backend(run)
-            if backend is not None:
+            if backend is not None and plan.simulated is None:  # a --simulate rehearsal
                 plan = plan.on_simulated_bench(backend)
+            # a plan that names the simulated bench itself keeps its instruments as they
+            # are, with their dialects, ratings and stated noise
         return cls(plan, run_dir=run_dir, force_identity=force_identity,
                    listeners=listeners, fit=fit, write_report=write_report)
 

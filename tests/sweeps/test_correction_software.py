@@ -209,7 +209,7 @@ def test_a_meter_that_cannot_report_its_correction_is_corrected_again_saying_why
         first = Launch.new(plan, out_dir=tmp_path / "runs")
         _abort_in(first, "cv")
         assert first.run().status == "aborted"
-        again = Launch.resume_from(first.run_dir, plan=plan)  # with its dialect
+        again = Launch.resume_from(first.run_dir)  # its own plan.toml, with its dialect
         outcome = again.run()
     finally:
         held.close()
