@@ -46,7 +46,7 @@ class Columns:
                  capacity: int | None = CAPACITY):
         self.names = names
         self.cells = cells
-        self.capacity = capacity
+        self.capacity = capacity if cells else None  # nothing to thin on: kept whole
         self.data = {name: array("d") for name in names}
         self.step_ids = array("i")
         self.step_names: list[str] = []
