@@ -213,3 +213,26 @@ async def test_the_run_screen_takes_a_long_stream_in_batches_at_80x24(tmp_path):
         title = str(app.screen.query_one("#panel-title", Static).render())
         earlier = app.state.log_total - LOG_LINES
         assert earlier > 600 and f"+{earlier} earlier in events.jsonl" in title
+
+
+def test_words_are_set_only_when_changed_and_laid_out_only_when_their_size_may_change():
+    """Common practice, no source: a redraw of the same words costs nothing, and a
+    layout pass (the screen's costliest step after the plot) only when rows change."""
+    from types import SimpleNamespace
+
+    from pnbench.tui.app.widgets.text import set_text
+
+    calls = []
+    widget = SimpleNamespace(size=SimpleNamespace(width=20), display=True,
+                             update=lambda text, layout: calls.append((text, layout)))
+    set_text(widget, "12 pts")
+    set_text(widget, "12 pts")
+    set_text(widget, "13 pts")
+    set_text(widget, "13 pts and a line longer than twenty")  # wraps to two rows
+    set_text(widget, "two\nlines")
+    set_text(widget, "two\nLINES")
+    widget.display = False
+    set_text(widget, "hidden\nthree\nrows")
+    assert calls == [("12 pts", True), ("13 pts", False),
+                     ("13 pts and a line longer than twenty", True), ("two\nlines", False),
+                     ("two\nLINES", False), ("hidden\nthree\nrows", False)]
