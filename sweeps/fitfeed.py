@@ -29,6 +29,7 @@ and that step goes on without live estimates.
 
 from __future__ import annotations
 
+import gc
 import math
 import queue
 import sys
@@ -164,11 +165,16 @@ class FitWorker:
     def start(self) -> None:
         """Start the worker thread, after importing what it will use (`fitmodel.warm_up`,
         on this thread: before the run's first point, not beside the acquisition), with
-        the interpreter switching threads every SWITCH_INTERVAL_S until `finish`."""
+        the interpreter switching threads every SWITCH_INTERVAL_S and the objects that
+        exist now left out of the cyclic collector's passes, until `finish`."""
         if self.enabled and self._thread is None:
             fitmodel.warm_up(s.kind for s in self.steps.values())
             self._switch_s = sys.getswitchinterval()
             sys.setswitchinterval(min(self._switch_s, SWITCH_INTERVAL_S))
+            # what exists now (modules, the plan, the bench) outlives the run: the cyclic
+            # collector's full passes skip it until `finish` (one such pass over it held
+            # the lock for ~20 ms on whichever thread set it off)
+            gc.freeze()
             self._thread = threading.Thread(target=self._loop, name="pnbench-fit",
                                             daemon=True)
             self._thread.start()
@@ -218,6 +224,7 @@ class FitWorker:
             self._thread.join(timeout_s)
             self._thread = None
             sys.setswitchinterval(self._switch_s)
+            gc.unfreeze()
         elif self.enabled:
             self._write_model(final=True)
 

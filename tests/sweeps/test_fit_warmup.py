@@ -1,8 +1,9 @@
 """What the fit thread may not do beside the acquisition (issue: overnight scale): import
 modules (an import takes module locks, and an extension module loads with the
 interpreter lock held, stalling the acquisition thread), keep the interpreter lock for
-Python's default 5 ms whenever the acquisition thread wakes, or call a BLAS that spins
-helper threads while the interpreter lock is held. Each check runs in a fresh
+Python's default 5 ms whenever the acquisition thread wakes, let the cyclic collector
+scan every module object in one pass, or call a BLAS that spins helper threads while
+the interpreter lock is held. Each check runs in a fresh
 interpreter, since the test process has everything imported already."""
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ import pytest
 TESTS = Path(__file__).resolve().parents[1]
 
 _RUN = """
-import json, sys, tempfile, threading
+import gc, json, sys, tempfile, threading
 from pathlib import Path
 sys.path.insert(0, {tests!r})
 from plantext import cv, forward, limits, plan_text
@@ -46,6 +47,7 @@ seen = [0]
 
 
 switch = []  # the interpreter's switch interval at the first point
+frozen = []  # objects the cyclic collector leaves out then
 
 
 def listener(event):
@@ -53,6 +55,7 @@ def listener(event):
         seen[0] += 1
         if seen[0] == 1:
             switch.append(sys.getswitchinterval())
+            frozen.append(gc.get_freeze_count())
         if seen[0] == plan.total_points:
             acquiring[0] = False  # the run's end work may import what it needs
     elif event.kind == "fit":
@@ -63,8 +66,9 @@ fits = []
 with tempfile.TemporaryDirectory() as tmp:
     Launch.new(plan, out_dir=Path(tmp), listeners=[listener]).run()
 switch.append(sys.getswitchinterval())
+frozen.append(gc.get_freeze_count())
 print(json.dumps({{"imports": imports, "points": seen[0], "fits": sorted(set(fits)),
-                  "switch": switch}}))
+                  "switch": switch, "frozen": frozen}}))
 """
 
 
@@ -82,6 +86,9 @@ def test_the_fit_thread_imports_nothing_and_yields_often_while_points_are_taken(
     # while points are taken the interpreter hands its lock on every millisecond (not
     # Python's 5 ms), and the run's end gives the default back
     assert got["switch"] == [0.001, 0.005]
+    # and the cyclic collector leaves out what existed at the start (modules, plan,
+    # bench) until the run's end
+    assert got["frozen"][0] > 10_000 and got["frozen"][1] == 0
 
 
 _BLAS = """
