@@ -4,6 +4,7 @@ Each bias point is one program message (set the level, read, ask for compliance)
 per-point cost is one round trip. Every fault is an InstrumentError; settings that
 cannot be used are DialectError or BadInput. `safe_off` is the way out of every run: it
 ramps the source to zero, turns the output off and confirms it by asking.
+What every role shares (session, identity, the confirmed switch-off) is in `rolebase`.
 """
 
 from __future__ import annotations
@@ -18,6 +19,9 @@ from pnbench.drivers.exchange import flag as _flag
 from pnbench.drivers.exchange import reading_fields as _fields  # noqa: F401 - lcrcorrection's
 from pnbench.drivers.exchange import reading_values as _values
 from pnbench.drivers.lcrcorrection import LcrCorrections
+from pnbench.drivers.rolebase import Role
+from pnbench.drivers.rolebase import finite as _finite
+from pnbench.drivers.rolebase import positive as _positive  # also lcrcorrection's
 from pnbench.drivers.session import Session
 from pnbench.errors import BadInput, DialectError, InstrumentError
 from pnbench.modeling import smallsignal
@@ -53,64 +57,7 @@ class LcrReading:
     secondary: float
 
 
-def _positive(name: str, x: float) -> float:
-    x = float(x)
-    if not (math.isfinite(x) and x > 0):
-        raise BadInput(f"{name} must be a positive number, found {x!r}")
-    return x
-
-
-def _finite(name: str, x: float) -> float:
-    x = float(x)
-    if not math.isfinite(x):
-        raise BadInput(f"{name} must be a finite number, found {x!r}")
-    return x
-
-
-class _Role:
-    """What every instrument role shares: its session, dialect and identity."""
-
-    role = ""
-
-    def __init__(self, session: Session, dialect: Dialect | None = None) -> None:
-        self.session = session
-        self.dialect = dialect or session.dialect
-        self.commands = self.dialect.require(self.role)
-        self._identity: str | None = None
-
-    @property
-    def identity(self) -> str:
-        """The instrument's *IDN? reply, asked once."""
-        if self._identity is None:
-            self._identity = self.session.identify()
-        return self._identity
-
-    def _switch_off(self, message: str, is_on, what: str, problems: list[str]) -> bool | None:
-        """Send the off message, then ask whether ``what`` is still on.
-
-        Appends what went wrong to ``problems``; raises InstrumentError when the state
-        cannot be read back or is still on. Returns the state read (None when the dialect
-        has no query for it).
-        """
-        try:
-            self.session.write(message)
-        except Exception as exc:  # noqa: BLE001 - go on to the confirmation
-            problems.append(f"{what} off command failed: {exc}")
-        try:
-            still_on = is_on()
-        except Exception as exc:  # noqa: BLE001
-            problems.append(f"{what} state query failed: {exc}")
-            raise InstrumentError(f"{self.session.resource_name}: {what} could not be "
-                                  "confirmed off; CHECK THE INSTRUMENT: "
-                                  + "; ".join(problems)) from None
-        if still_on:
-            raise InstrumentError(f"{self.session.resource_name}: {what} is still ON after "
-                                  "the off command; CHECK THE INSTRUMENT"
-                                  + ("" if not problems else ": " + "; ".join(problems)))
-        return still_on
-
-
-class Smu(_Role):
+class Smu(Role):
     """A source-measure unit: source voltage or current, limit the other, read both."""
 
     role = "smu"
@@ -323,7 +270,7 @@ def admittance_from_reading(form: str, primary: float, secondary: float,
     return complex(y)
 
 
-class LcrMeter(LcrCorrections, _Role):
+class LcrMeter(LcrCorrections, Role):
     """An LCR meter: AC level, frequency, DC bias, corrections; reads admittance."""
 
     role = "lcr"

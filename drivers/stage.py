@@ -16,7 +16,8 @@ from dataclasses import dataclass
 
 from pnbench.drivers import scpi
 from pnbench.drivers.dialect import Dialect, StageCommands
-from pnbench.drivers.roles import _flag, _Role
+from pnbench.drivers.exchange import flag as _flag
+from pnbench.drivers.rolebase import Role
 from pnbench.drivers.session import Session
 from pnbench.errors import BadInput, InstrumentError, SafetyStop
 
@@ -52,7 +53,7 @@ class StageReading:
     regulating: bool | None  # None: the dialect has no control_query
 
 
-class ThermalStage(_Role):
+class ThermalStage(Role):
     """A thermal stage: set point, measured temperature, ramp rate, regulation, standby."""
 
     role = "stage"
