@@ -1,6 +1,6 @@
 """Does the app keep up with a long sweep, at the same cost per point and flat memory?
 
-    python tests/benchmarks/app_feed.py [--sizes 10000,100000] [--keep DIR]
+    python tests/benchmarks/app_feed.py [--big] [--sizes 10000,100000] [--keep DIR]
 
 For each size the plan of `overnight.py` (ten steps, forward I-V and C-V in turn) runs on
 the simulated bench at time scale 0, fitting on, no report, twice, each in its own
@@ -27,8 +27,11 @@ Measured on 2 shared cores under load, before and after the app took its points 
 columns and bounded its plot data and redraws: at 1e5 points the app went from 7179 to
 592 us a point (headless 641 and 443 in the same rounds: x11.2 -> x1.34), its peak RSS
 from 298 to 150 MiB (headless 115 and 110), and it showed the last point 15.7 s -> 0.16 s
-after it was taken. At 1e4: x1.20 in time per point; the app's RSS up to the last point
-118 MiB at 1e4 and 141 MiB at 1e5 (x1.19; headless x1.08).
+after it was taken. On a lighter load afterwards: app against headless x0.95 (1e4) and
+x1.21 (1e5) in time per point; the app's RSS up to the last point 118 MiB at 1e4 and
+140 MiB at 1e5 (x1.19; headless 95 and 104, x1.09), last point shown 0.07 s after it
+was taken. At 1e6 (one run each, not interleaved): 467 against 502 us a point, peak RSS
+273 against 234 MiB, the last point shown 0.09 s after it was taken.
 """
 
 from __future__ import annotations
@@ -127,9 +130,10 @@ def main() -> None:
         return
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", default="10000,100000", help="point counts, comma-separated")
+    ap.add_argument("--big", action="store_true", help="also run 1 000 000 points")
     ap.add_argument("--keep", type=Path, help="keep the run folders here")
     args = ap.parse_args()
-    sizes = [int(s) for s in args.sizes.split(",")]
+    sizes = [int(s) for s in args.sizes.split(",")] + ([1_000_000] if args.big else [])
     with tempfile.TemporaryDirectory() as tmp:
         base = args.keep or Path(tmp)
         runs: dict[int, dict[str, dict]] = {}
