@@ -6,6 +6,7 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+import tempfile
 import time
 
 
@@ -21,11 +22,16 @@ def unbuffered() -> dict:
 
 def start_run(plan, out, *options: str) -> subprocess.Popen:
     """`pnbench run PLAN --headless --out OUT OPTIONS...` in its own process (stdout
-    dropped, stderr piped for the message of a run that fails)."""
-    return subprocess.Popen(pnbench("run", str(plan), "--headless", "--out", str(out),
+    dropped; stderr, where headless progress goes, into an unnamed temporary file kept as
+    ``proc.stderr_file`` for the message of a run that fails). Not a pipe: nobody reads
+    it while the run goes on, and a run that filled a pipe's buffer with progress lines
+    would block on its next write (a long run over temperature on a loaded machine)."""
+    err = tempfile.TemporaryFile()
+    proc = subprocess.Popen(pnbench("run", str(plan), "--headless", "--out", str(out),
                                     *options),
-                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
-                            env=unbuffered())
+                            stdout=subprocess.DEVNULL, stderr=err, env=unbuffered())
+    proc.stderr_file = err  # type: ignore[attr-defined]
+    return proc
 
 
 def wait_for(predicate, timeout_s: float) -> bool:
