@@ -117,7 +117,7 @@ def start_values(v: np.ndarray, i: np.ndarray, temperature_K: float,
     if m < 2:
         raise ValueError("need two forward points above the floor")
     y = np.log(ii)
-    w = int(max(3, min(m // 5, 25))) if m >= 3 else 2
+    w = int(max(3, min(m // 5, max(25, m // 20)))) if m >= 3 else 2
     best = None
     if m >= w:
         slope, icpt, rms, sd = _window_sums(vv, y, w)
@@ -143,6 +143,8 @@ def start_values(v: np.ndarray, i: np.ndarray, temperature_K: float,
         first, last = best, best + w - 1
     a = n0 * vt
     rs0 = _cheung_rs(vv[last:], ii[last:], a, is0)
+    if rs0 * ii[-1] < 0.1 * a:  # bends even the top point by < 10 %: noise read as RS, and
+        rs0 = 0.0  # a fit started there crawls the valley where RS, RSH, N and IS trade off
     below = slice(0, first)
     g0 = 0.0
     if first > 0:
