@@ -257,6 +257,7 @@ def forward_state(model: ForwardModel, v: np.ndarray, i: np.ndarray,
         t0 = np.where(np.isfinite(start), start, t0)
         if shunt and t0[3] <= 0:
             t0[3] = max(start_values(sv, si, model.temperature_K)[3], 0.0)
+    t0 = _required_first(model, sv, si, t0)
     active = np.array([True, True, True, shunt])
     if not shunt:
         t0 = t0.copy()
@@ -267,6 +268,29 @@ def forward_state(model: ForwardModel, v: np.ndarray, i: np.ndarray,
         known = stated_noise(model, noise, v, i, noise_scale, first.t)
         t0 = np.where(active, first.t, t0)
     return coarse.fit(model, x, y, elig, t0, active, noise=known, forced_use=forced)
+
+
+def _required_first(model: ForwardModel, v: np.ndarray, i: np.ndarray,
+                    t0: np.ndarray) -> np.ndarray:
+    """The start with IS and N solved first, RS and RSH held at their start values (on
+    the start values' subset of points). Where the data do not determine RS and RSH,
+    IS and N trade off against them along a nearly flat valley, and a solve of all four
+    from a start off that valley's floor crawls along it to the iteration limit; from
+    IS and N at their best it reaches the same minimum in a few steps."""
+    x, y = v[:, None], i[:, None]
+    elig = np.ones_like(y, dtype=bool)
+    try:
+        with np.errstate(all="ignore"):
+            noise = lsq.initial_noise(model, y, elig)
+            yhat, _ = model.predict(t0, x, None)
+            use = lsq.usable_rows(model, y, yhat, elig, noise)
+            if np.count_nonzero(use) < MIN_POINTS:
+                return t0
+            t, *_ = lsq.levenberg(model, t0, np.array([True, True, False, False]), x, y,
+                                  use, noise, max_iter=20, yhat_ref=yhat)
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError):
+        return t0
+    return t if np.all(np.isfinite(t)) else t0
 
 
 def fit_with_model(model: ForwardModel, v, i, eligible, *, forced=False, noise=None,
