@@ -49,6 +49,7 @@ class _ForwardSpec:
     kind = "iv_forward"
     x_width = 1
     min_points = fit_iv.MIN_POINTS
+    refit_calls_warm = True  # a called RS or RSH is fitted warm before a full refit
 
     def __init__(self, temperature_K: float, noise, shunt: bool = True,
                  noise_scale: float = 1.0):

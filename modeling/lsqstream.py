@@ -262,31 +262,69 @@ class LsqStream:
             return False
         if any(z < lsq.Z_KEEP for z in lsq.significance(model, state).values()):
             return False
-        if self._called_for(state, x, y):
+        called = self._calls(state, x, y)
+        if called and not (getattr(self.spec, "refit_calls_warm", False)
+                           and self._still_out(state, called, x, y)):
             return False
         self._reset_sums(state)
         self.refits["warm"] += 1
         return True
 
+    def _still_out(self, state: lsq.FitState, called: list[int], x: np.ndarray,
+                   y: np.ndarray) -> bool:
+        """Whether every parameter the score test calls for stays out when it is
+        fitted: freed alone from its null with the warm state's rows and noise model, a
+        converged solve puts it below Z_KEEP standard errors (the keep rule of a full
+        refit), so a full refit would leave it out again. A call at CALL_Z that the 3
+        sigma rule then refuses is common on a long forward I–V step's way from the
+        exponential region to where RS shows, and a full refit costs many warm ones
+        (a spec opts in with ``refit_calls_warm``)."""
+        for k in called:
+            active = state.active.copy()
+            active[k] = True
+            t = state.t.copy()
+            t[k] = self.model.params[k].null
+            try:
+                t, _, _, _, converged = lsq.levenberg(self.model, t, active, x, y,
+                                                      state.used, state.noise,
+                                                      max_iter=WARM_MAX_ITER)
+                h, g, s = blocked.normal_sums(self.model, t, np.flatnonzero(active), x, y,
+                                              state.used, state.noise)
+            except (ValueError, ArithmeticError, np.linalg.LinAlgError):
+                return False
+            trial = replace(state, t=t, active=active, hessian=h, gradient=g, chi2=s,
+                            converged=converged)
+            if not (converged and np.all(np.isfinite(h))):
+                return False
+            if lsq.significance(self.model, trial).get(k, 0.0) >= lsq.Z_KEEP:
+                return False
+        return True
+
     def _called_for(self, state: lsq.FitState, x: np.ndarray, y: np.ndarray) -> bool:
         """Whether the data now call for an optional parameter the last full refit left
-        out: one Gauss–Newton step with that parameter freed from its null (a score
+        out (`_calls`)."""
+        return bool(self._calls(state, x, y))
+
+    def _calls(self, state: lsq.FitState, x: np.ndarray, y: np.ndarray) -> list[int]:
+        """The optional parameters the last full refit left out that the data now call
+        for: one Gauss–Newton step with that parameter freed from its null (a score
         test, one parameter at a time) moves it, inside its bounds, by CALL_Z of its
-        standard error or more."""
+        standard error or more. A sum that is not finite calls for all of them."""
         params = self.model.params
         absent = [k for k, p in enumerate(params) if p.optional and not state.active[k]]
         shown = getattr(self.spec, "can_show", None)  # not held, and shown by these rows
         if shown is not None:
             absent = [k for k in absent if shown(params[k].name, self.elig.view())]
         if not absent:
-            return False
+            return []
         trial = state.active.copy()
         trial[absent] = True
         idx = np.flatnonzero(trial)
         h_all, g_all, _ = blocked.normal_sums(self.model, state.t, idx, x, y, state.used,
                                               state.noise)
         if not (np.all(np.isfinite(h_all)) and np.all(np.isfinite(g_all))):
-            return True
+            return absent
+        called = []
         kept = [j for j, k in enumerate(idx) if state.active[k]]
         for k in absent:
             j = int(np.searchsorted(idx, k))
@@ -299,14 +337,14 @@ class LsqStream:
             try:
                 step = -np.linalg.solve(h / np.outer(d, d), g / d) / d
             except np.linalg.LinAlgError:
-                return True
+                return absent
             var = cov[-1, -1]
             sd = math.sqrt(var) if np.isfinite(var) and var > 0 else 0.0
             moved = state.t[k] + step[-1]
             if (params[k].lower <= moved <= params[k].upper and sd > 0
                     and abs(step[-1]) >= CALL_Z * sd):
-                return True
-        return False
+                called.append(k)
+        return called
 
     def current_t(self) -> np.ndarray:
         t = self.state.t.copy()
