@@ -134,9 +134,10 @@ class RunScreen(Screen):
             self._tick_progress()
             return
         now = time.monotonic()
-        if not force and state.point_count - self._drawn_points >= STREAM_POINTS \
+        if not force and not state.finished \
+                and state.point_count - self._drawn_points >= STREAM_POINTS \
                 and now - self._drawn_at < STREAM_PERIOD_S:
-            return
+            return  # a run that has ended is drawn at once, however fast it ended
         self._drawn_version, self._drawn_points, self._drawn_at = (
             state.version, state.point_count, now)
         if self.follow_step:
