@@ -21,7 +21,7 @@ from scipy import constants
 
 __all__ = [
     "DopingProfile", "MottSchottkyLine", "MottSchottkyResult", "abrupt_capacitance",
-    "abrupt_card_values", "doping_from_slope", "doping_profile", "local_slopes",
+    "abrupt_card_values", "abrupt_doping", "doping_from_slope", "doping_profile", "local_slopes",
     "mott_schottky", "mott_schottky_line", "permittivity", "step_junction_built_in_voltage",
 ]
 
@@ -285,3 +285,14 @@ def abrupt_card_values(doping_per_m3: float, built_in_voltage_V: float, area_m2:
     cjo = float(abrupt_capacitance(0.0, doping_per_m3, built_in_voltage_V, area_m2,
                                    semiconductor, temperature_K))
     return {"CJO": cjo, "VJ": vj, "M": 0.5}
+
+
+def abrupt_doping(CJO: float, VJ: float, area_m2: float,  # noqa: N803 - card names
+                  semiconductor: str | Material | float = "Si",
+                  temperature_K: float = TABLE_TEMPERATURE_K) -> tuple[float, float]:
+    """The inverse of `abrupt_card_values`: (doping per m^3, Vbi) of the abrupt junction
+    whose card is CJO*(1 - V/VJ)**-0.5, N = 2*VJ*CJO**2/(q*eps*A**2), Vbi = VJ + kT/q."""
+    eps, _ = _permittivity_of(semiconductor)
+    area = _check_area(area_m2)
+    return (2.0 * VJ * CJO**2 / (constants.e * eps * area**2),
+            VJ + thermal_voltage(temperature_K))

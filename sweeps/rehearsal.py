@@ -204,17 +204,14 @@ def _doping(model_doc: dict, device, part, temperature_K: float,
         notes.append(f"the part is not abrupt (M = {part.M:g}): its doping is a profile, "
                      "so the Mott-Schottky figures are not compared")
         return []
-    from scipy import constants
-
-    from pnbench.modeling.depletion import permittivity
-    from pnbench.modeling.junction import thermal_voltage
+    from pnbench.modeling.depletion import abrupt_doping
 
     try:
-        eps = permittivity(str(device.device.get("material") or "Si"))
+        truth_n, truth_vbi = abrupt_doping(part.CJO, part.VJ, area,
+                                           str(device.device.get("material") or "Si"),
+                                           temperature_K)
     except (PnbenchError, KeyError, ValueError):
         return []
-    truth_n = 2 * part.VJ * part.CJO**2 / (constants.e * eps * area**2)
-    truth_vbi = part.VJ + thermal_voltage(temperature_K)
     rows = []
     for name, key, sigma_key, truth, unit in (
             ("doping", "doping_per_m3", "doping_sigma_per_m3", truth_n, "1/m3"),

@@ -206,3 +206,14 @@ def test_card_eg_defaults_are_the_simulator_values_not_the_band_gaps():
     # Materials without a simulator default fall back to their band gap.
     gaas = materials.material("GaAs")
     assert gaas.default_card_eg_eV == gaas.bandgap_eV.value
+
+
+def test_abrupt_doping_inverts_the_card_values():
+    """N = 2*VJ*CJO**2/(q*eps*A**2) and Vbi = VJ + kT/q (docs/physics.md section 7) give
+    back the doping and built-in voltage the card was made from."""
+    from pnbench.modeling.depletion import abrupt_card_values, abrupt_doping
+
+    card = abrupt_card_values(3e21, 0.78, 2.5e-7, "Si", 300.15)
+    n, vbi = abrupt_doping(card["CJO"], card["VJ"], 2.5e-7, "Si", 300.15)
+    assert n == pytest.approx(3e21, rel=1e-12)
+    assert vbi == pytest.approx(0.78, rel=1e-12)
