@@ -232,3 +232,10 @@ def from_folder(run_dir: Path | str) -> PartCheck | None:
                             run_dir)
     except (PnbenchError, OSError, ValueError):
         return None
+
+
+def folder_summary(run_dir: Path | str) -> str:
+    """The one-line check of a run folder against its simulated part; "" for a run on
+    real instruments (what headless and the app print at a run's end)."""
+    check = from_folder(run_dir)
+    return check.summary() if check is not None and check.rows else ""

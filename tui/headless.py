@@ -319,11 +319,11 @@ def finish_report(run_dir, stream=None) -> Path | None:
 def print_part_check(run_dir, stream) -> None:
     """After a rehearsal on the simulated bench: the fitted values against the part's
     (`sweeps.rehearsal`); nothing for a run on real instruments."""
-    from pnbench.sweeps.rehearsal import from_folder
+    from pnbench.sweeps.rehearsal import folder_summary
 
-    check = from_folder(run_dir)
-    if check is not None and check.rows:
-        print(check.summary(), file=stream)
+    line = folder_summary(run_dir)
+    if line:
+        print(line, file=stream)
 
 
 def run_headless(launch, plan, *, stream=None, tty: bool | None = None,

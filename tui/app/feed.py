@@ -65,7 +65,9 @@ class RunFeed:
     def _report_written(self, run_dir: Path) -> None:
         """Say where the sweep's report is (the engine wrote it in the run's end work, as
         for headless runs), unless --no-report said otherwise."""
-        check = part_check_line(run_dir)
+        from pnbench.sweeps.rehearsal import folder_summary
+
+        check = folder_summary(run_dir)
         if not self.control.report:
             if check:
                 self.notify(check, timeout=12)
@@ -119,12 +121,3 @@ class RunFeed:
         if state.status != self._shown_status:  # Pause becomes Resume, Start comes back
             self._shown_status = state.status
             self.refresh_bindings()
-
-
-def part_check_line(run_dir: Path) -> str:
-    """For a rehearsal on the simulated bench, its fit against the part in one line
-    (`sweeps.rehearsal`); "" for a run on real instruments."""
-    from pnbench.sweeps.rehearsal import from_folder
-
-    check = from_folder(run_dir)
-    return check.summary() if check is not None and check.rows else ""
